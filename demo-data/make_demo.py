@@ -1,0 +1,97 @@
+#!/usr/bin/env python3
+"""Rebuilds the invented recycling-plant demo data (standard library only, seeded).
+
+INVENTED SCENARIO: no real plant, camera or operator is behind these numbers.
+
+A sorting plant photographs each item on the belt; a vision model embeds the picture into
+12 numbers (emb0..emb11). Operators at four sorting stations type the material. They mix
+up some pairs more than others (PET vs HDPE, cardboard vs paper, aluminium vs steel), so
+the flip pattern is asymmetric. A supervisor audited a few hundred items (column
+`trusted`). The true material of every item is in recycling_truth.csv, for checking the
+tool only.
+
+Usage: python3 make_demo.py [--seed 20261201] [--rows 8000] [--audited 400]
+"""
+import argparse
+import csv
+import math
+import os
+import random
+
+CLASSES = ["pet_bottle", "hdpe_jug", "alu_can", "steel_can", "glass", "cardboard", "paper", "film"]
+SHARES = [0.20, 0.12, 0.14, 0.06, 0.10, 0.18, 0.14, 0.06]
+# FLIPS[true] = {typed: probability}; the rest of each row stays on the true material.
+FLIPS = {
+    "pet_bottle": {"hdpe_jug": 0.15, "film": 0.02},
+    "hdpe_jug": {"pet_bottle": 0.08},
+    "alu_can": {"steel_can": 0.12},
+    "steel_can": {"alu_can": 0.05},
+    "glass": {"pet_bottle": 0.04},
+    "cardboard": {"paper": 0.18},
+    "paper": {"cardboard": 0.10, "film": 0.02},
+    "film": {"hdpe_jug": 0.08, "paper": 0.06},
+}
+# Materials that look alike sit closer together in the embedding.
+NEIGHBOURS = [("pet_bottle", "hdpe_jug"), ("alu_can", "steel_can"), ("cardboard", "paper"), ("film", "hdpe_jug")]
+STATIONS = ["S1", "S2", "S3", "S4"]
+DIMS = 12
+
+
+def flip_matrix():
+    rows = []
+    for true in CLASSES:
+        row = [FLIPS[true].get(typed, 0.0) for typed in CLASSES]
+        row[CLASSES.index(true)] = 1.0 - sum(row)
+        rows.append(row)
+    return rows
+
+
+def class_means(rng):
+    means = {c: [rng.gauss(0, 1.6) for _ in range(DIMS)] for c in CLASSES}
+    for a, b in NEIGHBOURS:
+        means[b] = [0.55 * x + 0.45 * y for x, y in zip(means[a], means[b])]
+    return means
+
+
+def draw(rng, weights):
+    u, acc = rng.random(), 0.0
+    for i, w in enumerate(weights):
+        acc += w
+        if u < acc:
+            return i
+    return len(weights) - 1
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--seed", type=int, default=20261201)
+    ap.add_argument("--rows", type=int, default=8000)
+    ap.add_argument("--audited", type=int, default=400)
+    ap.add_argument("--out", default=os.path.dirname(os.path.abspath(__file__)))
+    args = ap.parse_args()
+    rng = random.Random(args.seed)
+    means = class_means(rng)
+    scale = [round(rng.uniform(0.5, 4.0), 2) for _ in range(DIMS)]
+    offset = [round(rng.uniform(-5, 5), 2) for _ in range(DIMS)]
+    t = flip_matrix()
+    audited = set(rng.sample(range(args.rows), args.audited))
+    data_path = os.path.join(args.out, "recycling.csv")
+    truth_path = os.path.join(args.out, "recycling_truth.csv")
+    with open(data_path, "w", newline="") as fd, open(truth_path, "w", newline="") as ft:
+        data, truth = csv.writer(fd, lineterminator="\n"), csv.writer(ft, lineterminator="\n")
+        data.writerow(["id", "station"] + [f"emb{d}" for d in range(DIMS)] + ["label", "trusted"])
+        truth.writerow(["id", "true_label"])
+        for row in range(args.rows):
+            true = draw(rng, SHARES)
+            typed = draw(rng, t[true])
+            emb = [offset[d] + scale[d] * (means[CLASSES[true]][d] + rng.gauss(0, 1.0)) for d in range(DIMS)]
+            item = f"B{1 + row % 3}-{row:05d}"
+            trusted = CLASSES[true] if row in audited else ""
+            data.writerow([item, STATIONS[rng.randrange(4)]] + [f"{v:.4f}" for v in emb] + [CLASSES[typed], trusted])
+            truth.writerow([item, CLASSES[true]])
+    print(f"wrote {data_path} and {truth_path} (seed {args.seed})")
+    assert all(math.isclose(sum(r), 1.0) for r in t)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,55 @@
+//! The command line: flags parsed into plain data, then turned into library calls.
+
+mod args;
+mod inspect;
+
+use std::io::Write;
+
+use clap::{Parser, Subcommand};
+
+pub use args::{ProbArgs, TableArgs};
+pub use inspect::InspectArgs;
+
+use crate::error::Result;
+
+/// flipmend: measure how labels flip between classes, find the rows most likely
+/// mislabelled, and train models that account for the noise.
+#[derive(Debug, Parser)]
+#[command(name = "flipmend", version, about, long_about = None, propagate_version = true)]
+pub struct Cli {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Option<Command>,
+}
+
+/// The subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Load a labelled table (and optionally model probabilities) and report what was read:
+    /// rows, features, classes with counts, trusted labels, ignored columns, problems.
+    Inspect(InspectArgs),
+}
+
+/// Runs a parsed command line, writing its report to `out`.
+pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
+    match cli.command {
+        Some(Command::Inspect(args)) => inspect::run(&args, out),
+        None => {
+            let help = <Cli as clap::CommandFactory>::command()
+                .render_help()
+                .to_string();
+            emit(out, &help)
+        }
+    }
+}
+
+/// Writes a report; a closed pipe (`flipmend … | head`) is not an error.
+pub(crate) fn emit(out: &mut dyn Write, text: &str) -> Result<()> {
+    match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(crate::Error::Write {
+            path: "standard output".into(),
+            source: e,
+        }),
+        _ => Ok(()),
+    }
+}

@@ -1,0 +1,381 @@
+//! The library's error type.
+//!
+//! Every failure that a user can cause names the file and, where it applies, the line and
+//! column, so the command line can print one line that says exactly where to look. The
+//! binary maps [`Error::is_bad_input`] to exit code 2 and everything else to 1.
+
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+/// Shorthand for results whose error is [`Error`].
+pub type Result<T, E = Error> = std::result::Result<T, E>;
+
+/// Where in an input file a problem was found.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Location {
+    /// The file as the user named it.
+    pub path: PathBuf,
+    /// 1-based physical line in the file, when the problem sits on one line.
+    pub line: Option<u64>,
+    /// 1-based field number and the column's header name, when one column is at fault.
+    pub column: Option<(usize, String)>,
+    /// 0-based data row, for binary files that have no lines.
+    pub row: Option<usize>,
+}
+
+impl Location {
+    /// A problem with the file as a whole.
+    pub fn file(path: &Path) -> Self {
+        Location {
+            path: path.to_path_buf(),
+            line: None,
+            column: None,
+            row: None,
+        }
+    }
+
+    /// A problem on one line.
+    pub fn line(path: &Path, line: u64) -> Self {
+        Location {
+            path: path.to_path_buf(),
+            line: Some(line),
+            column: None,
+            row: None,
+        }
+    }
+
+    /// A problem in one data row of a file without lines (e.g. `.npy`).
+    pub fn row(path: &Path, row: usize) -> Self {
+        Location {
+            path: path.to_path_buf(),
+            line: None,
+            column: None,
+            row: Some(row),
+        }
+    }
+
+    /// Adds the column (0-based index, header name) to the location.
+    pub fn at_column(mut self, index: usize, name: &str) -> Self {
+        self.column = Some((index + 1, name.to_string()));
+        self
+    }
+}
+
+impl fmt::Display for Location {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}", self.path.display())?;
+        if let Some(line) = self.line {
+            write!(f, ", line {line}")?;
+        }
+        if let Some(row) = self.row {
+            write!(f, ", row {row}")?;
+        }
+        if let Some((number, name)) = &self.column {
+            write!(f, ", column {number} '{name}'")?;
+        }
+        Ok(())
+    }
+}
+
+/// What is wrong with an input file. Each variant's message completes the sentence
+/// "`<location>`: …".
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[non_exhaustive]
+pub enum Problem {
+    /// The file has no bytes (or only a byte-order mark and blank lines).
+    #[error("the file is empty; expected a header row naming the columns")]
+    Empty,
+    /// A header row but no data rows.
+    #[error("the file has a header row but no data rows")]
+    HeaderOnly,
+    /// Two header cells carry the same name, so a role flag could not say which one it means.
+    #[error("the column name '{name}' appears more than once in the header")]
+    DuplicateColumn {
+        /// The repeated name.
+        name: String,
+    },
+    /// A row with a different number of fields than the header.
+    #[error("this row has {found} fields but the header has {expected}{hint}")]
+    Ragged {
+        /// Fields in the header.
+        expected: usize,
+        /// Fields in this row.
+        found: usize,
+        /// An extra sentence, e.g. about an unquoted delimiter.
+        hint: String,
+    },
+    /// A flag names a column the header does not have.
+    #[error("{flag} names the column '{name}', which is not in the header; the columns are: {available}")]
+    UnknownColumn {
+        /// The flag, e.g. `--label`.
+        flag: String,
+        /// The name given.
+        name: String,
+        /// Comma-separated header names.
+        available: String,
+    },
+    /// No `--label` was given and no column is called `label`.
+    #[error("no label column: pass --label COL (no column is named 'label'); the columns are: {available}{hint}")]
+    NoLabelColumn {
+        /// Comma-separated header names.
+        available: String,
+        /// An extra sentence, e.g. suggesting `--delimiter`.
+        hint: String,
+    },
+    /// One column was given two roles.
+    #[error("the column '{name}' cannot be both the {first} and the {second}")]
+    RoleClash {
+        /// The column.
+        name: String,
+        /// First role.
+        first: String,
+        /// Second role.
+        second: String,
+    },
+    /// Fewer than two classes among the labels.
+    #[error("found {found} class(es) ({names}); at least 2 are needed")]
+    TooFewClasses {
+        /// How many.
+        found: usize,
+        /// Their names.
+        names: String,
+    },
+    /// No usable feature columns.
+    #[error("no numeric feature columns found{detail}")]
+    NoFeatures {
+        /// What was found instead.
+        detail: String,
+    },
+    /// A feature cell that does not parse as a number.
+    #[error("'{value}' is not a number")]
+    NotNumber {
+        /// The cell text (shortened when long).
+        value: String,
+    },
+    /// A feature cell holding NaN or an infinity.
+    #[error("'{value}' is not a finite number; features must be finite")]
+    NotFinite {
+        /// The cell text.
+        value: String,
+    },
+    /// Empty cells in a feature column.
+    #[error("{count} empty cell(s) in this feature column (the first is on this line); fill them, or leave the column out with --features")]
+    MissingValues {
+        /// How many empty cells the column has.
+        count: usize,
+    },
+    /// An empty label cell.
+    #[error("the label cell is empty; every row needs an observed label")]
+    EmptyLabel,
+    /// Bytes that are not UTF-8 where text is needed.
+    #[error("the text is not valid UTF-8; save the file as UTF-8")]
+    InvalidUtf8,
+    /// An id that occurs twice.
+    #[error("the id '{id}' was already used on line {first_line}; ids must be unique")]
+    DuplicateId {
+        /// The repeated id.
+        id: String,
+        /// Line of its first occurrence.
+        first_line: u64,
+    },
+    /// The CSV parser itself failed (e.g. a quote that never closes).
+    #[error("cannot parse this as CSV: {detail}")]
+    Syntax {
+        /// The parser's explanation.
+        detail: String,
+    },
+    /// Class columns are missing from a probability file.
+    #[error("no column for the class(es) {missing}; a probability file needs one column per class: {classes}")]
+    ProbMissingClasses {
+        /// Missing class names.
+        missing: String,
+        /// All class names.
+        classes: String,
+    },
+    /// Columns in a probability file that are neither a class nor the id.
+    #[error("the column(s) {extra} are not classes of the dataset (classes: {classes})")]
+    ProbExtraColumns {
+        /// Unexpected column names.
+        extra: String,
+        /// All class names.
+        classes: String,
+    },
+    /// The probability file has a different number of rows than the dataset.
+    #[error("{found} probability rows for {expected} data rows{hint}")]
+    ProbRowCount {
+        /// Data rows.
+        expected: usize,
+        /// Probability rows.
+        found: usize,
+        /// An extra sentence.
+        hint: String,
+    },
+    /// A probability outside [0, 1] or NaN.
+    #[error("the probability {value} is outside [0, 1]")]
+    ProbOutOfRange {
+        /// The value as read.
+        value: String,
+    },
+    /// A row of probabilities that does not sum to 1.
+    #[error("this row's probabilities sum to {sum:.6}, not 1 (tolerance 1e-3); pass --renormalize to rescale such rows")]
+    ProbRowSum {
+        /// The row sum.
+        sum: f64,
+    },
+    /// An all-zero row cannot be renormalised.
+    #[error("this row's probabilities are all zero, so it cannot be renormalised")]
+    ProbZeroRow,
+    /// A probability row whose id is not in the dataset.
+    #[error("the id '{id}' is not in the dataset")]
+    ProbUnknownId {
+        /// The id.
+        id: String,
+    },
+    /// Data rows that got no probability row.
+    #[error("{count} data row(s) have no probability row, e.g. id '{example}'")]
+    ProbMissingIds {
+        /// How many.
+        count: usize,
+        /// One of them.
+        example: String,
+    },
+    /// A malformed `.npy` header.
+    #[error("not a readable .npy file: {detail}")]
+    NpyHeader {
+        /// What is wrong.
+        detail: String,
+    },
+    /// An `.npy` element type other than float32/float64.
+    #[error("the .npy array holds '{descr}'; flipmend reads float32 ('<f4') or float64 ('<f8')")]
+    NpyDtype {
+        /// The numpy type descriptor.
+        descr: String,
+    },
+    /// An `.npy` array of the wrong shape.
+    #[error(
+        "the .npy array has shape {shape}; expected ({rows}, {classes}) = (data rows, classes)"
+    )]
+    NpyShape {
+        /// The shape as written in the header.
+        shape: String,
+        /// Data rows.
+        rows: usize,
+        /// Classes.
+        classes: usize,
+    },
+    /// The `.npy` data is shorter or longer than its header says.
+    #[error("the .npy data has {found} bytes but its header announces {expected}")]
+    NpySize {
+        /// Bytes announced by the header.
+        expected: u64,
+        /// Bytes present.
+        found: u64,
+    },
+}
+
+/// A problem in an input file and where it is (boxed inside [`Error`] to keep results small).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{location}: {problem}")]
+pub struct InputError {
+    /// Where.
+    pub location: Location,
+    /// What.
+    pub problem: Problem,
+}
+
+/// Every error the library returns.
+#[derive(Debug, thiserror::Error)]
+#[non_exhaustive]
+pub enum Error {
+    /// An input file could not be opened or read.
+    #[error("{path}: cannot read: {source}", path = path.display())]
+    Read {
+        /// The file.
+        path: PathBuf,
+        /// The operating system's reason.
+        source: std::io::Error,
+    },
+    /// An input file's content is wrong.
+    #[error(transparent)]
+    Input(Box<InputError>),
+    /// A flag or combination of flags that cannot work.
+    #[error("{0}")]
+    Usage(String),
+    /// An output would replace one of the command's input files.
+    #[error("{path}: refusing to write here because it is one of this command's input files", path = path.display())]
+    WouldOverwriteInput {
+        /// The output path.
+        path: PathBuf,
+    },
+    /// An output file could not be written; nothing was left half-written.
+    #[error("{path}: cannot write: {source}", path = path.display())]
+    Write {
+        /// The output path.
+        path: PathBuf,
+        /// The operating system's reason.
+        source: std::io::Error,
+    },
+    /// A bug or an unexpected condition inside flipmend.
+    #[error("internal error: {0}")]
+    Internal(String),
+}
+
+impl Error {
+    /// Builds an [`Error::Input`].
+    pub fn input(location: Location, problem: Problem) -> Self {
+        Error::Input(Box::new(InputError { location, problem }))
+    }
+
+    /// True when the user's files or flags caused the error (exit code 2), false for
+    /// failures inside flipmend or its environment (exit code 1).
+    pub fn is_bad_input(&self) -> bool {
+        match self {
+            Error::Read { .. } | Error::Input(_) | Error::Usage(_) => true,
+            Error::WouldOverwriteInput { .. } => true,
+            Error::Write { .. } | Error::Internal(_) => false,
+        }
+    }
+}
+
+/// Shortens a cell's text for a message so a huge field cannot flood the terminal.
+pub(crate) fn shorten(text: &str) -> String {
+    const MAX_CHARS: usize = 40;
+    if text.chars().count() <= MAX_CHARS {
+        text.to_string()
+    } else {
+        let head: String = text.chars().take(MAX_CHARS).collect();
+        format!("{head}…")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn location_names_file_line_and_column() {
+        let loc = Location::line(Path::new("d.csv"), 7).at_column(2, "f1");
+        assert_eq!(loc.to_string(), "d.csv, line 7, column 3 'f1'");
+        assert_eq!(Location::file(Path::new("d.csv")).to_string(), "d.csv");
+    }
+
+    #[test]
+    fn exit_class_of_each_error() {
+        let input = Error::input(Location::file(Path::new("x")), Problem::Empty);
+        assert!(input.is_bad_input());
+        assert!(Error::Usage("u".into()).is_bad_input());
+        assert!(!Error::Internal("bug".into()).is_bad_input());
+        let write = Error::Write {
+            path: "o".into(),
+            source: std::io::Error::other("full"),
+        };
+        assert!(!write.is_bad_input());
+    }
+
+    #[test]
+    fn shorten_cuts_long_cells() {
+        assert_eq!(shorten("abc"), "abc");
+        let long = "x".repeat(100);
+        assert_eq!(shorten(&long).chars().count(), 41);
+    }
+}

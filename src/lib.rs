@@ -1,0 +1,20 @@
+//! flipmend: estimate how class labels flip (the flip matrix T, with
+//! T\[i\]\[j\] = P(observed j | true i)), rank the rows most likely mislabelled, and train
+//! models that correct for the noise.
+//!
+//! The library holds everything but drawing: [`data`] loads and validates tables and
+//! probabilities, [`io`] writes outputs safely, and [`cli`] is the command line built on
+//! them. Errors are one enum, [`Error`], whose messages name file, line and column.
+//!
+//! Figures that flipmend computes are estimates meant for qualified human review; they
+//! never replace the judgement of the people responsible for the data.
+
+#![deny(missing_docs)]
+#![forbid(unsafe_code)]
+
+pub mod cli;
+pub mod data;
+pub mod error;
+pub mod io;
+
+pub use error::{Error, InputError, Location, Problem, Result};
