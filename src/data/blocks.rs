@@ -44,6 +44,7 @@ pub(crate) struct Blocks<R> {
     eof: bool,
     block_bytes: usize,
     max_record_bytes: usize,
+    spares: Vec<Vec<u8>>,
 }
 
 impl<R: Read> Blocks<R> {
@@ -65,6 +66,7 @@ impl<R: Read> Blocks<R> {
             eof: false,
             block_bytes,
             max_record_bytes,
+            spares: Vec::new(),
         }
     }
 
@@ -88,38 +90,50 @@ impl<R: Read> Blocks<R> {
         }
     }
 
+    /// Hands back a block that has been parsed, so its memory serves a later block
+    /// instead of being returned to the system and faulted in again.
+    pub(crate) fn recycle(&mut self, mut block: Vec<u8>) {
+        if self.spares.len() < 8 {
+            block.clear();
+            self.spares.push(block);
+        }
+    }
+
     fn cut(&mut self, at: usize) -> Vec<u8> {
-        let rest = self.pending[at..].to_vec();
+        let capacity = self.block_bytes + self.block_bytes / 4;
+        let mut rest = self
+            .spares
+            .pop()
+            .unwrap_or_else(|| Vec::with_capacity(capacity));
+        rest.extend_from_slice(&self.pending[at..]);
         let mut block = std::mem::replace(&mut self.pending, rest);
         block.truncate(at);
-        self.pending
-            .reserve(self.block_bytes + self.block_bytes / 4);
         self.scanned -= at;
         self.boundary = None;
         block
     }
 
+    /// Reads until the buffer holds a block and a quarter (or the stream ends).
     fn fill(&mut self) -> std::io::Result<()> {
         let target = self.pending.len().max(self.block_bytes) + (self.block_bytes / 4).max(1);
-        while self.pending.len() < target {
-            let start = self.pending.len();
-            self.pending.resize(target, 0);
-            match self.inner.read(&mut self.pending[start..]) {
+        let start = self.pending.len();
+        self.pending.resize(target, 0);
+        let mut filled = start;
+        while filled < target {
+            match self.inner.read(&mut self.pending[filled..]) {
                 Ok(0) => {
-                    self.pending.truncate(start);
                     self.eof = true;
-                    return Ok(());
+                    break;
                 }
-                Ok(n) => self.pending.truncate(start + n),
-                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {
-                    self.pending.truncate(start)
-                }
+                Ok(n) => filled += n,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
                 Err(e) => {
-                    self.pending.truncate(start);
+                    self.pending.truncate(filled);
                     return Err(e);
                 }
             }
         }
+        self.pending.truncate(filled);
         Ok(())
     }
 

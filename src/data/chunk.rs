@@ -1,7 +1,7 @@
 //! Parses one block of CSV records into column-role buffers. Blocks are independent, so
 //! they parse in parallel; [`super::table`] merges their outputs in file order.
 
-use std::collections::HashMap;
+use rustc_hash::FxHashMap as HashMap;
 
 use crate::error::{shorten, Problem};
 
@@ -75,38 +75,140 @@ pub(crate) struct ChunkOut {
 }
 
 /// Parses `block` (whole records, no header) under `plan`.
+///
+/// Blocks without any quote character (the common case for numeric tables) are split on
+/// newlines and delimiters directly, which is several times faster than a general CSV
+/// state machine; blocks with quotes go through the `csv` crate. Both give the same rows.
 pub(crate) fn parse_block(block: &[u8], delimiter: u8, plan: &ColumnPlan) -> ChunkOut {
     let mut parser = BlockParser::new(plan, block);
+    let outcome = if memchr::memchr(b'"', block).is_none() {
+        parse_plain(block, delimiter, &mut parser)
+    } else {
+        parse_quoted(block, delimiter, &mut parser)
+    };
+    parser.out.fatal = outcome.err();
+    parser.out
+}
+
+fn parse_plain(block: &[u8], delimiter: u8, parser: &mut BlockParser) -> Result<(), Fatal> {
+    let mut record = PlainRecord::default();
+    let mut start = 0;
+    let mut line_no = 0u64;
+    for end in memchr::memchr_iter(b'\n', block).chain(std::iter::once(block.len())) {
+        line_no += 1;
+        let mut line = &block[start..end];
+        start = end + 1;
+        if let Some(stripped) = line.strip_suffix(b"\r") {
+            line = stripped;
+        }
+        if line.is_empty() {
+            continue;
+        }
+        record.split(line, delimiter);
+        parser.row(&record, line_no)?;
+    }
+    Ok(())
+}
+
+fn parse_quoted(block: &[u8], delimiter: u8, parser: &mut BlockParser) -> Result<(), Fatal> {
     let mut reader = csv::ReaderBuilder::new()
         .has_headers(false)
         .flexible(true)
         .delimiter(delimiter)
         .from_reader(block);
     let mut record = csv::ByteRecord::new();
+    let mut lines = LineCounter::default();
     loop {
         match reader.read_byte_record(&mut record) {
-            Ok(false) => break,
+            Ok(false) => return Ok(()),
             Ok(true) => {
-                let line = record.position().map_or(0, |p| p.line());
-                if let Err(fatal) = parser.row(&record, line) {
-                    parser.out.fatal = Some(fatal);
-                    break;
-                }
+                let line = lines.line_at(block, record.position().map_or(0, |p| p.byte()));
+                parser.row(&record, line)?;
             }
             Err(e) => {
-                let line = e.position().map_or(0, |p| p.line());
-                parser.out.fatal = Some((
+                let line = lines.line_at(block, e.position().map_or(0, |p| p.byte()));
+                return Err((
                     line,
                     None,
                     Problem::Syntax {
                         detail: e.to_string(),
                     },
                 ));
-                break;
             }
         }
     }
-    parser.out
+}
+
+/// Turns the `csv` crate's record byte offsets into line numbers. Its own line numbers
+/// (and offsets) point at the blank lines before a record rather than the record itself,
+/// so the blank lines are skipped here and newlines counted up to the record's first byte.
+#[derive(Default)]
+struct LineCounter {
+    counted_to: usize,
+    newlines: u64,
+}
+
+impl LineCounter {
+    fn line_at(&mut self, block: &[u8], offset: u64) -> u64 {
+        let mut start = (offset as usize).min(block.len());
+        while start < block.len() && matches!(block[start], b'\r' | b'\n') {
+            start += 1;
+        }
+        if start >= self.counted_to {
+            self.newlines +=
+                memchr::memchr_iter(b'\n', &block[self.counted_to..start]).count() as u64;
+            self.counted_to = start;
+        }
+        self.newlines + 1
+    }
+}
+
+/// Field access shared by the plain splitter and the `csv` crate's records.
+trait Fields {
+    fn count(&self) -> usize;
+    fn field(&self, i: usize) -> &[u8];
+}
+
+impl Fields for csv::ByteRecord {
+    fn count(&self) -> usize {
+        self.len()
+    }
+    fn field(&self, i: usize) -> &[u8] {
+        &self[i]
+    }
+}
+
+/// One unquoted line split on the delimiter.
+#[derive(Default)]
+struct PlainRecord<'a> {
+    line: &'a [u8],
+    bounds: Vec<(usize, usize)>,
+}
+
+impl<'a> PlainRecord<'a> {
+    fn split(&mut self, line: &'a [u8], delimiter: u8) {
+        self.line = line;
+        self.bounds.clear();
+        // Fields are short, so a plain byte loop beats a vectorised search per field.
+        let mut start = 0;
+        for (end, &byte) in line.iter().enumerate() {
+            if byte == delimiter {
+                self.bounds.push((start, end));
+                start = end + 1;
+            }
+        }
+        self.bounds.push((start, line.len()));
+    }
+}
+
+impl Fields for PlainRecord<'_> {
+    fn count(&self) -> usize {
+        self.bounds.len()
+    }
+    fn field(&self, i: usize) -> &[u8] {
+        let (a, b) = self.bounds[i];
+        &self.line[a..b]
+    }
 }
 
 struct BlockParser<'a> {
@@ -128,15 +230,15 @@ impl<'a> BlockParser<'a> {
         };
         BlockParser {
             plan,
-            codes: HashMap::new(),
+            codes: HashMap::default(),
             out,
         }
     }
 
-    fn row(&mut self, record: &csv::ByteRecord, line: u64) -> Result<(), Fatal> {
+    fn row(&mut self, record: &impl Fields, line: u64) -> Result<(), Fatal> {
         let expected = self.plan.header.len();
-        if record.len() != expected {
-            let hint = if record.len() > expected {
+        if record.count() != expected {
+            let hint = if record.count() > expected {
                 "; a value containing the delimiter must be quoted".to_string()
             } else {
                 String::new()
@@ -146,20 +248,20 @@ impl<'a> BlockParser<'a> {
                 None,
                 Problem::Ragged {
                     expected,
-                    found: record.len(),
+                    found: record.count(),
                     hint,
                 },
             ));
         }
         let label_field = self.plan.label;
-        let label = &record[label_field];
+        let label = record.field(label_field);
         if label.is_empty() {
             return Err((line, Some(label_field), Problem::EmptyLabel));
         }
         let code = self.code(label).map_err(|p| (line, Some(label_field), p))?;
         self.out.labels.push(code);
         if let Some(field) = self.plan.trusted {
-            let cell = &record[field];
+            let cell = record.field(field);
             let code = if cell.is_empty() {
                 NONE
             } else {
@@ -168,14 +270,14 @@ impl<'a> BlockParser<'a> {
             self.out.trusted.push(code);
         }
         if let Some(field) = self.plan.id {
-            let id = std::str::from_utf8(&record[field])
+            let id = std::str::from_utf8(record.field(field))
                 .map_err(|_| (line, Some(field), Problem::InvalidUtf8))?;
             self.out.ids.push_str(id);
             self.out.id_ends.push(self.out.ids.len());
             self.out.row_lines.push(line);
         }
         for (slot, &field) in self.plan.numeric.iter().enumerate() {
-            let value = parse_number(&record[field], line, &mut self.out.slots[slot]);
+            let value = parse_number(record.field(field), line, &mut self.out.slots[slot]);
             self.out.values.push(value);
         }
         self.out.rows += 1;
@@ -194,6 +296,99 @@ impl<'a> BlockParser<'a> {
     }
 }
 
+/// Parses a whole cell as a decimal number (`1.5`, `-2e-3`, `+7`, `inf`, `NaN`, …).
+/// fast-float2 implements the Eisel–Lemire algorithm straight from bytes, skipping the
+/// UTF-8 check that `str::parse` needs; it rounds exactly like the standard library.
+pub(crate) fn parse_f64(text: &[u8]) -> Option<f64> {
+    if let Some(value) = parse_short_decimal(text) {
+        return Some(value);
+    }
+    match fast_float2::parse_partial::<f64, _>(text) {
+        Ok((value, used)) if used == text.len() => Some(value),
+        _ => None,
+    }
+}
+
+/// Exact powers of ten that an f64 holds without rounding.
+const POW10: [f64; 23] = [
+    1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16,
+    1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
+];
+
+/// The common case of a table cell, `[-+]digits[.digits][e[-+]digits]` with at most 15
+/// significant digits and a decimal exponent within ±22, by Clinger's exact fast path:
+/// the digits form an integer below 2^53 and the power of ten is exact, so the single
+/// multiplication or division rounds correctly (W. D. Clinger, "How to read floating
+/// point numbers accurately", PLDI 1990). Anything else returns `None` for the general
+/// parser.
+fn parse_short_decimal(text: &[u8]) -> Option<f64> {
+    let (negative, mut i) = match text.first()? {
+        b'-' => (true, 1),
+        b'+' => (false, 1),
+        _ => (false, 0),
+    };
+    let mut mantissa: u64 = 0;
+    let mut digits = 0u32;
+    let mut exponent: i32 = 0;
+    while let Some(d) = text.get(i).filter(|b| b.is_ascii_digit()) {
+        mantissa = mantissa * 10 + u64::from(d - b'0');
+        digits += 1;
+        i += 1;
+        if digits > 15 {
+            return None;
+        }
+    }
+    if text.get(i) == Some(&b'.') {
+        i += 1;
+        while let Some(d) = text.get(i).filter(|b| b.is_ascii_digit()) {
+            mantissa = mantissa * 10 + u64::from(d - b'0');
+            digits += 1;
+            exponent -= 1;
+            i += 1;
+            if digits > 15 {
+                return None;
+            }
+        }
+    }
+    if digits == 0 {
+        return None;
+    }
+    if matches!(text.get(i), Some(b'e' | b'E')) {
+        i += 1;
+        let negative_exp = match text.get(i) {
+            Some(b'-') => {
+                i += 1;
+                true
+            }
+            Some(b'+') => {
+                i += 1;
+                false
+            }
+            _ => false,
+        };
+        let start = i;
+        let mut e: i32 = 0;
+        while let Some(d) = text.get(i).filter(|b| b.is_ascii_digit()) {
+            e = e.saturating_mul(10).saturating_add(i32::from(d - b'0'));
+            i += 1;
+        }
+        if i == start {
+            return None;
+        }
+        exponent = exponent.saturating_add(if negative_exp { -e } else { e });
+    }
+    if i != text.len() || exponent.unsigned_abs() > 22 {
+        return None;
+    }
+    let magnitude = mantissa as f64;
+    let value = if exponent >= 0 {
+        magnitude * POW10[exponent as usize]
+    } else {
+        magnitude / POW10[(-exponent) as usize]
+    };
+    Some(if negative { -value } else { value })
+}
+
 /// Parses a numeric cell, recording empty, non-numeric and non-finite cells in `stats`.
 /// Surrounding ASCII spaces are ignored. Returns NaN for any cell that is not a number.
 fn parse_number(cell: &[u8], line: u64, stats: &mut SlotStats) -> f64 {
@@ -203,9 +398,7 @@ fn parse_number(cell: &[u8], line: u64, stats: &mut SlotStats) -> f64 {
         stats.first_missing.get_or_insert(line);
         return f64::NAN;
     }
-    let parsed = std::str::from_utf8(text)
-        .ok()
-        .and_then(|s| s.parse::<f64>().ok());
+    let parsed = parse_f64(text);
     match parsed {
         Some(v) => {
             stats.values += 1;
@@ -265,6 +458,96 @@ mod tests {
                 ..
             }
         ));
+    }
+
+    #[test]
+    fn number_syntax_matches_the_standard_library() {
+        let cases = [
+            "1.5",
+            "-2e-3",
+            "+7",
+            "1e308",
+            "4.9e-324",
+            "0.1",
+            ".5",
+            "5.",
+            "inf",
+            "-Infinity",
+            "NaN",
+            "1_0",
+            "1,5",
+            "0x10",
+            "1e",
+            "",
+            "--1",
+            " 1",
+            "1 ",
+        ];
+        for case in cases {
+            let ours = parse_f64(case.as_bytes());
+            let std = case.parse::<f64>().ok();
+            assert_eq!(ours.map(f64::to_bits), std.map(f64::to_bits), "{case:?}");
+        }
+    }
+
+    #[test]
+    fn short_decimals_round_exactly_like_the_standard_library() {
+        // A deterministic spread of 6- to 15-digit decimals, both exponent forms.
+        let mut state: u64 = 0x9E37_79B9_7F4A_7C15;
+        for _ in 0..200_000 {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            let digits = 1 + (state % 15) as usize;
+            let mantissa = (state >> 8) % 10u64.pow(digits as u32);
+            let exp = ((state >> 40) % 45) as i32 - 22;
+            for text in [
+                format!("{mantissa}e{exp}"),
+                format!(
+                    "-{}.{:0>width$}",
+                    mantissa / 1000,
+                    mantissa % 1000,
+                    width = 3
+                ),
+            ] {
+                let ours = parse_short_decimal(text.as_bytes());
+                if let Some(v) = ours {
+                    assert_eq!(
+                        v.to_bits(),
+                        text.parse::<f64>().unwrap().to_bits(),
+                        "{text}"
+                    );
+                }
+            }
+        }
+        assert_eq!(
+            parse_short_decimal(b"-0").map(f64::to_bits),
+            Some((-0.0f64).to_bits())
+        );
+        assert_eq!(parse_short_decimal(b"1.23457e-05"), Some(1.23457e-05));
+        assert_eq!(
+            parse_short_decimal(b"1234567890123456"),
+            None,
+            "16 digits go to the general parser"
+        );
+    }
+
+    #[test]
+    fn plain_and_quoted_paths_read_the_same_rows() {
+        let p = plan("id,a,label");
+        let plain = parse_block(b"r1,1,x\r\n\nr2,2.5,y\nr3,3,x", b',', &p);
+        let quoted = parse_block(b"\"r1\",1,x\r\n\nr2,2.5,y\nr3,3,x", b',', &p);
+        assert_eq!(
+            (plain.rows, &plain.ids, &plain.labels),
+            (3, &"r1r2r3".to_string(), &vec![0, 1, 0])
+        );
+        assert_eq!(
+            (quoted.rows, &quoted.ids, &quoted.labels),
+            (plain.rows, &plain.ids, &plain.labels)
+        );
+        assert_eq!(plain.values, quoted.values);
+        assert_eq!(plain.row_lines, vec![1, 3, 4]);
+        assert_eq!(quoted.row_lines, plain.row_lines);
     }
 
     #[test]

@@ -4,7 +4,7 @@
 //! significant digits, far finer than any model's calibration, and halves the memory of
 //! a million-row, hundred-class array. Sums and means over them are taken in f64.
 
-use std::collections::HashMap;
+use rustc_hash::FxHashMap as HashMap;
 use std::fs::File;
 use std::io::{BufReader, Read};
 use std::path::{Path, PathBuf};

@@ -1,10 +1,11 @@
 //! The labelled table: features, observed labels, optional ids and trusted labels.
 
+use rustc_hash::FxHashMap as HashMap;
 use std::borrow::Cow;
-use std::collections::HashMap;
 use std::fs::File;
 use std::io::Read;
 use std::path::{Path, PathBuf};
+use std::sync::mpsc::{Receiver, Sender};
 
 use ndarray::Array2;
 use rayon::prelude::*;
@@ -116,7 +117,7 @@ impl Dataset {
     }
 
     /// Loads CSV from any reader; `path` names the source in messages.
-    pub fn from_reader<R: Read>(
+    pub fn from_reader<R: Read + Send>(
         reader: R,
         path: &Path,
         size_hint: Option<u64>,
@@ -195,47 +196,97 @@ impl<'a> Loader<'a> {
             labels: Vec::new(),
             trusted: Vec::new(),
             names: Vec::new(),
-            codes: HashMap::new(),
+            codes: HashMap::default(),
             ids: StringColumn::default(),
             row_lines: Vec::new(),
             slots: Vec::new(),
         }
     }
 
-    fn run<R: Read>(mut self, reader: R) -> Result<Dataset> {
+    /// Reads blocks on a helper thread while the blocks already read are parsed on the
+    /// rayon pool, and merges each batch while the next one parses: three stages that
+    /// overlap, so the one pass over the file keeps both cores busy.
+    fn run<R: Read + Send>(mut self, reader: R) -> Result<Dataset> {
         let mut blocks = Blocks::new(reader, self.delimiter, self.block_bytes, MAX_RECORD_BYTES);
         let Some(first) = self.next_block(&mut blocks)? else {
             return Err(self.whole_file(Problem::Empty));
         };
         let (plan, first_data) = self.header(&first)?;
+        drop(first);
         self.slots = vec![SlotStats::default(); plan.numeric.len()];
-        let mut batch = vec![first_data];
         let per_batch = 2 * rayon::current_num_threads().max(1);
-        loop {
-            while batch.len() < per_batch {
-                match self.next_block(&mut blocks)? {
-                    Some(block) => batch.push(block),
-                    None => break,
+        let (sender, receiver) = std::sync::mpsc::sync_channel(per_batch);
+        let (spare_sender, spares) = std::sync::mpsc::channel::<Vec<u8>>();
+        std::thread::scope(|scope| {
+            scope.spawn(move || {
+                while let Some(block) = blocks.next_block().transpose() {
+                    let stop = block.is_err();
+                    if sender.send(block).is_err() || stop {
+                        break;
+                    }
+                    spares.try_iter().for_each(|spare| blocks.recycle(spare));
                 }
-            }
-            if batch.is_empty() {
-                break;
-            }
-            let delimiter = self.delimiter;
-            let outs: Vec<ChunkOut> = batch
-                .par_iter()
-                .map(|b| parse_block(b, delimiter, &plan))
-                .collect();
-            batch.clear();
-            for out in outs {
-                self.absorb(out, &plan)?;
-            }
-        }
+            });
+            self.parse_batches(&plan, first_data, &receiver, &spare_sender)
+        })?;
         self.finish(plan)
     }
 
+    fn parse_batches(
+        &mut self,
+        plan: &ColumnPlan,
+        first_data: Vec<u8>,
+        receiver: &Receiver<Result<Vec<u8>, BlockError>>,
+        spares: &Sender<Vec<u8>>,
+    ) -> Result<()> {
+        let per_batch = 2 * rayon::current_num_threads().max(1);
+        let delimiter = self.delimiter;
+        let mut batch = vec![first_data];
+        let mut parsed: Vec<ChunkOut> = Vec::new();
+        loop {
+            let mut ended = None;
+            while batch.len() < per_batch {
+                match receiver.recv() {
+                    Ok(Ok(block)) => batch.push(block),
+                    Ok(Err(e)) => {
+                        ended = Some(e);
+                        break;
+                    }
+                    Err(_) => break,
+                }
+            }
+            if batch.is_empty() && parsed.is_empty() {
+                return ended.map_or(Ok(()), |e| Err(self.block_error(e)));
+            }
+            let (outs, merged) = rayon::join(
+                || {
+                    batch
+                        .par_iter()
+                        .map(|b| parse_block(b, delimiter, plan))
+                        .collect::<Vec<_>>()
+                },
+                || parsed.drain(..).try_for_each(|out| self.absorb(out, plan)),
+            );
+            merged?;
+            for block in batch.drain(..) {
+                let _ = spares.send(block); // The reader may have finished; then the block is freed.
+            }
+            parsed = outs;
+            if let Some(e) = ended {
+                parsed
+                    .drain(..)
+                    .try_for_each(|out| self.absorb(out, plan))?;
+                return Err(self.block_error(e));
+            }
+        }
+    }
+
     fn next_block<R: Read>(&self, blocks: &mut Blocks<R>) -> Result<Option<Vec<u8>>> {
-        blocks.next_block().map_err(|e| match e {
+        blocks.next_block().map_err(|e| self.block_error(e))
+    }
+
+    fn block_error(&self, error: BlockError) -> Error {
+        match error {
             BlockError::Io(source) => Error::Read {
                 path: self.path.to_path_buf(),
                 source,
@@ -247,7 +298,7 @@ impl<'a> Loader<'a> {
                 );
                 self.at_line(self.lines_done + 1, Problem::Syntax { detail })
             }
-        })
+        }
     }
 
     /// Reads the header from the first block and returns the plan and the rest of it.
@@ -534,7 +585,8 @@ impl<'a> Loader<'a> {
     }
 
     fn check_unique_ids(&self, ids: &StringColumn, plan: &ColumnPlan) -> Result<()> {
-        let mut seen: HashMap<&str, usize> = HashMap::with_capacity(ids.len());
+        let mut seen: HashMap<&str, usize> =
+            HashMap::with_capacity_and_hasher(ids.len(), Default::default());
         for row in 0..ids.len() {
             let id = ids.get(row);
             if let Some(first) = seen.insert(id, row) {
