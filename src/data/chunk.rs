@@ -91,7 +91,6 @@ pub(crate) fn parse_block(block: &[u8], delimiter: u8, plan: &ColumnPlan) -> Chu
 }
 
 fn parse_plain(block: &[u8], delimiter: u8, parser: &mut BlockParser) -> Result<(), Fatal> {
-    let mut record = PlainRecord::default();
     let mut start = 0;
     let mut line_no = 0u64;
     for end in memchr::memchr_iter(b'\n', block).chain(std::iter::once(block.len())) {
@@ -104,8 +103,7 @@ fn parse_plain(block: &[u8], delimiter: u8, parser: &mut BlockParser) -> Result<
         if line.is_empty() {
             continue;
         }
-        record.split(line, delimiter);
-        parser.row(&record, line_no)?;
+        parser.plain_row(line, line_no, delimiter)?;
     }
     Ok(())
 }
@@ -163,7 +161,21 @@ impl LineCounter {
     }
 }
 
-/// Field access shared by the plain splitter and the `csv` crate's records.
+/// The ragged-row problem, with a hint when the row has too many fields.
+fn ragged(expected: usize, found: usize) -> Problem {
+    let hint = if found > expected {
+        "; a value containing the delimiter must be quoted"
+    } else {
+        ""
+    };
+    Problem::Ragged {
+        expected,
+        found,
+        hint: hint.to_string(),
+    }
+}
+
+/// Field access for the `csv` crate's records.
 trait Fields {
     fn count(&self) -> usize;
     fn field(&self, i: usize) -> &[u8];
@@ -178,41 +190,45 @@ impl Fields for csv::ByteRecord {
     }
 }
 
-/// One unquoted line split on the delimiter.
-#[derive(Default)]
-struct PlainRecord<'a> {
-    line: &'a [u8],
-    bounds: Vec<(usize, usize)>,
+/// What a field is for, by field index.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Kind {
+    Label,
+    Trusted,
+    Id,
+    Numeric(usize),
+    Unused,
 }
 
-impl<'a> PlainRecord<'a> {
-    fn split(&mut self, line: &'a [u8], delimiter: u8) {
-        self.line = line;
-        self.bounds.clear();
-        // Fields are short, so a plain byte loop beats a vectorised search per field.
-        let mut start = 0;
-        for (end, &byte) in line.iter().enumerate() {
-            if byte == delimiter {
-                self.bounds.push((start, end));
-                start = end + 1;
-            }
-        }
-        self.bounds.push((start, line.len()));
+fn kinds(plan: &ColumnPlan) -> Vec<Kind> {
+    let mut kinds = vec![Kind::Unused; plan.header.len()];
+    kinds[plan.label] = Kind::Label;
+    if let Some(t) = plan.trusted {
+        kinds[t] = Kind::Trusted;
     }
+    if let Some(i) = plan.id {
+        kinds[i] = Kind::Id;
+    }
+    for (slot, &field) in plan.numeric.iter().enumerate() {
+        kinds[field] = Kind::Numeric(slot);
+    }
+    kinds
 }
 
-impl Fields for PlainRecord<'_> {
-    fn count(&self) -> usize {
-        self.bounds.len()
+/// End of the field starting at `start`: the next delimiter, or the end of the line.
+/// Fields are short, so a plain byte loop beats a vectorised search per field.
+#[inline]
+fn field_end(line: &[u8], start: usize, delimiter: u8) -> usize {
+    let mut i = start;
+    while i < line.len() && line[i] != delimiter {
+        i += 1;
     }
-    fn field(&self, i: usize) -> &[u8] {
-        let (a, b) = self.bounds[i];
-        &self.line[a..b]
-    }
+    i
 }
 
 struct BlockParser<'a> {
     plan: &'a ColumnPlan,
+    kinds: Vec<Kind>,
     codes: HashMap<Vec<u8>, u32>,
     out: ChunkOut,
 }
@@ -230,51 +246,100 @@ impl<'a> BlockParser<'a> {
         };
         BlockParser {
             plan,
+            kinds: kinds(plan),
             codes: HashMap::default(),
             out,
         }
     }
 
+    /// One unquoted line, split and parsed in a single pass: numbers are read straight
+    /// from the line, and only cells the fast path cannot take are cut out first.
+    fn plain_row(&mut self, line: &[u8], line_no: u64, delimiter: u8) -> Result<(), Fatal> {
+        let fields = self.kinds.len();
+        let mut pos = 0;
+        let base = self.out.values.len();
+        self.out
+            .values
+            .resize(base + self.plan.numeric.len(), f64::NAN);
+        for f in 0..fields {
+            if pos > line.len() {
+                self.out.values.truncate(base);
+                return Err((line_no, None, ragged(fields, f)));
+            }
+            let kind = self.kinds[f];
+            if let Kind::Numeric(slot) = kind {
+                if let Some((value, used)) = parse_short_prefix(&line[pos..]) {
+                    let next = pos + used;
+                    if next == line.len() || line[next] == delimiter {
+                        self.out.values[base + slot] = value;
+                        self.out.slots[slot].values += 1;
+                        pos = next + 1;
+                        continue;
+                    }
+                }
+            }
+            let end = field_end(line, pos, delimiter);
+            let cell = &line[pos..end];
+            pos = end + 1;
+            match kind {
+                Kind::Numeric(slot) => {
+                    self.out.values[base + slot] =
+                        parse_number(cell, line_no, &mut self.out.slots[slot]);
+                }
+                Kind::Label => self.label(cell, line_no, f)?,
+                Kind::Trusted => self.trusted(cell, line_no, f)?,
+                Kind::Id => self.id(cell, line_no, f)?,
+                Kind::Unused => {}
+            }
+        }
+        if pos <= line.len() {
+            let extra = line[pos..].iter().filter(|&&b| b == delimiter).count() + 1;
+            return Err((line_no, None, ragged(fields, fields + extra)));
+        }
+        self.out.rows += 1;
+        Ok(())
+    }
+
+    fn label(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
+        if cell.is_empty() {
+            return Err((line, Some(field), Problem::EmptyLabel));
+        }
+        let code = self.code(cell).map_err(|p| (line, Some(field), p))?;
+        self.out.labels.push(code);
+        Ok(())
+    }
+
+    fn trusted(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
+        let code = if cell.is_empty() {
+            NONE
+        } else {
+            self.code(cell).map_err(|p| (line, Some(field), p))?
+        };
+        self.out.trusted.push(code);
+        Ok(())
+    }
+
+    fn id(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
+        let id =
+            std::str::from_utf8(cell).map_err(|_| (line, Some(field), Problem::InvalidUtf8))?;
+        self.out.ids.push_str(id);
+        self.out.id_ends.push(self.out.ids.len());
+        self.out.row_lines.push(line);
+        Ok(())
+    }
+
     fn row(&mut self, record: &impl Fields, line: u64) -> Result<(), Fatal> {
         let expected = self.plan.header.len();
         if record.count() != expected {
-            let hint = if record.count() > expected {
-                "; a value containing the delimiter must be quoted".to_string()
-            } else {
-                String::new()
-            };
-            return Err((
-                line,
-                None,
-                Problem::Ragged {
-                    expected,
-                    found: record.count(),
-                    hint,
-                },
-            ));
+            return Err((line, None, ragged(expected, record.count())));
         }
         let label_field = self.plan.label;
-        let label = record.field(label_field);
-        if label.is_empty() {
-            return Err((line, Some(label_field), Problem::EmptyLabel));
-        }
-        let code = self.code(label).map_err(|p| (line, Some(label_field), p))?;
-        self.out.labels.push(code);
+        self.label(record.field(label_field), line, label_field)?;
         if let Some(field) = self.plan.trusted {
-            let cell = record.field(field);
-            let code = if cell.is_empty() {
-                NONE
-            } else {
-                self.code(cell).map_err(|p| (line, Some(field), p))?
-            };
-            self.out.trusted.push(code);
+            self.trusted(record.field(field), line, field)?;
         }
         if let Some(field) = self.plan.id {
-            let id = std::str::from_utf8(record.field(field))
-                .map_err(|_| (line, Some(field), Problem::InvalidUtf8))?;
-            self.out.ids.push_str(id);
-            self.out.id_ends.push(self.out.ids.len());
-            self.out.row_lines.push(line);
+            self.id(record.field(field), line, field)?;
         }
         for (slot, &field) in self.plan.numeric.iter().enumerate() {
             let value = parse_number(record.field(field), line, &mut self.out.slots[slot]);
@@ -322,62 +387,50 @@ const POW10: [f64; 23] = [
 /// point numbers accurately", PLDI 1990). Anything else returns `None` for the general
 /// parser.
 fn parse_short_decimal(text: &[u8]) -> Option<f64> {
-    let (negative, mut i) = match text.first()? {
-        b'-' => (true, 1),
-        b'+' => (false, 1),
-        _ => (false, 0),
-    };
-    let mut mantissa: u64 = 0;
-    let mut digits = 0u32;
-    let mut exponent: i32 = 0;
-    while let Some(d) = text.get(i).filter(|b| b.is_ascii_digit()) {
-        mantissa = mantissa * 10 + u64::from(d - b'0');
-        digits += 1;
-        i += 1;
-        if digits > 15 {
-            return None;
-        }
+    parse_short_prefix(text)
+        .filter(|&(_, used)| used == text.len())
+        .map(|(value, _)| value)
+}
+
+/// [`parse_short_decimal`] on the start of `text`: the value and the bytes it used.
+#[inline]
+fn parse_short_prefix(text: &[u8]) -> Option<(f64, usize)> {
+    let n = text.len();
+    let first = *text.first()?;
+    let negative = first == b'-';
+    let mut i = usize::from(first == b'-' || first == b'+');
+    let (mantissa, int_digits) = digit_run(text, i, 0);
+    i += int_digits;
+    let mut digits = int_digits;
+    let mut mantissa = mantissa;
+    let mut exponent: i64 = 0;
+    if i < n && text[i] == b'.' {
+        let (m, frac_digits) = digit_run(text, i + 1, mantissa);
+        mantissa = m;
+        i += 1 + frac_digits;
+        digits += frac_digits;
+        exponent = -(frac_digits as i64);
     }
-    if text.get(i) == Some(&b'.') {
-        i += 1;
-        while let Some(d) = text.get(i).filter(|b| b.is_ascii_digit()) {
-            mantissa = mantissa * 10 + u64::from(d - b'0');
-            digits += 1;
-            exponent -= 1;
-            i += 1;
-            if digits > 15 {
-                return None;
-            }
-        }
-    }
-    if digits == 0 {
+    // 15 digits keep the (wrapping) accumulation exact and below 2^53.
+    if digits == 0 || digits > 15 {
         return None;
     }
-    if matches!(text.get(i), Some(b'e' | b'E')) {
+    if i < n && (text[i] | 0x20) == b'e' {
         i += 1;
-        let negative_exp = match text.get(i) {
-            Some(b'-') => {
-                i += 1;
-                true
-            }
-            Some(b'+') => {
-                i += 1;
-                false
-            }
-            _ => false,
-        };
-        let start = i;
-        let mut e: i32 = 0;
-        while let Some(d) = text.get(i).filter(|b| b.is_ascii_digit()) {
-            e = e.saturating_mul(10).saturating_add(i32::from(d - b'0'));
-            i += 1;
-        }
-        if i == start {
+        let sign = text.get(i).copied();
+        i += usize::from(matches!(sign, Some(b'-' | b'+')));
+        let (e, exp_digits) = digit_run(text, i, 0);
+        if exp_digits == 0 || exp_digits > 4 {
             return None;
         }
-        exponent = exponent.saturating_add(if negative_exp { -e } else { e });
+        i += exp_digits;
+        exponent += if sign == Some(b'-') {
+            -(e as i64)
+        } else {
+            e as i64
+        };
     }
-    if i != text.len() || exponent.unsigned_abs() > 22 {
+    if exponent.unsigned_abs() > 22 {
         return None;
     }
     let magnitude = mantissa as f64;
@@ -386,7 +439,23 @@ fn parse_short_decimal(text: &[u8]) -> Option<f64> {
     } else {
         magnitude / POW10[(-exponent) as usize]
     };
-    Some(if negative { -value } else { value })
+    Some((if negative { -value } else { value }, i))
+}
+
+/// Accumulates the ASCII digits from `start` onto `acc` (wrapping on overflow; callers
+/// bound the digit count). Returns the value and how many digits were read.
+#[inline(always)]
+fn digit_run(text: &[u8], start: usize, mut acc: u64) -> (u64, usize) {
+    let mut i = start;
+    while i < text.len() {
+        let d = text[i].wrapping_sub(b'0');
+        if d > 9 {
+            break;
+        }
+        acc = acc.wrapping_mul(10).wrapping_add(u64::from(d));
+        i += 1;
+    }
+    (acc, i - start)
 }
 
 /// Parses a numeric cell, recording empty, non-numeric and non-finite cells in `stats`.

@@ -1,0 +1,93 @@
+//! A small harness for running the built `flipmend` binary in integration tests.
+
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+/// What one run of the binary produced.
+pub struct Run {
+    pub code: i32,
+    pub stdout: String,
+    pub stderr: String,
+}
+
+impl Run {
+    /// Asserts a bad-input exit (code 2) whose message contains every one of `parts`,
+    /// and that nothing panicked.
+    pub fn assert_bad_input(&self, parts: &[&str]) {
+        assert_eq!(
+            self.code, 2,
+            "expected exit 2\nstdout: {}\nstderr: {}",
+            self.stdout, self.stderr
+        );
+        assert!(!self.stderr.contains("panicked"), "panic: {}", self.stderr);
+        assert_eq!(
+            self.stderr.lines().count(),
+            1,
+            "one line of error: {}",
+            self.stderr
+        );
+        for part in parts {
+            assert!(
+                self.stderr.contains(part),
+                "stderr lacks {part:?}: {}",
+                self.stderr
+            );
+        }
+    }
+
+    /// Asserts success.
+    pub fn assert_ok(&self) {
+        assert_eq!(
+            self.code, 0,
+            "expected success\nstdout: {}\nstderr: {}",
+            self.stdout, self.stderr
+        );
+    }
+}
+
+/// Runs `flipmend` with `args`.
+pub fn flipmend(args: &[&str]) -> Run {
+    let output = Command::new(env!("CARGO_BIN_EXE_flipmend"))
+        .args(args)
+        .output()
+        .expect("the binary runs");
+    Run {
+        code: output.status.code().unwrap_or(-1),
+        stdout: String::from_utf8_lossy(&output.stdout).into_owned(),
+        stderr: String::from_utf8_lossy(&output.stderr).into_owned(),
+    }
+}
+
+/// Path of a fixture in `tests/data`.
+pub fn fixture(name: &str) -> String {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/data")
+        .join(name)
+        .to_string_lossy()
+        .into_owned()
+}
+
+/// A temporary folder that is removed when dropped.
+pub struct TempDir(tempfile::TempDir);
+
+impl TempDir {
+    pub fn new() -> Self {
+        TempDir(tempfile::tempdir().expect("a temp dir"))
+    }
+
+    pub fn path(&self, name: &str) -> PathBuf {
+        self.0.path().join(name)
+    }
+
+    /// Names of the files in the folder, sorted.
+    pub fn files(&self) -> Vec<String> {
+        let mut names: Vec<String> = std::fs::read_dir(self.0.path())
+            .expect("readable")
+            .map(|e| e.expect("entry").file_name().to_string_lossy().into_owned())
+            .collect();
+        names.sort();
+        names
+    }
+}
