@@ -315,6 +315,9 @@ pub enum Error {
         /// The operating system's reason.
         source: std::io::Error,
     },
+    /// The user stopped a long job.
+    #[error("cancelled")]
+    Cancelled,
     /// A bug or an unexpected condition inside flipmend.
     #[error("internal error: {0}")]
     Internal(String),
@@ -332,7 +335,7 @@ impl Error {
         match self {
             Error::Read { .. } | Error::Input(_) | Error::Usage(_) => true,
             Error::WouldOverwriteInput { .. } => true,
-            Error::Write { .. } | Error::Internal(_) => false,
+            Error::Write { .. } | Error::Internal(_) | Error::Cancelled => false,
         }
     }
 }

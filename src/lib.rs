@@ -16,5 +16,6 @@ pub mod cli;
 pub mod data;
 pub mod error;
 pub mod io;
+pub mod learn;
 
 pub use error::{Error, InputError, Location, Problem, Result};

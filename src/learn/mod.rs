@@ -1,0 +1,12 @@
+//! Learning: softmax regression, its losses, folds and out-of-fold probabilities.
+
+pub mod folds;
+pub mod lbfgs;
+pub mod loss;
+pub mod oof;
+pub mod softmax;
+pub mod standardize;
+
+pub use loss::{CrossEntropy, RowLoss};
+pub use oof::{out_of_fold, OofParams};
+pub use softmax::{fit, FitReport, SoftmaxModel, SoftmaxParams};

@@ -1,0 +1,77 @@
+//! Out-of-fold class probabilities: each row's probabilities come from a model that did
+//! not see that row. In-sample probabilities would make every flip matrix look like the
+//! identity.
+
+use ndarray::{Array2, ArrayView2};
+
+use super::folds::stratified_folds;
+use super::loss::CrossEntropy;
+use super::softmax::{fit, FitReport, SoftmaxParams};
+use crate::error::{Error, Result};
+
+/// Settings for out-of-fold probabilities.
+#[derive(Debug, Clone, PartialEq)]
+pub struct OofParams {
+    /// Number of folds (at least 2). Default 5.
+    pub folds: usize,
+    /// Seed of the fold assignment. Default 0.
+    pub seed: u64,
+    /// The model fitted on each fold's training part.
+    pub model: SoftmaxParams,
+}
+
+impl Default for OofParams {
+    fn default() -> Self {
+        OofParams {
+            folds: 5,
+            seed: 0,
+            model: SoftmaxParams::default(),
+        }
+    }
+}
+
+/// Probabilities (`rows × classes`, f32) and one fit report per fold.
+pub fn out_of_fold(
+    x: ArrayView2<f64>,
+    labels: &[usize],
+    classes: usize,
+    params: &OofParams,
+    progress: &mut dyn FnMut(usize, usize) -> bool,
+) -> Result<(Array2<f32>, Vec<FitReport>)> {
+    params.model.check()?;
+    if params.folds < 2 || params.folds > labels.len() {
+        return Err(Error::Usage(format!(
+            "--folds must be between 2 and the number of rows ({}), not {}",
+            labels.len(),
+            params.folds
+        )));
+    }
+    let fold_of = stratified_folds(labels, classes, params.folds, params.seed);
+    let mut probs = Array2::<f32>::zeros((labels.len(), classes));
+    let mut reports = Vec::with_capacity(params.folds);
+    for fold in 0..params.folds {
+        if !progress(fold, params.folds) {
+            return Err(Error::Cancelled);
+        }
+        let (train, test): (Vec<usize>, Vec<usize>) =
+            (0..labels.len()).partition(|&r| fold_of[r] != fold);
+        let (model, report) = fit(
+            x,
+            Some(&train),
+            labels,
+            classes,
+            &CrossEntropy,
+            &params.model,
+            &mut |_| true,
+        )?;
+        let p = model.predict_proba(x, Some(&test));
+        for (i, &row) in test.iter().enumerate() {
+            for c in 0..classes {
+                probs[[row, c]] = p[[i, c]] as f32;
+            }
+        }
+        reports.push(report);
+    }
+    progress(params.folds, params.folds);
+    Ok((probs, reports))
+}

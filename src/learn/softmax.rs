@@ -1,0 +1,358 @@
+//! Multinomial (softmax) regression: standardised features, mean row loss plus
+//! (l2/2)·‖W‖² with the biases unpenalised, minimised by L-BFGS with the loss and its
+//! gradient computed in parallel over row blocks.
+
+use ndarray::{Array2, ArrayView2, Axis, Slice};
+use rayon::prelude::*;
+use serde::Serialize;
+
+use super::lbfgs::{minimize, LbfgsOptions, Stop};
+use super::loss::{softmax, RowLoss};
+use super::standardize::Standardizer;
+use crate::error::{Error, Result};
+
+/// Rows per parallel work item. Large enough that each block's two matrix products run
+/// near the machine's speed, small enough to balance two or more cores.
+const BLOCK_ROWS: usize = 2048;
+
+/// Settings of a softmax-regression fit, checked by [`SoftmaxParams::check`] before use.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SoftmaxParams {
+    l2: f64,
+    max_iter: usize,
+    grad_tol: f64,
+    min_rel_decrease: f64,
+}
+
+impl Default for SoftmaxParams {
+    fn default() -> Self {
+        SoftmaxParams {
+            l2: 1e-3,
+            max_iter: 500,
+            grad_tol: 1e-5,
+            min_rel_decrease: 2.2e-9,
+        }
+    }
+}
+
+impl SoftmaxParams {
+    /// L2 penalty on the weights (not the biases). Default 1e-3. The objective is the
+    /// mean loss + (l2/2)·‖W‖², the same optimum as scikit-learn's C = 1/(l2·n).
+    pub fn l2(mut self, l2: f64) -> Self {
+        self.l2 = l2;
+        self
+    }
+
+    /// Iteration limit. Default 500.
+    pub fn max_iter(mut self, max_iter: usize) -> Self {
+        self.max_iter = max_iter;
+        self
+    }
+
+    /// Stop when every gradient entry is at most this in absolute value. Default 1e-5.
+    pub fn grad_tol(mut self, grad_tol: f64) -> Self {
+        self.grad_tol = grad_tol;
+        self
+    }
+
+    /// Stop when an iteration lowers the objective by less than this relative amount.
+    /// Default 2.2e-9 (scipy's L-BFGS-B `ftol`); 0 relies on the gradient test alone.
+    pub fn min_rel_decrease(mut self, min_rel_decrease: f64) -> Self {
+        self.min_rel_decrease = min_rel_decrease;
+        self
+    }
+
+    /// The L2 penalty.
+    pub fn l2_penalty(&self) -> f64 {
+        self.l2
+    }
+
+    /// Refuses settings that cannot work.
+    pub fn check(&self) -> Result<()> {
+        if !(self.l2.is_finite() && self.l2 >= 0.0) {
+            return Err(Error::Usage(format!(
+                "--l2 must be a finite number of at least 0, not {}",
+                self.l2
+            )));
+        }
+        if self.max_iter == 0 {
+            return Err(Error::Usage("--max-iter must be at least 1".into()));
+        }
+        if !(self.min_rel_decrease.is_finite() && self.min_rel_decrease >= 0.0) {
+            return Err(Error::Usage(format!(
+                "the relative decrease tolerance must be at least 0, not {}",
+                self.min_rel_decrease
+            )));
+        }
+        if !(self.grad_tol.is_finite() && self.grad_tol > 0.0) {
+            return Err(Error::Usage(format!(
+                "the gradient tolerance must be positive, not {}",
+                self.grad_tol
+            )));
+        }
+        Ok(())
+    }
+}
+
+/// A fitted model: weights apply to standardised features.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SoftmaxModel {
+    /// Feature statistics of the fitting rows.
+    pub standardizer: Standardizer,
+    /// `classes × features` weights.
+    pub weights: Array2<f64>,
+    /// One bias per class.
+    pub bias: Vec<f64>,
+}
+
+/// How a fit went.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FitReport {
+    /// Final objective (mean loss plus penalty).
+    pub objective: f64,
+    /// L-BFGS iterations.
+    pub iterations: usize,
+    /// Largest absolute gradient entry at the end.
+    pub grad_norm: f64,
+    /// True when the gradient tolerance was met.
+    pub converged: bool,
+}
+
+/// The rows a fit sees: standardised features, labels, class count.
+struct Problem<'a> {
+    x: ArrayView2<'a, f64>,
+    labels: &'a [usize],
+    classes: usize,
+    loss: &'a dyn RowLoss,
+    l2: f64,
+}
+
+impl Problem<'_> {
+    /// Objective at `theta` (weights row-major, then biases); gradient into `grad`.
+    fn evaluate(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
+        let (k, d) = (self.classes, self.x.ncols());
+        let Ok(weights) = ArrayView2::from_shape((k, d), &theta[..k * d]) else {
+            return f64::NAN;
+        };
+        let bias = &theta[k * d..];
+        let n = self.x.nrows();
+        let parts: Vec<(f64, Array2<f64>, Vec<f64>)> = (0..n.div_ceil(BLOCK_ROWS))
+            .into_par_iter()
+            .map(|block| {
+                self.block(
+                    block * BLOCK_ROWS,
+                    ((block + 1) * BLOCK_ROWS).min(n),
+                    weights,
+                    bias,
+                )
+            })
+            .collect();
+        // Summed in block order, so the result does not depend on the thread count.
+        let scale = 1.0 / n.max(1) as f64;
+        let mut total = 0.0;
+        grad.iter_mut().for_each(|g| *g = 0.0);
+        for (loss, grad_w, grad_b) in &parts {
+            total += loss;
+            for (g, v) in grad[..k * d].iter_mut().zip(grad_w.iter()) {
+                *g += v;
+            }
+            for (g, v) in grad[k * d..].iter_mut().zip(grad_b) {
+                *g += v;
+            }
+        }
+        grad.iter_mut().for_each(|g| *g *= scale);
+        let mut penalty = 0.0;
+        for (g, w) in grad[..k * d].iter_mut().zip(&theta[..k * d]) {
+            *g += self.l2 * w;
+            penalty += w * w;
+        }
+        total * scale + 0.5 * self.l2 * penalty
+    }
+
+    fn block(
+        &self,
+        start: usize,
+        end: usize,
+        weights: ArrayView2<f64>,
+        bias: &[f64],
+    ) -> (f64, Array2<f64>, Vec<f64>) {
+        let xb = self.x.slice_axis(Axis(0), Slice::from(start..end));
+        let mut z = xb.dot(&weights.t());
+        let mut loss = 0.0;
+        let mut grad_b = vec![0.0; self.classes];
+        for (r, mut row) in z.axis_iter_mut(Axis(0)).enumerate() {
+            let Some(logits) = row.as_slice_mut() else {
+                continue;
+            };
+            logits.iter_mut().zip(bias).for_each(|(v, b)| *v += b);
+            loss += self.loss.loss_and_grad(logits, self.labels[start + r]);
+            grad_b
+                .iter_mut()
+                .zip(logits.iter())
+                .for_each(|(g, v)| *g += v);
+        }
+        (loss, z.t().dot(&xb), grad_b)
+    }
+}
+
+/// Fits on the rows `rows` of `x` (all rows when `None`) with `labels[r]` the label of
+/// row `r` of `x`. `keep_going` is asked once per iteration (for cancelling).
+pub fn fit(
+    x: ArrayView2<f64>,
+    rows: Option<&[usize]>,
+    labels: &[usize],
+    classes: usize,
+    loss: &dyn RowLoss,
+    params: &SoftmaxParams,
+    keep_going: &mut dyn FnMut(usize) -> bool,
+) -> Result<(SoftmaxModel, FitReport)> {
+    params.check()?;
+    if labels.iter().any(|&y| y >= classes) {
+        return Err(Error::Internal(
+            "a label is not below the class count".into(),
+        ));
+    }
+    let standardizer = Standardizer::fit(x, rows);
+    let xs = standardizer.transform(x, rows);
+    let fit_labels: Vec<usize> = match rows {
+        Some(rows) => rows.iter().map(|&r| labels[r]).collect(),
+        None => labels.to_vec(),
+    };
+    let problem = Problem {
+        x: xs.view(),
+        labels: &fit_labels,
+        classes,
+        loss,
+        l2: params.l2,
+    };
+    let d = x.ncols();
+    let options = LbfgsOptions {
+        max_iter: params.max_iter,
+        grad_tol: params.grad_tol,
+        rel_decrease_tol: params.min_rel_decrease,
+        ..Default::default()
+    };
+    let outcome = minimize(
+        |t, g| problem.evaluate(t, g),
+        vec![0.0; classes * (d + 1)],
+        &options,
+        keep_going,
+    );
+    if outcome.stop == Stop::Cancelled {
+        return Err(Error::Cancelled);
+    }
+    let weights = Array2::from_shape_vec((classes, d), outcome.x[..classes * d].to_vec())
+        .map_err(|e| Error::Internal(format!("weight shape: {e}")))?;
+    let report = FitReport {
+        objective: outcome.value,
+        iterations: outcome.iterations,
+        grad_norm: outcome.grad_norm,
+        converged: outcome.stop == Stop::Gradient,
+    };
+    Ok((
+        SoftmaxModel {
+            standardizer,
+            weights,
+            bias: outcome.x[classes * d..].to_vec(),
+        },
+        report,
+    ))
+}
+
+impl SoftmaxModel {
+    /// Class probabilities for the rows `rows` of `x` (all when `None`).
+    pub fn predict_proba(&self, x: ArrayView2<f64>, rows: Option<&[usize]>) -> Array2<f64> {
+        let xs = self.standardizer.transform(x, rows);
+        let mut z = xs.dot(&self.weights.t());
+        let classes = self.bias.len().max(1);
+        if let Some(flat) = z.as_slice_mut() {
+            flat.par_chunks_mut(classes).for_each(|logits| {
+                logits.iter_mut().zip(&self.bias).for_each(|(v, b)| *v += b);
+                softmax(logits);
+            });
+        }
+        z
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::learn::loss::CrossEntropy;
+    use ndarray::array;
+
+    #[test]
+    fn gradient_matches_finite_differences() {
+        let x = array![
+            [0.5, -1.0],
+            [1.5, 0.3],
+            [-0.7, 2.0],
+            [0.1, 0.1],
+            [2.0, -0.5]
+        ];
+        let labels = [0, 1, 2, 1, 0];
+        let problem = Problem {
+            x: x.view(),
+            labels: &labels,
+            classes: 3,
+            loss: &CrossEntropy,
+            l2: 0.1,
+        };
+        let theta: Vec<f64> = (0..9).map(|i| 0.3 * (i as f64 - 4.0) / 4.0).collect();
+        let mut grad = vec![0.0; 9];
+        problem.evaluate(&theta, &mut grad);
+        let h = 1e-6;
+        for i in 0..9 {
+            let (mut up, mut down) = (theta.clone(), theta.clone());
+            up[i] += h;
+            down[i] -= h;
+            let mut scratch = vec![0.0; 9];
+            let numeric = (problem.evaluate(&up, &mut scratch)
+                - problem.evaluate(&down, &mut scratch))
+                / (2.0 * h);
+            assert!(
+                (numeric - grad[i]).abs() < 1e-7,
+                "entry {i}: {numeric} vs {}",
+                grad[i]
+            );
+        }
+    }
+
+    #[test]
+    fn bad_params_are_refused() {
+        assert!(SoftmaxParams::default().l2(-1.0).check().is_err());
+        assert!(SoftmaxParams::default().l2(f64::NAN).check().is_err());
+        assert!(SoftmaxParams::default().max_iter(0).check().is_err());
+        assert!(SoftmaxParams::default().grad_tol(0.0).check().is_err());
+        assert!(SoftmaxParams::default().check().is_ok());
+    }
+
+    #[test]
+    fn separable_classes_are_learned() {
+        let x = array![
+            [0.0, 0.0],
+            [0.2, 0.1],
+            [5.0, 5.0],
+            [5.1, 4.8],
+            [0.0, 5.0],
+            [0.2, 5.2]
+        ];
+        let labels = [0, 0, 1, 1, 2, 2];
+        let (model, report) = fit(
+            x.view(),
+            None,
+            &labels,
+            3,
+            &CrossEntropy,
+            &SoftmaxParams::default(),
+            &mut |_| true,
+        )
+        .unwrap();
+        assert!(report.converged, "{report:?}");
+        let p = model.predict_proba(x.view(), None);
+        for (row, &y) in p.axis_iter(Axis(0)).zip(&labels) {
+            assert!(row[y] > 0.5, "{row}");
+            assert!((row.sum() - 1.0).abs() < 1e-12);
+        }
+    }
+}
