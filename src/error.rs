@@ -239,6 +239,12 @@ pub enum Problem {
         /// One of them.
         example: String,
     },
+    /// A flip-matrix file that is not a valid matrix for the data's classes.
+    #[error("{detail}")]
+    Matrix {
+        /// What is wrong.
+        detail: String,
+    },
     /// A malformed `.npy` header.
     #[error("not a readable .npy file: {detail}")]
     NpyHeader {

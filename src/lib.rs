@@ -17,5 +17,6 @@ pub mod data;
 pub mod error;
 pub mod io;
 pub mod learn;
+pub mod noise;
 
 pub use error::{Error, InputError, Location, Problem, Result};

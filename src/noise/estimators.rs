@@ -1,0 +1,535 @@
+//! Flip-matrix estimators. Each returns a validated row-stochastic K×K matrix with rows =
+//! true class: T[i][j] = P(observed j | true i).
+//!
+//! All work from out-of-sample probabilities p(observed | x) of the noisy labels; the
+//! rows to use come as an index list so that bootstrap resamples need no copies.
+
+use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
+
+use super::matrix::{normalize_rows, validate};
+use crate::error::{Error, Result};
+
+/// Rows per parallel work item in the row passes.
+const CHUNK_ROWS: usize = 16_384;
+
+/// Which estimator.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Method {
+    /// Patrini et al. (CVPR 2017): the row with the highest p(observed = i | x) is taken
+    /// as an anchor point of class i, and its probability vector becomes T[i].
+    Anchor,
+    /// The same, but the anchor of class i is the row with the largest p(observed = i | x)
+    /// strictly below that column's q-quantile (numpy's "higher" interpolation), the
+    /// robust choice used in Patrini et al.'s experiments.
+    Quantile {
+        /// The quantile, in (0, 1]. Default 0.97.
+        q: f64,
+    },
+    /// Hendrycks et al. (NeurIPS 2018): T[i] = mean probability vector over the rows
+    /// whose trusted label is i.
+    Trusted {
+        /// Estimate classes without trusted rows by `Quantile { q }` instead of failing.
+        fallback_quantile: Option<f64>,
+    },
+    /// Northcutt et al. (JAIR 2021), confident counting: per-class thresholds, the
+    /// confident joint, calibration to the observed class counts, then conditioned on
+    /// the true class.
+    Counting,
+}
+
+impl Method {
+    /// The name used on the command line and in JSON.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Method::Anchor => "anchor",
+            Method::Quantile { .. } => "quantile",
+            Method::Trusted { .. } => "trusted",
+            Method::Counting => "counting",
+        }
+    }
+
+    /// Refuses a quantile outside (0, 1].
+    pub fn check(&self) -> Result<()> {
+        let q = match self {
+            Method::Quantile { q } => Some(*q),
+            Method::Trusted { fallback_quantile } => *fallback_quantile,
+            _ => None,
+        };
+        match q {
+            Some(q) if !(q > 0.0 && q <= 1.0) => Err(Error::Usage(format!(
+                "--quantile must lie in (0, 1], not {q}"
+            ))),
+            _ => Ok(()),
+        }
+    }
+}
+
+/// The rows an estimator sees.
+#[derive(Debug, Clone, Copy)]
+pub struct Sample<'a> {
+    /// `rows × classes` out-of-sample probabilities of the observed label.
+    pub probs: ArrayView2<'a, f32>,
+    /// Observed label of every row.
+    pub labels: &'a [usize],
+    /// Trusted label of every row, where audited.
+    pub trusted: Option<&'a [Option<usize>]>,
+    /// Which rows to use (repeats allowed, as in a bootstrap resample).
+    pub rows: &'a [usize],
+}
+
+/// An estimated matrix and what the user should know about it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Estimate {
+    /// The row-stochastic flip matrix.
+    pub matrix: Array2<f64>,
+    /// Notes such as fallbacks taken.
+    pub notes: Vec<String>,
+}
+
+/// Runs `method` on `sample`; `classes` names the classes in messages.
+pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<Estimate> {
+    method.check()?;
+    if sample.rows.is_empty() {
+        return Err(Error::Usage(
+            "no rows to estimate the flip matrix from".into(),
+        ));
+    }
+    let mut notes = Vec::new();
+    let mut matrix = match method {
+        Method::Anchor => anchor(sample),
+        Method::Quantile { q } => quantile(sample, *q, classes, &mut notes),
+        Method::Trusted { fallback_quantile } => {
+            trusted(sample, *fallback_quantile, classes, &mut notes)?
+        }
+        Method::Counting => counting(sample, classes, &mut notes),
+    };
+    normalize_rows(&mut matrix);
+    validate(&matrix).map_err(|e| Error::Internal(format!("{} estimator: {e}", method.name())))?;
+    Ok(Estimate { matrix, notes })
+}
+
+/// Copies row `row` of the probabilities into T's row `class`.
+fn set_row(t: &mut Array2<f64>, class: usize, probs: ArrayView2<f32>, row: usize) {
+    for (dst, &src) in t.row_mut(class).iter_mut().zip(probs.row(row)) {
+        *dst = src as f64;
+    }
+}
+
+/// For every class, the first row (in sample order) with the largest probability among
+/// those accepted by `admit(class, value)`.
+fn best_rows(sample: &Sample, admit: &(dyn Fn(usize, f32) -> bool + Sync)) -> Vec<Option<usize>> {
+    let k = sample.probs.ncols();
+    let per_chunk: Vec<Vec<Option<(f32, usize)>>> = sample
+        .rows
+        .par_chunks(CHUNK_ROWS)
+        .map(|rows| {
+            let mut best: Vec<Option<(f32, usize)>> = vec![None; k];
+            for &r in rows {
+                for (c, &v) in sample.probs.row(r).iter().enumerate() {
+                    if admit(c, v) && best[c].is_none_or(|(b, _)| v > b) {
+                        best[c] = Some((v, r));
+                    }
+                }
+            }
+            best
+        })
+        .collect();
+    let mut best: Vec<Option<(f32, usize)>> = vec![None; k];
+    for chunk in per_chunk {
+        for (c, candidate) in chunk.into_iter().enumerate() {
+            if let Some((v, r)) = candidate {
+                if best[c].is_none_or(|(b, _)| v > b) {
+                    best[c] = Some((v, r));
+                }
+            }
+        }
+    }
+    best.into_iter().map(|b| b.map(|(_, r)| r)).collect()
+}
+
+fn anchor(sample: &Sample) -> Array2<f64> {
+    let k = sample.probs.ncols();
+    let mut t = Array2::zeros((k, k));
+    for (class, row) in best_rows(sample, &|_, _| true).into_iter().enumerate() {
+        match row {
+            Some(row) => set_row(&mut t, class, sample.probs, row),
+            None => t[[class, class]] = 1.0,
+        }
+    }
+    t
+}
+
+/// numpy's `quantile(values, q, method="higher")`: the sorted value at ⌈q·(n−1)⌉.
+pub fn quantile_higher(values: &mut [f32], q: f64) -> f32 {
+    let index = ((q * (values.len() - 1) as f64).ceil() as usize).min(values.len() - 1);
+    *values.select_nth_unstable_by(index, f32::total_cmp).1
+}
+
+fn quantile(sample: &Sample, q: f64, classes: &[String], notes: &mut Vec<String>) -> Array2<f64> {
+    let k = sample.probs.ncols();
+    let thresholds: Vec<f32> = (0..k)
+        .into_par_iter()
+        .map_init(
+            || Vec::with_capacity(sample.rows.len()),
+            |column: &mut Vec<f32>, c| {
+                column.clear();
+                column.extend(sample.rows.iter().map(|&r| sample.probs[[r, c]]));
+                quantile_higher(column, q)
+            },
+        )
+        .collect();
+    let below = best_rows(sample, &|c, v| v < thresholds[c]);
+    let anchors = anchor(sample);
+    let mut t = Array2::zeros((k, k));
+    for (class, row) in below.into_iter().enumerate() {
+        match row {
+            Some(row) => set_row(&mut t, class, sample.probs, row),
+            None => {
+                notes.push(format!(
+                    "class '{}': no row lies strictly below the {q} quantile; its highest-probability row was used",
+                    classes[class]
+                ));
+                t.row_mut(class).assign(&anchors.row(class));
+            }
+        }
+    }
+    t
+}
+
+fn trusted(
+    sample: &Sample,
+    fallback: Option<f64>,
+    classes: &[String],
+    notes: &mut Vec<String>,
+) -> Result<Array2<f64>> {
+    let k = sample.probs.ncols();
+    let trusted = sample.trusted.ok_or_else(|| {
+        Error::Usage("--method trusted needs a trusted-label column (--trusted COL, or a column named 'trusted')".into())
+    })?;
+    let (sums, counts) = sample
+        .rows
+        .par_chunks(CHUNK_ROWS)
+        .map(|rows| {
+            let mut sums = Array2::<f64>::zeros((k, k));
+            let mut counts = vec![0usize; k];
+            for &r in rows {
+                if let Some(class) = trusted[r] {
+                    counts[class] += 1;
+                    for (s, &v) in sums.row_mut(class).iter_mut().zip(sample.probs.row(r)) {
+                        *s += v as f64;
+                    }
+                }
+            }
+            (sums, counts)
+        })
+        .collect::<Vec<_>>()
+        .into_iter()
+        .fold(
+            (Array2::<f64>::zeros((k, k)), vec![0usize; k]),
+            |(mut s, mut c), (s2, c2)| {
+                s += &s2;
+                c.iter_mut().zip(c2).for_each(|(a, b)| *a += b);
+                (s, c)
+            },
+        );
+    let missing: Vec<usize> = (0..k).filter(|&c| counts[c] == 0).collect();
+    if !missing.is_empty() && fallback.is_none() {
+        let names: Vec<&str> = missing.iter().map(|&c| classes[c].as_str()).collect();
+        return Err(Error::Usage(format!(
+            "no trusted rows for the class(es) {}; audit some, or pass --fallback quantile",
+            names.join(", ")
+        )));
+    }
+    let mut t = sums;
+    for (mut row, &count) in t.rows_mut().into_iter().zip(&counts) {
+        if count > 0 {
+            row.mapv_inplace(|v| v / count as f64);
+        }
+    }
+    if let Some(q) = fallback.filter(|_| !missing.is_empty()) {
+        let by_quantile = quantile(sample, q, classes, notes);
+        for &c in &missing {
+            t.row_mut(c).assign(&by_quantile.row(c));
+            notes.push(format!(
+                "class '{}' has no trusted rows; its row comes from the {q} quantile estimator",
+                classes[c]
+            ));
+        }
+    }
+    Ok(t)
+}
+
+fn counting(sample: &Sample, classes: &[String], notes: &mut Vec<String>) -> Array2<f64> {
+    let k = sample.probs.ncols();
+    // Thresholds t_j: mean self-confidence p_j over the rows observed as j.
+    let mut totals = vec![0.0f64; k];
+    let mut observed = vec![0usize; k];
+    for &r in sample.rows {
+        let y = sample.labels[r];
+        totals[y] += sample.probs[[r, y]] as f64;
+        observed[y] += 1;
+    }
+    let thresholds: Vec<f64> = (0..k)
+        .map(|j| {
+            if observed[j] > 0 {
+                totals[j] / observed[j] as f64
+            } else {
+                f64::INFINITY
+            }
+        })
+        .collect();
+    // Confident joint C[observed][true]: a row counts for the most probable of the
+    // classes whose probability reaches their threshold.
+    let joint = sample
+        .rows
+        .par_chunks(CHUNK_ROWS)
+        .map(|rows| {
+            let mut c = Array2::<f64>::zeros((k, k));
+            for &r in rows {
+                let p = sample.probs.row(r);
+                let mut best: Option<(f32, usize)> = None;
+                for (j, &v) in p.iter().enumerate() {
+                    if v as f64 >= thresholds[j] && best.is_none_or(|(b, _)| v > b) {
+                        best = Some((v, j));
+                    }
+                }
+                if let Some((_, j)) = best {
+                    c[[sample.labels[r], j]] += 1.0;
+                }
+            }
+            c
+        })
+        .collect::<Vec<_>>()
+        .into_iter()
+        .fold(Array2::<f64>::zeros((k, k)), |a, b| a + b);
+    // Calibrate: each observed row of C scaled to that class's observed count, then the
+    // whole made a joint distribution Q(observed, true).
+    let mut q = joint;
+    for (mut row, &count) in q.rows_mut().into_iter().zip(&observed) {
+        let row_sum: f64 = row.sum();
+        if row_sum > 0.0 {
+            row.mapv_inplace(|v| v / row_sum * count as f64);
+        }
+    }
+    let total: f64 = q.sum();
+    if total > 0.0 {
+        q.mapv_inplace(|v| v / total);
+    }
+    // Ours is conditioned on the true class: T[j][i] = Q(i, j) / Σ_i' Q(i', j), the
+    // transpose of the paper's orientation.
+    let mut t = Array2::zeros((k, k));
+    for j in 0..k {
+        let column: f64 = q.column(j).sum();
+        if column > 0.0 {
+            for i in 0..k {
+                t[[j, i]] = q[[i, j]] / column;
+            }
+        } else {
+            t[[j, j]] = 1.0;
+            notes.push(format!(
+                "class '{}': no row is confidently of this class; its row was set to no flips",
+                classes[j]
+            ));
+        }
+    }
+    t
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    fn names() -> Vec<String> {
+        vec!["a".into(), "b".into(), "c".into()]
+    }
+
+    /// Eight rows, three classes, for the anchor-point estimators (values chosen by hand).
+    fn eight() -> (Array2<f32>, Vec<usize>) {
+        let p = array![
+            [0.90, 0.05, 0.05], // 0
+            [0.70, 0.20, 0.10], // 1
+            [0.60, 0.30, 0.10], // 2
+            [0.10, 0.80, 0.10], // 3
+            [0.20, 0.70, 0.10], // 4
+            [0.05, 0.15, 0.80], // 5
+            [0.10, 0.30, 0.60], // 6
+            [0.30, 0.30, 0.40], // 7
+        ];
+        (p, vec![0, 0, 1, 1, 1, 2, 2, 2])
+    }
+
+    fn run(
+        method: Method,
+        p: &Array2<f32>,
+        labels: &[usize],
+        trusted: Option<&[Option<usize>]>,
+    ) -> Result<Estimate> {
+        let rows: Vec<usize> = (0..labels.len()).collect();
+        let sample = Sample {
+            probs: p.view(),
+            labels,
+            trusted,
+            rows: &rows,
+        };
+        estimate(&method, &sample, &names())
+    }
+
+    fn close(t: &Array2<f64>, expected: &[[f64; 3]; 3]) {
+        for i in 0..3 {
+            for j in 0..3 {
+                assert!(
+                    (t[[i, j]] - expected[i][j]).abs() < 1e-6,
+                    "T[{i}][{j}] = {} vs {}",
+                    t[[i, j]],
+                    expected[i][j]
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn anchor_takes_each_columns_argmax_row() {
+        // Column maxima (Patrini et al. 2017, anchor points): a → row 0, b → row 3, c → row 5.
+        let (p, y) = eight();
+        let t = run(Method::Anchor, &p, &y, None).unwrap().matrix;
+        close(
+            &t,
+            &[[0.90, 0.05, 0.05], [0.10, 0.80, 0.10], [0.05, 0.15, 0.80]],
+        );
+    }
+
+    #[test]
+    fn quantile_takes_the_largest_value_below_the_higher_quantile() {
+        // q = 0.8, n = 8: index ⌈0.8·7⌉ = ⌈5.6⌉ = 6 of the sorted column.
+        // a sorted: .05 .10 .10 .20 .30 .60 .70 .90 → threshold .70; largest below: .60 (row 2).
+        // b sorted: .05 .15 .20 .30 .30 .30 .70 .80 → threshold .70; largest below: .30 (row 2, first).
+        // c sorted: .05 .10 .10 .10 .10 .40 .60 .80 → threshold .60; largest below: .40 (row 7).
+        let (p, y) = eight();
+        let t = run(Method::Quantile { q: 0.8 }, &p, &y, None)
+            .unwrap()
+            .matrix;
+        close(
+            &t,
+            &[[0.60, 0.30, 0.10], [0.60, 0.30, 0.10], [0.30, 0.30, 0.40]],
+        );
+        let mut column = vec![0.05f32, 0.9, 0.1, 0.1, 0.2, 0.3, 0.6, 0.7];
+        assert_eq!(quantile_higher(&mut column, 0.8), 0.7);
+    }
+
+    #[test]
+    fn trusted_averages_the_audited_rows() {
+        // Trusted: rows 0 and 2 are a, row 3 is b, rows 6 and 7 are c.
+        let (p, y) = eight();
+        let trusted = [
+            Some(0),
+            None,
+            Some(0),
+            Some(1),
+            None,
+            None,
+            Some(2),
+            Some(2),
+        ];
+        let t = run(
+            Method::Trusted {
+                fallback_quantile: None,
+            },
+            &p,
+            &y,
+            Some(&trusted),
+        )
+        .unwrap()
+        .matrix;
+        close(
+            &t,
+            &[[0.75, 0.175, 0.075], [0.10, 0.80, 0.10], [0.20, 0.30, 0.50]],
+        );
+        let partial = [Some(0), None, None, None, None, None, Some(2), None];
+        let err = run(
+            Method::Trusted {
+                fallback_quantile: None,
+            },
+            &p,
+            &y,
+            Some(&partial),
+        )
+        .unwrap_err();
+        assert!(
+            err.to_string()
+                .contains("no trusted rows for the class(es) b"),
+            "{err}"
+        );
+        let fallback = run(
+            Method::Trusted {
+                fallback_quantile: Some(0.8),
+            },
+            &p,
+            &y,
+            Some(&partial),
+        )
+        .unwrap();
+        let row_b: Vec<f64> = fallback.matrix.row(1).to_vec();
+        assert!(
+            row_b
+                .iter()
+                .zip([0.6, 0.3, 0.1])
+                .all(|(a, b)| (a - b).abs() < 1e-6),
+            "{row_b:?}"
+        );
+        assert!(fallback.notes[0].contains("'b' has no trusted rows"));
+    }
+
+    #[test]
+    fn counting_by_hand() {
+        // Ten rows worked by hand from Northcutt et al. (2021), Sec. 3.1:
+        let p = array![
+            [0.8, 0.1, 0.1], // y=a
+            [0.7, 0.2, 0.1], // y=a
+            [0.2, 0.7, 0.1], // y=a
+            [0.6, 0.3, 0.1], // y=a
+            [0.1, 0.8, 0.1], // y=b
+            [0.2, 0.6, 0.2], // y=b
+            [0.1, 0.2, 0.7], // y=b
+            [0.1, 0.1, 0.8], // y=c
+            [0.1, 0.2, 0.7], // y=c
+            [0.5, 0.1, 0.4], // y=c
+        ];
+        let y = [0, 0, 0, 0, 1, 1, 1, 2, 2, 2];
+        // Thresholds: t_a = (.8+.7+.2+.6)/4 = .575, t_b = (.8+.6+.2)/3 = .5333, t_c = (.8+.7+.4)/3 = .6333.
+        // Confident joint C[observed][true]:
+        //   row 0 a≥.575 → (a,a); row 1 → (a,a); row 2 b=.7≥.533 → (a,b); row 3 a=.6≥.575 → (a,a);
+        //   row 4 → (b,b); row 5 b=.6 → (b,b); row 6 c=.7≥.633 → (b,c);
+        //   row 7 → (c,c); row 8 c=.7 → (c,c); row 9 a=.5 < .575, c=.4 < .633 → not counted.
+        //   C = [[3,1,0],[0,2,1],[0,0,2]]; observed counts n = (4, 3, 3).
+        // Calibrated: row a ×4/4 = [3,1,0]; row b ×3/3 = [0,2,1]; row c ×3/2 = [0,0,3];
+        //   total 10 → Q = [[.3,.1,0],[0,.2,.1],[0,0,.3]].
+        // T[j][i] = Q[i][j] / Σ_i Q[i][j]: column a = (.3,0,0) → T[a] = (1,0,0);
+        //   column b = (.1,.2,0) → T[b] = (1/3, 2/3, 0); column c = (0,.1,.3) → T[c] = (0, 1/4, 3/4).
+        let t = run(Method::Counting, &p, &y, None).unwrap().matrix;
+        close(
+            &t,
+            &[
+                [1.0, 0.0, 0.0],
+                [1.0 / 3.0, 2.0 / 3.0, 0.0],
+                [0.0, 0.25, 0.75],
+            ],
+        );
+    }
+
+    #[test]
+    fn results_are_row_stochastic_and_a_bad_quantile_is_refused() {
+        let (p, y) = eight();
+        for method in [
+            Method::Anchor,
+            Method::Quantile { q: 0.97 },
+            Method::Counting,
+        ] {
+            let t = run(method, &p, &y, None).unwrap().matrix;
+            assert!(validate(&t).is_ok());
+        }
+        assert!(run(Method::Quantile { q: 1.5 }, &p, &y, None).is_err());
+        assert!(run(Method::Quantile { q: 0.0 }, &p, &y, None).is_err());
+    }
+}

@@ -1,0 +1,12 @@
+//! Label noise: flip-matrix estimators, their diagnostics and uncertainty, and per-row
+//! posteriors under a matrix.
+
+pub mod bootstrap;
+pub mod diagnostics;
+pub mod estimators;
+pub mod linalg;
+pub mod matrix;
+pub mod posterior;
+
+pub use diagnostics::{diagnose, Diagnostics};
+pub use estimators::{estimate, Estimate, Method, Sample};
