@@ -18,5 +18,6 @@ pub mod error;
 pub mod io;
 pub mod learn;
 pub mod noise;
+pub mod workflow;
 
 pub use error::{Error, InputError, Location, Problem, Result};

@@ -6,6 +6,9 @@ use clap::Args;
 
 use crate::data::roles::parse_delimiter;
 use crate::data::{ProbOptions, TableOptions};
+use crate::learn::{OofParams, SoftmaxParams};
+use crate::noise::Method;
+use crate::workflow::MatrixSource;
 
 /// Which file to read and which column plays which role.
 #[derive(Debug, Clone, Args)]
@@ -51,7 +54,8 @@ pub struct ProbArgs {
     /// with columns in class order (the natural sort of the class names)
     #[arg(long, value_name = "FILE")]
     pub probs: Option<PathBuf>,
-    /// Rescale probability rows that do not sum to 1 (within 1e-3) instead of failing
+    /// Rescale rows of probability files (off by more than 1e-3) and matrix files (off by
+    /// more than 1e-6) that do not sum to 1, instead of failing
     #[arg(long)]
     pub renormalize: bool,
 }
@@ -62,6 +66,102 @@ impl ProbArgs {
         ProbOptions {
             renormalize: self.renormalize,
             delimiter,
+        }
+    }
+}
+
+/// Which flip-matrix estimator to use, or a matrix file instead.
+#[derive(Debug, Clone, Args)]
+pub struct MatrixArgs {
+    /// Estimator: quantile (anchor points below the q-quantile), anchor (highest-probability
+    /// rows), trusted (mean probabilities of audited rows), counting (confident counting)
+    #[arg(long, value_enum, default_value_t = MethodName::Quantile, conflicts_with = "matrix")]
+    pub method: MethodName,
+    /// Quantile for --method quantile (and for --fallback quantile), in (0, 1]
+    #[arg(long, value_name = "Q", default_value_t = 0.97)]
+    pub quantile: f64,
+    /// With --method trusted: how to estimate classes that have no trusted rows
+    #[arg(long, value_enum, default_value_t = Fallback::None)]
+    pub fallback: Fallback,
+    /// Use this flip matrix instead of estimating one: CSV with the header
+    /// class,<class names…> and one row per true class, each row summing to 1
+    #[arg(long, value_name = "FILE")]
+    pub matrix: Option<PathBuf>,
+}
+
+/// Estimator names on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum MethodName {
+    /// Anchor rows just below the q-quantile of each class's probability.
+    Quantile,
+    /// The highest-probability row of each class.
+    Anchor,
+    /// Mean probabilities of the rows with a trusted label.
+    Trusted,
+    /// Confident counting with per-class thresholds.
+    Counting,
+}
+
+/// What `--method trusted` does for classes without trusted rows.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Fallback {
+    /// Stop with an error naming the classes.
+    None,
+    /// Estimate those rows with the quantile estimator.
+    Quantile,
+}
+
+impl MatrixArgs {
+    /// The estimator as library data.
+    pub fn method(&self) -> Method {
+        match self.method {
+            MethodName::Quantile => Method::Quantile { q: self.quantile },
+            MethodName::Anchor => Method::Anchor,
+            MethodName::Trusted => Method::Trusted {
+                fallback_quantile: (self.fallback == Fallback::Quantile).then_some(self.quantile),
+            },
+            MethodName::Counting => Method::Counting,
+        }
+    }
+
+    /// Where the matrix comes from.
+    pub fn source(&self, renormalize: bool) -> MatrixSource {
+        match &self.matrix {
+            Some(path) => MatrixSource::File {
+                path: path.clone(),
+                renormalize,
+            },
+            None => MatrixSource::Estimate(self.method()),
+        }
+    }
+}
+
+/// The model fitted for out-of-fold probabilities when `--probs` is absent.
+#[derive(Debug, Clone, Args)]
+pub struct FitArgs {
+    /// Folds of the cross-validation that computes out-of-fold probabilities (stratified
+    /// by observed label)
+    #[arg(long, value_name = "N", default_value_t = 5)]
+    pub folds: usize,
+    /// L2 penalty of the softmax regression: objective = mean cross-entropy + (l2/2)·‖W‖²,
+    /// biases unpenalised
+    #[arg(long, value_name = "X", default_value_t = 1e-3)]
+    pub l2: f64,
+    /// Iteration limit of each fit (L-BFGS)
+    #[arg(long, value_name = "N", default_value_t = 500)]
+    pub max_iter: usize,
+    /// Seed of every random choice (folds, bootstrap)
+    #[arg(long, value_name = "S", default_value_t = 0)]
+    pub seed: u64,
+}
+
+impl FitArgs {
+    /// Out-of-fold settings as library data.
+    pub fn oof(&self) -> OofParams {
+        OofParams {
+            folds: self.folds,
+            seed: self.seed,
+            model: SoftmaxParams::default().l2(self.l2).max_iter(self.max_iter),
         }
     }
 }

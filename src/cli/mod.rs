@@ -1,13 +1,15 @@
 //! The command line: flags parsed into plain data, then turned into library calls.
 
 mod args;
+mod estimate;
 mod inspect;
 
 use std::io::Write;
 
 use clap::{Parser, Subcommand};
 
-pub use args::{ProbArgs, TableArgs};
+pub use args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+pub use estimate::EstimateArgs;
 pub use inspect::InspectArgs;
 
 use crate::error::Result;
@@ -28,12 +30,17 @@ pub enum Command {
     /// Load a labelled table (and optionally model probabilities) and report what was read:
     /// rows, features, classes with counts, trusted labels, ignored columns, problems.
     Inspect(InspectArgs),
+    /// Estimate the flip matrix T (T[i][j] = P(observed j | true i)) from out-of-sample
+    /// probabilities (given with --probs, or computed by k-fold cross-validation), with
+    /// the noise summary, diagnostics and warnings.
+    Estimate(EstimateArgs),
 }
 
 /// Runs a parsed command line, writing its report to `out`.
 pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
     match cli.command {
         Some(Command::Inspect(args)) => inspect::run(&args, out),
+        Some(Command::Estimate(args)) => estimate::run(&args, out),
         None => {
             let help = <Cli as clap::CommandFactory>::command()
                 .render_help()

@@ -1,0 +1,324 @@
+//! `flipmend estimate`: the flip matrix, its noise summary and warnings.
+
+use std::fmt::Write as _;
+use std::io::{IsTerminal, Write};
+use std::path::{Path, PathBuf};
+
+use clap::Args;
+use ndarray::Array2;
+use serde::Serialize;
+
+use super::args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+use crate::data::Dataset;
+use crate::error::{Error, Result};
+use crate::io::{check_not_input, write_atomic, write_json};
+use crate::noise::bootstrap::Interval;
+use crate::noise::diagnostics::ReliabilityBin;
+use crate::noise::matrix::write_matrix_csv;
+use crate::workflow::{self, FlipEstimate, MatrixSource, ProbSource, RowProbabilities};
+
+/// Flags of `flipmend estimate`.
+#[derive(Debug, Clone, Args)]
+pub struct EstimateArgs {
+    #[command(flatten)]
+    /// The table.
+    pub table: TableArgs,
+    #[command(flatten)]
+    /// Optional probabilities.
+    pub probs: ProbArgs,
+    #[command(flatten)]
+    /// The estimator.
+    pub matrix: MatrixArgs,
+    #[command(flatten)]
+    /// The cross-validated model used when --probs is absent.
+    pub fit: FitArgs,
+    /// Resample rows B times (seeded) and report each entry's 5th–95th percentile
+    #[arg(long, value_name = "B", default_value_t = 0)]
+    pub bootstrap: usize,
+    /// Write the matrix as CSV (header class,<classes>; one row per true class)
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
+    /// Write the out-of-fold probabilities (CSV: id, one column per class) for reuse with --probs
+    #[arg(long, value_name = "FILE")]
+    pub probs_out: Option<PathBuf>,
+    /// Write the report as JSON
+    #[arg(long, value_name = "FILE")]
+    pub json: Option<PathBuf>,
+}
+
+/// The JSON report; its keys are stable (other tools parse them).
+#[derive(Debug, Serialize)]
+struct EstimateReport<'a> {
+    classes: &'a [String],
+    method: String,
+    probabilities: String,
+    matrix: Vec<Vec<f64>>,
+    observed_prior: &'a [f64],
+    clean_prior: &'a [f64],
+    noise_rate: &'a [f64],
+    expected_mislabeled: f64,
+    expected_mislabeled_share: f64,
+    /// `null` when the matrix is singular (JSON has no infinity).
+    condition_number: Option<f64>,
+    calibration_error: f64,
+    reliability: &'a [ReliabilityBin],
+    warnings: Vec<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    matrix_low: Option<Vec<Vec<f64>>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    matrix_high: Option<Vec<Vec<f64>>>,
+}
+
+/// Runs `estimate`.
+pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
+    check_outputs(args)?;
+    if args.bootstrap > 0 && args.matrix.matrix.is_some() {
+        return Err(Error::Usage(
+            "--bootstrap re-estimates the matrix, so it cannot be used with --matrix".into(),
+        ));
+    }
+    let data = Dataset::load(&args.table.data, &args.table.options())?;
+    let probs = workflow::probabilities(
+        &data,
+        args.probs.probs.as_deref(),
+        &args.probs.options(args.table.delimiter),
+        &args.fit.oof(),
+        &mut progress_line,
+    )?;
+    let source = args.matrix.source(args.probs.renormalize);
+    let estimate = workflow::flip_matrix(&data, &probs, &source)?;
+    let interval =
+        match &source {
+            MatrixSource::Estimate(method) if args.bootstrap > 0 => Some(
+                workflow::matrix_intervals(&data, &probs, method, args.bootstrap, args.fit.seed)?,
+            ),
+            _ => None,
+        };
+    write_outputs(args, &data, &probs, &estimate, interval.as_ref(), &source)?;
+    super::emit(
+        out,
+        &render(args, &data, &probs, &estimate, interval.as_ref(), &source),
+    )
+}
+
+fn check_outputs(args: &EstimateArgs) -> Result<()> {
+    let mut inputs: Vec<&Path> = vec![args.table.data.as_path()];
+    inputs.extend(args.probs.probs.as_deref());
+    inputs.extend(args.matrix.matrix.as_deref());
+    for output in [&args.out, &args.probs_out, &args.json]
+        .into_iter()
+        .flatten()
+    {
+        check_not_input(output, &inputs)?;
+    }
+    Ok(())
+}
+
+/// Fold progress on standard error, only when a person is watching.
+fn progress_line(fold: usize, folds: usize) -> bool {
+    let mut err = std::io::stderr();
+    if err.is_terminal() {
+        let end = if fold == folds { "\n" } else { "" };
+        let _ = write!(
+            err,
+            "\rout-of-fold probabilities: fold {}/{folds} done{end}",
+            fold
+        );
+    }
+    true
+}
+
+fn describe(source: &MatrixSource, args: &EstimateArgs) -> String {
+    match source {
+        MatrixSource::File { path, .. } => format!("file {}", path.display()),
+        MatrixSource::Estimate(method) if method.name() == "quantile" => {
+            format!("quantile (q = {})", args.matrix.quantile)
+        }
+        MatrixSource::Estimate(method) => method.name().to_string(),
+    }
+}
+
+fn describe_probs(probs: &RowProbabilities) -> String {
+    match &probs.source {
+        ProbSource::File(path) => path.display().to_string(),
+        ProbSource::OutOfFold { folds, seed } => {
+            format!("out-of-fold ({folds} folds, seed {seed})")
+        }
+    }
+}
+
+fn rows_of(t: &Array2<f64>) -> Vec<Vec<f64>> {
+    t.rows().into_iter().map(|r| r.to_vec()).collect()
+}
+
+fn write_outputs(
+    args: &EstimateArgs,
+    data: &Dataset,
+    probs: &RowProbabilities,
+    estimate: &FlipEstimate,
+    interval: Option<&Interval>,
+    source: &MatrixSource,
+) -> Result<()> {
+    if let Some(path) = &args.out {
+        write_atomic(path, |w| {
+            write_matrix_csv(w, &estimate.matrix, &data.classes)
+        })?;
+    }
+    if let Some(path) = &args.probs_out {
+        write_atomic(path, |w| write_probs_csv(w, data, &probs.values))?;
+    }
+    if let Some(path) = &args.json {
+        let d = &estimate.diagnostics;
+        let report = EstimateReport {
+            classes: &data.classes,
+            method: describe(source, args),
+            probabilities: describe_probs(probs),
+            matrix: rows_of(&estimate.matrix),
+            observed_prior: &d.observed_prior,
+            clean_prior: &d.clean_prior,
+            noise_rate: &d.noise_rate,
+            expected_mislabeled: d.expected_mislabeled,
+            expected_mislabeled_share: d.expected_mislabeled_share,
+            condition_number: d.condition_number.is_finite().then_some(d.condition_number),
+            calibration_error: d.calibration_error,
+            reliability: &d.reliability,
+            warnings: all_warnings(data, estimate),
+            matrix_low: interval.map(|i| rows_of(&i.low)),
+            matrix_high: interval.map(|i| rows_of(&i.high)),
+        };
+        write_json(path, &report)?;
+    }
+    Ok(())
+}
+
+/// Probabilities as CSV: `id`, then one column per class (shortest round-trip text).
+pub fn write_probs_csv(
+    w: &mut dyn Write,
+    data: &Dataset,
+    probs: &Array2<f32>,
+) -> std::io::Result<()> {
+    let mut writer = csv::Writer::from_writer(w);
+    let mut header = vec!["id".to_string()];
+    header.extend(data.classes.iter().cloned());
+    writer.write_record(&header)?;
+    let mut record = Vec::with_capacity(header.len());
+    for (row, p) in probs.rows().into_iter().enumerate() {
+        record.clear();
+        record.push(data.id(row).into_owned());
+        record.extend(p.iter().map(|v| v.to_string()));
+        writer.write_record(&record)?;
+    }
+    writer.flush()
+}
+
+fn all_warnings(data: &Dataset, estimate: &FlipEstimate) -> Vec<String> {
+    let mut warnings = data.warnings.clone();
+    warnings.extend(estimate.notes.iter().cloned());
+    warnings.extend(estimate.diagnostics.warnings.iter().cloned());
+    warnings
+}
+
+fn render(
+    args: &EstimateArgs,
+    data: &Dataset,
+    probs: &RowProbabilities,
+    estimate: &FlipEstimate,
+    interval: Option<&Interval>,
+    source: &MatrixSource,
+) -> String {
+    let mut t = String::new();
+    let d = &estimate.diagnostics;
+    let k = data.classes.len();
+    let _ = writeln!(
+        t,
+        "flip matrix: {}; probabilities: {}",
+        describe(source, args),
+        describe_probs(probs)
+    );
+    let _ = writeln!(
+        t,
+        "rows = true class, columns = observed label, T[i][j] = P(observed j | true i)\n"
+    );
+    let name_width = data
+        .classes
+        .iter()
+        .map(|c| c.chars().count())
+        .max()
+        .unwrap_or(4)
+        .max("true \\ observed".len());
+    let cell = data
+        .classes
+        .iter()
+        .map(|c| c.chars().count())
+        .max()
+        .unwrap_or(5)
+        .max(6);
+    let _ = write!(t, "{:<name_width$}", "true \\ observed");
+    for c in &data.classes {
+        let _ = write!(t, "  {c:>cell$}");
+    }
+    let _ = writeln!(t);
+    for i in 0..k {
+        let _ = write!(t, "{:<name_width$}", data.classes[i]);
+        for j in 0..k {
+            let _ = write!(t, "  {:>cell$.3}", estimate.matrix[[i, j]]);
+        }
+        let _ = writeln!(t);
+    }
+    let _ = writeln!(
+        t,
+        "\n{:<name_width$}  {:>7}  {:>9}  {:>7}{}",
+        "class",
+        "noise",
+        "observed",
+        "clean",
+        if interval.is_some() {
+            "  noise 90% interval"
+        } else {
+            ""
+        }
+    );
+    for i in 0..k {
+        let band = interval.map_or(String::new(), |b| {
+            format!(
+                "  {:.1}%–{:.1}%",
+                100.0 * (1.0 - b.high[[i, i]]),
+                100.0 * (1.0 - b.low[[i, i]])
+            )
+        });
+        let _ = writeln!(
+            t,
+            "{:<name_width$}  {:>6.1}%  {:>8.2}%  {:>6.2}%{band}",
+            data.classes[i],
+            100.0 * d.noise_rate[i],
+            100.0 * d.observed_prior[i],
+            100.0 * d.clean_prior[i]
+        );
+    }
+    let _ = writeln!(
+        t,
+        "\nexpected mislabelled rows: {:.1} of {} ({:.1}%)",
+        d.expected_mislabeled,
+        data.rows(),
+        100.0 * d.expected_mislabeled_share
+    );
+    let _ = writeln!(
+        t,
+        "condition number of T (1-norm): {:.3}",
+        d.condition_number
+    );
+    let _ = writeln!(
+        t,
+        "calibration error against observed labels (ECE, 15 bins): {:.4}",
+        d.calibration_error
+    );
+    for w in all_warnings(data, estimate) {
+        let _ = writeln!(t, "warning: {w}");
+    }
+    let _ = writeln!(
+        t,
+        "\nThese figures are estimates for qualified human review, not corrections; where labels concern health, \
+         safety or people, follow your local rules and licensed practice."
+    );
+    t
+}

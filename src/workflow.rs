@@ -1,0 +1,165 @@
+//! The steps every front end (command line, desktop app) chains: get out-of-sample
+//! probabilities, then a flip matrix, then its diagnostics.
+
+use std::path::{Path, PathBuf};
+
+use ndarray::Array2;
+
+use crate::data::{Dataset, ProbOptions, Probabilities};
+use crate::error::Result;
+use crate::learn::{out_of_fold, OofParams};
+use crate::noise::bootstrap::{bootstrap, Interval};
+use crate::noise::matrix::read_matrix_csv;
+use crate::noise::{diagnose, estimate, Diagnostics, Method, Sample};
+
+/// Where the probabilities came from.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ProbSource {
+    /// A file the user gave (which may be in-sample; diagnostics check for it).
+    File(PathBuf),
+    /// flipmend's own k-fold cross-validation.
+    OutOfFold {
+        /// Folds used.
+        folds: usize,
+        /// Seed of the fold assignment.
+        seed: u64,
+    },
+}
+
+/// Probabilities aligned with the dataset's rows, and their source.
+#[derive(Debug, Clone)]
+pub struct RowProbabilities {
+    /// `rows × classes`.
+    pub values: Array2<f32>,
+    /// Where they came from.
+    pub source: ProbSource,
+    /// Notices from loading (e.g. rows renormalised).
+    pub notices: Vec<String>,
+}
+
+/// Loads `path`, or computes out-of-fold probabilities when there is none. `progress`
+/// hears (fold, folds) and may return false to cancel.
+pub fn probabilities(
+    data: &Dataset,
+    path: Option<&Path>,
+    options: &ProbOptions,
+    oof: &OofParams,
+    progress: &mut dyn FnMut(usize, usize) -> bool,
+) -> Result<RowProbabilities> {
+    match path {
+        Some(path) => {
+            let loaded = Probabilities::load(path, data, options)?;
+            Ok(RowProbabilities {
+                values: loaded.values,
+                source: ProbSource::File(path.to_path_buf()),
+                notices: loaded.notices,
+            })
+        }
+        None => {
+            let (values, _) = out_of_fold(
+                data.features.view(),
+                &data.labels,
+                data.classes.len(),
+                oof,
+                progress,
+            )?;
+            Ok(RowProbabilities {
+                values,
+                source: ProbSource::OutOfFold {
+                    folds: oof.folds,
+                    seed: oof.seed,
+                },
+                notices: Vec::new(),
+            })
+        }
+    }
+}
+
+/// How the flip matrix is obtained.
+#[derive(Debug, Clone, PartialEq)]
+pub enum MatrixSource {
+    /// Estimated from the probabilities.
+    Estimate(Method),
+    /// Read from a matrix CSV (rows rescaled when `renormalize`).
+    File {
+        /// The file.
+        path: PathBuf,
+        /// Rescale rows that do not sum to 1.
+        renormalize: bool,
+    },
+}
+
+/// A flip matrix with its diagnostics.
+#[derive(Debug, Clone)]
+pub struct FlipEstimate {
+    /// The matrix.
+    pub matrix: Array2<f64>,
+    /// What it says about the data.
+    pub diagnostics: Diagnostics,
+    /// Notes from estimation or reading.
+    pub notes: Vec<String>,
+}
+
+/// The data's rows as an estimator sample.
+pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) -> Sample<'a> {
+    Sample {
+        probs: probs.view(),
+        labels: &data.labels,
+        trusted: data.trusted.as_deref(),
+        rows,
+    }
+}
+
+/// Estimates (or reads) the flip matrix and diagnoses it.
+pub fn flip_matrix(
+    data: &Dataset,
+    probs: &RowProbabilities,
+    source: &MatrixSource,
+) -> Result<FlipEstimate> {
+    let (matrix, mut notes) = match source {
+        MatrixSource::Estimate(method) => {
+            let rows: Vec<usize> = (0..data.rows()).collect();
+            let estimate = estimate(method, &sample(data, &probs.values, &rows), &data.classes)?;
+            (estimate.matrix, estimate.notes)
+        }
+        MatrixSource::File { path, renormalize } => {
+            let file = std::fs::File::open(path).map_err(|source| crate::Error::Read {
+                path: path.clone(),
+                source,
+            })?;
+            read_matrix_csv(file, path, &data.classes, *renormalize)?
+        }
+    };
+    let external = matches!(probs.source, ProbSource::File(_));
+    let diagnostics = diagnose(
+        &matrix,
+        probs.values.view(),
+        &data.labels,
+        &data.classes,
+        external,
+    );
+    notes.extend(probs.notices.iter().cloned());
+    Ok(FlipEstimate {
+        matrix,
+        diagnostics,
+        notes,
+    })
+}
+
+/// Bootstrap intervals of `method` on all rows.
+pub fn matrix_intervals(
+    data: &Dataset,
+    probs: &RowProbabilities,
+    method: &Method,
+    resamples: usize,
+    seed: u64,
+) -> Result<Interval> {
+    let rows: Vec<usize> = (0..data.rows()).collect();
+    bootstrap(
+        method,
+        &sample(data, &probs.values, &rows),
+        &data.classes,
+        resamples,
+        seed,
+    )
+}
