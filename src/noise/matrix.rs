@@ -173,6 +173,8 @@ fn class_positions<'a>(
     Ok(columns)
 }
 
+/// Refuses (or, when asked, rescales) rows whose sum is off by more than the tolerance.
+/// Rows within it are kept exactly as written, so a matrix file reads back bit for bit.
 fn check_row_sums(
     t: &mut Array2<f64>,
     path: &Path,
@@ -180,20 +182,23 @@ fn check_row_sums(
     renormalize: bool,
 ) -> Result<Vec<String>> {
     let mut fixed = Vec::new();
-    for (i, row) in t.rows().into_iter().enumerate() {
+    for (i, mut row) in t.rows_mut().into_iter().enumerate() {
         let sum: f64 = row.sum();
         if (sum - 1.0).abs() > MATRIX_ROW_TOLERANCE {
             if !renormalize || sum <= 0.0 {
-                let detail = format!("the row of '{}' sums to {sum}, not 1 (tolerance {MATRIX_ROW_TOLERANCE}); pass --renormalize to rescale it", classes[i]);
+                let detail = format!(
+                    "the row of '{}' sums to {sum}, not 1 (tolerance {MATRIX_ROW_TOLERANCE}); pass --renormalize to rescale it",
+                    classes[i]
+                );
                 return Err(Error::input(
                     Location::file(path),
                     Problem::Matrix { detail },
                 ));
             }
+            row.mapv_inplace(|v| v / sum);
             fixed.push(classes[i].clone());
         }
     }
-    normalize_rows(t);
     let notices = if fixed.is_empty() {
         Vec::new()
     } else {
