@@ -165,9 +165,11 @@ fn calibration(probs: ArrayView2<f32>, labels: &[usize]) -> (f64, Vec<Reliabilit
     let mut rows = [0usize; CALIBRATION_BINS];
     let mut confidence = [0.0f64; CALIBRATION_BINS];
     let mut hits = [0usize; CALIBRATION_BINS];
+    let mut row = vec![0.0f32; probs.ncols()];
     for (r, &y) in labels.iter().enumerate() {
-        let p = probs.row(r);
-        let row: Vec<f32> = p.iter().copied().collect();
+        row.iter_mut()
+            .zip(probs.row(r))
+            .for_each(|(dst, &src)| *dst = src);
         let top = argmax(&row);
         let conf = row[top] as f64;
         let bin = ((conf * CALIBRATION_BINS as f64) as usize).min(CALIBRATION_BINS - 1);

@@ -93,15 +93,15 @@ impl Posterior {
         let parts: Vec<f64> = rows
             .par_chunks(8192)
             .map(|chunk| {
-                let (mut clean, mut post) = (vec![0.0; k], vec![0.0; k]);
+                let (mut clean, mut post, mut noisy) =
+                    (vec![0.0; k], vec![0.0; k], vec![0.0f32; k]);
                 chunk
                     .iter()
                     .map(|&r| {
-                        let noisy = probs.row(r);
-                        let noisy = noisy
-                            .as_slice()
-                            .map(<[f32]>::to_vec)
-                            .unwrap_or_else(|| noisy.to_vec());
+                        noisy
+                            .iter_mut()
+                            .zip(probs.row(r))
+                            .for_each(|(dst, &src)| *dst = src);
                         self.given_observed(&noisy, labels[r], &mut clean, &mut post);
                         1.0 - post[labels[r]]
                     })
