@@ -3,7 +3,8 @@
 //!
 //! `cargo bench --bench estimate` times, on 1,000,000 rows × 10 classes of seeded
 //! synthetic probabilities (labels drawn from them, 2 % trusted), each estimator, the
-//! diagnostics (clean posteriors of every row, calibration), and a bootstrap of 20
+//! diagnostics (clean posteriors of every row, calibration), suspect scoring and ranking,
+//! and a bootstrap of 20
 //! resamples; then out-of-fold probabilities (5 folds) for 100,000 × 32 × 10 Gaussian
 //! rows. Median of 5 runs after a warm-up (3 for the slow stages).
 
@@ -11,6 +12,7 @@ use std::time::{Duration, Instant};
 
 use flipmend::learn::{out_of_fold, OofParams};
 use flipmend::noise::bootstrap::bootstrap;
+use flipmend::noise::scores::{rank, score_rows, ScoreKind};
 use flipmend::noise::{diagnose, estimate, Method, Sample};
 use ndarray::Array2;
 
@@ -43,6 +45,14 @@ fn main() {
         .matrix;
     bench("diagnose (posteriors, ECE) 1000000x10", 5, || {
         diagnose(&t, probs.view(), &labels, &classes, true);
+    });
+    bench("suspects: posterior scores + ranking 1000000x10", 5, || {
+        let mut scores = score_rows(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
+        rank(&mut scores);
+    });
+    bench("suspects: self scores + ranking 1000000x10", 5, || {
+        let mut scores = score_rows(ScoreKind::SelfConfidence, probs.view(), &labels, None);
+        rank(&mut scores);
     });
     bench("bootstrap quantile B=20 1000000x10", 3, || {
         bootstrap(&Method::Quantile { q: 0.97 }, &sample, &classes, 20, 1).unwrap();

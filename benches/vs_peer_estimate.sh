@@ -8,8 +8,8 @@
 # random_state 0); this script writes exactly those rows to a CSV and runs
 # `flipmend estimate` on it, alternating runs. It prints the median seconds of the peer's
 # out-of-fold stage (c_oof) and of flipmend's whole `estimate` command (load, folds, matrix,
-# diagnostics), the out-of-fold accuracy against the true labels, and each side's
-# quantile-estimator error against the true matrix. Skips when Python or its packages
+# diagnostics), the out-of-fold accuracy against the true labels, each side's
+# quantile-estimator error against the true matrix, and the suspect ranking's AUROC. Skips when Python or its packages
 # are missing (CI does not run this).
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -32,7 +32,11 @@ from sklearn.model_selection import train_test_split
 d = sys.argv[1]
 df = pd.read_csv(f"{d}/data.csv", dtype={"label": str, "trusted": str}, keep_default_na=False)
 tr, _ = train_test_split(range(len(df)), test_size=0.2, stratify=df["label"], random_state=0)
-df.iloc[sorted(tr)].to_csv(f"{d}/train_part.csv", index=False)
+part = df.iloc[sorted(tr)].copy()
+part.to_csv(f"{d}/train_part.csv", index=False)
+truth = pd.read_csv(f"{d}/truth.csv", dtype={"true_label": str}).set_index("id")["true_label"]
+part["truth"] = truth.loc[part["id"].astype(int)].to_numpy()
+part.to_csv(f"{d}/train_part_truth.csv", index=False)
 PY
 cargo build --release --quiet
 peer_times=() ours_times=()
@@ -44,6 +48,8 @@ for i in $(seq "$runs"); do
     --probs-out "$dir/oof_ours.csv" --json "$dir/ours.json" >/dev/null
   ours_times+=("$(python3 -c "print($(date +%s.%N) - $start)")")
 done
+target/release/flipmend suspects --data "$dir/train_part_truth.csv" --truth truth --probs "$dir/oof_ours.csv" \
+  --top 100 --json "$dir/suspects.json" >/dev/null
 python3 - "$dir" "${peer_times[*]}" "${ours_times[*]}" <<'PY'
 import json, sys, statistics
 import numpy as np, pandas as pd
@@ -63,5 +69,8 @@ print(f"peer c_oof (5-fold sklearn lbfgs): median {pm:.2f} s over {len(peer_t)} 
 print(f"flipmend estimate (whole command): median {om:.2f} s   speed-up {pm / om:.1f}x")
 print(f"out-of-fold accuracy vs true labels: peer {peer['diagnostics']['oof_acc_true']:.4f}, flipmend {acc:.4f}")
 qe = peer.get("T_error", {})
+sus = json.load(open(f"{d}/suspects.json"))["truth"]
+print(f"suspect AUROC (posterior score, quantile T): peer {peer['suspects']['auroc']:.4f}, flipmend {sus['auroc']:.4f}; "
+      f"precision at 100: peer {peer['suspects']['precision_at_n']:.3f}, flipmend {sus['precision_at_n']:.3f}")
 print(f"quantile T error (mean abs / max abs): peer {qe.get('anchor_quantile', qe)}, flipmend {{'mean_abs': {err.mean():.4f}, 'max_abs': {err.max():.4f}}}")
 PY

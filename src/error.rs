@@ -245,6 +245,12 @@ pub enum Problem {
         /// What is wrong.
         detail: String,
     },
+    /// A reviewed worklist that does not fit the dataset.
+    #[error("{detail}")]
+    Review {
+        /// What is wrong.
+        detail: String,
+    },
     /// A malformed `.npy` header.
     #[error("not a readable .npy file: {detail}")]
     NpyHeader {

@@ -42,6 +42,7 @@ impl TableArgs {
             id: self.id.clone(),
             trusted: self.trusted.clone(),
             features: self.features.clone(),
+            exclude: Vec::new(),
         }
     }
 }

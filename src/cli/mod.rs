@@ -3,6 +3,8 @@
 mod args;
 mod estimate;
 mod inspect;
+mod review;
+mod suspects;
 
 use std::io::Write;
 
@@ -11,6 +13,8 @@ use clap::{Parser, Subcommand};
 pub use args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
 pub use estimate::EstimateArgs;
 pub use inspect::InspectArgs;
+pub use review::ReviewArgs;
+pub use suspects::SuspectsArgs;
 
 use crate::error::Result;
 
@@ -34,6 +38,12 @@ pub enum Command {
     /// probabilities (given with --probs, or computed by k-fold cross-validation), with
     /// the noise summary, diagnostics and warnings.
     Estimate(EstimateArgs),
+    /// Rank the rows most likely mislabelled and write a relabel worklist for annotators
+    /// (rank,row,id,observed,suggested,score,alt,alt_prob,review).
+    Suspects(SuspectsArgs),
+    /// Merge a reviewed worklist into a copy of the dataset: reviewed rows get their
+    /// verified label in the trusted column. The input file is never changed.
+    Review(ReviewArgs),
 }
 
 /// Runs a parsed command line, writing its report to `out`.
@@ -41,6 +51,8 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
     match cli.command {
         Some(Command::Inspect(args)) => inspect::run(&args, out),
         Some(Command::Estimate(args)) => estimate::run(&args, out),
+        Some(Command::Suspects(args)) => suspects::run(&args, out),
+        Some(Command::Review(args)) => review::run(&args, out),
         None => {
             let help = <Cli as clap::CommandFactory>::command()
                 .render_help()

@@ -8,6 +8,7 @@ pub mod probs;
 pub mod roles;
 pub mod summary;
 pub mod table;
+pub mod text_column;
 
 pub use probs::{ProbOptions, Probabilities};
 pub use roles::TableOptions;

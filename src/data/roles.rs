@@ -26,6 +26,9 @@ pub struct TableOptions {
     pub trusted: Option<String>,
     /// Feature columns in the order given; default every other all-numeric column.
     pub features: Option<Vec<String>>,
+    /// Columns that must never become features (e.g. the `--truth` column of a synthetic
+    /// benchmark), each with the flag that named it.
+    pub exclude: Vec<(String, String)>,
 }
 
 impl TableOptions {
@@ -112,7 +115,15 @@ impl ColumnPlan {
             ("trusted label", trusted),
         ];
         check_clashes(path, header, &roles)?;
-        let is_role = |i: usize| roles.iter().any(|(_, r)| *r == Some(i));
+        let mut excluded = Vec::with_capacity(options.exclude.len());
+        for (flag, name) in &options.exclude {
+            let i = lookup(flag, name)?;
+            if let Some((role, _)) = roles.iter().find(|(_, r)| *r == Some(i)) {
+                return Err(clash(path, name, role, &format!("{flag} column")));
+            }
+            excluded.push(i);
+        }
+        let is_role = |i: usize| roles.iter().any(|(_, r)| *r == Some(i)) || excluded.contains(&i);
         let (numeric, explicit) = match &options.features {
             Some(names) => {
                 let mut fields = Vec::with_capacity(names.len());
@@ -120,6 +131,9 @@ impl ColumnPlan {
                     let i = lookup("--features", name)?;
                     if let Some((role, _)) = roles.iter().find(|(_, r)| *r == Some(i)) {
                         return Err(clash(path, name, role, "a feature"));
+                    }
+                    if excluded.contains(&i) {
+                        return Err(clash(path, name, "excluded column", "a feature"));
                     }
                     if !fields.contains(&i) {
                         fields.push(i);

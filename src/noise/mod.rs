@@ -7,6 +7,7 @@ pub mod estimators;
 pub mod linalg;
 pub mod matrix;
 pub mod posterior;
+pub mod scores;
 
 pub use diagnostics::{diagnose, Diagnostics};
 pub use estimators::{estimate, Estimate, Method, Sample};

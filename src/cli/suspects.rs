@@ -1,0 +1,401 @@
+//! `flipmend suspects`: the rows most likely mislabelled, as a worklist for annotators.
+
+use std::fmt::Write as _;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use clap::Args;
+use serde::Serialize;
+
+use super::args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+use crate::data::text_column::read_text_column;
+use crate::data::Dataset;
+use crate::error::{Error, Result};
+use crate::io::worklist::write_worklist;
+use crate::io::{check_not_input, write_atomic, write_json};
+use crate::noise::scores::{auroc, rank, score_rows, select, RowScore, ScoreKind, Selection};
+use crate::workflow;
+
+/// Flags of `flipmend suspects`.
+#[derive(Debug, Clone, Args)]
+pub struct SuspectsArgs {
+    #[command(flatten)]
+    /// The table.
+    pub table: TableArgs,
+    #[command(flatten)]
+    /// Optional probabilities.
+    pub probs: ProbArgs,
+    #[command(flatten)]
+    /// The flip matrix (used by the posterior score).
+    pub matrix: MatrixArgs,
+    #[command(flatten)]
+    /// The cross-validated model used when --probs is absent.
+    pub fit: FitArgs,
+    /// Score: posterior (1 − P(true = observed | x, observed) under the flip matrix), self
+    /// (1 − p(observed | x)) or margin (best other class's probability − the observed one's)
+    #[arg(long, value_enum, default_value_t = ScoreName::Posterior)]
+    pub score: ScoreName,
+    /// List the N most suspect rows [default: 100 unless --threshold or --all]
+    #[arg(long, value_name = "N", conflicts_with_all = ["threshold", "all"])]
+    pub top: Option<usize>,
+    /// List every row scoring at least S
+    #[arg(long, value_name = "S", conflicts_with = "all")]
+    pub threshold: Option<f64>,
+    /// List every row
+    #[arg(long)]
+    pub all: bool,
+    /// At most N rows per observed class
+    #[arg(long, value_name = "N")]
+    pub per_class_cap: Option<usize>,
+    /// Only rows observed as one of these classes (comma-separated)
+    #[arg(long, value_name = "A,B,..", value_delimiter = ',')]
+    pub classes: Option<Vec<String>>,
+    /// Add the feature values to the worklist
+    #[arg(long)]
+    pub with_features: bool,
+    /// Write the worklist CSV (rank,row,id,observed,suggested,score,alt,alt_prob,review)
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
+    /// Write the summary as JSON
+    #[arg(long, value_name = "FILE")]
+    pub json: Option<PathBuf>,
+    /// For synthetic benchmarks only: a column with the real labels; prints the AUROC and
+    /// precision of the score against the rows whose observed label differs from it
+    #[arg(long, value_name = "COL")]
+    pub truth: Option<String>,
+}
+
+/// Score names on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ScoreName {
+    /// Posterior probability that the observed label is wrong, under the flip matrix.
+    Posterior,
+    /// One minus the probability of the observed label.
+    #[value(name = "self")]
+    SelfConfidence,
+    /// Normalized margin of the best other class over the observed one.
+    Margin,
+}
+
+impl ScoreName {
+    fn kind(self) -> ScoreKind {
+        match self {
+            ScoreName::Posterior => ScoreKind::Posterior,
+            ScoreName::SelfConfidence => ScoreKind::SelfConfidence,
+            ScoreName::Margin => ScoreKind::Margin,
+        }
+    }
+}
+
+#[derive(Debug, Serialize)]
+struct ClassCount {
+    class: String,
+    listed: usize,
+    expected_errors: Option<f64>,
+}
+
+#[derive(Debug, Serialize)]
+struct TruthCheck {
+    truth_column: String,
+    flipped_rows: usize,
+    auroc: Option<f64>,
+    precision_at_n: Option<f64>,
+    n: usize,
+}
+
+#[derive(Debug, Serialize)]
+struct SuspectsReport {
+    score: &'static str,
+    matrix: Option<String>,
+    probabilities: String,
+    rows: usize,
+    listed: usize,
+    expected_errors: Option<f64>,
+    per_class: Vec<ClassCount>,
+    warnings: Vec<String>,
+    truth: Option<TruthCheck>,
+}
+
+/// Runs `suspects`.
+pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
+    check_outputs(args)?;
+    let mut options = args.table.options();
+    if let Some(truth) = &args.truth {
+        options.exclude.push(("--truth".into(), truth.clone()));
+    }
+    let data = Dataset::load(&args.table.data, &options)?;
+    let selection = selection(args, &data)?;
+    let probs = workflow::probabilities(
+        &data,
+        args.probs.probs.as_deref(),
+        &args.probs.options(args.table.delimiter),
+        &args.fit.oof(),
+        &mut |_, _| true,
+    )?;
+    let kind = args.score.kind();
+    let mut warnings = data.warnings.clone();
+    warnings.extend(probs.notices.iter().cloned());
+    let matrix = if kind == ScoreKind::Posterior {
+        let source = args.matrix.source(args.probs.renormalize);
+        let estimate = workflow::flip_matrix(&data, &probs, &source)?;
+        warnings.extend(estimate.notes);
+        warnings.extend(estimate.diagnostics.warnings);
+        Some((describe_matrix(&source, args), estimate.matrix))
+    } else {
+        None
+    };
+    let mut scores = score_rows(
+        kind,
+        probs.values.view(),
+        &data.labels,
+        matrix.as_ref().map(|(_, t)| t),
+    );
+    let truth = match &args.truth {
+        Some(column) => Some(truth_flags(
+            &data,
+            column,
+            args.table.options().delimiter_for(&args.table.data),
+        )?),
+        None => None,
+    };
+    let truth_auroc = truth.as_ref().map(|flipped| {
+        let values: Vec<f64> = scores.iter().map(|s| s.score).collect();
+        (
+            auroc(&values, flipped),
+            flipped.iter().filter(|&&f| f).count(),
+        )
+    });
+    rank(&mut scores);
+    let listed = select(&scores, &data.labels, data.classes.len(), &selection);
+    if let Some(path) = &args.out {
+        write_atomic(path, |w| {
+            write_worklist(w, &data, &listed, args.with_features)
+        })?;
+    }
+    let truth_check = match (&args.truth, &truth, truth_auroc) {
+        (Some(column), Some(flipped), Some((auc, flipped_rows))) => {
+            let hits = listed.iter().filter(|s| flipped[s.row]).count();
+            let precision = (!listed.is_empty()).then(|| hits as f64 / listed.len() as f64);
+            Some(TruthCheck {
+                truth_column: column.clone(),
+                flipped_rows,
+                auroc: auc,
+                precision_at_n: precision,
+                n: listed.len(),
+            })
+        }
+        _ => None,
+    };
+    let report = summary(
+        kind,
+        &data,
+        &listed,
+        matrix.map(|(name, _)| name),
+        &probs,
+        warnings,
+        truth_check,
+    );
+    if let Some(path) = &args.json {
+        write_json(path, &report)?;
+    }
+    super::emit(out, &render(&report, &data, &listed))
+}
+
+fn check_outputs(args: &SuspectsArgs) -> Result<()> {
+    let mut inputs: Vec<&Path> = vec![args.table.data.as_path()];
+    inputs.extend(args.probs.probs.as_deref());
+    inputs.extend(args.matrix.matrix.as_deref());
+    for output in [&args.out, &args.json].into_iter().flatten() {
+        check_not_input(output, &inputs)?;
+    }
+    Ok(())
+}
+
+fn selection(args: &SuspectsArgs, data: &Dataset) -> Result<Selection> {
+    let classes = match &args.classes {
+        Some(names) => Some(
+            names
+                .iter()
+                .map(|n| {
+                    data.classes.iter().position(|c| c == n).ok_or_else(|| {
+                        Error::Usage(format!(
+                            "--classes names '{n}', which is not a class; classes: {}",
+                            data.classes.join(", ")
+                        ))
+                    })
+                })
+                .collect::<Result<Vec<usize>>>()?,
+        ),
+        None => None,
+    };
+    if let Some(t) = args.threshold.filter(|t| !t.is_finite()) {
+        return Err(Error::Usage(format!(
+            "--threshold must be a number, not {t}"
+        )));
+    }
+    let top = if args.all || args.threshold.is_some() {
+        args.top
+    } else {
+        Some(args.top.unwrap_or(100))
+    };
+    Ok(Selection {
+        top,
+        threshold: args.threshold,
+        per_class_cap: args.per_class_cap,
+        classes,
+    })
+}
+
+fn describe_matrix(source: &workflow::MatrixSource, args: &SuspectsArgs) -> String {
+    match source {
+        workflow::MatrixSource::File { path, .. } => format!("file {}", path.display()),
+        workflow::MatrixSource::Estimate(m) if m.name() == "quantile" => {
+            format!("quantile (q = {})", args.matrix.quantile)
+        }
+        workflow::MatrixSource::Estimate(m) => m.name().to_string(),
+    }
+}
+
+/// Rows whose observed label differs from the truth column.
+fn truth_flags(data: &Dataset, column: &str, delimiter: u8) -> Result<Vec<bool>> {
+    let cells = read_text_column(&data.path, delimiter, column)?;
+    if cells.len() != data.rows() {
+        return Err(Error::Internal(format!(
+            "--truth read {} cells for {} rows",
+            cells.len(),
+            data.rows()
+        )));
+    }
+    Ok(cells
+        .iter()
+        .zip(&data.labels)
+        .map(|(t, &y)| t.as_str() != data.classes[y])
+        .collect())
+}
+
+fn summary(
+    kind: ScoreKind,
+    data: &Dataset,
+    listed: &[RowScore],
+    matrix: Option<String>,
+    probs: &workflow::RowProbabilities,
+    warnings: Vec<String>,
+    truth: Option<TruthCheck>,
+) -> SuspectsReport {
+    let probability = kind.is_probability();
+    let per_class = data
+        .classes
+        .iter()
+        .enumerate()
+        .map(|(c, name)| {
+            let rows: Vec<&RowScore> = listed.iter().filter(|s| data.labels[s.row] == c).collect();
+            ClassCount {
+                class: name.clone(),
+                listed: rows.len(),
+                expected_errors: probability.then(|| rows.iter().map(|s| s.score).sum()),
+            }
+        })
+        .collect();
+    SuspectsReport {
+        score: kind.name(),
+        matrix,
+        probabilities: match &probs.source {
+            workflow::ProbSource::File(p) => p.display().to_string(),
+            workflow::ProbSource::OutOfFold { folds, seed } => {
+                format!("out-of-fold ({folds} folds, seed {seed})")
+            }
+        },
+        rows: data.rows(),
+        listed: listed.len(),
+        expected_errors: probability.then(|| listed.iter().map(|s| s.score).sum()),
+        per_class,
+        warnings,
+        truth,
+    }
+}
+
+fn render(r: &SuspectsReport, data: &Dataset, listed: &[RowScore]) -> String {
+    let mut t = String::new();
+    let _ = writeln!(
+        t,
+        "{} suspect rows listed of {} (score: {}; probabilities: {})",
+        r.listed, r.rows, r.score, r.probabilities
+    );
+    if let Some(m) = &r.matrix {
+        let _ = writeln!(t, "flip matrix: {m}");
+    }
+    match r.expected_errors {
+        Some(e) => {
+            let _ = writeln!(
+                t,
+                "expected true label errors among them: {e:.1} (sum of their scores)"
+            );
+        }
+        None => {
+            let _ = writeln!(
+                t,
+                "(margin scores are not probabilities, so no expected count is given)"
+            );
+        }
+    }
+    let width = data
+        .classes
+        .iter()
+        .map(|c| c.chars().count())
+        .max()
+        .unwrap_or(5)
+        .max("observed".len());
+    let _ = writeln!(
+        t,
+        "\n{:<width$}  {:>7}  {:>15}",
+        "observed", "listed", "expected errors"
+    );
+    for c in r.per_class.iter().filter(|c| c.listed > 0) {
+        let e = c
+            .expected_errors
+            .map_or("-".to_string(), |e| format!("{e:.1}"));
+        let _ = writeln!(t, "{:<width$}  {:>7}  {:>15}", c.class, c.listed, e);
+    }
+    if !listed.is_empty() {
+        let _ = writeln!(
+            t,
+            "\n{:>5}  {:>8}  {:<14}  {:<width$}  {:<width$}  {:>8}",
+            "rank", "row", "id", "observed", "suggested", "score"
+        );
+        for (i, s) in listed.iter().take(10).enumerate() {
+            let _ = writeln!(
+                t,
+                "{:>5}  {:>8}  {:<14}  {:<width$}  {:<width$}  {:>8.4}",
+                i + 1,
+                s.row,
+                data.id(s.row),
+                data.classes[data.labels[s.row]],
+                data.classes[s.suggested],
+                s.score
+            );
+        }
+        if listed.len() > 10 {
+            let _ = writeln!(t, "  … {} more (see --out)", listed.len() - 10);
+        }
+    }
+    if let Some(truth) = &r.truth {
+        let auc = truth.auroc.map_or("n/a".into(), |a| format!("{a:.4}"));
+        let precision = truth
+            .precision_at_n
+            .map_or("n/a".into(), |p| format!("{p:.4}"));
+        let _ = writeln!(
+            t,
+            "\nagainst '{}' ({} flipped rows): AUROC {auc}, precision at {} {precision}",
+            truth.truth_column, truth.flipped_rows, truth.n
+        );
+    }
+    for w in &r.warnings {
+        let _ = writeln!(t, "warning: {w}");
+    }
+    let _ = writeln!(
+        t,
+        "\nThese are estimates to guide qualified human review, not automatic corrections: send the rows to \
+         reviewers, and where labels concern health, safety or people follow your local rules and licensed practice."
+    );
+    t
+}

@@ -1,0 +1,365 @@
+//! Per-row suspect scores: how likely each observed label is wrong, with the suggested
+//! true class, and the ranking built from them.
+
+use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
+use serde::Serialize;
+
+use super::posterior::Posterior;
+
+/// Which score ranks the rows.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ScoreKind {
+    /// 1 − P(true = observed | x, observed) under the flip matrix (the clean posterior
+    /// p = (Tᵀ)⁻¹p̃ of Patrini et al. 2017, then Bayes' rule with T[k][observed]).
+    /// Suggested label: the most probable true class.
+    Posterior,
+    /// Self-confidence (Northcutt et al. 2021): 1 − p(observed | x). Suggested: argmax p.
+    SelfConfidence,
+    /// Normalized margin (Northcutt et al. 2021): max_{j≠observed} p_j − p_observed, in
+    /// [−1, 1]. Suggested: argmax p.
+    Margin,
+}
+
+impl ScoreKind {
+    /// The name on the command line and in files.
+    pub fn name(self) -> &'static str {
+        match self {
+            ScoreKind::Posterior => "posterior",
+            ScoreKind::SelfConfidence => "self",
+            ScoreKind::Margin => "margin",
+        }
+    }
+
+    /// True when the score is a probability that the observed label is wrong, so that
+    /// a sum of scores is an expected number of errors.
+    pub fn is_probability(self) -> bool {
+        !matches!(self, ScoreKind::Margin)
+    }
+}
+
+/// One row's verdict.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct RowScore {
+    /// 0-based data row.
+    pub row: usize,
+    /// Higher = more likely mislabelled.
+    pub score: f64,
+    /// The most likely true class.
+    pub suggested: usize,
+    /// The best class other than `suggested`.
+    pub alt: usize,
+    /// Its probability (posterior or model probability, as the score uses).
+    pub alt_prob: f64,
+}
+
+/// Scores every row. `t` is needed for [`ScoreKind::Posterior`]; without it (or when it
+/// cannot be inverted) the posterior score uses the probabilities as the clean posterior.
+pub fn score_rows(
+    kind: ScoreKind,
+    probs: ArrayView2<f32>,
+    labels: &[usize],
+    t: Option<&Array2<f64>>,
+) -> Vec<RowScore> {
+    let k = probs.ncols();
+    let identity = Array2::<f64>::eye(k);
+    let posterior = Posterior::new(t.unwrap_or(&identity));
+    (0..labels.len())
+        .into_par_iter()
+        .with_min_len(4096)
+        .map_init(|| Scratch::new(k), |scratch, r| score_one(kind, probs, labels[r], r, &posterior, scratch))
+        .collect()
+}
+
+struct Scratch {
+    noisy: Vec<f32>,
+    clean: Vec<f64>,
+    belief: Vec<f64>,
+}
+
+impl Scratch {
+    fn new(k: usize) -> Self {
+        Scratch {
+            noisy: vec![0.0; k],
+            clean: vec![0.0; k],
+            belief: vec![0.0; k],
+        }
+    }
+}
+
+fn score_one(
+    kind: ScoreKind,
+    probs: ArrayView2<f32>,
+    observed: usize,
+    row: usize,
+    posterior: &Posterior,
+    s: &mut Scratch,
+) -> RowScore {
+    s.noisy
+        .iter_mut()
+        .zip(probs.row(row))
+        .for_each(|(dst, &src)| *dst = src);
+    match kind {
+        ScoreKind::Posterior => {
+            posterior.given_observed(&s.noisy, observed, &mut s.clean, &mut s.belief)
+        }
+        _ => s
+            .belief
+            .iter_mut()
+            .zip(&s.noisy)
+            .for_each(|(b, &p)| *b = p as f64),
+    }
+    let (suggested, alt) = top_two(&s.belief);
+    let score = match kind {
+        ScoreKind::Posterior | ScoreKind::SelfConfidence => 1.0 - s.belief[observed],
+        ScoreKind::Margin => {
+            let best_other = s
+                .belief
+                .iter()
+                .enumerate()
+                .filter(|(j, _)| *j != observed)
+                .map(|(_, &p)| p)
+                .fold(f64::NEG_INFINITY, f64::max);
+            best_other - s.belief[observed]
+        }
+    };
+    RowScore {
+        row,
+        score,
+        suggested,
+        alt,
+        alt_prob: s.belief[alt],
+    }
+}
+
+/// Indices of the largest and second-largest values (first index wins ties).
+fn top_two(values: &[f64]) -> (usize, usize) {
+    let mut best = 0;
+    for (i, &v) in values.iter().enumerate() {
+        if v > values[best] {
+            best = i;
+        }
+    }
+    let mut second = if best == 0 {
+        1.min(values.len() - 1)
+    } else {
+        0
+    };
+    for (i, &v) in values.iter().enumerate() {
+        if i != best && v > values[second] {
+            second = i;
+        }
+    }
+    (best, second)
+}
+
+/// Sorts scores from most to least suspect; equal scores keep row order, so the ranking
+/// is the same on every run.
+pub fn rank(scores: &mut [RowScore]) {
+    scores.par_sort_unstable_by(|a, b| b.score.total_cmp(&a.score).then(a.row.cmp(&b.row)));
+}
+
+/// Which ranked rows go on the worklist.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Selection {
+    /// At most this many rows (`None`: no limit).
+    pub top: Option<usize>,
+    /// Only rows scoring at least this.
+    pub threshold: Option<f64>,
+    /// At most this many rows per observed class.
+    pub per_class_cap: Option<usize>,
+    /// Only rows observed as one of these classes.
+    pub classes: Option<Vec<usize>>,
+}
+
+/// The ranked rows (most suspect first) that `selection` keeps, in rank order.
+pub fn select(
+    ranked: &[RowScore],
+    labels: &[usize],
+    classes: usize,
+    selection: &Selection,
+) -> Vec<RowScore> {
+    let mut per_class = vec![0usize; classes];
+    let mut kept = Vec::new();
+    for s in ranked {
+        if selection.top.is_some_and(|top| kept.len() >= top)
+            || selection.threshold.is_some_and(|t| s.score < t)
+        {
+            break;
+        }
+        let observed = labels[s.row];
+        if selection
+            .classes
+            .as_ref()
+            .is_some_and(|only| !only.contains(&observed))
+        {
+            continue;
+        }
+        if selection
+            .per_class_cap
+            .is_some_and(|cap| per_class[observed] >= cap)
+        {
+            continue;
+        }
+        per_class[observed] += 1;
+        kept.push(*s);
+    }
+    kept
+}
+
+/// Area under the ROC curve of `score` for telling `positive` rows from the others
+/// (Mann–Whitney U, ties counted half), or `None` when one side is empty.
+pub fn auroc(scores: &[f64], positive: &[bool]) -> Option<f64> {
+    let mut order: Vec<usize> = (0..scores.len()).collect();
+    order.sort_by(|&a, &b| scores[a].total_cmp(&scores[b]));
+    let (mut rank_sum, mut positives) = (0.0f64, 0usize);
+    let mut i = 0;
+    while i < order.len() {
+        let mut j = i;
+        while j + 1 < order.len() && scores[order[j + 1]] == scores[order[i]] {
+            j += 1;
+        }
+        let mid_rank = (i + j) as f64 / 2.0 + 1.0;
+        for &idx in &order[i..=j] {
+            if positive[idx] {
+                rank_sum += mid_rank;
+                positives += 1;
+            }
+        }
+        i = j + 1;
+    }
+    let negatives = scores.len() - positives;
+    if positives == 0 || negatives == 0 {
+        return None;
+    }
+    let u = rank_sum - (positives * (positives + 1)) as f64 / 2.0;
+    Some(u / (positives as f64 * negatives as f64))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    fn t3() -> Array2<f64> {
+        array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.0, 0.3, 0.7]]
+    }
+
+    #[test]
+    fn posterior_score_by_hand() {
+        // T above; clean posterior p = (0.5, 0.3, 0.2) gives the noisy p̃ = Tᵀp
+        // (Patrini et al. 2017, Eq. 2): p̃₀ = .8·.5 + .2·.3 + 0·.2 = .46,
+        // p̃₁ = .1·.5 + .7·.3 + .3·.2 = .32, p̃₂ = .1·.5 + .1·.3 + .7·.2 = .22.
+        // Observed label 1: P(true = k | x, obs = 1) ∝ T[k][1]·p(k) = (.05, .21, .06) / .32
+        // = (0.15625, 0.65625, 0.1875). Score = 1 − 0.65625 = 0.34375; suggested 1; alt 2.
+        let probs = array![[0.46f32, 0.32, 0.22]];
+        let s = score_rows(ScoreKind::Posterior, probs.view(), &[1], Some(&t3()))[0];
+        assert!((s.score - 0.34375).abs() < 1e-6, "{s:?}");
+        assert_eq!((s.suggested, s.alt), (1, 2));
+        assert!((s.alt_prob - 0.1875).abs() < 1e-6);
+        // Observed label 2: ∝ T[k][2]·p(k) = (.05, .03, .14)/.22 → P(true = 2) = 0.636364;
+        // score 0.363636, suggested 2, alt 0 (0.227273).
+        let s = score_rows(ScoreKind::Posterior, probs.view(), &[2], Some(&t3()))[0];
+        assert!((s.score - (1.0 - 0.14 / 0.22)).abs() < 1e-6);
+        assert_eq!((s.suggested, s.alt), (2, 0));
+    }
+
+    #[test]
+    fn self_confidence_and_margin_by_hand() {
+        // Northcutt et al. 2021: self-confidence p(observed | x); normalized margin
+        // p_observed − max_{j≠observed} p_j (we rank by its negative).
+        let probs = array![[0.46f32, 0.32, 0.22]];
+        let s = score_rows(ScoreKind::SelfConfidence, probs.view(), &[1], None)[0];
+        assert!((s.score - 0.68).abs() < 1e-6);
+        assert_eq!((s.suggested, s.alt), (0, 1));
+        let m = score_rows(ScoreKind::Margin, probs.view(), &[1], None)[0];
+        assert!((m.score - (0.46 - 0.32)).abs() < 1e-6);
+        let m = score_rows(ScoreKind::Margin, probs.view(), &[0], None)[0];
+        assert!((m.score - (0.32 - 0.46)).abs() < 1e-6);
+    }
+
+    #[test]
+    fn ranking_breaks_ties_by_row() {
+        let mut scores: Vec<RowScore> = [0.5, 0.9, 0.5, 0.1]
+            .iter()
+            .enumerate()
+            .map(|(row, &score)| RowScore {
+                row,
+                score,
+                suggested: 0,
+                alt: 1,
+                alt_prob: 0.0,
+            })
+            .collect();
+        rank(&mut scores);
+        assert_eq!(
+            scores.iter().map(|s| s.row).collect::<Vec<_>>(),
+            vec![1, 0, 2, 3]
+        );
+    }
+
+    #[test]
+    fn selection_by_top_threshold_cap_and_class() {
+        let mut ranked: Vec<RowScore> = [0.9, 0.8, 0.7, 0.6, 0.2]
+            .iter()
+            .enumerate()
+            .map(|(row, &score)| RowScore {
+                row,
+                score,
+                suggested: 0,
+                alt: 1,
+                alt_prob: 0.0,
+            })
+            .collect();
+        rank(&mut ranked);
+        let labels = [0, 0, 1, 0, 1];
+        let rows = |s: &Selection| {
+            select(&ranked, &labels, 2, s)
+                .iter()
+                .map(|r| r.row)
+                .collect::<Vec<_>>()
+        };
+        assert_eq!(
+            rows(&Selection {
+                top: Some(2),
+                ..Default::default()
+            }),
+            vec![0, 1]
+        );
+        assert_eq!(
+            rows(&Selection {
+                threshold: Some(0.65),
+                ..Default::default()
+            }),
+            vec![0, 1, 2]
+        );
+        assert_eq!(
+            rows(&Selection {
+                per_class_cap: Some(1),
+                ..Default::default()
+            }),
+            vec![0, 2]
+        );
+        assert_eq!(
+            rows(&Selection {
+                classes: Some(vec![1]),
+                top: Some(1),
+                ..Default::default()
+            }),
+            vec![2]
+        );
+    }
+
+    #[test]
+    fn auroc_by_hand() {
+        // Positives 0.9, 0.4; negatives 0.5, 0.1: pairs (0.9>0.5, 0.9>0.1, 0.4<0.5, 0.4>0.1) → 3/4.
+        assert_eq!(
+            auroc(&[0.9, 0.5, 0.4, 0.1], &[true, false, true, false]),
+            Some(0.75)
+        );
+        // A tie between a positive and a negative counts half.
+        assert_eq!(auroc(&[0.5, 0.5], &[true, false]), Some(0.5));
+        assert_eq!(auroc(&[0.5, 0.7], &[true, true]), None);
+    }
+}
