@@ -251,6 +251,12 @@ pub enum Problem {
         /// What is wrong.
         detail: String,
     },
+    /// A model file that cannot be used.
+    #[error("{detail}")]
+    Model {
+        /// What is wrong.
+        detail: String,
+    },
     /// A malformed `.npy` header.
     #[error("not a readable .npy file: {detail}")]
     NpyHeader {

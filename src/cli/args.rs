@@ -43,6 +43,7 @@ impl TableArgs {
             trusted: self.trusted.clone(),
             features: self.features.clone(),
             exclude: Vec::new(),
+            unlabeled: false,
         }
     }
 }

@@ -1,20 +1,26 @@
 //! The command line: flags parsed into plain data, then turned into library calls.
 
 mod args;
+mod compare;
 mod estimate;
 mod inspect;
+mod predict;
 mod review;
 mod suspects;
+mod train;
 
 use std::io::Write;
 
 use clap::{Parser, Subcommand};
 
 pub use args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+pub use compare::CompareArgs;
 pub use estimate::EstimateArgs;
 pub use inspect::InspectArgs;
+pub use predict::PredictArgs;
 pub use review::ReviewArgs;
 pub use suspects::SuspectsArgs;
+pub use train::TrainArgs;
 
 use crate::error::Result;
 
@@ -44,6 +50,14 @@ pub enum Command {
     /// Merge a reviewed worklist into a copy of the dataset: reviewed rows get their
     /// verified label in the trusted column. The input file is never changed.
     Review(ReviewArgs),
+    /// Train a softmax regression with a noise correction (none, forward, backward, prune)
+    /// and save it as a model file for `predict`.
+    Train(TrainArgs),
+    /// Predict classes and probabilities for a table with a saved model.
+    Predict(PredictArgs),
+    /// Train every correction (none, forward, backward, prune) on one stratified split with
+    /// the same flip matrix and compare them on the held-out rows.
+    Compare(CompareArgs),
 }
 
 /// Runs a parsed command line, writing its report to `out`.
@@ -53,6 +67,9 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
         Some(Command::Estimate(args)) => estimate::run(&args, out),
         Some(Command::Suspects(args)) => suspects::run(&args, out),
         Some(Command::Review(args)) => review::run(&args, out),
+        Some(Command::Train(args)) => train::run(&args, out),
+        Some(Command::Predict(args)) => predict::run(&args, out),
+        Some(Command::Compare(args)) => compare::run(&args, out),
         None => {
             let help = <Cli as clap::CommandFactory>::command()
                 .render_help()

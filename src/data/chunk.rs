@@ -202,7 +202,9 @@ enum Kind {
 
 fn kinds(plan: &ColumnPlan) -> Vec<Kind> {
     let mut kinds = vec![Kind::Unused; plan.header.len()];
-    kinds[plan.label] = Kind::Label;
+    if let Some(l) = plan.label {
+        kinds[l] = Kind::Label;
+    }
     if let Some(t) = plan.trusted {
         kinds[t] = Kind::Trusted;
     }
@@ -333,8 +335,9 @@ impl<'a> BlockParser<'a> {
         if record.count() != expected {
             return Err((line, None, ragged(expected, record.count())));
         }
-        let label_field = self.plan.label;
-        self.label(record.field(label_field), line, label_field)?;
+        if let Some(label_field) = self.plan.label {
+            self.label(record.field(label_field), line, label_field)?;
+        }
         if let Some(field) = self.plan.trusted {
             self.trusted(record.field(field), line, field)?;
         }

@@ -29,6 +29,8 @@ pub struct TableOptions {
     /// Columns that must never become features (e.g. the `--truth` column of a synthetic
     /// benchmark), each with the flag that named it.
     pub exclude: Vec<(String, String)>,
+    /// The label column may be absent (tables to predict on).
+    pub unlabeled: bool,
 }
 
 impl TableOptions {
@@ -68,8 +70,8 @@ pub fn parse_delimiter(text: &str) -> Result<u8, String> {
 pub struct ColumnPlan {
     /// Header names, in file order.
     pub header: Vec<String>,
-    /// Field index of the observed label.
-    pub label: usize,
+    /// Field index of the observed label (`None` only for unlabeled tables).
+    pub label: Option<usize>,
     /// Field index of the id column, if any.
     pub id: Option<usize>,
     /// Field index of the trusted label, if any.
@@ -98,19 +100,20 @@ impl ColumnPlan {
             })
         };
         let label = match &options.label {
-            Some(name) => lookup("--label", name)?,
-            None => find(DEFAULT_LABEL).ok_or_else(|| no_label(path, header))?,
+            Some(name) => Some(lookup("--label", name)?),
+            None if options.unlabeled => find(DEFAULT_LABEL),
+            None => Some(find(DEFAULT_LABEL).ok_or_else(|| no_label(path, header))?),
         };
         let id = match &options.id {
             Some(name) => Some(lookup("--id", name)?),
-            None => find(DEFAULT_ID).filter(|&i| i != label),
+            None => find(DEFAULT_ID).filter(|&i| Some(i) != label),
         };
         let trusted = match &options.trusted {
             Some(name) => Some(lookup("--trusted", name)?),
-            None => find(DEFAULT_TRUSTED).filter(|&i| i != label && Some(i) != id),
+            None => find(DEFAULT_TRUSTED).filter(|&i| Some(i) != label && Some(i) != id),
         };
         let roles = [
-            ("label", Some(label)),
+            ("label", label),
             ("id column", id),
             ("trusted label", trusted),
         ];
@@ -236,7 +239,7 @@ mod tests {
             &TableOptions::default(),
         )
         .unwrap();
-        assert_eq!((p.label, p.id, p.trusted), (2, Some(0), Some(3)));
+        assert_eq!((p.label, p.id, p.trusted), (Some(2), Some(0), Some(3)));
         assert_eq!(p.numeric, vec![1, 4]);
         assert!(!p.explicit);
     }

@@ -101,7 +101,7 @@ impl TableSummary {
             file: data.path.display().to_string(),
             rows,
             features: data.feature_names.clone(),
-            label_column: data.label_column.clone(),
+            label_column: data.label_column.clone().unwrap_or_default(),
             id_column: data.id_column.clone(),
             trusted_column: data.trusted_column.clone(),
             classes,

@@ -78,8 +78,9 @@ pub struct Dataset {
     pub path: PathBuf,
     /// All header names in file order.
     pub header: Vec<String>,
-    /// Name of the observed-label column.
-    pub label_column: String,
+    /// Name of the observed-label column (`None` only for tables loaded for prediction,
+    /// whose `labels` are then empty).
+    pub label_column: Option<String>,
     /// Name of the id column, when there is one.
     pub id_column: Option<String>,
     /// Name of the trusted-label column, when there is one.
@@ -128,7 +129,7 @@ impl Dataset {
 
     /// Number of rows.
     pub fn rows(&self) -> usize {
-        self.labels.len()
+        self.features.nrows()
     }
 
     /// The id of `row`: its id cell, or its 0-based row number when there is no id column.
@@ -422,13 +423,14 @@ impl<'a> Loader<'a> {
                 .map(|&c| (c != NONE).then(|| order[c as usize]))
                 .collect::<Vec<_>>()
         });
+        let plan_labeled = plan.label.is_some();
         let ids = plan.id.map(|_| std::mem::take(&mut self.ids));
         if let Some(ids) = &ids {
             self.check_unique_ids(ids, &plan)?;
         }
         let dataset = Dataset {
             path: self.path.to_path_buf(),
-            label_column: plan.header[plan.label].clone(),
+            label_column: plan.label.map(|l| plan.header[l].clone()),
             id_column: plan.id.map(|i| plan.header[i].clone()),
             trusted_column: plan.trusted.map(|i| plan.header[i].clone()),
             feature_names: kept
@@ -445,7 +447,9 @@ impl<'a> Loader<'a> {
             missing,
             warnings: Vec::new(),
         };
-        check_classes(self.path, &dataset, &mut warnings)?;
+        if plan_labeled {
+            check_classes(self.path, &dataset, &mut warnings)?;
+        }
         Ok(Dataset {
             warnings,
             ..dataset
@@ -478,7 +482,7 @@ impl<'a> Loader<'a> {
         if plan.explicit {
             for (i, name) in plan.header.iter().enumerate() {
                 let used = plan.numeric.contains(&i)
-                    || i == plan.label
+                    || Some(i) == plan.label
                     || Some(i) == plan.id
                     || Some(i) == plan.trusted;
                 if !used {

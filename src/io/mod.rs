@@ -1,6 +1,7 @@
 //! Writing outputs safely (atomically, and never over one of the command's inputs), and
 //! the worklist files exchanged with annotators.
 
+pub mod model;
 pub mod worklist;
 
 use std::fs::{self, File, OpenOptions};

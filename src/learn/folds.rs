@@ -27,9 +27,47 @@ pub fn stratified_folds(labels: &[usize], classes: usize, folds: usize, seed: u6
     fold_of
 }
 
+/// A stratified holdout split: from every class, round(fraction × its rows) rows
+/// (shuffled with ChaCha8 seeded by `seed`) go to the holdout. Returns (training rows,
+/// holdout rows), each in increasing order.
+pub fn stratified_holdout(
+    labels: &[usize],
+    classes: usize,
+    fraction: f64,
+    seed: u64,
+) -> (Vec<usize>, Vec<usize>) {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut by_class: Vec<Vec<usize>> = vec![Vec::new(); classes];
+    for (row, &label) in labels.iter().enumerate() {
+        by_class[label].push(row);
+    }
+    let mut holdout = Vec::new();
+    for rows in &mut by_class {
+        rows.shuffle(&mut rng);
+        let take = (fraction * rows.len() as f64).round() as usize;
+        holdout.extend_from_slice(&rows[..take.min(rows.len())]);
+    }
+    holdout.sort_unstable();
+    let mut is_holdout = vec![false; labels.len()];
+    holdout.iter().for_each(|&r| is_holdout[r] = true);
+    let train = (0..labels.len()).filter(|&r| !is_holdout[r]).collect();
+    (train, holdout)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn holdout_is_stratified_disjoint_and_seeded() {
+        let labels: Vec<usize> = (0..100).map(|i| usize::from(i >= 70)).collect();
+        let (train, holdout) = stratified_holdout(&labels, 2, 0.2, 1);
+        assert_eq!(holdout.len(), 14 + 6);
+        assert_eq!(holdout.iter().filter(|&&r| labels[r] == 1).count(), 6);
+        assert_eq!(train.len() + holdout.len(), 100);
+        assert!(train.iter().all(|r| holdout.binary_search(r).is_err()));
+        assert_eq!(stratified_holdout(&labels, 2, 0.2, 1), (train, holdout));
+    }
 
     #[test]
     fn balanced_per_class_and_deterministic() {

@@ -2,6 +2,8 @@
 //! says what one row costs and how that cost moves with z, so corrected losses plug in
 //! without touching the optimiser.
 
+use ndarray::Array2;
+
 /// A loss of one row given its logits and observed label.
 pub trait RowLoss: Sync {
     /// Returns the row's loss and overwrites `logits` with ∂loss/∂z.
@@ -18,6 +20,94 @@ impl RowLoss for CrossEntropy {
         let log_sum = softmax(logits);
         logits[label] -= 1.0;
         log_sum - shifted_label
+    }
+}
+
+/// Forward correction (Patrini et al., CVPR 2017): the model's clean posterior
+/// q = softmax(z) is pushed through the flip matrix, and the observed label is scored
+/// against the implied noisy posterior: −log((Tᵀq)[observed]).
+///
+/// Gradient: ∂/∂z_j = q_j·(1 − T[j][y] / (Tᵀq)_y).
+#[derive(Debug, Clone)]
+pub struct Forward {
+    t: Array2<f64>,
+}
+
+impl Forward {
+    /// Uses the row-stochastic flip matrix `t` (rows = true class).
+    pub fn new(t: Array2<f64>) -> Self {
+        Forward { t }
+    }
+}
+
+/// Smallest noisy probability the forward loss takes the logarithm of.
+const MIN_PROB: f64 = 1e-300;
+
+impl RowLoss for Forward {
+    fn loss_and_grad(&self, logits: &mut [f64], label: usize) -> f64 {
+        softmax(logits);
+        let noisy: f64 = logits
+            .iter()
+            .enumerate()
+            .map(|(k, q)| self.t[[k, label]] * q)
+            .sum::<f64>()
+            .max(MIN_PROB);
+        for (j, q) in logits.iter_mut().enumerate() {
+            *q *= 1.0 - self.t[[j, label]] / noisy;
+        }
+        -noisy.ln()
+    }
+}
+
+/// Backward correction (Patrini et al., CVPR 2017): the vector ℓ of per-class
+/// cross-entropies ℓ_k = −log softmax(z)_k is corrected by the inverse flip matrix, and
+/// the observed label's entry is the loss: (T⁻¹ℓ)[observed]. Unbiased for the clean loss,
+/// but T⁻¹ has negative entries, so the faithful loss is unbounded below.
+///
+/// With `cap = Some(c)` each ℓ_k is bounded by c (equivalently, probabilities below e^−c
+/// are treated as e^−c), which bounds the corrected loss from below and keeps the fit from
+/// driving one class's probability to zero to earn a negative loss. `cap = None` is the
+/// faithful loss.
+///
+/// Gradient: ∂/∂z_j = q_j·Σ_{k free} T⁻¹[y][k] − T⁻¹[y][j]·[j free], where "free" are the
+/// classes whose ℓ_k is below the cap (all of them when faithful).
+#[derive(Debug, Clone)]
+pub struct Backward {
+    t_inv: Array2<f64>,
+    cap: Option<f64>,
+}
+
+/// Default bound on each per-class loss of the guarded backward correction: −ln(1e-4),
+/// i.e. probabilities below 1e-4 count as 1e-4.
+pub const DEFAULT_BACKWARD_CAP: f64 = 9.210_340_371_976_184;
+
+impl Backward {
+    /// Uses the inverse of the flip matrix and an optional per-class loss cap.
+    pub fn new(t_inv: Array2<f64>, cap: Option<f64>) -> Self {
+        Backward { t_inv, cap }
+    }
+}
+
+impl RowLoss for Backward {
+    fn loss_and_grad(&self, logits: &mut [f64], label: usize) -> f64 {
+        softmax(logits);
+        let cap = self.cap.unwrap_or(f64::INFINITY);
+        let weights = self.t_inv.row(label);
+        // ℓ_k = −ln q_k; q is floored at the smallest normal f64 so ℓ_k stays finite.
+        let ce = |q: f64| -q.max(f64::MIN_POSITIVE).ln();
+        let (mut loss, mut free_weight) = (0.0, 0.0);
+        for (k, &q) in logits.iter().enumerate() {
+            let l = ce(q);
+            loss += weights[k] * l.min(cap);
+            if l < cap {
+                free_weight += weights[k];
+            }
+        }
+        for (j, q) in logits.iter_mut().enumerate() {
+            let free = ce(*q) < cap;
+            *q = *q * free_weight - if free { weights[j] } else { 0.0 };
+        }
+        loss
     }
 }
 
@@ -54,6 +144,98 @@ mod tests {
         for (g, e) in z.iter().zip(expected) {
             assert!((g - e).abs() < 1e-8);
         }
+    }
+
+    /// Central differences of a row loss against its analytic gradient.
+    fn check_gradient(loss: &dyn RowLoss, z: &[f64], label: usize) {
+        let mut grad = z.to_vec();
+        loss.loss_and_grad(&mut grad, label);
+        let h = 1e-6;
+        for j in 0..z.len() {
+            let (mut up, mut down) = (z.to_vec(), z.to_vec());
+            up[j] += h;
+            down[j] -= h;
+            let numeric = (loss.loss_and_grad(&mut up, label)
+                - loss.loss_and_grad(&mut down, label))
+                / (2.0 * h);
+            assert!(
+                (numeric - grad[j]).abs() < 1e-6,
+                "entry {j}: numeric {numeric} vs analytic {}",
+                grad[j]
+            );
+        }
+    }
+
+    fn t3() -> Array2<f64> {
+        ndarray::array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.0, 0.3, 0.7]]
+    }
+
+    #[test]
+    fn forward_value_and_gradient_by_hand() {
+        // z = (1, 2, 3): q = (0.0900306, 0.2447285, 0.6652410). Observed 1:
+        // (Tᵀq)₁ = 0.1·0.0900306 + 0.7·0.2447285 + 0.3·0.6652410 = 0.3798853
+        // (Patrini et al. 2017, forward correction), loss = −ln 0.3798853 = 0.9678860.
+        let loss = Forward::new(t3());
+        let mut z = [1.0, 2.0, 3.0];
+        let value = loss.loss_and_grad(&mut z, 1);
+        assert!((value - 0.967_886_0).abs() < 1e-6, "{value}");
+        // ∂/∂z_j = q_j (1 − T[j][1] / 0.3798853): (0.0663312, −0.2062233, 0.1398921).
+        for (g, e) in z.iter().zip([0.066_331_2, -0.206_223_3, 0.139_892_1]) {
+            assert!((g - e).abs() < 1e-6, "{z:?}");
+        }
+        check_gradient(&loss, &[0.3, -1.2, 2.0], 2);
+        check_gradient(&loss, &[5.0, 0.0, -5.0], 0);
+    }
+
+    #[test]
+    fn backward_value_and_gradient_by_hand() {
+        // T = [[0.8, 0.2], [0.3, 0.7]]: T⁻¹ = [[1.4, −0.4], [−0.6, 1.6]] (det 0.5).
+        // z = (0, ln 3): q = (0.25, 0.75), ℓ = (ln 4, ln 4/3) = (1.3862944, 0.2876821).
+        // Observed 0: 1.4·1.3862944 − 0.4·0.2876821 = 1.8257393 (Patrini et al. 2017).
+        let t_inv = ndarray::array![[1.4, -0.4], [-0.6, 1.6]];
+        let loss = Backward::new(t_inv.clone(), None);
+        let mut z = [0.0, 3f64.ln()];
+        let value = loss.loss_and_grad(&mut z, 0);
+        assert!((value - 1.825_739_3).abs() < 1e-6, "{value}");
+        // ∂/∂z_j = q_j·(1.4 − 0.4) − T⁻¹[0][j] = (0.25 − 1.4, 0.75 + 0.4) = (−1.15, 1.15).
+        assert!(
+            (z[0] + 1.15).abs() < 1e-9 && (z[1] - 1.15).abs() < 1e-9,
+            "{z:?}"
+        );
+        check_gradient(&loss, &[0.4, -0.9], 1);
+        let capped = Backward::new(t_inv, Some(DEFAULT_BACKWARD_CAP));
+        check_gradient(&capped, &[0.4, -0.9], 1);
+        // With the cap, pushing the negatively weighted class to zero stops paying:
+        // the faithful loss keeps falling, the guarded one levels off.
+        let far = |l: &Backward| l.loss_and_grad(&mut [0.0, 30.0], 1);
+        assert!(far(&loss) < -15.0);
+        assert!(far(&capped) > -0.6 * DEFAULT_BACKWARD_CAP - 1e-9);
+    }
+
+    #[test]
+    fn binary_backward_is_the_unbiased_loss_of_natarajan_et_al() {
+        // Natarajan et al. (NeurIPS 2013), Lemma 1: with flip rates ρ₊ = P(ỹ = −1 | y = +1)
+        // and ρ₋ = P(ỹ = +1 | y = −1), the unbiased loss for observed +1 is
+        // ((1 − ρ₋)·ℓ(t, +1) − ρ₊·ℓ(t, −1)) / (1 − ρ₊ − ρ₋). Classes (0, 1) = (−1, +1).
+        let (rho_plus, rho_minus) = (0.3, 0.1);
+        let t = ndarray::array![[1.0 - rho_minus, rho_minus], [rho_plus, 1.0 - rho_plus]];
+        let t_inv = crate::noise::linalg::inverse(&t).unwrap();
+        let loss = Backward::new(t_inv, None);
+        let z = [0.2, 1.1];
+        let ce = |k: usize| {
+            let mut q = z;
+            softmax(&mut q);
+            -q[k].ln()
+        };
+        let unbiased =
+            ((1.0 - rho_minus) * ce(1) - rho_plus * ce(0)) / (1.0 - rho_plus - rho_minus);
+        let ours = loss.loss_and_grad(&mut z.clone(), 1);
+        assert!((ours - unbiased).abs() < 1e-12, "{ours} vs {unbiased}");
+    }
+
+    #[test]
+    fn cross_entropy_gradient_matches_finite_differences() {
+        check_gradient(&CrossEntropy, &[0.3, -1.2, 2.0], 1);
     }
 
     #[test]

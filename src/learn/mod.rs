@@ -3,9 +3,11 @@
 pub mod folds;
 pub mod lbfgs;
 pub mod loss;
+pub mod metrics;
 pub mod oof;
 pub mod softmax;
 pub mod standardize;
+pub mod train;
 
 pub use loss::{CrossEntropy, RowLoss};
 pub use oof::{out_of_fold, OofParams};

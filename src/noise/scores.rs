@@ -68,7 +68,10 @@ pub fn score_rows(
     (0..labels.len())
         .into_par_iter()
         .with_min_len(4096)
-        .map_init(|| Scratch::new(k), |scratch, r| score_one(kind, probs, labels[r], r, &posterior, scratch))
+        .map_init(
+            || Scratch::new(k),
+            |scratch, r| score_one(kind, probs, labels[r], r, &posterior, scratch),
+        )
         .collect()
 }
 

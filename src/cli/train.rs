@@ -1,0 +1,291 @@
+//! `flipmend train`: fit a softmax regression with a noise correction and save it.
+
+use std::fmt::Write as _;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use clap::Args;
+use ndarray::Array2;
+
+use super::args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+use crate::data::Dataset;
+use crate::error::{Error, Result};
+use crate::io::model::{
+    data_hash, write_model, ModelFile, TrainingMetrics, TrainingSettings, MODEL_FORMAT,
+    MODEL_VERSION,
+};
+use crate::io::{check_not_input, write_atomic};
+use crate::learn::train::{predict_classes, train, Correction, TrainInputs, Trained};
+use crate::noise::matrix::read_matrix_csv;
+use crate::workflow::{self, MatrixSource};
+
+/// Flags of `flipmend train`.
+#[derive(Debug, Clone, Args)]
+pub struct TrainArgs {
+    #[command(flatten)]
+    /// The table.
+    pub table: TableArgs,
+    #[command(flatten)]
+    /// Optional probabilities (for estimating the matrix and for prune).
+    pub probs: ProbArgs,
+    #[command(flatten)]
+    /// The flip matrix.
+    pub matrix: MatrixArgs,
+    #[command(flatten)]
+    /// Penalty, iterations, folds and seed.
+    pub fit: FitArgs,
+    /// none (plain cross-entropy), forward or backward (loss corrected by the flip matrix),
+    /// prune (drop the most suspect rows, as many as the expected number of mislabelled
+    /// rows, then plain cross-entropy)
+    #[arg(long, value_enum)]
+    pub correction: CorrectionName,
+    /// With --correction backward: use the faithful loss, which is unbounded below when the
+    /// inverse flip matrix has negative entries (by default each per-class loss is capped
+    /// at −ln 1e-4 to keep the fit from exploiting them)
+    #[arg(long)]
+    pub faithful: bool,
+    /// Where to save the model (JSON)
+    #[arg(long, value_name = "FILE")]
+    pub out: PathBuf,
+}
+
+/// Correction names on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum CorrectionName {
+    /// Cross-entropy on the observed labels.
+    None,
+    /// Forward correction.
+    Forward,
+    /// Backward correction.
+    Backward,
+    /// Drop the most suspect rows, then cross-entropy.
+    Prune,
+}
+
+impl TrainArgs {
+    fn correction(&self) -> Correction {
+        match self.correction {
+            CorrectionName::None => Correction::None,
+            CorrectionName::Forward => Correction::Forward,
+            CorrectionName::Backward => Correction::Backward {
+                guarded: !self.faithful,
+            },
+            CorrectionName::Prune => Correction::Prune,
+        }
+    }
+}
+
+/// Runs `train`.
+pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
+    let mut inputs: Vec<&Path> = vec![args.table.data.as_path()];
+    inputs.extend(args.probs.probs.as_deref());
+    inputs.extend(args.matrix.matrix.as_deref());
+    check_not_input(&args.out, &inputs)?;
+    if args.faithful && args.correction != CorrectionName::Backward {
+        return Err(Error::Usage(
+            "--faithful applies to --correction backward only".into(),
+        ));
+    }
+    let correction = args.correction();
+    let data = Dataset::load(&args.table.data, &args.table.options())?;
+    let params = args.fit.oof().model;
+    params.check()?;
+    let (matrix, probs, matrix_source, mut warnings) = matrix_and_probs(args, &data, correction)?;
+    let rows: Vec<usize> = (0..data.rows()).collect();
+    let trained = train(
+        data.features.view(),
+        &rows,
+        &data.labels,
+        data.classes.len(),
+        correction,
+        TrainInputs {
+            matrix: matrix.as_ref(),
+            probs: probs.as_ref().map(|p| p.view()),
+        },
+        &params,
+    )?;
+    warnings.extend(trained.warnings.iter().cloned());
+    let file = model_file(
+        args,
+        &data,
+        &trained,
+        correction,
+        matrix.as_ref(),
+        matrix_source,
+        &rows,
+    );
+    write_atomic(&args.out, |w| write_model(w, &file))?;
+    super::emit(out, &render(args, &data, &file, &trained, &warnings))
+}
+
+type MatrixAndProbs = (
+    Option<Array2<f64>>,
+    Option<Array2<f32>>,
+    Option<String>,
+    Vec<String>,
+);
+
+/// The flip matrix (read, or estimated from probabilities) and, for prune, the
+/// probabilities; nothing for `none`.
+fn matrix_and_probs(
+    args: &TrainArgs,
+    data: &Dataset,
+    correction: Correction,
+) -> Result<MatrixAndProbs> {
+    if !correction.needs_matrix() {
+        return Ok((None, None, None, Vec::new()));
+    }
+    let source = args.matrix.source(args.probs.renormalize);
+    if let (MatrixSource::File { path, renormalize }, false) =
+        (&source, correction == Correction::Prune)
+    {
+        let file = std::fs::File::open(path).map_err(|source| Error::Read {
+            path: path.clone(),
+            source,
+        })?;
+        let (t, notes) = read_matrix_csv(file, path, &data.classes, *renormalize)?;
+        return Ok((
+            Some(t),
+            None,
+            Some(format!("file {}", path.display())),
+            notes,
+        ));
+    }
+    let probs = workflow::probabilities(
+        data,
+        args.probs.probs.as_deref(),
+        &args.probs.options(args.table.delimiter),
+        &args.fit.oof(),
+        &mut |_, _| true,
+    )?;
+    let estimate = workflow::flip_matrix(data, &probs, &source)?;
+    let name = match &source {
+        MatrixSource::File { path, .. } => format!("file {}", path.display()),
+        MatrixSource::Estimate(m) => m.name().to_string(),
+    };
+    let mut warnings = estimate.notes;
+    warnings.extend(estimate.diagnostics.warnings);
+    Ok((
+        Some(estimate.matrix),
+        Some(probs.values),
+        Some(name),
+        warnings,
+    ))
+}
+
+fn accuracy(predicted: &[usize], truth: impl Iterator<Item = (usize, usize)>) -> Option<f64> {
+    let (mut hits, mut total) = (0usize, 0usize);
+    for (row, label) in truth {
+        total += 1;
+        hits += usize::from(predicted[row] == label);
+    }
+    (total > 0).then(|| hits as f64 / total as f64)
+}
+
+fn model_file(
+    args: &TrainArgs,
+    data: &Dataset,
+    trained: &Trained,
+    correction: Correction,
+    matrix: Option<&Array2<f64>>,
+    matrix_source: Option<String>,
+    rows: &[usize],
+) -> ModelFile {
+    let predicted = predict_classes(&trained.model.predict_proba(data.features.view(), None));
+    let accuracy_observed =
+        accuracy(&predicted, data.labels.iter().copied().enumerate()).unwrap_or(0.0);
+    let accuracy_trusted = data.trusted.as_ref().and_then(|t| {
+        accuracy(
+            &predicted,
+            t.iter().enumerate().filter_map(|(r, l)| l.map(|l| (r, l))),
+        )
+    });
+    ModelFile {
+        format: MODEL_FORMAT.into(),
+        version: MODEL_VERSION,
+        classes: data.classes.clone(),
+        features: data.feature_names.clone(),
+        standardization: trained.model.standardizer.clone(),
+        weights: trained
+            .model
+            .weights
+            .rows()
+            .into_iter()
+            .map(|r| r.to_vec())
+            .collect(),
+        bias: trained.model.bias.clone(),
+        correction: correction.name().into(),
+        matrix: matrix.map(|t| t.rows().into_iter().map(|r| r.to_vec()).collect()),
+        settings: TrainingSettings {
+            l2: args.fit.l2,
+            max_iter: args.fit.max_iter,
+            seed: args.fit.seed,
+            matrix_source,
+        },
+        metrics: TrainingMetrics {
+            objective: trained.report.objective,
+            iterations: trained.report.iterations,
+            converged: trained.report.converged,
+            rows: rows.len() - trained.dropped.len(),
+            dropped_rows: trained.dropped.len(),
+            accuracy_observed,
+            accuracy_trusted,
+        },
+        data_hash: data_hash(data.features.view(), rows, &data.labels),
+    }
+}
+
+fn render(
+    args: &TrainArgs,
+    data: &Dataset,
+    file: &ModelFile,
+    trained: &Trained,
+    warnings: &[String],
+) -> String {
+    let mut t = String::new();
+    let m = &file.metrics;
+    let _ = writeln!(
+        t,
+        "{}: softmax regression, correction {}",
+        args.out.display(),
+        file.correction
+    );
+    if let Some(source) = &file.settings.matrix_source {
+        let _ = writeln!(t, "flip matrix: {source}");
+    }
+    let _ = writeln!(
+        t,
+        "rows: {} of {} ({} dropped as most suspect)",
+        m.rows,
+        data.rows(),
+        m.dropped_rows
+    );
+    let _ = writeln!(
+        t,
+        "training objective {:.6} after {} iterations ({}), gradient {:.2e}",
+        m.objective,
+        m.iterations,
+        if m.converged {
+            "converged"
+        } else {
+            "not converged"
+        },
+        trained.report.grad_norm
+    );
+    let _ = writeln!(
+        t,
+        "accuracy on the training rows against observed labels: {:.2}%",
+        100.0 * m.accuracy_observed
+    );
+    if let Some(a) = m.accuracy_trusted {
+        let _ = writeln!(
+            t,
+            "accuracy on the training rows with a trusted label, against it: {:.2}%",
+            100.0 * a
+        );
+    }
+    for w in warnings {
+        let _ = writeln!(t, "warning: {w}");
+    }
+    t
+}

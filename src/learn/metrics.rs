@@ -1,0 +1,92 @@
+//! Evaluation of predictions: accuracy, confusion, recall, and the clean accuracy implied
+//! by noisy labels and a flip matrix.
+
+use ndarray::Array2;
+
+use crate::noise::linalg::inverse;
+
+/// Share of positions where `predicted` equals `reference`.
+pub fn accuracy(predicted: &[usize], reference: &[usize]) -> Option<f64> {
+    (!reference.is_empty()).then(|| {
+        predicted
+            .iter()
+            .zip(reference)
+            .filter(|(p, r)| p == r)
+            .count() as f64
+            / reference.len() as f64
+    })
+}
+
+/// Counts with rows = reference class, columns = predicted class.
+pub fn confusion(predicted: &[usize], reference: &[usize], classes: usize) -> Array2<usize> {
+    let mut c = Array2::zeros((classes, classes));
+    for (&p, &r) in predicted.iter().zip(reference) {
+        c[[r, p]] += 1;
+    }
+    c
+}
+
+/// Recall of each reference class (`None` for a class with no reference rows).
+pub fn recall(confusion: &Array2<usize>) -> Vec<Option<f64>> {
+    confusion
+        .rows()
+        .into_iter()
+        .enumerate()
+        .map(|(i, row)| {
+            let total: usize = row.sum();
+            (total > 0).then(|| row[i] as f64 / total as f64)
+        })
+        .collect()
+}
+
+/// The accuracy against the (unseen) true labels implied by the accuracy against noisy
+/// ones. With N[i][j] the share of rows predicted i and observed j, and flips that depend
+/// only on the true class (so not on the prediction, which holds for rows the model never
+/// saw), N = M·T where M[i][k] is the share predicted i and truly k; hence M = N·T⁻¹ and
+/// the clean accuracy is trace(M), clipped to [0, 1]. `None` when T is singular.
+pub fn estimated_clean_accuracy(
+    predicted: &[usize],
+    observed: &[usize],
+    t: &Array2<f64>,
+) -> Option<f64> {
+    let k = t.nrows();
+    let n = observed.len() as f64;
+    if n == 0.0 {
+        return None;
+    }
+    let counts = confusion(observed, predicted, k); // rows = predicted, columns = observed
+    let noisy = counts.mapv(|c| c as f64 / n);
+    let clean = noisy.dot(&inverse(t)?);
+    Some((0..k).map(|i| clean[[i, i]]).sum::<f64>().clamp(0.0, 1.0))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    #[test]
+    fn confusion_and_recall() {
+        let c = confusion(&[0, 1, 1, 0], &[0, 1, 0, 0], 2);
+        assert_eq!(c, array![[2, 1], [0, 1]]);
+        assert_eq!(recall(&c), vec![Some(2.0 / 3.0), Some(1.0)]);
+        assert_eq!(accuracy(&[0, 1, 1, 0], &[0, 1, 0, 0]), Some(0.75));
+    }
+
+    #[test]
+    fn clean_accuracy_from_noisy_agreement_by_hand() {
+        // A perfect predictor (ŷ = y) on balanced classes under T = [[0.8, 0.2], [0.1, 0.9]]:
+        // N = M·T with M = diag(0.5, 0.5) → N = [[0.4, 0.1], [0.05, 0.45]]; the observed
+        // agreement is 0.85, and N·T⁻¹ must give back accuracy 1.
+        let t = array![[0.8, 0.2], [0.1, 0.9]];
+        let mut predicted = Vec::new();
+        let mut observed = Vec::new();
+        for (p, o, count) in [(0, 0, 40), (0, 1, 10), (1, 0, 5), (1, 1, 45)] {
+            predicted.extend(std::iter::repeat_n(p, count));
+            observed.extend(std::iter::repeat_n(o, count));
+        }
+        assert_eq!(accuracy(&predicted, &observed), Some(0.85));
+        let clean = estimated_clean_accuracy(&predicted, &observed, &t).unwrap();
+        assert!((clean - 1.0).abs() < 1e-12, "{clean}");
+    }
+}

@@ -1,0 +1,184 @@
+//! Training with a noise correction: the same optimiser, standardisation and penalty as
+//! the uncorrected fit, with the row loss swapped.
+
+use ndarray::{Array2, ArrayView2};
+use serde::Serialize;
+
+use super::loss::{Backward, CrossEntropy, Forward, RowLoss, DEFAULT_BACKWARD_CAP};
+use super::softmax::{fit, FitReport, SoftmaxModel, SoftmaxParams};
+use crate::error::{Error, Result};
+use crate::noise::diagnostics::ILL_CONDITIONED;
+use crate::noise::linalg::{condition_number, inverse};
+use crate::noise::scores::{rank, score_rows, ScoreKind};
+
+/// How the loss accounts for label noise.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Correction {
+    /// Cross-entropy on the observed labels.
+    None,
+    /// Forward correction (Patrini et al. 2017).
+    Forward,
+    /// Backward correction (Patrini et al. 2017); `guarded` bounds each per-class loss
+    /// (see [`Backward`]), otherwise the faithful, unbounded loss.
+    Backward {
+        /// Bound the per-class losses.
+        guarded: bool,
+    },
+    /// Drop the most suspect rows (as many as the expected number of mislabelled rows),
+    /// then train with cross-entropy.
+    Prune,
+}
+
+impl Correction {
+    /// The name used on the command line and in files.
+    pub fn name(self) -> &'static str {
+        match self {
+            Correction::None => "none",
+            Correction::Forward => "forward",
+            Correction::Backward { guarded: true } => "backward",
+            Correction::Backward { guarded: false } => "backward-faithful",
+            Correction::Prune => "prune",
+        }
+    }
+
+    /// True when the correction needs a flip matrix.
+    pub fn needs_matrix(self) -> bool {
+        !matches!(self, Correction::None)
+    }
+}
+
+/// A trained model and how the training went.
+#[derive(Debug, Clone)]
+pub struct Trained {
+    /// The model.
+    pub model: SoftmaxModel,
+    /// The optimiser's report.
+    pub report: FitReport,
+    /// Rows dropped by `prune` (data row numbers).
+    pub dropped: Vec<usize>,
+    /// Things to know (e.g. an ill-conditioned matrix).
+    pub warnings: Vec<String>,
+}
+
+/// What training needs besides the features and labels.
+#[derive(Debug, Clone, Copy)]
+pub struct TrainInputs<'a> {
+    /// The flip matrix (required unless `Correction::None`).
+    pub matrix: Option<&'a Array2<f64>>,
+    /// Out-of-sample probabilities of every data row (required for `Prune`).
+    pub probs: Option<ArrayView2<'a, f32>>,
+}
+
+/// Trains on the rows `rows` of `x` (labels indexed by data row).
+pub fn train(
+    x: ArrayView2<f64>,
+    rows: &[usize],
+    labels: &[usize],
+    classes: usize,
+    correction: Correction,
+    inputs: TrainInputs,
+    params: &SoftmaxParams,
+) -> Result<Trained> {
+    let mut warnings = Vec::new();
+    let matrix = match (correction.needs_matrix(), inputs.matrix) {
+        (true, None) => {
+            return Err(Error::Usage(format!(
+                "--correction {} needs a flip matrix",
+                correction.name()
+            )))
+        }
+        (_, m) => m,
+    };
+    let loss: Box<dyn RowLoss> = match correction {
+        Correction::None | Correction::Prune => Box::new(CrossEntropy),
+        Correction::Forward => Box::new(Forward::new(
+            matrix.cloned().unwrap_or_else(|| Array2::eye(classes)),
+        )),
+        Correction::Backward { guarded } => {
+            let t = matrix.cloned().unwrap_or_else(|| Array2::eye(classes));
+            let cond = condition_number(&t);
+            if cond > ILL_CONDITIONED {
+                warnings.push(format!(
+                    "the flip matrix is ill-conditioned (1-norm condition number {cond:.3e}); backward correction \
+                     amplifies noise{}",
+                    if guarded { "" } else { " and the faithful loss is unbounded below" }
+                ));
+            }
+            let t_inv = inverse(&t).ok_or_else(|| {
+                Error::Usage(
+                    "backward correction needs an invertible flip matrix; this one is singular"
+                        .into(),
+                )
+            })?;
+            Box::new(Backward::new(
+                t_inv,
+                guarded.then_some(DEFAULT_BACKWARD_CAP),
+            ))
+        }
+    };
+    let (kept, dropped) = match correction {
+        Correction::Prune => prune(rows, labels, inputs, matrix)?,
+        _ => (rows.to_vec(), Vec::new()),
+    };
+    let (model, report) = fit(
+        x,
+        Some(&kept),
+        labels,
+        classes,
+        loss.as_ref(),
+        params,
+        &mut |_| true,
+    )?;
+    if !report.converged {
+        warnings.push(format!(
+            "the fit stopped after {} iterations with gradient {:.2e} (not below the tolerance)",
+            report.iterations, report.grad_norm
+        ));
+    }
+    Ok(Trained {
+        model,
+        report,
+        dropped,
+        warnings,
+    })
+}
+
+/// Keeps all but the round(E) most suspect rows, E = Σ posterior scores of the rows.
+fn prune(
+    rows: &[usize],
+    labels: &[usize],
+    inputs: TrainInputs,
+    matrix: Option<&Array2<f64>>,
+) -> Result<(Vec<usize>, Vec<usize>)> {
+    let probs = inputs.probs.ok_or_else(|| {
+        Error::Usage("--correction prune needs out-of-sample probabilities".into())
+    })?;
+    let sub_probs = probs.select(ndarray::Axis(0), rows);
+    let sub_labels: Vec<usize> = rows.iter().map(|&r| labels[r]).collect();
+    let mut scores = score_rows(ScoreKind::Posterior, sub_probs.view(), &sub_labels, matrix);
+    let expected: f64 = scores.iter().map(|s| s.score).sum();
+    rank(&mut scores);
+    let drop_count = (expected.round() as usize).min(rows.len().saturating_sub(1));
+    let mut dropped: Vec<usize> = scores[..drop_count].iter().map(|s| rows[s.row]).collect();
+    dropped.sort_unstable();
+    let kept = rows
+        .iter()
+        .copied()
+        .filter(|r| dropped.binary_search(r).is_err())
+        .collect();
+    Ok((kept, dropped))
+}
+
+/// Index of each row's most probable class.
+pub fn predict_classes(probs: &Array2<f64>) -> Vec<usize> {
+    probs
+        .rows()
+        .into_iter()
+        .map(|r| {
+            r.iter()
+                .enumerate()
+                .fold(0, |best, (i, &v)| if v > r[best] { i } else { best })
+        })
+        .collect()
+}
