@@ -168,6 +168,17 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
             "observed labels of holdout rows".to_string(),
         ),
     };
+    if models
+        .iter()
+        .any(|(_, _, _, hold, _)| estimated_clean_accuracy(hold, &observed_hold, &matrix).is_none())
+    {
+        warnings.push(
+            "the estimated clean accuracy is missing where trace(N·T⁻¹) fell outside [0, 1]: the flip matrix does not \
+             fit the holdout's labels (it claims more, or less, noise than they show); compare estimators, or use \
+             trusted or test labels"
+                .into(),
+        );
+    }
     let none_pred = predictions[0].clone();
     let reports = models
         .into_iter()

@@ -43,7 +43,12 @@ pub fn recall(confusion: &Array2<usize>) -> Vec<Option<f64>> {
 /// ones. With N[i][j] the share of rows predicted i and observed j, and flips that depend
 /// only on the true class (so not on the prediction, which holds for rows the model never
 /// saw), N = M·T where M[i][k] is the share predicted i and truly k; hence M = N·T⁻¹ and
-/// the clean accuracy is trace(M), clipped to [0, 1]. `None` when T is singular.
+/// the clean accuracy is trace(M). `None` when T is singular or when trace(M) falls
+/// clearly outside [0, 1] (beyond 0.02): the matrix then does not fit these labels (the
+/// inverse amplifies any error in T), and no number is better than a wrong one. Values
+/// just outside are clipped.
+pub const CLEAN_ACCURACY_SLACK: f64 = 0.02;
+/// See [`CLEAN_ACCURACY_SLACK`].
 pub fn estimated_clean_accuracy(
     predicted: &[usize],
     observed: &[usize],
@@ -57,7 +62,10 @@ pub fn estimated_clean_accuracy(
     let counts = confusion(observed, predicted, k); // rows = predicted, columns = observed
     let noisy = counts.mapv(|c| c as f64 / n);
     let clean = noisy.dot(&inverse(t)?);
-    Some((0..k).map(|i| clean[[i, i]]).sum::<f64>().clamp(0.0, 1.0))
+    let trace: f64 = (0..k).map(|i| clean[[i, i]]).sum();
+    (-CLEAN_ACCURACY_SLACK..=1.0 + CLEAN_ACCURACY_SLACK)
+        .contains(&trace)
+        .then(|| trace.clamp(0.0, 1.0))
 }
 
 #[cfg(test)]
@@ -88,5 +96,12 @@ mod tests {
         assert_eq!(accuracy(&predicted, &observed), Some(0.85));
         let clean = estimated_clean_accuracy(&predicted, &observed, &t).unwrap();
         assert!((clean - 1.0).abs() < 1e-12, "{clean}");
+        // A matrix claiming far more noise than the labels show implies an accuracy above 1:
+        // no estimate.
+        let noisier = array![[0.55, 0.45], [0.45, 0.55]];
+        assert_eq!(
+            estimated_clean_accuracy(&predicted, &observed, &noisier),
+            None
+        );
     }
 }

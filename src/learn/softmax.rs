@@ -195,6 +195,28 @@ impl Problem<'_> {
     }
 }
 
+/// The training objective at `theta` (weights row-major, then biases) on already
+/// standardised rows, with its gradient written into `grad`: the function the optimiser
+/// calls. Public for benchmarks and checks.
+pub fn objective(
+    x: ArrayView2<f64>,
+    labels: &[usize],
+    classes: usize,
+    loss: &dyn RowLoss,
+    l2: f64,
+    theta: &[f64],
+    grad: &mut [f64],
+) -> f64 {
+    Problem {
+        x: x.view(),
+        labels,
+        classes,
+        loss,
+        l2,
+    }
+    .evaluate(theta, grad)
+}
+
 /// Fits on the rows `rows` of `x` (all rows when `None`) with `labels[r]` the label of
 /// row `r` of `x`. `keep_going` is asked once per iteration (for cancelling).
 pub fn fit(

@@ -1,0 +1,104 @@
+//! Benchmark of the training loop: one objective-and-gradient evaluation of each loss on
+//! 200,000 × 32 × 10 (reported as GFLOP/s of its two matrix products, 4·n·d·k flops), a
+//! full fit, and each correction's fit.
+//!
+//! `cargo bench --bench train`. Median of 5 runs after a warm-up (3 for whole fits).
+
+use std::time::{Duration, Instant};
+
+use flipmend::learn::loss::{Backward, Forward, DEFAULT_BACKWARD_CAP};
+use flipmend::learn::softmax::objective;
+use flipmend::learn::train::{train, Correction, TrainInputs};
+use flipmend::learn::{CrossEntropy, RowLoss, SoftmaxParams};
+use flipmend::noise::linalg::inverse;
+use ndarray::Array2;
+
+fn main() {
+    let (n, d, k) = (200_000, 32, 10);
+    let (x, labels) = synthetic(n, d, k);
+    let t = Array2::from_shape_fn(
+        (k, k),
+        |(i, j)| if i == j { 0.6 } else { 0.4 / (k - 1) as f64 },
+    );
+    let t_inv = inverse(&t).expect("invertible");
+    let theta: Vec<f64> = (0..k * (d + 1))
+        .map(|i| ((i % 7) as f64 - 3.0) * 0.01)
+        .collect();
+    let mut grad = vec![0.0; theta.len()];
+    let losses: [(&str, Box<dyn RowLoss>); 3] = [
+        ("cross-entropy", Box::new(CrossEntropy)),
+        ("forward", Box::new(Forward::new(t.clone()))),
+        (
+            "backward (guarded)",
+            Box::new(Backward::new(t_inv, Some(DEFAULT_BACKWARD_CAP))),
+        ),
+    ];
+    let flops = 4.0 * (n * d * k) as f64;
+    for (name, loss) in &losses {
+        let secs = median(5, || {
+            objective(x.view(), &labels, k, loss.as_ref(), 1e-3, &theta, &mut grad);
+        });
+        println!(
+            "objective+gradient {name:<20} 200000x32x10  median {secs:>8.4} s  {:>6.2} GFLOP/s",
+            flops / secs / 1e9
+        );
+    }
+    let rows: Vec<usize> = (0..n).collect();
+    let params = SoftmaxParams::default();
+    for correction in [
+        Correction::None,
+        Correction::Forward,
+        Correction::Backward { guarded: true },
+    ] {
+        let mut iterations = 0;
+        let secs = median(3, || {
+            let trained = train(
+                x.view(),
+                &rows,
+                &labels,
+                k,
+                correction,
+                TrainInputs {
+                    matrix: Some(&t),
+                    probs: None,
+                },
+                &params,
+            )
+            .unwrap();
+            iterations = trained.report.iterations;
+        });
+        println!(
+            "fit {:<10} 200000x32x10  median {secs:>8.4} s  ({iterations} iterations)",
+            correction.name()
+        );
+    }
+}
+
+fn median(runs: usize, mut run: impl FnMut()) -> f64 {
+    run();
+    let mut times: Vec<Duration> = (0..runs)
+        .map(|_| {
+            let start = Instant::now();
+            run();
+            start.elapsed()
+        })
+        .collect();
+    times.sort();
+    times[runs / 2].as_secs_f64()
+}
+
+fn synthetic(n: usize, d: usize, k: usize) -> (Array2<f64>, Vec<usize>) {
+    let mut state = 0x5EED_7EA1_u64;
+    let mut unit = move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let means: Vec<f64> = (0..k * d).map(|_| 2.0 * unit() - 1.0).collect();
+    let labels: Vec<usize> = (0..n).map(|r| r % k).collect();
+    let x = Array2::from_shape_fn((n, d), |(r, j)| {
+        means[labels[r] * d + j] + (unit() - 0.5) * 3.0
+    });
+    (x, labels)
+}
