@@ -358,6 +358,19 @@ impl Error {
     }
 }
 
+/// Turns a `csv` crate error while reading `path` into a syntax error at its line.
+pub(crate) fn csv_syntax(path: &Path) -> impl Fn(csv::Error) -> Error + Copy + '_ {
+    move |e: csv::Error| {
+        let line = e.position().map_or(0, |p| p.line());
+        Error::input(
+            Location::line(path, line),
+            Problem::Syntax {
+                detail: e.to_string(),
+            },
+        )
+    }
+}
+
 /// Shortens a cell's text for a message so a huge field cannot flood the terminal.
 pub(crate) fn shorten(text: &str) -> String {
     const MAX_CHARS: usize = 40;

@@ -26,6 +26,18 @@ pub enum ProbSource {
     },
 }
 
+impl ProbSource {
+    /// How reports name the source.
+    pub fn describe(&self) -> String {
+        match self {
+            ProbSource::File(path) => path.display().to_string(),
+            ProbSource::OutOfFold { folds, seed } => {
+                format!("out-of-fold ({folds} folds, seed {seed})")
+            }
+        }
+    }
+}
+
 /// Probabilities aligned with the dataset's rows, and their source.
 #[derive(Debug, Clone)]
 pub struct RowProbabilities {
@@ -87,6 +99,17 @@ pub enum MatrixSource {
         /// Rescale rows that do not sum to 1.
         renormalize: bool,
     },
+}
+
+impl MatrixSource {
+    /// How reports name the source (`quantile (q = 0.97)`, `counting`, `file m.csv`, …).
+    pub fn describe(&self) -> String {
+        match self {
+            MatrixSource::File { path, .. } => format!("file {}", path.display()),
+            MatrixSource::Estimate(Method::Quantile { q }) => format!("quantile (q = {q})"),
+            MatrixSource::Estimate(method) => method.name().to_string(),
+        }
+    }
 }
 
 /// A flip matrix with its diagnostics.

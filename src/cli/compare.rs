@@ -371,13 +371,7 @@ fn render(r: &CompareReport) -> String {
          (assumes flips depend only on the true class). test/trusted: against labels taken as correct. changed: \
          holdout predictions that differ from 'none'."
     );
-    let width = r
-        .classes
-        .iter()
-        .map(|c| c.chars().count())
-        .max()
-        .unwrap_or(5)
-        .max(5);
+    let width = super::name_width(r.classes.iter().map(String::as_str), 5);
     let _ = writeln!(t, "\nrecall per class (against {}):", r.reference);
     let _ = write!(t, "{:<width$}", "class");
     for m in &r.models {

@@ -15,7 +15,7 @@ use crate::io::{check_not_input, write_atomic, write_json};
 use crate::noise::bootstrap::Interval;
 use crate::noise::diagnostics::ReliabilityBin;
 use crate::noise::matrix::write_matrix_csv;
-use crate::workflow::{self, FlipEstimate, MatrixSource, ProbSource, RowProbabilities};
+use crate::workflow::{self, FlipEstimate, MatrixSource, RowProbabilities};
 
 /// Flags of `flipmend estimate`.
 #[derive(Debug, Clone, Args)]
@@ -97,7 +97,7 @@ pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
     write_outputs(args, &data, &probs, &estimate, interval.as_ref(), &source)?;
     super::emit(
         out,
-        &render(args, &data, &probs, &estimate, interval.as_ref(), &source),
+        &render(&data, &probs, &estimate, interval.as_ref(), &source),
     )
 }
 
@@ -128,25 +128,6 @@ fn progress_line(fold: usize, folds: usize) -> bool {
     true
 }
 
-fn describe(source: &MatrixSource, args: &EstimateArgs) -> String {
-    match source {
-        MatrixSource::File { path, .. } => format!("file {}", path.display()),
-        MatrixSource::Estimate(method) if method.name() == "quantile" => {
-            format!("quantile (q = {})", args.matrix.quantile)
-        }
-        MatrixSource::Estimate(method) => method.name().to_string(),
-    }
-}
-
-fn describe_probs(probs: &RowProbabilities) -> String {
-    match &probs.source {
-        ProbSource::File(path) => path.display().to_string(),
-        ProbSource::OutOfFold { folds, seed } => {
-            format!("out-of-fold ({folds} folds, seed {seed})")
-        }
-    }
-}
-
 fn rows_of(t: &Array2<f64>) -> Vec<Vec<f64>> {
     t.rows().into_iter().map(|r| r.to_vec()).collect()
 }
@@ -171,8 +152,8 @@ fn write_outputs(
         let d = &estimate.diagnostics;
         let report = EstimateReport {
             classes: &data.classes,
-            method: describe(source, args),
-            probabilities: describe_probs(probs),
+            method: source.describe(),
+            probabilities: probs.source.describe(),
             matrix: rows_of(&estimate.matrix),
             observed_prior: &d.observed_prior,
             clean_prior: &d.clean_prior,
@@ -219,7 +200,6 @@ fn all_warnings(data: &Dataset, estimate: &FlipEstimate) -> Vec<String> {
 }
 
 fn render(
-    args: &EstimateArgs,
     data: &Dataset,
     probs: &RowProbabilities,
     estimate: &FlipEstimate,
@@ -232,27 +212,18 @@ fn render(
     let _ = writeln!(
         t,
         "flip matrix: {}; probabilities: {}",
-        describe(source, args),
-        describe_probs(probs)
+        source.describe(),
+        probs.source.describe()
     );
     let _ = writeln!(
         t,
         "rows = true class, columns = observed label, T[i][j] = P(observed j | true i)\n"
     );
-    let name_width = data
-        .classes
-        .iter()
-        .map(|c| c.chars().count())
-        .max()
-        .unwrap_or(4)
-        .max("true \\ observed".len());
-    let cell = data
-        .classes
-        .iter()
-        .map(|c| c.chars().count())
-        .max()
-        .unwrap_or(5)
-        .max(6);
+    let name_width = super::name_width(
+        data.classes.iter().map(String::as_str),
+        "true \\ observed".len(),
+    );
+    let cell = super::name_width(data.classes.iter().map(String::as_str), 6);
     let _ = write!(t, "{:<name_width$}", "true \\ observed");
     for c in &data.classes {
         let _ = write!(t, "  {c:>cell$}");

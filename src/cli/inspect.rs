@@ -75,13 +75,7 @@ pub fn render(s: &TableSummary) -> String {
     let _ = writeln!(t, "trusted:      {trusted}");
     let _ = writeln!(t, "features:     {}", s.features.join(", "));
     let _ = writeln!(t);
-    let width = s
-        .classes
-        .iter()
-        .map(|c| c.name.chars().count())
-        .max()
-        .unwrap_or(5)
-        .max(5);
+    let width = super::name_width(s.classes.iter().map(|c| c.name.as_str()), 5);
     let _ = writeln!(
         t,
         "{:<width$}  {:>10}  {:>7}  {:>8}",

@@ -79,6 +79,11 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
     }
 }
 
+/// Column width for names: the longest name in characters, and at least `min`.
+pub(crate) fn name_width<'a>(names: impl Iterator<Item = &'a str>, min: usize) -> usize {
+    names.map(|n| n.chars().count()).max().unwrap_or(0).max(min)
+}
+
 /// Writes a report; a closed pipe (`flipmend … | head`) is not an error.
 pub(crate) fn emit(out: &mut dyn Write, text: &str) -> Result<()> {
     match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {

@@ -140,7 +140,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         let estimate = workflow::flip_matrix(&data, &probs, &source)?;
         warnings.extend(estimate.notes);
         warnings.extend(estimate.diagnostics.warnings);
-        Some((describe_matrix(&source, args), estimate.matrix))
+        Some((source.describe(), estimate.matrix))
     } else {
         None
     };
@@ -246,16 +246,6 @@ fn selection(args: &SuspectsArgs, data: &Dataset) -> Result<Selection> {
     })
 }
 
-fn describe_matrix(source: &workflow::MatrixSource, args: &SuspectsArgs) -> String {
-    match source {
-        workflow::MatrixSource::File { path, .. } => format!("file {}", path.display()),
-        workflow::MatrixSource::Estimate(m) if m.name() == "quantile" => {
-            format!("quantile (q = {})", args.matrix.quantile)
-        }
-        workflow::MatrixSource::Estimate(m) => m.name().to_string(),
-    }
-}
-
 /// Rows whose observed label differs from the truth column.
 fn truth_flags(data: &Dataset, column: &str, delimiter: u8) -> Result<Vec<bool>> {
     let cells = read_text_column(&data.path, delimiter, column)?;
@@ -299,12 +289,7 @@ fn summary(
     SuspectsReport {
         score: kind.name(),
         matrix,
-        probabilities: match &probs.source {
-            workflow::ProbSource::File(p) => p.display().to_string(),
-            workflow::ProbSource::OutOfFold { folds, seed } => {
-                format!("out-of-fold ({folds} folds, seed {seed})")
-            }
-        },
+        probabilities: probs.source.describe(),
         rows: data.rows(),
         listed: listed.len(),
         expected_errors: probability.then(|| listed.iter().map(|s| s.score).sum()),
@@ -338,13 +323,7 @@ fn render(r: &SuspectsReport, data: &Dataset, listed: &[RowScore]) -> String {
             );
         }
     }
-    let width = data
-        .classes
-        .iter()
-        .map(|c| c.chars().count())
-        .max()
-        .unwrap_or(5)
-        .max("observed".len());
+    let width = super::name_width(data.classes.iter().map(String::as_str), "observed".len());
     let _ = writeln!(
         t,
         "\n{:<width$}  {:>7}  {:>15}",

@@ -159,10 +159,7 @@ fn matrix_and_probs(
         &mut |_, _| true,
     )?;
     let estimate = workflow::flip_matrix(data, &probs, &source)?;
-    let name = match &source {
-        MatrixSource::File { path, .. } => format!("file {}", path.display()),
-        MatrixSource::Estimate(m) => m.name().to_string(),
-    };
+    let name = source.describe();
     let mut warnings = estimate.notes;
     warnings.extend(estimate.diagnostics.warnings);
     Ok((

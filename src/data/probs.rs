@@ -386,15 +386,7 @@ fn read_csv<'a, R: Read>(
         .delimiter(delimiter)
         .from_reader(reader);
     let mut record = csv::ByteRecord::new();
-    let syntax = |e: csv::Error| {
-        let line = e.position().map_or(0, |p| p.line());
-        Error::input(
-            Location::line(path, line),
-            Problem::Syntax {
-                detail: e.to_string(),
-            },
-        )
-    };
+    let syntax = crate::error::csv_syntax(path);
     if !rdr.read_byte_record(&mut record).map_err(syntax)? {
         return Err(Error::input(Location::file(path), Problem::Empty));
     }

@@ -16,15 +16,7 @@ pub fn read_text_column(path: &Path, delimiter: u8, name: &str) -> Result<Vec<St
         .delimiter(delimiter)
         .flexible(true)
         .from_reader(file);
-    let syntax = |e: csv::Error| {
-        let line = e.position().map_or(0, |p| p.line());
-        Error::input(
-            Location::line(path, line),
-            Problem::Syntax {
-                detail: e.to_string(),
-            },
-        )
-    };
+    let syntax = crate::error::csv_syntax(path);
     let headers = rdr.byte_headers().map_err(syntax)?.clone();
     let column = headers
         .iter()

@@ -111,15 +111,7 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
         .flexible(true)
         .from_reader(reader);
     let mut records = rdr.records();
-    let syntax = |e: csv::Error| {
-        let line = e.position().map_or(0, |p| p.line());
-        Error::input(
-            Location::line(path, line),
-            Problem::Syntax {
-                detail: e.to_string(),
-            },
-        )
-    };
+    let syntax = crate::error::csv_syntax(path);
     let header: Vec<String> = match records.next() {
         Some(r) => r
             .map_err(syntax)?

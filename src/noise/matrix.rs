@@ -61,15 +61,7 @@ pub fn read_matrix_csv<R: Read>(
         .flexible(true)
         .from_reader(reader);
     let mut records = rdr.records();
-    let syntax = |e: csv::Error| {
-        let line = e.position().map_or(0, |p| p.line());
-        Error::input(
-            Location::line(path, line),
-            Problem::Syntax {
-                detail: e.to_string(),
-            },
-        )
-    };
+    let syntax = crate::error::csv_syntax(path);
     let header = match records.next() {
         Some(r) => r.map_err(syntax)?,
         None => return Err(Error::input(Location::file(path), Problem::Empty)),
