@@ -61,6 +61,7 @@ fn main() {
                 TrainInputs {
                     matrix: Some(&t),
                     probs: None,
+                    start: None,
                 },
                 &params,
             )

@@ -75,6 +75,7 @@ fn forward_beats_none_under_heavy_pair_flip_noise() {
             TrainInputs {
                 matrix: Some(&t),
                 probs: None,
+                start: None,
             },
             &params,
         )
@@ -150,6 +151,7 @@ fn predict_reproduces_in_process_predictions_exactly() {
         TrainInputs {
             matrix: None,
             probs: None,
+            start: None,
         },
         &SoftmaxParams::default(),
     )

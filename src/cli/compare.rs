@@ -124,10 +124,13 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
     let all_rows: Vec<usize> = (0..part.labels.len()).collect();
     let mut predictions = Vec::new();
     let mut models = Vec::new();
+    // The corrected fits start from the uncorrected one (same rows, nearby optimum).
+    let mut baseline: Option<crate::learn::SoftmaxModel> = None;
     for correction in CORRECTIONS {
         let inputs = TrainInputs {
             matrix: Some(&matrix),
             probs: Some(probs.view()),
+            start: baseline.as_ref(),
         };
         let trained = train(
             part.x.view(),
@@ -149,6 +152,9 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
             .as_ref()
             .map(|(x, _)| predict_classes(&trained.model.predict_proba(x.view(), None)));
         predictions.push(hold.clone());
+        if baseline.is_none() {
+            baseline = Some(trained.model.clone());
+        }
         models.push((
             correction,
             trained.report.iterations,

@@ -101,6 +101,7 @@ pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
         TrainInputs {
             matrix: matrix.as_ref(),
             probs: probs.as_ref().map(|p| p.view()),
+            start: None,
         },
         &params,
     )?;

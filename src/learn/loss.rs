@@ -95,16 +95,21 @@ impl RowLoss for Backward {
         let weights = self.t_inv.row(label);
         // ℓ_k = −ln q_k; q is floored at the smallest normal f64 so ℓ_k stays finite.
         let ce = |q: f64| -q.max(f64::MIN_POSITIVE).ln();
-        let (mut loss, mut free_weight) = (0.0, 0.0);
+        // Which classes are below the cap, remembered as bits (one logarithm per class)
+        // for up to 64 classes; beyond that the test is simply repeated.
+        let (mut loss, mut free_weight, mut free_bits) = (0.0, 0.0, 0u64);
         for (k, &q) in logits.iter().enumerate() {
             let l = ce(q);
             loss += weights[k] * l.min(cap);
             if l < cap {
                 free_weight += weights[k];
+                if k < 64 {
+                    free_bits |= 1 << k;
+                }
             }
         }
         for (j, q) in logits.iter_mut().enumerate() {
-            let free = ce(*q) < cap;
+            let free = if j < 64 { free_bits >> j & 1 == 1 } else { ce(*q) < cap };
             *q = *q * free_weight - if free { weights[j] } else { 0.0 };
         }
         loss

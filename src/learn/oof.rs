@@ -6,7 +6,7 @@ use ndarray::{Array2, ArrayView2};
 
 use super::folds::stratified_folds;
 use super::loss::CrossEntropy;
-use super::softmax::{fit, FitReport, SoftmaxParams};
+use super::softmax::{fit_from, FitReport, SoftmaxModel, SoftmaxParams};
 use crate::error::{Error, Result};
 
 /// Settings for out-of-fold probabilities.
@@ -49,19 +49,24 @@ pub fn out_of_fold(
     let fold_of = stratified_folds(labels, classes, params.folds, params.seed);
     let mut probs = Array2::<f32>::zeros((labels.len(), classes));
     let mut reports = Vec::with_capacity(params.folds);
+    // Each fold starts from the previous fold's model: the training sets share most rows,
+    // so the optimum is near and fewer iterations reach it.
+    let mut previous: Option<SoftmaxModel> = None;
     for fold in 0..params.folds {
         if !progress(fold, params.folds) {
             return Err(Error::Cancelled);
         }
         let (train, test): (Vec<usize>, Vec<usize>) =
             (0..labels.len()).partition(|&r| fold_of[r] != fold);
-        let (model, report) = fit(
+        let start = previous.as_ref();
+        let (model, report) = fit_from(
             x,
             Some(&train),
             labels,
             classes,
             &CrossEntropy,
             &params.model,
+            start,
             &mut |_| true,
         )?;
         let p = model.predict_proba(x, Some(&test));
@@ -71,6 +76,7 @@ pub fn out_of_fold(
             }
         }
         reports.push(report);
+        previous = Some(model);
     }
     progress(params.folds, params.folds);
     Ok((probs, reports))

@@ -5,7 +5,7 @@ use ndarray::{Array2, ArrayView2};
 use serde::Serialize;
 
 use super::loss::{Backward, CrossEntropy, Forward, RowLoss, DEFAULT_BACKWARD_CAP};
-use super::softmax::{fit, FitReport, SoftmaxModel, SoftmaxParams};
+use super::softmax::{fit_from, FitReport, SoftmaxModel, SoftmaxParams};
 use crate::error::{Error, Result};
 use crate::noise::diagnostics::ILL_CONDITIONED;
 use crate::noise::linalg::{condition_number, inverse};
@@ -68,6 +68,9 @@ pub struct TrainInputs<'a> {
     pub matrix: Option<&'a Array2<f64>>,
     /// Out-of-sample probabilities of every data row (required for `Prune`).
     pub probs: Option<ArrayView2<'a, f32>>,
+    /// A model to start the optimiser from (e.g. the uncorrected fit on the same rows);
+    /// the optimum does not depend on it, the iteration count does.
+    pub start: Option<&'a SoftmaxModel>,
 }
 
 /// Trains on the rows `rows` of `x` (labels indexed by data row).
@@ -121,13 +124,14 @@ pub fn train(
         Correction::Prune => prune(rows, labels, inputs, matrix)?,
         _ => (rows.to_vec(), Vec::new()),
     };
-    let (model, report) = fit(
+    let (model, report) = fit_from(
         x,
         Some(&kept),
         labels,
         classes,
         loss.as_ref(),
         params,
+        inputs.start,
         &mut |_| true,
     )?;
     if !report.converged {
