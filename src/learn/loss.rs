@@ -109,7 +109,11 @@ impl RowLoss for Backward {
             }
         }
         for (j, q) in logits.iter_mut().enumerate() {
-            let free = if j < 64 { free_bits >> j & 1 == 1 } else { ce(*q) < cap };
+            let free = if j < 64 {
+                free_bits >> j & 1 == 1
+            } else {
+                ce(*q) < cap
+            };
             *q = *q * free_weight - if free { weights[j] } else { 0.0 };
         }
         loss

@@ -318,18 +318,29 @@ impl SoftmaxModel {
         theta
     }
 
-    /// Class probabilities for the rows `rows` of `x` (all when `None`).
+    /// Class probabilities for the rows `rows` of `x` (all when `None`), computed in
+    /// parallel over row blocks.
     pub fn predict_proba(&self, x: ArrayView2<f64>, rows: Option<&[usize]>) -> Array2<f64> {
         let xs = self.standardizer.transform(x, rows);
-        let mut z = xs.dot(&self.weights.t());
         let classes = self.bias.len().max(1);
-        if let Some(flat) = z.as_slice_mut() {
-            flat.par_chunks_mut(classes).for_each(|logits| {
-                logits.iter_mut().zip(&self.bias).for_each(|(v, b)| *v += b);
-                softmax(logits);
-            });
+        let mut out = Array2::<f64>::zeros((xs.nrows(), classes));
+        if let Some(flat) = out.as_slice_mut() {
+            flat.par_chunks_mut(classes * BLOCK_ROWS)
+                .enumerate()
+                .for_each(|(block, target)| {
+                    let start = block * BLOCK_ROWS;
+                    let xb =
+                        xs.slice_axis(Axis(0), Slice::from(start..start + target.len() / classes));
+                    let z = xb.dot(&self.weights.t());
+                    for (logits, zr) in target.chunks_mut(classes).zip(z.rows()) {
+                        for ((v, &zv), b) in logits.iter_mut().zip(zr.iter()).zip(&self.bias) {
+                            *v = zv + b;
+                        }
+                        softmax(logits);
+                    }
+                });
         }
-        z
+        out
     }
 }
 

@@ -1,6 +1,7 @@
 //! Feature standardisation with the fitting rows' statistics.
 
-use ndarray::{Array2, ArrayView2, Axis};
+use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 /// Per-feature mean and standard deviation (population, ddof = 0, as scikit-learn's
@@ -14,46 +15,73 @@ pub struct Standardizer {
 }
 
 impl Standardizer {
-    /// Statistics of the rows `rows` of `x` (all rows when `None`).
+    /// Statistics of the rows `rows` of `x` (all rows when `None`). Two passes (the mean,
+    /// then squared deviations from it) keep the variance accurate for features with a
+    /// large offset; both run in parallel over row blocks, summed in block order.
     pub fn fit(x: ArrayView2<f64>, rows: Option<&[usize]>) -> Self {
         let d = x.ncols();
-        let mut mean = vec![0.0; d];
-        let mut sq = vec![0.0; d];
-        let mut n = 0usize;
-        let mut add = |row: ndarray::ArrayView1<f64>| {
-            n += 1;
-            // Welford's update: stable for features with a large offset.
-            for (j, &v) in row.iter().enumerate() {
-                let delta = v - mean[j];
-                mean[j] += delta / n as f64;
-                sq[j] += delta * (v - mean[j]);
+        let all: Vec<usize>;
+        let rows = match rows {
+            Some(rows) => rows,
+            None => {
+                all = (0..x.nrows()).collect();
+                &all
             }
         };
-        match rows {
-            Some(rows) => rows.iter().for_each(|&r| add(x.row(r))),
-            None => x.axis_iter(Axis(0)).for_each(&mut add),
-        }
-        let std = sq
+        let n = rows.len().max(1) as f64;
+        let column_sums = |f: &(dyn Fn(usize, f64) -> f64 + Sync)| -> Vec<f64> {
+            let parts: Vec<Vec<f64>> = rows
+                .par_chunks(BLOCK_ROWS)
+                .map(|chunk| {
+                    let mut acc = vec![0.0; d];
+                    for &r in chunk {
+                        for (j, &v) in x.row(r).iter().enumerate() {
+                            acc[j] += f(j, v);
+                        }
+                    }
+                    acc
+                })
+                .collect();
+            parts.iter().fold(vec![0.0; d], |mut total, part| {
+                total.iter_mut().zip(part).for_each(|(t, p)| *t += p);
+                total
+            })
+        };
+        let mean: Vec<f64> = column_sums(&|_, v| v).into_iter().map(|s| s / n).collect();
+        let squares = column_sums(&|j, v| (v - mean[j]) * (v - mean[j]));
+        let std = squares
             .iter()
-            .map(|s| (s / n.max(1) as f64).sqrt())
+            .map(|s| (s / n).sqrt())
             .map(|s| if s > 0.0 { s } else { 1.0 })
             .collect();
         Standardizer { mean, std }
     }
 
-    /// The standardised copy of the rows `rows` of `x` (all when `None`).
+    /// The standardised copy of the rows `rows` of `x` (all when `None`), filled in
+    /// parallel.
     pub fn transform(&self, x: ArrayView2<f64>, rows: Option<&[usize]>) -> Array2<f64> {
         let n = rows.map_or(x.nrows(), <[usize]>::len);
-        let mut out = Array2::zeros((n, x.ncols()));
-        for (i, mut target) in out.axis_iter_mut(Axis(0)).enumerate() {
-            let source = x.row(rows.map_or(i, |r| r[i]));
-            for (j, t) in target.iter_mut().enumerate() {
-                *t = (source[j] - self.mean[j]) / self.std[j];
-            }
+        let d = x.ncols();
+        let mut out = Array2::zeros((n, d));
+        if let Some(flat) = out.as_slice_mut() {
+            flat.par_chunks_mut(d.max(1) * BLOCK_ROWS)
+                .enumerate()
+                .for_each(|(block, target)| {
+                    for (i, row_out) in target.chunks_mut(d.max(1)).enumerate() {
+                        let index = block * BLOCK_ROWS + i;
+                        let source = x.row(rows.map_or(index, |r| r[index]));
+                        for (j, t) in row_out.iter_mut().enumerate() {
+                            *t = (source[j] - self.mean[j]) / self.std[j];
+                        }
+                    }
+                });
         }
         out
     }
 }
+
+/// Rows per parallel work item.
+const BLOCK_ROWS: usize = 4096;
 
 #[cfg(test)]
 mod tests {
