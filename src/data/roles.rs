@@ -86,7 +86,12 @@ impl ColumnPlan {
     /// Resolves the role flags against a header.
     pub fn resolve(path: &Path, header: &[String], options: &TableOptions) -> Result<Self> {
         check_unique(path, header)?;
-        let find = |name: &str| header.iter().position(|h| h == name);
+        let index: rustc_hash::FxHashMap<&str, usize> = header
+            .iter()
+            .enumerate()
+            .map(|(i, h)| (h.as_str(), i))
+            .collect();
+        let find = |name: &str| index.get(name).copied();
         let lookup = |flag: &str, name: &str| {
             find(name).ok_or_else(|| {
                 Error::input(
@@ -130,6 +135,7 @@ impl ColumnPlan {
         let (numeric, explicit) = match &options.features {
             Some(names) => {
                 let mut fields = Vec::with_capacity(names.len());
+                let mut chosen = vec![false; header.len()];
                 for name in names {
                     let i = lookup("--features", name)?;
                     if let Some((role, _)) = roles.iter().find(|(_, r)| *r == Some(i)) {
@@ -138,7 +144,7 @@ impl ColumnPlan {
                     if excluded.contains(&i) {
                         return Err(clash(path, name, "excluded column", "a feature"));
                     }
-                    if !fields.contains(&i) {
+                    if !std::mem::replace(&mut chosen[i], true) {
                         fields.push(i);
                     }
                 }
@@ -158,8 +164,9 @@ impl ColumnPlan {
 }
 
 fn check_unique(path: &Path, header: &[String]) -> Result<()> {
+    let mut seen = rustc_hash::FxHashSet::default();
     for (i, name) in header.iter().enumerate() {
-        if header[..i].contains(name) {
+        if !seen.insert(name.as_str()) {
             let problem = Problem::DuplicateColumn { name: name.clone() };
             return Err(Error::input(
                 Location::line(path, 1).at_column(i, name),

@@ -480,8 +480,10 @@ impl<'a> Loader<'a> {
             }
         }
         if plan.explicit {
+            let mut numeric = vec![false; plan.header.len()];
+            plan.numeric.iter().for_each(|&i| numeric[i] = true);
             for (i, name) in plan.header.iter().enumerate() {
-                let used = plan.numeric.contains(&i)
+                let used = numeric[i]
                     || Some(i) == plan.label
                     || Some(i) == plan.id
                     || Some(i) == plan.trusted;
@@ -562,8 +564,10 @@ impl<'a> Loader<'a> {
                 count,
             });
         }
+        let mut is_kept = vec![false; self.slots.len()];
+        kept.iter().for_each(|&s| is_kept[s] = true);
         for (slot, stats) in self.slots.iter().enumerate() {
-            if !kept.contains(&slot) && stats.missing > 0 {
+            if !is_kept[slot] && stats.missing > 0 {
                 missing.push(MissingCount {
                     column: plan.header[plan.numeric[slot]].clone(),
                     count: stats.missing,

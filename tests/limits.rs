@@ -1,0 +1,81 @@
+//! Inputs at the edges of size and shape: each gives a result or a clear error in bounded
+//! time and memory, never a hang or a panic.
+
+mod common;
+
+use std::io::Write;
+
+use common::{flipmend, TempDir};
+
+#[test]
+fn a_table_with_many_columns_loads_in_linear_time() {
+    // 300,000 columns and three rows: any step quadratic in the column count would take
+    // hours here (the checks of unique names and of roles used to be).
+    let dir = TempDir::new();
+    let path = dir.path("wide.csv");
+    let columns = 300_000;
+    let mut f = std::io::BufWriter::new(std::fs::File::create(&path).unwrap());
+    let names: Vec<String> = (0..columns).map(|c| format!("f{c}")).collect();
+    writeln!(f, "{},label", names.join(",")).unwrap();
+    for (r, label) in ["a", "b", "a"].iter().enumerate() {
+        let cells: Vec<String> = (0..columns).map(|c| ((c + r) % 10).to_string()).collect();
+        writeln!(f, "{},{label}", cells.join(",")).unwrap();
+    }
+    drop(f);
+    let json = dir.path("r.json");
+    flipmend(&[
+        "inspect",
+        "--data",
+        &path.to_string_lossy(),
+        "--json",
+        &json.to_string_lossy(),
+    ])
+    .assert_ok();
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(report["features"].as_array().unwrap().len(), columns);
+    assert_eq!(report["rows"], 3);
+}
+
+#[test]
+fn a_label_column_with_one_value_is_refused() {
+    let dir = TempDir::new();
+    let path = dir.path("one.csv");
+    std::fs::write(&path, "x,label\n1,same\n2,same\n3,same\n").unwrap();
+    flipmend(&["estimate", "--data", &path.to_string_lossy()])
+        .assert_bad_input(&["found 1 class(es) (same)"]);
+}
+
+#[test]
+fn a_probability_file_of_the_right_size_with_the_wrong_content() {
+    let dir = TempDir::new();
+    let data = dir.path("d.csv");
+    std::fs::write(&data, "x,label\n1,a\n2,b\n3,a\n").unwrap();
+    // Right size for 3 × 2 float64, but the header says int64 and the data is text.
+    let mut bytes = Vec::new();
+    flipmend::data::npy::write_2d(&mut bytes, 3, 2, &[0.5f64; 6]).unwrap();
+    let at = bytes.windows(3).position(|w| w == b"<f8").unwrap();
+    bytes[at..at + 3].copy_from_slice(b"<i8");
+    let npy = dir.path("p.npy");
+    std::fs::write(&npy, &bytes).unwrap();
+    flipmend(&[
+        "inspect",
+        "--data",
+        &data.to_string_lossy(),
+        "--probs",
+        &npy.to_string_lossy(),
+    ])
+    .assert_bad_input(&["holds '<i8'"]);
+    // Right header, garbage values (NaN bit patterns).
+    let mut nan = Vec::new();
+    flipmend::data::npy::write_2d(&mut nan, 3, 2, &[f64::NAN; 6]).unwrap();
+    std::fs::write(&npy, &nan).unwrap();
+    flipmend(&[
+        "inspect",
+        "--data",
+        &data.to_string_lossy(),
+        "--probs",
+        &npy.to_string_lossy(),
+    ])
+    .assert_bad_input(&["p.npy, row 0, column 1 'a'", "outside [0, 1]"]);
+}
