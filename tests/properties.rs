@@ -26,8 +26,11 @@ fn config(cases: u32) -> Config {
     }
 }
 
+/// Classes, raw probability rows, observed labels, trusted labels.
+type Problem = (usize, Vec<Vec<f64>>, Vec<usize>, Vec<Option<usize>>);
+
 /// A random problem: probabilities (rows sum to 1), labels, trusted labels.
-fn problem() -> impl Strategy<Value = (usize, Vec<Vec<f64>>, Vec<usize>, Vec<Option<usize>>)> {
+fn problem() -> impl Strategy<Value = Problem> {
     (2usize..6, 1usize..40).prop_flat_map(|(k, n)| {
         (
             Just(k),
