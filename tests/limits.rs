@@ -79,3 +79,20 @@ fn a_probability_file_of_the_right_size_with_the_wrong_content() {
     ])
     .assert_bad_input(&["p.npy, row 0, column 1 'a'", "outside [0, 1]"]);
 }
+
+#[test]
+fn a_single_enormous_field_is_refused_within_bounded_memory() {
+    // 65 MiB without a newline after the header: one record larger than the 64 MiB limit.
+    let dir = TempDir::new();
+    let path = dir.path("huge.csv");
+    let mut f = std::io::BufWriter::new(std::fs::File::create(&path).unwrap());
+    writeln!(f, "x,label").unwrap();
+    let chunk = vec![b'7'; 1 << 20];
+    for _ in 0..65 {
+        f.write_all(&chunk).unwrap();
+    }
+    f.write_all(b",a").unwrap();
+    drop(f);
+    flipmend(&["inspect", "--data", &path.to_string_lossy()])
+        .assert_bad_input(&["huge.csv, line 2", "longer than 64 MiB"]);
+}
