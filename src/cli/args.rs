@@ -1,6 +1,6 @@
 //! Flag groups shared by several commands.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use clap::Args;
 
@@ -165,5 +165,33 @@ impl FitArgs {
             seed: self.seed,
             model: SoftmaxParams::default().l2(self.l2).max_iter(self.max_iter),
         }
+    }
+}
+
+/// The inputs of every command that works from probabilities and a flip matrix: the
+/// table, optional probabilities, the matrix (or estimator) and the cross-validated model.
+#[derive(Debug, Clone, Args)]
+pub struct PipelineArgs {
+    #[command(flatten)]
+    /// The table.
+    pub table: TableArgs,
+    #[command(flatten)]
+    /// Optional probabilities.
+    pub probs: ProbArgs,
+    #[command(flatten)]
+    /// The flip matrix or its estimator.
+    pub matrix: MatrixArgs,
+    #[command(flatten)]
+    /// Penalty, iterations, folds and seed.
+    pub fit: FitArgs,
+}
+
+impl PipelineArgs {
+    /// The files the command reads (outputs must not be any of them).
+    pub fn inputs(&self) -> Vec<&Path> {
+        let mut inputs = vec![self.table.data.as_path()];
+        inputs.extend(self.probs.probs.as_deref());
+        inputs.extend(self.matrix.matrix.as_deref());
+        inputs
     }
 }

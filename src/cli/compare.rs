@@ -9,7 +9,7 @@ use clap::Args;
 use ndarray::{Array2, Axis};
 use serde::Serialize;
 
-use super::args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+use super::args::PipelineArgs;
 use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
 use crate::io::{check_not_input, write_json};
@@ -25,17 +25,8 @@ use crate::workflow::MatrixSource;
 #[derive(Debug, Clone, Args)]
 pub struct CompareArgs {
     #[command(flatten)]
-    /// The table.
-    pub table: TableArgs,
-    #[command(flatten)]
-    /// Optional probabilities (only their training-part rows are used).
-    pub probs: ProbArgs,
-    #[command(flatten)]
-    /// The flip matrix.
-    pub matrix: MatrixArgs,
-    #[command(flatten)]
-    /// Penalty, iterations, folds and seed (also of the split).
-    pub fit: FitArgs,
+    /// Table, probabilities, flip matrix and model settings.
+    pub pipeline: PipelineArgs,
     /// Share of rows held out for evaluation (stratified by observed label)
     #[arg(long, value_name = "FRACTION", default_value_t = 0.2)]
     pub holdout: f64,
@@ -83,9 +74,7 @@ const CORRECTIONS: [Correction; 4] = [
 /// Runs `compare`.
 pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
     if let Some(json) = &args.json {
-        let mut inputs: Vec<&Path> = vec![args.table.data.as_path()];
-        inputs.extend(args.probs.probs.as_deref());
-        inputs.extend(args.matrix.matrix.as_deref());
+        let mut inputs = args.pipeline.inputs();
         inputs.extend(args.test.as_deref());
         check_not_input(json, &inputs)?;
     }
@@ -95,7 +84,7 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
             args.holdout
         )));
     }
-    let data = Dataset::load(&args.table.data, &args.table.options())?;
+    let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
     let test = args
         .test
         .as_deref()
@@ -103,11 +92,11 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
         .transpose()?;
     let k = data.classes.len();
     let (train_rows, holdout_rows) =
-        stratified_holdout(&data.labels, k, args.holdout, args.fit.seed);
+        stratified_holdout(&data.labels, k, args.holdout, args.pipeline.fit.seed);
     let part = Part::new(&data, &train_rows);
     let probs = training_probabilities(args, &data, &part, &train_rows)?;
     let (matrix, mut warnings) = training_matrix(args, &data, &part, &probs)?;
-    let params = args.fit.oof().model;
+    let params = args.pipeline.fit.oof().model;
     let x_hold = data.features.select(Axis(0), &holdout_rows);
     let observed_hold: Vec<usize> = holdout_rows.iter().map(|&r| data.labels[r]).collect();
     let trusted_hold: Vec<(usize, usize)> = data
@@ -263,7 +252,7 @@ impl Reference {
 
 fn load_test(path: &Path, args: &CompareArgs, data: &Dataset) -> Result<(Array2<f64>, Vec<usize>)> {
     let options = TableOptions {
-        delimiter: args.table.delimiter,
+        delimiter: args.pipeline.table.delimiter,
         label: data.label_column.clone(),
         features: Some(data.feature_names.clone()),
         unlabeled: false,
@@ -294,12 +283,12 @@ fn training_probabilities(
     part: &Part,
     rows: &[usize],
 ) -> Result<Array2<f32>> {
-    match &args.probs.probs {
+    match &args.pipeline.probs.probs {
         Some(path) => {
             let loaded = crate::data::Probabilities::load(
                 path,
                 data,
-                &args.probs.options(args.table.delimiter),
+                &args.pipeline.probs.options(args.pipeline.table.delimiter),
             )?;
             Ok(loaded.values.select(Axis(0), rows))
         }
@@ -308,7 +297,7 @@ fn training_probabilities(
                 part.x.view(),
                 &part.labels,
                 data.classes.len(),
-                &args.fit.oof(),
+                &args.pipeline.fit.oof(),
                 &mut |_, _| true,
             )?;
             Ok(p)
@@ -322,7 +311,7 @@ fn training_matrix(
     part: &Part,
     probs: &Array2<f32>,
 ) -> Result<(Array2<f64>, Vec<String>)> {
-    match args.matrix.source(args.probs.renormalize) {
+    match args.pipeline.matrix.source(args.pipeline.probs.renormalize) {
         MatrixSource::File { path, renormalize } => {
             let file = std::fs::File::open(&path).map_err(|source| Error::Read {
                 path: path.clone(),

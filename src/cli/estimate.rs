@@ -2,13 +2,13 @@
 
 use std::fmt::Write as _;
 use std::io::{IsTerminal, Write};
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 use clap::Args;
 use ndarray::Array2;
 use serde::Serialize;
 
-use super::args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::{check_not_input, write_atomic, write_json};
@@ -21,17 +21,8 @@ use crate::workflow::{self, FlipEstimate, MatrixSource, RowProbabilities};
 #[derive(Debug, Clone, Args)]
 pub struct EstimateArgs {
     #[command(flatten)]
-    /// The table.
-    pub table: TableArgs,
-    #[command(flatten)]
-    /// Optional probabilities.
-    pub probs: ProbArgs,
-    #[command(flatten)]
-    /// The estimator.
-    pub matrix: MatrixArgs,
-    #[command(flatten)]
-    /// The cross-validated model used when --probs is absent.
-    pub fit: FitArgs,
+    /// Table, probabilities, flip matrix and model settings.
+    pub pipeline: PipelineArgs,
     /// Resample rows B times (seeded) and report each entry's 5th–95th percentile
     #[arg(long, value_name = "B", default_value_t = 0)]
     pub bootstrap: usize,
@@ -72,28 +63,31 @@ struct EstimateReport<'a> {
 /// Runs `estimate`.
 pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
     check_outputs(args)?;
-    if args.bootstrap > 0 && args.matrix.matrix.is_some() {
+    if args.bootstrap > 0 && args.pipeline.matrix.matrix.is_some() {
         return Err(Error::Usage(
             "--bootstrap re-estimates the matrix, so it cannot be used with --matrix".into(),
         ));
     }
-    let data = Dataset::load(&args.table.data, &args.table.options())?;
+    let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
     let probs = workflow::probabilities(
         &data,
-        args.probs.probs.as_deref(),
-        &args.probs.options(args.table.delimiter),
-        &args.fit.oof(),
+        args.pipeline.probs.probs.as_deref(),
+        &args.pipeline.probs.options(args.pipeline.table.delimiter),
+        &args.pipeline.fit.oof(),
         &mut progress_line,
     )?;
-    let source = args.matrix.source(args.probs.renormalize);
+    let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
     let estimate = workflow::flip_matrix(&data, &probs, &source)?;
-    let interval =
-        match &source {
-            MatrixSource::Estimate(method) if args.bootstrap > 0 => Some(
-                workflow::matrix_intervals(&data, &probs, method, args.bootstrap, args.fit.seed)?,
-            ),
-            _ => None,
-        };
+    let interval = match &source {
+        MatrixSource::Estimate(method) if args.bootstrap > 0 => Some(workflow::matrix_intervals(
+            &data,
+            &probs,
+            method,
+            args.bootstrap,
+            args.pipeline.fit.seed,
+        )?),
+        _ => None,
+    };
     write_outputs(args, &data, &probs, &estimate, interval.as_ref(), &source)?;
     super::emit(
         out,
@@ -102,9 +96,7 @@ pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
 }
 
 fn check_outputs(args: &EstimateArgs) -> Result<()> {
-    let mut inputs: Vec<&Path> = vec![args.table.data.as_path()];
-    inputs.extend(args.probs.probs.as_deref());
-    inputs.extend(args.matrix.matrix.as_deref());
+    let inputs = args.pipeline.inputs();
     for output in [&args.out, &args.probs_out, &args.json]
         .into_iter()
         .flatten()

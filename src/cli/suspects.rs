@@ -2,12 +2,12 @@
 
 use std::fmt::Write as _;
 use std::io::Write;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 use clap::Args;
 use serde::Serialize;
 
-use super::args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+use super::args::PipelineArgs;
 use crate::data::text_column::read_text_column;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
@@ -20,17 +20,8 @@ use crate::workflow;
 #[derive(Debug, Clone, Args)]
 pub struct SuspectsArgs {
     #[command(flatten)]
-    /// The table.
-    pub table: TableArgs,
-    #[command(flatten)]
-    /// Optional probabilities.
-    pub probs: ProbArgs,
-    #[command(flatten)]
-    /// The flip matrix (used by the posterior score).
-    pub matrix: MatrixArgs,
-    #[command(flatten)]
-    /// The cross-validated model used when --probs is absent.
-    pub fit: FitArgs,
+    /// Table, probabilities, flip matrix and model settings.
+    pub pipeline: PipelineArgs,
     /// Score: posterior (1 − P(true = observed | x, observed) under the flip matrix), self
     /// (1 − p(observed | x)) or margin (best other class's probability − the observed one's)
     #[arg(long, value_enum, default_value_t = ScoreName::Posterior)]
@@ -119,24 +110,24 @@ struct SuspectsReport {
 /// Runs `suspects`.
 pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     check_outputs(args)?;
-    let mut options = args.table.options();
+    let mut options = args.pipeline.table.options();
     if let Some(truth) = &args.truth {
         options.exclude.push(("--truth".into(), truth.clone()));
     }
-    let data = Dataset::load(&args.table.data, &options)?;
+    let data = Dataset::load(&args.pipeline.table.data, &options)?;
     let selection = selection(args, &data)?;
     let probs = workflow::probabilities(
         &data,
-        args.probs.probs.as_deref(),
-        &args.probs.options(args.table.delimiter),
-        &args.fit.oof(),
+        args.pipeline.probs.probs.as_deref(),
+        &args.pipeline.probs.options(args.pipeline.table.delimiter),
+        &args.pipeline.fit.oof(),
         &mut |_, _| true,
     )?;
     let kind = args.score.kind();
     let mut warnings = data.warnings.clone();
     warnings.extend(probs.notices.iter().cloned());
     let matrix = if kind == ScoreKind::Posterior {
-        let source = args.matrix.source(args.probs.renormalize);
+        let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
         let estimate = workflow::flip_matrix(&data, &probs, &source)?;
         warnings.extend(estimate.notes);
         warnings.extend(estimate.diagnostics.warnings);
@@ -154,7 +145,10 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         Some(column) => Some(truth_flags(
             &data,
             column,
-            args.table.options().delimiter_for(&args.table.data),
+            args.pipeline
+                .table
+                .options()
+                .delimiter_for(&args.pipeline.table.data),
         )?),
         None => None,
     };
@@ -202,9 +196,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
 }
 
 fn check_outputs(args: &SuspectsArgs) -> Result<()> {
-    let mut inputs: Vec<&Path> = vec![args.table.data.as_path()];
-    inputs.extend(args.probs.probs.as_deref());
-    inputs.extend(args.matrix.matrix.as_deref());
+    let inputs = args.pipeline.inputs();
     for output in [&args.out, &args.json].into_iter().flatten() {
         check_not_input(output, &inputs)?;
     }

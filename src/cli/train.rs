@@ -2,12 +2,12 @@
 
 use std::fmt::Write as _;
 use std::io::Write;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 use clap::Args;
 use ndarray::Array2;
 
-use super::args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
+use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::model::{
@@ -23,17 +23,8 @@ use crate::workflow::{self, MatrixSource};
 #[derive(Debug, Clone, Args)]
 pub struct TrainArgs {
     #[command(flatten)]
-    /// The table.
-    pub table: TableArgs,
-    #[command(flatten)]
-    /// Optional probabilities (for estimating the matrix and for prune).
-    pub probs: ProbArgs,
-    #[command(flatten)]
-    /// The flip matrix.
-    pub matrix: MatrixArgs,
-    #[command(flatten)]
-    /// Penalty, iterations, folds and seed.
-    pub fit: FitArgs,
+    /// Table, probabilities, flip matrix and model settings.
+    pub pipeline: PipelineArgs,
     /// none (plain cross-entropy), forward or backward (loss corrected by the flip matrix),
     /// prune (drop the most suspect rows, as many as the expected number of mislabelled
     /// rows, then plain cross-entropy)
@@ -77,9 +68,7 @@ impl TrainArgs {
 
 /// Runs `train`.
 pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
-    let mut inputs: Vec<&Path> = vec![args.table.data.as_path()];
-    inputs.extend(args.probs.probs.as_deref());
-    inputs.extend(args.matrix.matrix.as_deref());
+    let inputs = args.pipeline.inputs();
     check_not_input(&args.out, &inputs)?;
     if args.faithful && args.correction != CorrectionName::Backward {
         return Err(Error::Usage(
@@ -87,8 +76,8 @@ pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
         ));
     }
     let correction = args.correction();
-    let data = Dataset::load(&args.table.data, &args.table.options())?;
-    let params = args.fit.oof().model;
+    let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
+    let params = args.pipeline.fit.oof().model;
     params.check()?;
     let (matrix, probs, matrix_source, mut warnings) = matrix_and_probs(args, &data, correction)?;
     let rows: Vec<usize> = (0..data.rows()).collect();
@@ -136,7 +125,7 @@ fn matrix_and_probs(
     if !correction.needs_matrix() {
         return Ok((None, None, None, Vec::new()));
     }
-    let source = args.matrix.source(args.probs.renormalize);
+    let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
     if let (MatrixSource::File { path, renormalize }, false) =
         (&source, correction == Correction::Prune)
     {
@@ -154,9 +143,9 @@ fn matrix_and_probs(
     }
     let probs = workflow::probabilities(
         data,
-        args.probs.probs.as_deref(),
-        &args.probs.options(args.table.delimiter),
-        &args.fit.oof(),
+        args.pipeline.probs.probs.as_deref(),
+        &args.pipeline.probs.options(args.pipeline.table.delimiter),
+        &args.pipeline.fit.oof(),
         &mut |_, _| true,
     )?;
     let estimate = workflow::flip_matrix(data, &probs, &source)?;
@@ -215,9 +204,9 @@ fn model_file(
         correction: correction.name().into(),
         matrix: matrix.map(|t| t.rows().into_iter().map(|r| r.to_vec()).collect()),
         settings: TrainingSettings {
-            l2: args.fit.l2,
-            max_iter: args.fit.max_iter,
-            seed: args.fit.seed,
+            l2: args.pipeline.fit.l2,
+            max_iter: args.pipeline.fit.max_iter,
+            seed: args.pipeline.fit.seed,
             matrix_source,
         },
         metrics: TrainingMetrics {
