@@ -9,7 +9,7 @@ use crate::data::{Dataset, ProbOptions, Probabilities};
 use crate::error::Result;
 use crate::learn::{out_of_fold, OofParams};
 use crate::noise::bootstrap::{bootstrap, Interval};
-use crate::noise::matrix::read_matrix_csv;
+use crate::noise::matrix::load_matrix_csv;
 use crate::noise::{diagnose, estimate, Diagnostics, Method, Sample};
 
 /// Where the probabilities came from.
@@ -146,11 +146,7 @@ pub fn flip_matrix(
             (estimate.matrix, estimate.notes)
         }
         MatrixSource::File { path, renormalize } => {
-            let file = std::fs::File::open(path).map_err(|source| crate::Error::Read {
-                path: path.clone(),
-                source,
-            })?;
-            read_matrix_csv(file, path, &data.classes, *renormalize)?
+            load_matrix_csv(path, &data.classes, *renormalize)?
         }
     };
     let external = matches!(probs.source, ProbSource::File(_));

@@ -17,7 +17,7 @@ use crate::learn::folds::stratified_holdout;
 use crate::learn::metrics::{accuracy, confusion, estimated_clean_accuracy, recall};
 use crate::learn::out_of_fold;
 use crate::learn::train::{predict_classes, train, Correction, TrainInputs};
-use crate::noise::matrix::read_matrix_csv;
+use crate::noise::matrix::load_matrix_csv;
 use crate::noise::{estimate, Sample};
 use crate::workflow::MatrixSource;
 
@@ -313,11 +313,7 @@ fn training_matrix(
 ) -> Result<(Array2<f64>, Vec<String>)> {
     match args.pipeline.matrix.source(args.pipeline.probs.renormalize) {
         MatrixSource::File { path, renormalize } => {
-            let file = std::fs::File::open(&path).map_err(|source| Error::Read {
-                path: path.clone(),
-                source,
-            })?;
-            read_matrix_csv(file, &path, &data.classes, renormalize)
+            load_matrix_csv(&path, &data.classes, renormalize)
         }
         MatrixSource::Estimate(method) => {
             let rows: Vec<usize> = (0..part.labels.len()).collect();

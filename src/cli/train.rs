@@ -16,7 +16,7 @@ use crate::io::model::{
 };
 use crate::io::{check_not_input, write_atomic};
 use crate::learn::train::{predict_classes, train, Correction, TrainInputs, Trained};
-use crate::noise::matrix::read_matrix_csv;
+use crate::noise::matrix::load_matrix_csv;
 use crate::workflow::{self, MatrixSource};
 
 /// Flags of `flipmend train`.
@@ -129,11 +129,7 @@ fn matrix_and_probs(
     if let (MatrixSource::File { path, renormalize }, false) =
         (&source, correction == Correction::Prune)
     {
-        let file = std::fs::File::open(path).map_err(|source| Error::Read {
-            path: path.clone(),
-            source,
-        })?;
-        let (t, notes) = read_matrix_csv(file, path, &data.classes, *renormalize)?;
+        let (t, notes) = load_matrix_csv(path, &data.classes, *renormalize)?;
         return Ok((
             Some(t),
             None,

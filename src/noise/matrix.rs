@@ -48,6 +48,19 @@ pub fn normalize_rows(t: &mut Array2<f64>) {
     }
 }
 
+/// Opens and reads the matrix file `path` (see [`read_matrix_csv`]).
+pub fn load_matrix_csv(
+    path: &Path,
+    classes: &[String],
+    renormalize: bool,
+) -> Result<(Array2<f64>, Vec<String>)> {
+    let file = std::fs::File::open(path).map_err(|source| Error::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    read_matrix_csv(std::io::BufReader::new(file), path, classes, renormalize)
+}
+
 /// Reads a matrix CSV for the classes `classes` (rows and columns may come in any
 /// order). Returns the matrix in class order and any notices.
 pub fn read_matrix_csv<R: Read>(
