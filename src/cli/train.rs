@@ -15,6 +15,7 @@ use crate::io::model::{
     MODEL_VERSION,
 };
 use crate::io::{check_not_input, write_atomic};
+use crate::learn::metrics::accuracy;
 use crate::learn::train::{predict_classes, train, Correction, TrainInputs, Trained};
 use crate::noise::matrix::load_matrix_csv;
 use crate::workflow::{self, MatrixSource};
@@ -156,15 +157,6 @@ fn matrix_and_probs(
     ))
 }
 
-fn accuracy(predicted: &[usize], truth: impl Iterator<Item = (usize, usize)>) -> Option<f64> {
-    let (mut hits, mut total) = (0usize, 0usize);
-    for (row, label) in truth {
-        total += 1;
-        hits += usize::from(predicted[row] == label);
-    }
-    (total > 0).then(|| hits as f64 / total as f64)
-}
-
 fn model_file(
     args: &TrainArgs,
     data: &Dataset,
@@ -175,13 +167,14 @@ fn model_file(
     rows: &[usize],
 ) -> ModelFile {
     let predicted = predict_classes(&trained.model.predict_proba(data.features.view(), None));
-    let accuracy_observed =
-        accuracy(&predicted, data.labels.iter().copied().enumerate()).unwrap_or(0.0);
+    let accuracy_observed = accuracy(&predicted, &data.labels).unwrap_or(0.0);
     let accuracy_trusted = data.trusted.as_ref().and_then(|t| {
-        accuracy(
-            &predicted,
-            t.iter().enumerate().filter_map(|(r, l)| l.map(|l| (r, l))),
-        )
+        let (predicted_trusted, truth): (Vec<usize>, Vec<usize>) = t
+            .iter()
+            .enumerate()
+            .filter_map(|(r, l)| l.map(|l| (predicted[r], l)))
+            .unzip();
+        accuracy(&predicted_trusted, &truth)
     });
     ModelFile {
         format: MODEL_FORMAT.into(),
