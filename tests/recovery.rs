@@ -4,6 +4,9 @@
 //! symmetric (off-diagonal r/(K−1)), as defined by Han et al. (NeurIPS 2018) and common
 //! practice.
 
+mod common;
+
+use common::{flip, iris_x10};
 use flipmend::learn::{out_of_fold, OofParams};
 use flipmend::noise::{estimate, Method, Sample};
 use ndarray::Array2;
@@ -27,25 +30,6 @@ fn symmetric(k: usize, r: f64) -> Array2<f64> {
         (k, k),
         |(i, j)| if i == j { 1.0 - r } else { r / (k - 1) as f64 },
     )
-}
-
-/// observed ~ Categorical(T[true]) independently per row (seeded).
-fn flip(truth: &[usize], t: &Array2<f64>, seed: u64) -> Vec<usize> {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    truth
-        .iter()
-        .map(|&y| {
-            let u: f64 = rng.random();
-            let mut acc = 0.0;
-            for j in 0..t.ncols() {
-                acc += t[[y, j]];
-                if u < acc {
-                    return j;
-                }
-            }
-            t.ncols() - 1
-        })
-        .collect()
 }
 
 fn mean_abs_error(a: &Array2<f64>, b: &Array2<f64>) -> f64 {
@@ -98,19 +82,6 @@ fn errors(records: &Array2<f64>, truth: &[usize], t: &Array2<f64>, seed: u64) ->
     }
 }
 
-/// Iris replicated with small seeded jitter to 1,500 rows, so that estimator variance
-/// (not the 150-row sample) dominates less; the class structure is iris's own.
-fn iris_x10() -> (Array2<f64>, Vec<usize>) {
-    let iris = linfa_datasets::iris();
-    let mut rng = ChaCha8Rng::seed_from_u64(11);
-    let n = iris.records.nrows();
-    let records = Array2::from_shape_fn((n * 10, 4), |(r, c)| {
-        iris.records[[r % n, c]] + 0.05 * (rng.random::<f64>() - 0.5)
-    });
-    let truth: Vec<usize> = (0..n * 10).map(|r| iris.targets[r % n]).collect();
-    (records, truth)
-}
-
 /// The identity's mean absolute error against `t`: what "no estimate" scores.
 fn identity_error(t: &Array2<f64>) -> f64 {
     mean_abs_error(&Array2::eye(t.nrows()), t)
@@ -118,7 +89,7 @@ fn identity_error(t: &Array2<f64>) -> f64 {
 
 #[test]
 fn iris_pair_flip_is_recovered_by_counting() {
-    let (x, y) = iris_x10();
+    let (x, y) = iris_x10(11);
     let t = pair_flip(3, 0.2);
     let e = errors(&x, &y, &t, 5);
     eprintln!(
@@ -138,7 +109,7 @@ fn iris_pair_flip_is_recovered_by_counting() {
 
 #[test]
 fn iris_symmetric_noise_is_recovered_by_anchor_points() {
-    let (x, y) = iris_x10();
+    let (x, y) = iris_x10(11);
     let t = symmetric(3, 0.3);
     let e = errors(&x, &y, &t, 6);
     eprintln!(
@@ -236,7 +207,7 @@ fn suspect_scores_find_the_flipped_rows() {
     use flipmend::noise::scores::{auroc, score_rows, ScoreKind};
     // Iris (×10, jittered) with an asymmetric flip pattern: versicolor is often typed as
     // virginica, the rest rarely.
-    let (x, y) = iris_x10();
+    let (x, y) = iris_x10(11);
     let t = Array2::from_shape_vec((3, 3), vec![0.95, 0.05, 0.0, 0.0, 0.7, 0.3, 0.0, 0.1, 0.9])
         .unwrap();
     let observed = flip(&y, &t, 9);

@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{fixture, flipmend, TempDir};
+use common::{fixture, flip, flipmend, iris_x10, TempDir};
 use flipmend::io::model::{
     read_model, write_model, ModelFile, TrainingMetrics, TrainingSettings, MODEL_FORMAT,
     MODEL_VERSION,
@@ -12,39 +12,9 @@ use flipmend::learn::metrics::accuracy;
 use flipmend::learn::train::{predict_classes, train, Correction, TrainInputs};
 use flipmend::learn::SoftmaxParams;
 use ndarray::Array2;
-use rand::{Rng, SeedableRng};
-use rand_chacha::ChaCha8Rng;
 
 fn demo() -> String {
     format!("{}/demo-data/recycling.csv", env!("CARGO_MANIFEST_DIR"))
-}
-
-/// Iris replicated ten times with seeded jitter (its class structure, more rows).
-fn iris_x10(seed: u64) -> (Array2<f64>, Vec<usize>) {
-    let iris = linfa_datasets::iris();
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let n = iris.records.nrows();
-    let x = Array2::from_shape_fn((n * 10, 4), |(r, c)| {
-        iris.records[[r % n, c]] + 0.05 * (rng.random::<f64>() - 0.5)
-    });
-    (x, (0..n * 10).map(|r| iris.targets[r % n]).collect())
-}
-
-fn flip(truth: &[usize], t: &Array2<f64>, seed: u64) -> Vec<usize> {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    truth
-        .iter()
-        .map(|&y| {
-            let u: f64 = rng.random();
-            let mut acc = 0.0;
-            (0..t.ncols())
-                .find(|&j| {
-                    acc += t[[y, j]];
-                    u < acc
-                })
-                .unwrap_or(t.ncols() - 1)
-        })
-        .collect()
 }
 
 #[test]

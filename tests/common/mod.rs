@@ -5,6 +5,10 @@
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
+use ndarray::Array2;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
 /// What one run of the binary produced.
 pub struct Run {
     pub code: i32,
@@ -90,4 +94,34 @@ impl TempDir {
         names.sort();
         names
     }
+}
+
+/// Iris (UCI, as shipped by linfa-datasets) replicated ten times with small seeded jitter:
+/// its class structure, with enough rows that estimator variance does not dominate.
+pub fn iris_x10(seed: u64) -> (Array2<f64>, Vec<usize>) {
+    let iris = linfa_datasets::iris();
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let n = iris.records.nrows();
+    let x = Array2::from_shape_fn((n * 10, 4), |(r, c)| {
+        iris.records[[r % n, c]] + 0.05 * (rng.random::<f64>() - 0.5)
+    });
+    (x, (0..n * 10).map(|r| iris.targets[r % n]).collect())
+}
+
+/// Observed labels drawn as observed ~ Categorical(T[true]), independently per row (seeded).
+pub fn flip(truth: &[usize], t: &Array2<f64>, seed: u64) -> Vec<usize> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    truth
+        .iter()
+        .map(|&y| {
+            let u: f64 = rng.random();
+            let mut acc = 0.0;
+            (0..t.ncols())
+                .find(|&j| {
+                    acc += t[[y, j]];
+                    u < acc
+                })
+                .unwrap_or(t.ncols() - 1)
+        })
+        .collect()
 }
