@@ -8,8 +8,9 @@
 //! resamples; then out-of-fold probabilities (5 folds) for 100,000 × 32 × 10 Gaussian
 //! rows. Median of 5 runs after a warm-up (3 for the slow stages).
 
-use std::time::{Duration, Instant};
+mod common;
 
+use common::Rng;
 use flipmend::learn::{out_of_fold, OofParams};
 use flipmend::noise::bootstrap::bootstrap;
 use flipmend::noise::scores::{rank, score_rows, ScoreKind};
@@ -64,33 +65,13 @@ fn main() {
     });
 }
 
-fn bench(name: &str, runs: usize, mut run: impl FnMut()) {
-    run();
-    let mut times: Vec<Duration> = (0..runs)
-        .map(|_| {
-            let start = Instant::now();
-            run();
-            start.elapsed()
-        })
-        .collect();
-    times.sort();
+fn bench(name: &str, runs: usize, run: impl FnMut()) {
+    let (median, fastest) = common::time(runs, run);
     println!(
         "{name:<44} median {:>8.4} s  min {:>8.4} s",
-        times[runs / 2].as_secs_f64(),
-        times[0].as_secs_f64()
+        median.as_secs_f64(),
+        fastest.as_secs_f64()
     );
-}
-
-/// A seeded xorshift generator: the benchmark inputs are the same on every machine.
-struct Rng(u64);
-
-impl Rng {
-    fn unit(&mut self) -> f64 {
-        self.0 ^= self.0 << 13;
-        self.0 ^= self.0 >> 7;
-        self.0 ^= self.0 << 17;
-        (self.0 >> 11) as f64 / (1u64 << 53) as f64
-    }
 }
 
 /// Rows peaked on a random class; labels drawn from each row's probabilities.

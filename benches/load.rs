@@ -9,10 +9,13 @@
 
 use std::io::Write;
 use std::path::Path;
-use std::time::{Duration, Instant};
 
 use flipmend::data::npy;
 use flipmend::data::{Dataset, ProbOptions, Probabilities, TableOptions};
+
+mod common;
+
+use common::Rng;
 
 const RUNS: usize = 5;
 
@@ -58,37 +61,15 @@ fn main() {
 }
 
 fn bench<T>(name: &str, bytes: u64, mut run: impl FnMut() -> flipmend::Result<T>) {
-    run().unwrap_or_else(|e| panic!("{name}: {e}"));
-    let mut times: Vec<Duration> = (0..RUNS)
-        .map(|_| {
-            let start = Instant::now();
-            run().unwrap_or_else(|e| panic!("{name}: {e}"));
-            start.elapsed()
-        })
-        .collect();
-    times.sort();
-    let median = times[RUNS / 2].as_secs_f64();
+    let (median, fastest) = common::time(RUNS, || {
+        run().unwrap_or_else(|e| panic!("{name}: {e}"));
+    });
+    let median = median.as_secs_f64();
     let mib_per_sec = bytes as f64 / (1 << 20) as f64 / median;
     println!(
         "{name:<40} median {median:>8.4} s  min {:>8.4} s  {mib_per_sec:>7.1} MiB/s",
-        times[0].as_secs_f64()
+        fastest.as_secs_f64()
     );
-}
-
-/// A seeded xorshift generator: the benchmark data are the same on every machine.
-struct Rng(u64);
-
-impl Rng {
-    fn next(&mut self) -> u64 {
-        self.0 ^= self.0 << 13;
-        self.0 ^= self.0 >> 7;
-        self.0 ^= self.0 << 17;
-        self.0
-    }
-
-    fn unit(&mut self) -> f64 {
-        (self.next() >> 11) as f64 / (1u64 << 53) as f64
-    }
 }
 
 fn write_table(path: &Path, rows: usize, features: usize, classes: usize) {

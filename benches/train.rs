@@ -4,7 +4,7 @@
 //!
 //! `cargo bench --bench train`. Median of 5 runs after a warm-up (3 for whole fits).
 
-use std::time::{Duration, Instant};
+mod common;
 
 use flipmend::learn::loss::{Backward, Forward, DEFAULT_BACKWARD_CAP};
 use flipmend::learn::softmax::objective;
@@ -75,27 +75,13 @@ fn main() {
     }
 }
 
-fn median(runs: usize, mut run: impl FnMut()) -> f64 {
-    run();
-    let mut times: Vec<Duration> = (0..runs)
-        .map(|_| {
-            let start = Instant::now();
-            run();
-            start.elapsed()
-        })
-        .collect();
-    times.sort();
-    times[runs / 2].as_secs_f64()
+fn median(runs: usize, run: impl FnMut()) -> f64 {
+    common::time(runs, run).0.as_secs_f64()
 }
 
 fn synthetic(n: usize, d: usize, k: usize) -> (Array2<f64>, Vec<usize>) {
-    let mut state = 0x5EED_7EA1_u64;
-    let mut unit = move || {
-        state ^= state << 13;
-        state ^= state >> 7;
-        state ^= state << 17;
-        (state >> 11) as f64 / (1u64 << 53) as f64
-    };
+    let mut rng = common::Rng(0x5EED_7EA1);
+    let mut unit = move || rng.unit();
     let means: Vec<f64> = (0..k * d).map(|_| 2.0 * unit() - 1.0).collect();
     let labels: Vec<usize> = (0..n).map(|r| r % k).collect();
     let x = Array2::from_shape_fn((n, d), |(r, j)| {
