@@ -50,9 +50,17 @@ pub fn inverse(a: &Array2<f64>) -> Option<Array2<f64>> {
 /// The 1-norm condition number ‖A‖₁·‖A⁻¹‖₁ (‖·‖₁ = largest column sum of absolute
 /// values); infinite when A is singular. Within a factor K of the 2-norm one.
 pub fn condition_number(a: &Array2<f64>) -> f64 {
+    inverse_and_condition(a).1
+}
+
+/// The inverse (if any) and the 1-norm condition number, from one elimination.
+pub fn inverse_and_condition(a: &Array2<f64>) -> (Option<Array2<f64>>, f64) {
     match inverse(a) {
-        Some(inv) => norm1(a) * norm1(&inv),
-        None => f64::INFINITY,
+        Some(inv) => {
+            let condition = norm1(a) * norm1(&inv);
+            (Some(inv), condition)
+        }
+        None => (None, f64::INFINITY),
     }
 }
 

@@ -8,7 +8,7 @@
 use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 
-use super::linalg::{condition_number, inverse};
+use super::linalg::inverse_and_condition;
 
 /// Above this 1-norm condition number, inverting Tᵀ amplifies probability noise too much
 /// to trust the recovered clean posterior; the noisy probabilities are used instead.
@@ -25,9 +25,11 @@ pub struct Posterior {
 impl Posterior {
     /// Prepares `t` (validated, row-stochastic).
     pub fn new(t: &Array2<f64>) -> Self {
-        let transpose = t.t().to_owned();
-        let usable = condition_number(t) <= MAX_CONDITION_FOR_INVERSION;
-        let inv_t_transpose = if usable { inverse(&transpose) } else { None };
+        // (Tᵀ)⁻¹ = (T⁻¹)ᵀ, so one elimination gives both the inverse and the condition.
+        let (inv, condition) = inverse_and_condition(t);
+        let inv_t_transpose = inv
+            .filter(|_| condition <= MAX_CONDITION_FOR_INVERSION)
+            .map(|i| i.t().to_owned());
         Posterior {
             t: t.clone(),
             inv_t_transpose,
