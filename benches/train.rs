@@ -62,6 +62,7 @@ fn main() {
                     matrix: Some(&t),
                     probs: None,
                     start: None,
+                    cancel: None,
                 },
                 &params,
             )

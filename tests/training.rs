@@ -46,6 +46,7 @@ fn forward_beats_none_under_heavy_pair_flip_noise() {
                 matrix: Some(&t),
                 probs: None,
                 start: None,
+                cancel: None,
             },
             &params,
         )
@@ -122,6 +123,7 @@ fn predict_reproduces_in_process_predictions_exactly() {
             matrix: None,
             probs: None,
             start: None,
+            cancel: None,
         },
         &SoftmaxParams::default(),
     )

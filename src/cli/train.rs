@@ -92,6 +92,7 @@ pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
             matrix: matrix.as_ref(),
             probs: probs.as_ref().map(|p| p.view()),
             start: None,
+            cancel: None,
         },
         &params,
     )?;

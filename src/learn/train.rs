@@ -1,6 +1,8 @@
 //! Training with a noise correction: the same optimiser, standardisation and penalty as
 //! the uncorrected fit, with the row loss swapped.
 
+use std::sync::atomic::{AtomicBool, Ordering};
+
 use ndarray::{Array2, ArrayView2};
 use serde::Serialize;
 
@@ -71,6 +73,8 @@ pub struct TrainInputs<'a> {
     /// A model to start the optimiser from (e.g. the uncorrected fit on the same rows);
     /// the optimum does not depend on it, the iteration count does.
     pub start: Option<&'a SoftmaxModel>,
+    /// Set from another thread to stop the fit (it then returns [`Error::Cancelled`]).
+    pub cancel: Option<&'a AtomicBool>,
 }
 
 /// Trains on the rows `rows` of `x` (labels indexed by data row).
@@ -132,7 +136,7 @@ pub fn train(
         loss.as_ref(),
         params,
         inputs.start,
-        &mut |_| true,
+        &mut |_| !inputs.cancel.is_some_and(|c| c.load(Ordering::Relaxed)),
     )?;
     if !report.converged {
         warnings.push(format!(

@@ -1,6 +1,8 @@
 //! The steps every front end (command line, desktop app) chains: get out-of-sample
 //! probabilities, then a flip matrix, then its diagnostics.
 
+pub mod compare;
+
 use std::path::{Path, PathBuf};
 
 use ndarray::Array2;

@@ -1,0 +1,418 @@
+//! Does correcting for the noise pay? Every correction trained on the same rows with the
+//! same flip matrix and evaluated on the same holdout. The command line (`compare`) and
+//! the desktop app (Retrain view) both run this.
+
+use std::path::Path;
+use std::sync::atomic::{AtomicBool, Ordering};
+
+use ndarray::{Array2, ArrayView2, Axis};
+use serde::Serialize;
+
+use crate::data::{Dataset, TableOptions};
+use crate::error::{Error, Result};
+use crate::learn::folds::stratified_holdout;
+use crate::learn::metrics::{accuracy, confusion, estimated_clean_accuracy, recall};
+use crate::learn::train::{predict_classes, train, Correction, TrainInputs};
+use crate::learn::{out_of_fold, OofParams, SoftmaxModel};
+use crate::noise::{estimate, Method, Sample};
+
+/// The corrections `compare` trains by default, `none` first (the others are measured
+/// against it).
+pub const ALL_CORRECTIONS: [Correction; 4] = [
+    Correction::None,
+    Correction::Forward,
+    Correction::Backward { guarded: true },
+    Correction::Prune,
+];
+
+/// One trained model's figures.
+#[derive(Debug, Clone, Serialize)]
+pub struct ModelReport {
+    /// Its correction's name.
+    pub correction: &'static str,
+    /// Holdout accuracy against the observed (noisy) labels.
+    pub holdout_accuracy_observed: Option<f64>,
+    /// trace(N·T⁻¹), see [`estimated_clean_accuracy`]; `None` outside [0, 1].
+    pub estimated_clean_accuracy: Option<f64>,
+    /// Accuracy on the test table, when one was given.
+    pub test_accuracy: Option<f64>,
+    /// Accuracy on the holdout rows with a trusted label.
+    pub trusted_accuracy: Option<f64>,
+    /// Recall per class against the report's reference labels.
+    pub per_class_recall: Vec<Option<f64>>,
+    /// Confusion (rows: reference label, columns: prediction).
+    pub confusion: Vec<Vec<usize>>,
+    /// Holdout predictions that differ from the first model's.
+    pub changed_vs_none: usize,
+    /// Optimiser iterations.
+    pub iterations: usize,
+    /// Rows `prune` dropped.
+    pub dropped_rows: usize,
+}
+
+/// The whole comparison, as written to JSON.
+#[derive(Debug, Clone, Serialize)]
+pub struct CompareReport {
+    /// One entry per correction, in training order.
+    pub models: Vec<ModelReport>,
+    /// The flip matrix every correction used.
+    pub matrix: Vec<Vec<f64>>,
+    /// Class names.
+    pub classes: Vec<String>,
+    /// What `per_class_recall` and `confusion` are measured against.
+    pub reference: String,
+    /// Rows trained on.
+    pub train_rows: usize,
+    /// Rows held out.
+    pub holdout_rows: usize,
+    /// Things to know.
+    pub warnings: Vec<String>,
+}
+
+/// The report plus what a front end needs to go further (save a model, list changes).
+#[derive(Debug, Clone)]
+pub struct Comparison {
+    /// The figures.
+    pub report: CompareReport,
+    /// The trained models, in the report's order.
+    pub models: Vec<(Correction, SoftmaxModel)>,
+    /// Data rows of the holdout.
+    pub holdout: Vec<usize>,
+    /// Holdout predictions of each model (indexed like `holdout`).
+    pub predictions: Vec<Vec<usize>>,
+}
+
+/// Where the flip matrix comes from.
+#[derive(Debug, Clone, Copy)]
+pub enum MatrixChoice<'a> {
+    /// This matrix (read from a file or edited by hand).
+    Given(&'a Array2<f64>),
+    /// Estimated on the training rows only, so the holdout stays unseen.
+    Estimate(&'a Method),
+}
+
+/// What a comparison reads.
+#[derive(Debug, Clone, Copy)]
+pub struct CompareInputs<'a> {
+    /// The labelled table.
+    pub data: &'a Dataset,
+    /// Out-of-sample probabilities of every data row; without them they are computed by
+    /// cross-validation on the training rows alone.
+    pub probs: Option<ArrayView2<'a, f32>>,
+    /// The flip matrix.
+    pub matrix: MatrixChoice<'a>,
+    /// A separately labelled table (features, labels) whose labels are taken as correct.
+    pub test: Option<(&'a Array2<f64>, &'a [usize])>,
+}
+
+/// How to compare.
+#[derive(Debug, Clone)]
+pub struct CompareSettings {
+    /// Share of rows held out, strictly between 0 and 1.
+    pub holdout: f64,
+    /// Folds, seed and model (its penalty and iteration limit apply to every fit).
+    pub fit: OofParams,
+    /// Corrections to train; `none` is always trained first.
+    pub corrections: Vec<Correction>,
+}
+
+/// Runs the comparison. `progress` hears (step, steps) before each fit and may return
+/// false to stop; `cancel` also stops a fit in the middle.
+pub fn compare(
+    inputs: CompareInputs,
+    settings: &CompareSettings,
+    cancel: Option<&AtomicBool>,
+    progress: &mut dyn FnMut(usize, usize) -> bool,
+) -> Result<Comparison> {
+    if !(settings.holdout > 0.0 && settings.holdout < 1.0) {
+        return Err(Error::Usage(format!(
+            "the holdout share must lie strictly between 0 and 1, not {}",
+            settings.holdout
+        )));
+    }
+    let data = inputs.data;
+    let k = data.classes.len();
+    let corrections = corrections_none_first(&settings.corrections);
+    let needs_oof = inputs.probs.is_none();
+    let steps = corrections.len() + if needs_oof { settings.fit.folds } else { 0 };
+    let (train_rows, holdout_rows) =
+        stratified_holdout(&data.labels, k, settings.holdout, settings.fit.seed);
+    let part = Part::new(data, &train_rows);
+    let probs = match inputs.probs {
+        Some(p) => p.select(Axis(0), &train_rows),
+        None => {
+            out_of_fold(
+                part.x.view(),
+                &part.labels,
+                k,
+                &settings.fit,
+                &mut |f, _| progress(f, steps) && !cancelled(cancel),
+            )?
+            .0
+        }
+    };
+    let (matrix, mut warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
+    let x_hold = data.features.select(Axis(0), &holdout_rows);
+    let observed_hold: Vec<usize> = holdout_rows.iter().map(|&r| data.labels[r]).collect();
+    let trusted_hold = trusted_pairs(data, &holdout_rows);
+    let all_rows: Vec<usize> = (0..part.labels.len()).collect();
+    let mut fits: Vec<Fit> = Vec::new();
+    for (i, &correction) in corrections.iter().enumerate() {
+        let first = if needs_oof { settings.fit.folds } else { 0 };
+        if !progress(first + i, steps) || cancelled(cancel) {
+            return Err(Error::Cancelled);
+        }
+        // The corrected fits start from the uncorrected one (same rows, nearby optimum).
+        let start = fits.first().map(|f| &f.model);
+        let trained = train(
+            part.x.view(),
+            &all_rows,
+            &part.labels,
+            k,
+            correction,
+            TrainInputs {
+                matrix: Some(&matrix),
+                probs: Some(probs.view()),
+                start,
+                cancel,
+            },
+            &settings.fit.model,
+        )?;
+        let name = correction.name();
+        warnings.extend(trained.warnings.iter().map(|w| format!("{name}: {w}")));
+        let hold = predict_classes(&trained.model.predict_proba(x_hold.view(), None));
+        let test = inputs
+            .test
+            .map(|(x, _)| predict_classes(&trained.model.predict_proba(x.view(), None)));
+        fits.push(Fit {
+            correction,
+            model: trained.model,
+            iterations: trained.report.iterations,
+            dropped: trained.dropped.len(),
+            hold,
+            test,
+        });
+    }
+    progress(steps, steps);
+    let reference = Reference::choose(inputs.test, &trusted_hold, &observed_hold);
+    if fits
+        .iter()
+        .any(|f| estimated_clean_accuracy(&f.hold, &observed_hold, &matrix).is_none())
+    {
+        warnings.push(
+            "the estimated clean accuracy is missing where trace(N·T⁻¹) fell outside [0, 1]: the flip matrix does not \
+             fit the holdout's labels (it claims more, or less, noise than they show); compare estimators, or use \
+             trusted or test labels"
+                .into(),
+        );
+    }
+    let eval = Evaluation {
+        observed: &observed_hold,
+        trusted: &trusted_hold,
+        test: inputs.test.map(|(_, l)| l),
+        reference: &reference,
+        matrix: &matrix,
+        none: &fits[0].hold,
+        classes: k,
+    };
+    let reports = fits.iter().map(|f| eval.report(f)).collect();
+    let report = CompareReport {
+        models: reports,
+        matrix: matrix.rows().into_iter().map(|r| r.to_vec()).collect(),
+        classes: data.classes.clone(),
+        reference: reference.name().into(),
+        train_rows: train_rows.len(),
+        holdout_rows: holdout_rows.len(),
+        warnings,
+    };
+    Ok(Comparison {
+        report,
+        predictions: fits.iter().map(|f| f.hold.clone()).collect(),
+        models: fits.into_iter().map(|f| (f.correction, f.model)).collect(),
+        holdout: holdout_rows,
+    })
+}
+
+fn cancelled(cancel: Option<&AtomicBool>) -> bool {
+    cancel.is_some_and(|c| c.load(Ordering::Relaxed))
+}
+
+/// `none` first (the baseline everything is compared with), then the rest in the given
+/// order without repeats.
+fn corrections_none_first(asked: &[Correction]) -> Vec<Correction> {
+    let mut list = vec![Correction::None];
+    for &c in asked {
+        if !list.contains(&c) {
+            list.push(c);
+        }
+    }
+    list
+}
+
+/// (holdout index, trusted label) of the holdout rows that have one.
+fn trusted_pairs(data: &Dataset, holdout: &[usize]) -> Vec<(usize, usize)> {
+    data.trusted
+        .as_ref()
+        .map(|t| {
+            holdout
+                .iter()
+                .enumerate()
+                .filter_map(|(i, &r)| t[r].map(|l| (i, l)))
+                .collect()
+        })
+        .unwrap_or_default()
+}
+
+/// One trained correction and its predictions.
+struct Fit {
+    correction: Correction,
+    model: SoftmaxModel,
+    iterations: usize,
+    dropped: usize,
+    hold: Vec<usize>,
+    test: Option<Vec<usize>>,
+}
+
+/// Everything a model's figures are computed against.
+struct Evaluation<'a> {
+    observed: &'a [usize],
+    trusted: &'a [(usize, usize)],
+    test: Option<&'a [usize]>,
+    reference: &'a Reference,
+    matrix: &'a Array2<f64>,
+    none: &'a [usize],
+    classes: usize,
+}
+
+impl Evaluation<'_> {
+    fn report(&self, f: &Fit) -> ModelReport {
+        let (pred_ref, labels_ref) = self.reference.pairs(&f.hold, f.test.as_deref());
+        let c = confusion(&pred_ref, &labels_ref, self.classes);
+        let trusted_pred: Vec<usize> = self.trusted.iter().map(|&(i, _)| f.hold[i]).collect();
+        let trusted_labels: Vec<usize> = self.trusted.iter().map(|&(_, l)| l).collect();
+        ModelReport {
+            correction: f.correction.name(),
+            holdout_accuracy_observed: accuracy(&f.hold, self.observed),
+            estimated_clean_accuracy: estimated_clean_accuracy(&f.hold, self.observed, self.matrix),
+            test_accuracy: self
+                .test
+                .and_then(|l| accuracy(f.test.as_deref().unwrap_or(&[]), l)),
+            trusted_accuracy: accuracy(&trusted_pred, &trusted_labels),
+            per_class_recall: recall(&c),
+            confusion: c.rows().into_iter().map(|r| r.to_vec()).collect(),
+            changed_vs_none: f.hold.iter().zip(self.none).filter(|(a, b)| a != b).count(),
+            iterations: f.iterations,
+            dropped_rows: f.dropped,
+        }
+    }
+}
+
+/// The training part as its own arrays.
+struct Part {
+    x: Array2<f64>,
+    labels: Vec<usize>,
+    trusted: Option<Vec<Option<usize>>>,
+}
+
+impl Part {
+    fn new(data: &Dataset, rows: &[usize]) -> Self {
+        Part {
+            x: data.features.select(Axis(0), rows),
+            labels: rows.iter().map(|&r| data.labels[r]).collect(),
+            trusted: data
+                .trusted
+                .as_ref()
+                .map(|t| rows.iter().map(|&r| t[r]).collect()),
+        }
+    }
+
+    fn matrix(
+        &self,
+        choice: MatrixChoice,
+        probs: &Array2<f32>,
+        classes: &[String],
+    ) -> Result<(Array2<f64>, Vec<String>)> {
+        match choice {
+            MatrixChoice::Given(m) => Ok((m.clone(), Vec::new())),
+            MatrixChoice::Estimate(method) => {
+                let rows: Vec<usize> = (0..self.labels.len()).collect();
+                let sample = Sample {
+                    probs: probs.view(),
+                    labels: &self.labels,
+                    trusted: self.trusted.as_deref(),
+                    rows: &rows,
+                };
+                let e = estimate(method, &sample, classes)?;
+                Ok((e.matrix, e.notes))
+            }
+        }
+    }
+}
+
+/// What per-class recall and the confusion matrix are measured against.
+enum Reference {
+    Test(Vec<usize>),
+    Trusted(Vec<(usize, usize)>),
+    Observed(Vec<usize>),
+}
+
+impl Reference {
+    fn choose(
+        test: Option<(&Array2<f64>, &[usize])>,
+        trusted: &[(usize, usize)],
+        observed: &[usize],
+    ) -> Self {
+        match test {
+            Some((_, labels)) => Reference::Test(labels.to_vec()),
+            None if !trusted.is_empty() => Reference::Trusted(trusted.to_vec()),
+            None => Reference::Observed(observed.to_vec()),
+        }
+    }
+
+    fn name(&self) -> &'static str {
+        match self {
+            Reference::Test(_) => "test labels",
+            Reference::Trusted(_) => "trusted labels of holdout rows",
+            Reference::Observed(_) => "observed labels of holdout rows",
+        }
+    }
+
+    fn pairs(&self, hold: &[usize], test_pred: Option<&[usize]>) -> (Vec<usize>, Vec<usize>) {
+        match self {
+            Reference::Test(labels) => (test_pred.unwrap_or(&[]).to_vec(), labels.clone()),
+            Reference::Trusted(pairs) => pairs.iter().map(|&(i, l)| (hold[i], l)).unzip(),
+            Reference::Observed(labels) => (hold.to_vec(), labels.clone()),
+        }
+    }
+}
+
+/// Loads a labelled test table with the training data's feature columns and maps its
+/// classes onto the training data's.
+pub fn load_test(
+    path: &Path,
+    delimiter: Option<u8>,
+    data: &Dataset,
+) -> Result<(Array2<f64>, Vec<usize>)> {
+    let options = TableOptions {
+        delimiter,
+        label: data.label_column.clone(),
+        features: Some(data.feature_names.clone()),
+        unlabeled: false,
+        ..Default::default()
+    };
+    let test = Dataset::load(path, &options)?;
+    let labels = test
+        .labels
+        .iter()
+        .map(|&l| {
+            let name = &test.classes[l];
+            data.classes.iter().position(|c| c == name).ok_or_else(|| {
+                Error::Usage(format!(
+                    "{}: the test class '{name}' is not a class of the training data",
+                    path.display()
+                ))
+            })
+        })
+        .collect::<Result<Vec<usize>>>()?;
+    Ok((test.features, labels))
+}
