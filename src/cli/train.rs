@@ -10,13 +10,9 @@ use ndarray::Array2;
 use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
-use crate::io::model::{
-    data_hash, write_model, ModelFile, TrainingMetrics, TrainingSettings, MODEL_FORMAT,
-    MODEL_VERSION,
-};
+use crate::io::model::{write_model, FitSummary, ModelFile, Provenance, TrainingSettings};
 use crate::io::{check_not_input, write_atomic};
-use crate::learn::metrics::accuracy;
-use crate::learn::train::{predict_classes, train, Correction, TrainInputs, Trained};
+use crate::learn::train::{train, Correction, TrainInputs, Trained};
 use crate::noise::matrix::load_matrix_csv;
 use crate::workflow::{self, MatrixSource};
 
@@ -167,49 +163,25 @@ fn model_file(
     matrix_source: Option<String>,
     rows: &[usize],
 ) -> ModelFile {
-    let predicted = predict_classes(&trained.model.predict_proba(data.features.view(), None));
-    let accuracy_observed = accuracy(&predicted, &data.labels).unwrap_or(0.0);
-    let accuracy_trusted = data.trusted.as_ref().and_then(|t| {
-        let (predicted_trusted, truth): (Vec<usize>, Vec<usize>) = t
-            .iter()
-            .enumerate()
-            .filter_map(|(r, l)| l.map(|l| (predicted[r], l)))
-            .unzip();
-        accuracy(&predicted_trusted, &truth)
-    });
-    ModelFile {
-        format: MODEL_FORMAT.into(),
-        version: MODEL_VERSION,
-        classes: data.classes.clone(),
-        features: data.feature_names.clone(),
-        standardization: trained.model.standardizer.clone(),
-        weights: trained
-            .model
-            .weights
-            .rows()
-            .into_iter()
-            .map(|r| r.to_vec())
-            .collect(),
-        bias: trained.model.bias.clone(),
-        correction: correction.name().into(),
-        matrix: matrix.map(|t| t.rows().into_iter().map(|r| r.to_vec()).collect()),
-        settings: TrainingSettings {
-            l2: args.pipeline.fit.l2,
-            max_iter: args.pipeline.fit.max_iter,
-            seed: args.pipeline.fit.seed,
-            matrix_source,
-        },
-        metrics: TrainingMetrics {
+    let provenance = Provenance {
+        data,
+        rows,
+        correction: correction.name(),
+        matrix,
+        fit: FitSummary {
             objective: trained.report.objective,
             iterations: trained.report.iterations,
             converged: trained.report.converged,
-            rows: rows.len() - trained.dropped.len(),
             dropped_rows: trained.dropped.len(),
-            accuracy_observed,
-            accuracy_trusted,
         },
-        data_hash: data_hash(data.features.view(), rows, &data.labels),
-    }
+    };
+    let settings = TrainingSettings {
+        l2: args.pipeline.fit.l2,
+        max_iter: args.pipeline.fit.max_iter,
+        seed: args.pipeline.fit.seed,
+        matrix_source,
+    };
+    ModelFile::describe(&trained.model, provenance, settings)
 }
 
 fn render(

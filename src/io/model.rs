@@ -78,7 +78,87 @@ pub struct ModelFile {
     pub data_hash: String,
 }
 
+/// How a fit went, as the model file records it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct FitSummary {
+    /// Final objective.
+    pub objective: f64,
+    /// Optimiser iterations.
+    pub iterations: usize,
+    /// Whether the gradient tolerance was met.
+    pub converged: bool,
+    /// Rows `prune` dropped from `rows`.
+    pub dropped_rows: usize,
+}
+
+/// What a model file says about a model trained on the data rows `rows`.
+#[derive(Debug, Clone, Copy)]
+pub struct Provenance<'a> {
+    /// The data.
+    pub data: &'a crate::data::Dataset,
+    /// Data rows trained on (before pruning).
+    pub rows: &'a [usize],
+    /// The correction's name.
+    pub correction: &'a str,
+    /// The flip matrix, when one was used.
+    pub matrix: Option<&'a Array2<f64>>,
+    /// How the fit went.
+    pub fit: FitSummary,
+}
+
 impl ModelFile {
+    /// The file for `model`; the accuracies are measured on `provenance.rows`.
+    pub fn describe(
+        model: &SoftmaxModel,
+        provenance: Provenance,
+        settings: TrainingSettings,
+    ) -> ModelFile {
+        let Provenance {
+            data, rows, fit, ..
+        } = provenance;
+        let x = data.features.select(ndarray::Axis(0), rows);
+        let predicted = crate::learn::train::predict_classes(&model.predict_proba(x.view(), None));
+        let observed: Vec<usize> = rows.iter().map(|&r| data.labels[r]).collect();
+        let accuracy = crate::learn::metrics::accuracy;
+        let accuracy_trusted = data.trusted.as_ref().and_then(|t| {
+            let (predicted_trusted, truth): (Vec<usize>, Vec<usize>) = rows
+                .iter()
+                .zip(&predicted)
+                .filter_map(|(&r, &p)| t[r].map(|l| (p, l)))
+                .unzip();
+            accuracy(&predicted_trusted, &truth)
+        });
+        ModelFile {
+            format: MODEL_FORMAT.into(),
+            version: MODEL_VERSION,
+            classes: data.classes.clone(),
+            features: data.feature_names.clone(),
+            standardization: model.standardizer.clone(),
+            weights: model
+                .weights
+                .rows()
+                .into_iter()
+                .map(|r| r.to_vec())
+                .collect(),
+            bias: model.bias.clone(),
+            correction: provenance.correction.into(),
+            matrix: provenance
+                .matrix
+                .map(|t| t.rows().into_iter().map(|r| r.to_vec()).collect()),
+            settings,
+            metrics: TrainingMetrics {
+                objective: fit.objective,
+                iterations: fit.iterations,
+                converged: fit.converged,
+                rows: rows.len() - fit.dropped_rows,
+                dropped_rows: fit.dropped_rows,
+                accuracy_observed: accuracy(&predicted, &observed).unwrap_or(0.0),
+                accuracy_trusted,
+            },
+            data_hash: data_hash(data.features.view(), rows, &data.labels),
+        }
+    }
+
     /// The model for prediction, after checking every shape.
     pub fn model(&self) -> std::result::Result<SoftmaxModel, String> {
         let (k, d) = (self.classes.len(), self.features.len());

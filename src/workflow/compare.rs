@@ -10,6 +10,7 @@ use serde::Serialize;
 
 use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
+use crate::io::model::FitSummary;
 use crate::learn::folds::stratified_holdout;
 use crate::learn::metrics::{accuracy, confusion, estimated_clean_accuracy, recall};
 use crate::learn::train::{predict_classes, train, Correction, TrainInputs};
@@ -76,6 +77,10 @@ pub struct Comparison {
     pub report: CompareReport,
     /// The trained models, in the report's order.
     pub models: Vec<(Correction, SoftmaxModel)>,
+    /// How each fit went, in the report's order.
+    pub fits: Vec<FitSummary>,
+    /// Data rows trained on (before pruning).
+    pub train: Vec<usize>,
     /// Data rows of the holdout.
     pub holdout: Vec<usize>,
     /// Holdout predictions of each model (indexed like `holdout`).
@@ -187,8 +192,12 @@ pub fn compare(
         fits.push(Fit {
             correction,
             model: trained.model,
-            iterations: trained.report.iterations,
-            dropped: trained.dropped.len(),
+            summary: FitSummary {
+                objective: trained.report.objective,
+                iterations: trained.report.iterations,
+                converged: trained.report.converged,
+                dropped_rows: trained.dropped.len(),
+            },
             hold,
             test,
         });
@@ -228,6 +237,8 @@ pub fn compare(
     Ok(Comparison {
         report,
         predictions: fits.iter().map(|f| f.hold.clone()).collect(),
+        fits: fits.iter().map(|f| f.summary).collect(),
+        train: train_rows,
         models: fits.into_iter().map(|f| (f.correction, f.model)).collect(),
         holdout: holdout_rows,
     })
@@ -267,8 +278,7 @@ fn trusted_pairs(data: &Dataset, holdout: &[usize]) -> Vec<(usize, usize)> {
 struct Fit {
     correction: Correction,
     model: SoftmaxModel,
-    iterations: usize,
-    dropped: usize,
+    summary: FitSummary,
     hold: Vec<usize>,
     test: Option<Vec<usize>>,
 }
@@ -301,8 +311,8 @@ impl Evaluation<'_> {
             per_class_recall: recall(&c),
             confusion: c.rows().into_iter().map(|r| r.to_vec()).collect(),
             changed_vs_none: f.hold.iter().zip(self.none).filter(|(a, b)| a != b).count(),
-            iterations: f.iterations,
-            dropped_rows: f.dropped,
+            iterations: f.summary.iterations,
+            dropped_rows: f.summary.dropped_rows,
         }
     }
 }
