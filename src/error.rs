@@ -257,6 +257,12 @@ pub enum Problem {
         /// What is wrong.
         detail: String,
     },
+    /// A session file that cannot be restored.
+    #[error("{detail}")]
+    Session {
+        /// What is wrong.
+        detail: String,
+    },
     /// A malformed `.npy` header.
     #[error("not a readable .npy file: {detail}")]
     NpyHeader {

@@ -3,8 +3,10 @@
 //! models that correct for the noise.
 //!
 //! The library holds everything but drawing: [`data`] loads and validates tables and
-//! probabilities, [`io`] writes outputs safely, and [`cli`] is the command line built on
-//! them. Errors are one enum, [`Error`], whose messages name file, line and column.
+//! probabilities, [`noise`] estimates and diagnoses the flip matrix and scores rows,
+//! [`learn`] fits (corrected) softmax regression, [`io`] reads and writes files safely,
+//! [`workflow`] chains the steps, [`cli`] is the command line and `gui` (feature `gui`)
+//! the desktop app, both built on the same calls. Errors are one enum, [`Error`], whose messages name file, line and column.
 //!
 //! Figures that flipmend computes are estimates meant for qualified human review; they
 //! never replace the judgement of the people responsible for the data.
@@ -15,6 +17,8 @@
 pub mod cli;
 pub mod data;
 pub mod error;
+#[cfg(feature = "gui")]
+pub mod gui;
 pub mod io;
 pub mod learn;
 pub mod noise;

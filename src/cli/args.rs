@@ -80,7 +80,7 @@ pub struct MatrixArgs {
     #[arg(long, value_enum, default_value_t = MethodName::Quantile, conflicts_with = "matrix")]
     pub method: MethodName,
     /// Quantile for --method quantile (and for --fallback quantile), in (0, 1]
-    #[arg(long, value_name = "Q", default_value_t = 0.97)]
+    #[arg(long, value_name = "Q", default_value_t = crate::noise::DEFAULT_QUANTILE)]
     pub quantile: f64,
     /// With --method trusted: how to estimate classes that have no trusted rows
     #[arg(long, value_enum, default_value_t = Fallback::None)]

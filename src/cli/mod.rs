@@ -58,6 +58,31 @@ pub enum Command {
     /// Train every correction (none, forward, backward, prune) on one stratified split with
     /// the same flip matrix and compare them on the held-out rows.
     Compare(CompareArgs),
+    /// Open the desktop app (also what `flipmend` alone does), optionally on a table, its
+    /// probabilities or a saved session.
+    #[cfg(feature = "gui")]
+    Gui(GuiArgs),
+    /// Open the desktop app on the built-in demo data (an invented recycling plant).
+    #[cfg(feature = "gui")]
+    Demo,
+}
+
+/// Flags of `flipmend gui`.
+#[cfg(feature = "gui")]
+#[derive(Debug, Clone, Default, clap::Args)]
+pub struct GuiArgs {
+    /// A labelled table to load at start
+    #[arg(value_name = "DATA")]
+    pub data: Option<std::path::PathBuf>,
+    /// Out-of-sample probabilities for it (CSV by id, or .npy)
+    #[arg(long, value_name = "FILE")]
+    pub probs: Option<std::path::PathBuf>,
+    /// A saved session to restore (its data, roles, matrix and settings)
+    #[arg(long, value_name = "FILE")]
+    pub session: Option<std::path::PathBuf>,
+    /// Observed-label column of DATA (default: label)
+    #[arg(long, value_name = "COLUMN")]
+    pub label: Option<String>,
 }
 
 /// Runs a parsed command line, writing its report to `out`.
@@ -70,6 +95,21 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
         Some(Command::Train(args)) => train::run(&args, out),
         Some(Command::Predict(args)) => predict::run(&args, out),
         Some(Command::Compare(args)) => compare::run(&args, out),
+        #[cfg(feature = "gui")]
+        Some(Command::Gui(args)) => crate::gui::run(crate::gui::Launch {
+            data: args.data,
+            probs: args.probs,
+            session: args.session,
+            roles: crate::io::session::Roles {
+                label: args.label,
+                ..Default::default()
+            },
+        }),
+        #[cfg(feature = "gui")]
+        Some(Command::Demo) => crate::gui::run(crate::gui::demo_launch()?),
+        #[cfg(feature = "gui")]
+        None => crate::gui::run(crate::gui::Launch::default()),
+        #[cfg(not(feature = "gui"))]
         None => {
             let help = <Cli as clap::CommandFactory>::command()
                 .render_help()

@@ -10,6 +10,9 @@ use rayon::prelude::*;
 use super::matrix::{normalize_rows, validate};
 use crate::error::{Error, Result};
 
+/// The quantile the quantile estimator uses unless told otherwise (command line and app).
+pub const DEFAULT_QUANTILE: f64 = 0.97;
+
 /// Rows per parallel work item in the row passes.
 const CHUNK_ROWS: usize = 16_384;
 

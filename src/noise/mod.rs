@@ -10,4 +10,4 @@ pub mod posterior;
 pub mod scores;
 
 pub use diagnostics::{diagnose, Diagnostics};
-pub use estimators::{estimate, Estimate, Method, Sample};
+pub use estimators::{estimate, Estimate, Method, Sample, DEFAULT_QUANTILE};

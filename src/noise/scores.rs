@@ -8,7 +8,7 @@ use serde::Serialize;
 use super::posterior::Posterior;
 
 /// Which score ranks the rows.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum ScoreKind {
     /// 1 − P(true = observed | x, observed) under the flip matrix (the clean posterior

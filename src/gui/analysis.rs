@@ -1,0 +1,173 @@
+//! The suspects view's data: scores ranked for one matrix, their histogram, and the
+//! filtered list the table shows. Computed off the UI thread; filtering is cheap enough
+//! (one pass over the ranking) to redo on the UI thread when a filter changes.
+
+use ndarray::{Array2, ArrayView2};
+
+use crate::noise::scores::{rank, score_rows, RowScore, ScoreKind};
+
+/// Bins of the score histogram.
+pub const HISTOGRAM_BINS: usize = 40;
+
+/// Counts of scores in equal bins over `[low, high]`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Histogram {
+    /// Left edge of the first bin.
+    pub low: f64,
+    /// Right edge of the last bin.
+    pub high: f64,
+    /// Rows per bin.
+    pub counts: Vec<usize>,
+}
+
+impl Histogram {
+    /// Bins `scores` over the score's range ([0, 1], or [−1, 1] for the margin).
+    pub fn of(scores: &[RowScore], kind: ScoreKind) -> Self {
+        let (low, high) = match kind {
+            ScoreKind::Margin => (-1.0, 1.0),
+            _ => (0.0, 1.0),
+        };
+        let mut counts = vec![0; HISTOGRAM_BINS];
+        let width = (high - low) / HISTOGRAM_BINS as f64;
+        for s in scores {
+            let bin = ((s.score - low) / width).floor();
+            let bin = if bin.is_finite() {
+                bin.max(0.0) as usize
+            } else {
+                0
+            };
+            counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
+        }
+        Histogram { low, high, counts }
+    }
+
+    /// Width of one bin.
+    pub fn bin_width(&self) -> f64 {
+        (self.high - self.low) / self.counts.len() as f64
+    }
+}
+
+/// Every row scored for one matrix, most suspect first.
+#[derive(Debug, Clone)]
+pub struct Ranking {
+    /// The ranked rows.
+    pub ranked: Vec<RowScore>,
+    /// Which score.
+    pub kind: ScoreKind,
+    /// The score histogram.
+    pub histogram: Histogram,
+    /// Sum of the scores when they are probabilities (expected mislabelled rows).
+    pub expected_errors: Option<f64>,
+    /// Version of the matrix it was computed from.
+    pub matrix_version: u64,
+    /// Seconds it took.
+    pub duration_secs: f64,
+}
+
+/// Scores and ranks every row.
+pub fn rank_rows(
+    probs: ArrayView2<f32>,
+    labels: &[usize],
+    matrix: &Array2<f64>,
+    kind: ScoreKind,
+    matrix_version: u64,
+) -> Ranking {
+    let started = std::time::Instant::now();
+    let mut ranked = score_rows(kind, probs, labels, Some(matrix));
+    let expected_errors = kind
+        .is_probability()
+        .then(|| ranked.iter().map(|s| s.score).sum());
+    let histogram = Histogram::of(&ranked, kind);
+    rank(&mut ranked);
+    Ranking {
+        ranked,
+        kind,
+        histogram,
+        expected_errors,
+        matrix_version,
+        duration_secs: started.elapsed().as_secs_f64(),
+    }
+}
+
+/// What the table shows.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Filter {
+    /// Only rows observed as this class.
+    pub observed: Option<usize>,
+    /// Only rows whose suggested class is this.
+    pub suggested: Option<usize>,
+    /// Only rows scoring at least this.
+    pub min_score: f64,
+}
+
+/// Positions in `ranked` of the rows `filter` keeps, in rank order. Because the ranking
+/// is sorted by score, the threshold ends the scan.
+pub fn filter_rows(ranked: &[RowScore], labels: &[usize], filter: &Filter) -> Vec<u32> {
+    let mut kept = Vec::new();
+    for (i, s) in ranked.iter().enumerate() {
+        if s.score < filter.min_score {
+            break;
+        }
+        if filter.observed.is_some_and(|c| labels[s.row] != c)
+            || filter.suggested.is_some_and(|c| s.suggested != c)
+        {
+            continue;
+        }
+        kept.push(i as u32);
+    }
+    kept
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    #[test]
+    fn filters_keep_rank_order_and_stop_at_the_threshold() {
+        // Three rows, identity matrix: the posterior score is 1 − p(observed).
+        let probs = array![[0.9f32, 0.1], [0.2, 0.8], [0.6, 0.4]];
+        let labels = [0, 0, 1];
+        let r = rank_rows(
+            probs.view(),
+            &labels,
+            &Array2::eye(2),
+            ScoreKind::Posterior,
+            3,
+        );
+        let order: Vec<usize> = r.ranked.iter().map(|s| s.row).collect();
+        assert_eq!(order, vec![1, 2, 0]);
+        assert!((r.expected_errors.unwrap() - (0.1 + 0.8 + 0.6)).abs() < 1e-6);
+        let all = filter_rows(&r.ranked, &labels, &Filter::default());
+        assert_eq!(all, vec![0, 1, 2]);
+        let observed_zero = Filter {
+            observed: Some(0),
+            ..Default::default()
+        };
+        assert_eq!(filter_rows(&r.ranked, &labels, &observed_zero), vec![0, 2]);
+        let confident = Filter {
+            min_score: 0.7,
+            ..Default::default()
+        };
+        assert_eq!(filter_rows(&r.ranked, &labels, &confident), vec![0]);
+        let suggested_zero = Filter {
+            suggested: Some(0),
+            ..Default::default()
+        };
+        assert_eq!(filter_rows(&r.ranked, &labels, &suggested_zero), vec![1, 2]);
+    }
+
+    #[test]
+    fn the_histogram_counts_every_row_once() {
+        let probs = array![[1.0f32, 0.0], [0.5, 0.5], [0.0, 1.0], [0.25, 0.75]];
+        let labels = [0, 0, 0, 1];
+        let r = rank_rows(probs.view(), &labels, &Array2::eye(2), ScoreKind::Margin, 0);
+        assert_eq!(r.histogram.counts.iter().sum::<usize>(), 4);
+        assert_eq!(r.histogram.low, -1.0);
+        // Margins: −1, 0, 1, −0.5 → bins 0, 20, 39 (the top edge), 10.
+        for bin in [0, 10, 20, HISTOGRAM_BINS - 1] {
+            assert_eq!(r.histogram.counts[bin], 1, "bin {bin}");
+        }
+        assert_eq!(r.expected_errors, None);
+    }
+}

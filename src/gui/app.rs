@@ -1,0 +1,286 @@
+//! The eframe app: runtime UI state, the frame loop (poll jobs, draw, then apply the
+//! commands the drawing produced), shortcuts, drag-and-drop and persistence.
+
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use eframe::egui;
+use rustc_hash::FxHashMap;
+use serde::{Deserialize, Serialize};
+
+use super::command::Command;
+use super::dialogs::{Dialogs, Purpose};
+use super::state::AppState;
+use super::views;
+use crate::io::session::Roles;
+
+/// The four views, named as on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum View {
+    /// Table, roles, classes, probabilities.
+    Data,
+    /// The editable flip matrix and its diagnostics.
+    Matrix,
+    /// Ranked suspect rows, worklist export and review import.
+    Suspects,
+    /// Corrected training and the comparison.
+    Retrain,
+}
+
+impl View {
+    /// All views in tab order.
+    pub const ALL: [View; 4] = [View::Data, View::Matrix, View::Suspects, View::Retrain];
+
+    /// The tab's title.
+    pub fn title(self) -> &'static str {
+        match self {
+            View::Data => "Data",
+            View::Matrix => "Flip matrix",
+            View::Suspects => "Suspects",
+            View::Retrain => "Retrain",
+        }
+    }
+}
+
+/// What eframe keeps between runs (window geometry is kept by eframe itself).
+#[derive(Debug, Clone, Default, Serialize, Deserialize)]
+#[serde(default)]
+pub struct Persisted {
+    /// Recently opened data files and sessions, newest first.
+    pub recent: Vec<PathBuf>,
+    /// Dark theme.
+    pub dark: Option<bool>,
+}
+
+/// Recent files remembered.
+const RECENT: usize = 10;
+
+/// UI-only state: what is typed but not yet applied, the current view, open dialogs.
+#[derive(Debug, Default)]
+pub struct UiState {
+    /// The view shown.
+    pub view: Option<View>,
+    /// Typed paths, per purpose.
+    pub paths: FxHashMap<Purpose, String>,
+    /// Roles being edited (applied with "Load").
+    pub roles_draft: Option<Roles>,
+    /// Dialogs the views asked for this frame.
+    pub dialog_requests: Vec<Purpose>,
+    /// Model picked for saving (index into the comparison).
+    pub model_choice: usize,
+    /// The About panel is open.
+    pub show_about: bool,
+}
+
+impl UiState {
+    /// The current view (Data until one is chosen).
+    pub fn view(&self) -> View {
+        self.view.unwrap_or(View::Data)
+    }
+
+    /// The typed path for `purpose`.
+    pub fn path(&mut self, purpose: Purpose) -> &mut String {
+        self.paths.entry(purpose).or_default()
+    }
+}
+
+/// The app.
+pub struct FlipmendApp {
+    /// Everything the views show.
+    pub state: AppState,
+    /// What only the UI needs.
+    pub ui: UiState,
+    /// Kept between runs.
+    pub persisted: Persisted,
+    dialogs: Dialogs,
+    commands: Vec<Command>,
+}
+
+/// Key of the persisted state in eframe's storage.
+const STORAGE_KEY: &str = "flipmend";
+
+impl FlipmendApp {
+    /// A new app; `wake` requests a repaint from worker threads.
+    pub fn new(ctx: &egui::Context, persisted: Persisted) -> Self {
+        let repaint = ctx.clone();
+        let wake: Arc<dyn Fn() + Send + Sync> = Arc::new(move || repaint.request_repaint());
+        let mut state = AppState::new(wake);
+        if let Some(dark) = persisted.dark {
+            state.session.settings.dark = dark;
+        }
+        FlipmendApp {
+            state,
+            ui: UiState::default(),
+            persisted,
+            dialogs: Dialogs::default(),
+            commands: Vec::new(),
+        }
+    }
+
+    /// Built by eframe: restores the persisted state.
+    pub fn from_creation(cc: &eframe::CreationContext<'_>) -> Self {
+        let persisted = cc
+            .storage
+            .and_then(|s| eframe::get_value(s, STORAGE_KEY))
+            .unwrap_or_default();
+        Self::new(&cc.egui_ctx, persisted)
+    }
+
+    /// Queues a command for after this frame.
+    pub fn push(&mut self, command: Command) {
+        self.commands.push(command);
+    }
+
+    /// Applies queued commands now.
+    pub fn apply_commands(&mut self) {
+        for command in std::mem::take(&mut self.commands) {
+            self.remember(&command);
+            self.state.apply(command);
+        }
+    }
+
+    fn remember(&mut self, command: &Command) {
+        let path = match command {
+            Command::LoadData(p, _) | Command::OpenSession(p) => p,
+            Command::SaveSession(Some(p)) => p,
+            _ => return,
+        };
+        let recent = &mut self.persisted.recent;
+        recent.retain(|r| r != path);
+        recent.insert(0, path.clone());
+        recent.truncate(RECENT);
+    }
+
+    fn shortcuts(&mut self, ctx: &egui::Context) {
+        use egui::{Key, KeyboardShortcut, Modifiers};
+        let open = KeyboardShortcut::new(Modifiers::COMMAND, Key::O);
+        let save = KeyboardShortcut::new(Modifiers::COMMAND, Key::S);
+        let undo = KeyboardShortcut::new(Modifiers::COMMAND, Key::Z);
+        let redo = KeyboardShortcut::new(Modifiers::COMMAND | Modifiers::SHIFT, Key::Z);
+        let redo_y = KeyboardShortcut::new(Modifiers::COMMAND, Key::Y);
+        let (o, s, r, u) = ctx.input_mut(|i| {
+            (
+                i.consume_shortcut(&open),
+                i.consume_shortcut(&save),
+                // Redo first: Ctrl+Shift+Z also matches Ctrl+Z's shortcut otherwise.
+                i.consume_shortcut(&redo) || i.consume_shortcut(&redo_y),
+                i.consume_shortcut(&undo),
+            )
+        });
+        if o {
+            self.ui.dialog_requests.push(Purpose::OpenData);
+        }
+        if s {
+            match self.state.session_path {
+                Some(_) => self.push(Command::SaveSession(None)),
+                None => self.ui.dialog_requests.push(Purpose::SaveSession),
+            }
+        }
+        if r {
+            self.push(Command::Redo);
+        }
+        if u {
+            self.push(Command::Undo);
+        }
+    }
+
+    fn dropped_files(&mut self, ctx: &egui::Context) {
+        let dropped: Vec<PathBuf> = ctx.input(|i| {
+            i.raw
+                .dropped_files
+                .iter()
+                .map(|f| f.path().to_path_buf())
+                .filter(|p| !p.as_os_str().is_empty())
+                .collect()
+        });
+        for path in dropped {
+            let command = self.command_for_dropped(&path);
+            self.push(command);
+        }
+    }
+
+    /// A dropped `.json` opens as a session, a `.npy` as probabilities, anything else
+    /// as a data table.
+    fn command_for_dropped(&self, path: &Path) -> Command {
+        let ext = path
+            .extension()
+            .and_then(|e| e.to_str())
+            .map(str::to_ascii_lowercase);
+        match ext.as_deref() {
+            Some("json") => Command::OpenSession(path.to_path_buf()),
+            Some("npy") => Command::LoadProbabilities(path.to_path_buf()),
+            _ => Command::LoadData(path.to_path_buf(), Roles::default()),
+        }
+    }
+
+    /// Turns a path chosen in a dialog into the command it was for.
+    pub fn chosen(&mut self, purpose: Purpose, path: PathBuf) {
+        *self.ui.path(purpose) = path.display().to_string();
+        let command = match purpose {
+            Purpose::OpenData => {
+                let roles = self.ui.roles_draft.clone().unwrap_or_default();
+                Command::LoadData(path, roles)
+            }
+            Purpose::OpenProbabilities => Command::LoadProbabilities(path),
+            Purpose::ImportMatrix => Command::ImportMatrix(path),
+            Purpose::ExportMatrix => Command::ExportMatrix(path),
+            Purpose::ExportWorklist => Command::ExportWorklist(path),
+            Purpose::ImportReview => Command::ImportReview(path),
+            Purpose::SaveMerged => Command::SaveMerged(path),
+            Purpose::OpenTest => {
+                let mut s = self.state.settings().clone();
+                s.test = Some(path);
+                Command::Settings(s)
+            }
+            Purpose::SaveModel => Command::SaveModel(self.ui.model_choice, path),
+            Purpose::OpenSession => Command::OpenSession(path),
+            Purpose::SaveSession => Command::SaveSession(Some(path)),
+        };
+        self.push(command);
+    }
+
+    /// One frame's drawing; commands are applied at its end.
+    pub fn draw(&mut self, ui: &mut egui::Ui) {
+        let ctx = ui.ctx().clone();
+        ctx.set_theme(if self.state.settings().dark {
+            egui::Theme::Dark
+        } else {
+            egui::Theme::Light
+        });
+        views::frame(
+            ui,
+            &self.state,
+            &mut self.ui,
+            &mut self.persisted,
+            &mut self.commands,
+        );
+        for purpose in std::mem::take(&mut self.ui.dialog_requests) {
+            self.dialogs.request(purpose, &ctx);
+        }
+        self.apply_commands();
+        if self.state.jobs.busy() {
+            // Progress bars move; the workers' wake-up covers the end of each job.
+            ctx.request_repaint_after(std::time::Duration::from_millis(100));
+        }
+    }
+}
+
+impl eframe::App for FlipmendApp {
+    fn logic(&mut self, ctx: &egui::Context, _frame: &mut eframe::Frame) {
+        self.state.poll();
+        for (purpose, path) in self.dialogs.poll() {
+            self.chosen(purpose, path);
+        }
+        self.shortcuts(ctx);
+        self.dropped_files(ctx);
+    }
+
+    fn ui(&mut self, ui: &mut egui::Ui, _frame: &mut eframe::Frame) {
+        self.draw(ui);
+    }
+
+    fn save(&mut self, storage: &mut dyn eframe::Storage) {
+        self.persisted.dark = Some(self.state.settings().dark);
+        eframe::set_value(storage, STORAGE_KEY, &self.persisted);
+    }
+}

@@ -1,0 +1,63 @@
+//! What the views ask for. Drawing code never changes the app state directly: it pushes
+//! commands, which the app applies after the frame (so one frame sees one state).
+
+use std::path::PathBuf;
+
+use super::jobs::JobKind;
+use crate::io::session::{Roles, Settings};
+
+/// One request from the UI.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Command {
+    /// Load a table with the given roles (the previous data stay until it succeeds).
+    LoadData(PathBuf, Roles),
+    /// Load a probability file for the current data.
+    LoadProbabilities(PathBuf),
+    /// Compute out-of-fold probabilities for the current data.
+    ComputeProbabilities,
+    /// New settings (the app works out what they invalidate).
+    Settings(Settings),
+    /// Re-estimate the matrix with the current estimator.
+    Estimate,
+    /// Set one cell of the matrix (row = true class).
+    SetCell {
+        /// True class.
+        row: usize,
+        /// Observed class.
+        col: usize,
+        /// New value.
+        value: f64,
+    },
+    /// A drag on a cell ended.
+    EndGesture,
+    /// Undo the last matrix change.
+    Undo,
+    /// Redo the last undone matrix change.
+    Redo,
+    /// Back to the estimated (or imported) matrix.
+    ResetMatrix,
+    /// Read a matrix CSV.
+    ImportMatrix(PathBuf),
+    /// Write the matrix CSV.
+    ExportMatrix(PathBuf),
+    /// Compute bootstrap intervals of the estimator.
+    Bootstrap,
+    /// Write the worklist (the filtered rows, up to the budget).
+    ExportWorklist(PathBuf),
+    /// Read a reviewed worklist.
+    ImportReview(PathBuf),
+    /// Write the data with the review's verdicts in the trusted column, then load it.
+    SaveMerged(PathBuf),
+    /// Train and compare the corrections.
+    Retrain,
+    /// Save the model of one correction (index into the comparison).
+    SaveModel(usize, PathBuf),
+    /// Save the session (to its file when `None`).
+    SaveSession(Option<PathBuf>),
+    /// Open a session file.
+    OpenSession(PathBuf),
+    /// Stop a running job.
+    Cancel(JobKind),
+    /// Hide a message.
+    Dismiss(usize),
+}

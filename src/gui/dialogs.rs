@@ -1,0 +1,119 @@
+//! Native file dialogs, always on a worker thread: a desktop portal that misbehaves can
+//! block a dialog call for half a minute, and the window must keep painting meanwhile.
+//! Every dialog has a typed-path field beside it for machines with no dialog service.
+
+use std::path::PathBuf;
+use std::sync::mpsc::{channel, Receiver, Sender};
+
+/// What a chosen path is for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Purpose {
+    /// A labelled table to load.
+    OpenData,
+    /// A probability file (CSV or .npy).
+    OpenProbabilities,
+    /// A matrix CSV to import.
+    ImportMatrix,
+    /// Where to export the matrix CSV.
+    ExportMatrix,
+    /// Where to write the worklist.
+    ExportWorklist,
+    /// A reviewed worklist.
+    ImportReview,
+    /// Where to write the merged data.
+    SaveMerged,
+    /// A labelled test table for retraining.
+    OpenTest,
+    /// Where to save a model.
+    SaveModel,
+    /// A session to open.
+    OpenSession,
+    /// Where to save the session.
+    SaveSession,
+}
+
+impl Purpose {
+    /// True for dialogs that choose a file to write.
+    pub fn saves(self) -> bool {
+        matches!(
+            self,
+            Purpose::ExportMatrix
+                | Purpose::ExportWorklist
+                | Purpose::SaveMerged
+                | Purpose::SaveModel
+                | Purpose::SaveSession
+        )
+    }
+
+    /// The file name a save dialog proposes, and the extensions it filters on.
+    fn file(self) -> (&'static str, &'static [&'static str]) {
+        match self {
+            Purpose::OpenData | Purpose::OpenTest => ("data.csv", &["csv", "tsv", "txt"]),
+            Purpose::OpenProbabilities => ("probs.csv", &["csv", "tsv", "npy"]),
+            Purpose::ImportMatrix | Purpose::ExportMatrix => ("flip-matrix.csv", &["csv"]),
+            Purpose::ExportWorklist => ("worklist.csv", &["csv"]),
+            Purpose::ImportReview => ("worklist.csv", &["csv"]),
+            Purpose::SaveMerged => ("data-reviewed.csv", &["csv", "tsv"]),
+            Purpose::SaveModel => ("model.json", &["json"]),
+            Purpose::OpenSession | Purpose::SaveSession => ("session.json", &["json"]),
+        }
+    }
+}
+
+/// Opens dialogs on worker threads and collects the answers.
+pub struct Dialogs {
+    sender: Sender<(Purpose, Option<PathBuf>)>,
+    receiver: Receiver<(Purpose, Option<PathBuf>)>,
+    /// Dialogs still open.
+    pub open: usize,
+}
+
+impl Default for Dialogs {
+    fn default() -> Self {
+        let (sender, receiver) = channel();
+        Dialogs {
+            sender,
+            receiver,
+            open: 0,
+        }
+    }
+}
+
+impl Dialogs {
+    /// Shows a dialog for `purpose`; the answer arrives through [`Dialogs::poll`].
+    pub fn request(&mut self, purpose: Purpose, ctx: &eframe::egui::Context) {
+        let sender = self.sender.clone();
+        let ctx = ctx.clone();
+        self.open += 1;
+        let spawned = std::thread::Builder::new()
+            .name("flipmend-dialog".into())
+            .spawn(move || {
+                let (name, extensions) = purpose.file();
+                let dialog = rfd::FileDialog::new().add_filter("files", extensions);
+                let dialog = match std::env::current_dir() {
+                    Ok(dir) => dialog.set_directory(dir),
+                    Err(_) => dialog,
+                };
+                let chosen = if purpose.saves() {
+                    dialog.set_file_name(name).save_file()
+                } else {
+                    dialog.pick_file()
+                };
+                let _ = sender.send((purpose, chosen));
+                ctx.request_repaint();
+            });
+        if spawned.is_err() {
+            self.open -= 1;
+        }
+    }
+
+    /// Answers that arrived (a cancelled dialog gives none).
+    pub fn poll(&mut self) -> Vec<(Purpose, PathBuf)> {
+        let mut chosen = Vec::new();
+        while let Ok((purpose, path)) = self.receiver.try_recv() {
+            self.open = self.open.saturating_sub(1);
+            chosen.extend(path.map(|p| (purpose, p)));
+        }
+        chosen
+    }
+}

@@ -1,0 +1,969 @@
+//! The desktop app's state and every rule of how it changes, with no drawing: views
+//! read it and push [`Command`]s; [`AppState::apply`] carries them out and starts
+//! background jobs; [`AppState::poll`] takes the jobs' results in. Unit tests drive it
+//! directly, without a window.
+
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use ndarray::Array2;
+
+use super::analysis::{filter_rows, rank_rows, Filter, Ranking};
+use super::command::Command;
+use super::jobs::{Finished, JobControl, JobFailure, JobKind, Jobs};
+use super::matrix_edit::MatrixEditor;
+use crate::data::roles::ColumnPlan;
+use crate::data::{Dataset, ProbOptions, TableOptions};
+use crate::error::Error;
+use crate::io::model::{write_model, ModelFile, Provenance, TrainingSettings};
+use crate::io::session::{
+    read_session, write_session, EstimatorName, MatrixOrigin, Roles, Session, SessionMatrix,
+    Settings,
+};
+use crate::io::worklist::{read_review, write_merged, write_worklist, Review};
+use crate::io::{check_not_input, write_atomic};
+use crate::learn::train::Correction;
+use crate::learn::{OofParams, SoftmaxParams};
+use crate::noise::bootstrap::Interval;
+use crate::noise::matrix::{load_matrix_csv, write_matrix_csv};
+use crate::noise::{diagnose, Diagnostics, Method};
+use crate::workflow::compare::{
+    compare, load_test, CompareInputs, CompareSettings, Comparison, MatrixChoice,
+};
+use crate::workflow::{self, ProbSource, RowProbabilities};
+
+/// How serious a message is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Level {
+    /// Something failed; nothing was lost.
+    Error,
+    /// Worth knowing before trusting a figure.
+    Warning,
+    /// Done.
+    Info,
+}
+
+/// A line shown in the message area until dismissed.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Message {
+    /// Its level.
+    pub level: Level,
+    /// Its text.
+    pub text: String,
+}
+
+/// The estimate a matrix was started from.
+#[derive(Debug, Clone)]
+pub struct EstimateInfo {
+    /// How it was made (`quantile (q = 0.97)`, `file m.csv`, …).
+    pub source: String,
+    /// Notes from estimation.
+    pub notes: Vec<String>,
+    /// The method, for the bootstrap (none for imported matrices).
+    pub method: Option<Method>,
+}
+
+/// A comparison and the matrix version it was trained with.
+#[derive(Debug, Clone)]
+pub struct Retrained {
+    /// The results.
+    pub comparison: Arc<Comparison>,
+    /// Matrix version used.
+    pub matrix_version: u64,
+}
+
+/// A reviewed worklist that was read, waiting to be merged.
+#[derive(Debug, Clone)]
+pub struct ReviewRead {
+    /// The worklist file.
+    pub path: PathBuf,
+    /// Its verdicts.
+    pub review: Arc<Review>,
+    /// Verdicts that confirm the observed label.
+    pub confirmed: usize,
+    /// Verdicts that change it.
+    pub changed: usize,
+}
+
+/// What a finished job hands back. Each result carries the data generation (and, where
+/// it matters, the matrix version) it was computed from; one that no longer matches is
+/// discarded.
+#[derive(Debug)]
+pub enum JobOutput {
+    /// A table was read.
+    Loaded(Box<Dataset>, Roles),
+    /// Probabilities for data generation `.1`.
+    Probabilities(Box<RowProbabilities>, u64),
+    /// An estimate for data generation `.1`.
+    Estimated(Array2<f64>, u64, EstimateInfo),
+    /// Bootstrap intervals for data generation `.1`.
+    Intervals(Interval, u64),
+    /// A ranking for data generation `.1`.
+    Ranked(Box<Ranking>, u64),
+    /// Diagnostics for data generation `.1` and matrix version `.2`.
+    Diagnosed(Box<Diagnostics>, u64, u64),
+    /// A comparison for data generation `.1`.
+    Compared(Retrained, u64),
+    /// A reviewed worklist for data generation `.1`.
+    Reviewed(ReviewRead, u64),
+    /// A file was written; the message says which.
+    Saved(String),
+    /// A merged copy was written; load it next.
+    Merged(PathBuf),
+    /// A test job's text.
+    Text(String),
+}
+
+/// The whole app state.
+pub struct AppState {
+    /// Paths, roles, matrix and settings as a session file stores them.
+    pub session: Session,
+    /// The session file, once saved or opened.
+    pub session_path: Option<PathBuf>,
+    /// The loaded table.
+    pub data: Option<Arc<Dataset>>,
+    /// Bumped on every successful load; results from older data are discarded.
+    pub data_generation: u64,
+    /// Probabilities of the current data.
+    pub probs: Option<Arc<RowProbabilities>>,
+    /// The matrix being edited.
+    pub editor: Option<MatrixEditor>,
+    /// How the editor's reference matrix was made.
+    pub estimate: Option<EstimateInfo>,
+    /// Bootstrap intervals of the estimate.
+    pub intervals: Option<Interval>,
+    /// Diagnostics of the current matrix (and the version they are for).
+    pub diagnostics: Option<(Diagnostics, u64)>,
+    /// Ranked suspects of the current (or, while re-ranking, the previous) matrix.
+    pub ranking: Option<Arc<Ranking>>,
+    /// Positions in the ranking that pass the filters.
+    pub visible: Vec<u32>,
+    /// The last comparison.
+    pub retrained: Option<Retrained>,
+    /// The last reviewed worklist read.
+    pub review: Option<ReviewRead>,
+    /// Messages not yet dismissed, oldest first.
+    pub messages: Vec<Message>,
+    /// Background work.
+    pub jobs: Jobs<JobOutput>,
+    /// A matrix from a session, applied once its data's estimate arrives.
+    pending_matrix: Option<SessionMatrix>,
+}
+
+/// Messages kept at most (older ones go first).
+const MAX_MESSAGES: usize = 20;
+
+impl AppState {
+    /// An empty state; `wake` is called from workers when a job ends.
+    pub fn new(wake: Arc<dyn Fn() + Send + Sync>) -> Self {
+        AppState {
+            session: Session::new(),
+            session_path: None,
+            data: None,
+            data_generation: 0,
+            probs: None,
+            editor: None,
+            estimate: None,
+            intervals: None,
+            diagnostics: None,
+            ranking: None,
+            visible: Vec::new(),
+            retrained: None,
+            review: None,
+            messages: Vec::new(),
+            jobs: Jobs::new(wake),
+            pending_matrix: None,
+        }
+    }
+
+    /// The settings in force.
+    pub fn settings(&self) -> &Settings {
+        &self.session.settings
+    }
+
+    /// Adds a message.
+    pub fn say(&mut self, level: Level, text: impl Into<String>) {
+        self.messages.push(Message {
+            level,
+            text: text.into(),
+        });
+        if self.messages.len() > MAX_MESSAGES {
+            self.messages.remove(0);
+        }
+    }
+
+    /// The most recent error message, if any is shown.
+    pub fn last_error(&self) -> Option<&str> {
+        self.messages
+            .iter()
+            .rev()
+            .find(|m| m.level == Level::Error)
+            .map(|m| m.text.as_str())
+    }
+
+    /// Carries out one command.
+    pub fn apply(&mut self, command: Command) {
+        match command {
+            Command::LoadData(path, roles) => self.load_data(path, roles),
+            Command::LoadProbabilities(path) => self.load_probabilities(Some(path)),
+            Command::ComputeProbabilities => self.load_probabilities(None),
+            Command::Settings(settings) => self.change_settings(settings),
+            Command::Estimate => self.start_estimate(),
+            Command::SetCell { row, col, value } => {
+                let keep = self.session.settings.keep_diagonal;
+                if let Some(e) = &mut self.editor {
+                    if e.set_cell(row, col, value, keep) {
+                        self.matrix_changed();
+                    }
+                }
+            }
+            Command::EndGesture => {
+                if let Some(e) = &mut self.editor {
+                    e.end_gesture();
+                }
+            }
+            Command::Undo => self.edit(MatrixEditor::undo),
+            Command::Redo => self.edit(MatrixEditor::redo),
+            Command::ResetMatrix => self.edit(MatrixEditor::reset),
+            Command::ImportMatrix(path) => self.import_matrix(&path),
+            Command::ExportMatrix(path) => self.export_matrix(path),
+            Command::Bootstrap => self.start_bootstrap(),
+            Command::ExportWorklist(path) => self.export_worklist(path),
+            Command::ImportReview(path) => self.import_review(path),
+            Command::SaveMerged(path) => self.save_merged(path),
+            Command::Retrain => self.start_retrain(),
+            Command::SaveModel(index, path) => self.save_model(index, path),
+            Command::SaveSession(path) => self.save_session(path),
+            Command::OpenSession(path) => self.open_session(&path),
+            Command::Cancel(kind) => self.jobs.cancel(kind),
+            Command::Dismiss(i) => {
+                if i < self.messages.len() {
+                    self.messages.remove(i);
+                }
+            }
+        }
+    }
+
+    /// Takes in finished jobs; returns true when anything changed.
+    pub fn poll(&mut self) -> bool {
+        let finished = self.jobs.poll();
+        let changed = !finished.is_empty();
+        for done in finished {
+            self.receive(done);
+        }
+        changed
+    }
+
+    /// Waits for every job (and the jobs they start) to finish; for tests and scripts.
+    pub fn settle(&mut self, timeout_secs: f64) {
+        let deadline = std::time::Instant::now() + std::time::Duration::from_secs_f64(timeout_secs);
+        loop {
+            for done in self.jobs.wait_all(timeout_secs) {
+                self.receive(done);
+            }
+            if !self.jobs.busy() || std::time::Instant::now() > deadline {
+                break;
+            }
+        }
+    }
+
+    fn receive(&mut self, done: Finished<JobOutput>) {
+        let kind = done.ticket.kind;
+        match done.outcome {
+            Ok(output) => self.accept(output),
+            Err(JobFailure::Cancelled) => {
+                self.say(Level::Info, format!("{}: cancelled", kind.label()))
+            }
+            Err(failure) => self.say(Level::Error, failure.to_string()),
+        }
+    }
+
+    fn accept(&mut self, output: JobOutput) {
+        let current = self.data_generation;
+        match output {
+            JobOutput::Loaded(data, roles) => self.data_loaded(*data, roles),
+            JobOutput::Probabilities(p, generation) if generation == current => {
+                for notice in &p.notices {
+                    self.say(Level::Warning, notice.clone());
+                }
+                self.probs = Some(Arc::from(p));
+                self.start_estimate();
+            }
+            JobOutput::Estimated(matrix, generation, info) if generation == current => {
+                self.estimated(matrix, info)
+            }
+            JobOutput::Intervals(interval, generation) if generation == current => {
+                self.intervals = Some(interval)
+            }
+            JobOutput::Ranked(ranking, generation) if generation == current => {
+                let fresh = self
+                    .editor
+                    .as_ref()
+                    .is_some_and(|e| e.version() == ranking.matrix_version);
+                if fresh && ranking.kind == self.session.settings.score {
+                    self.ranking = Some(Arc::from(ranking));
+                    self.refilter();
+                }
+            }
+            JobOutput::Diagnosed(d, generation, version) if generation == current => {
+                self.diagnostics = Some((*d, version))
+            }
+            JobOutput::Compared(r, generation) if generation == current => {
+                let warnings = r.comparison.report.warnings.clone();
+                self.retrained = Some(r);
+                for w in warnings {
+                    self.say(Level::Warning, w);
+                }
+            }
+            JobOutput::Reviewed(r, generation) if generation == current => {
+                self.say(
+                    Level::Info,
+                    format!(
+                        "{}: {} verdicts ({} confirm, {} change the label)",
+                        r.path.display(),
+                        r.confirmed + r.changed,
+                        r.confirmed,
+                        r.changed
+                    ),
+                );
+                self.review = Some(r);
+            }
+            JobOutput::Saved(text) | JobOutput::Text(text) => self.say(Level::Info, text),
+            JobOutput::Merged(path) => {
+                self.say(Level::Info, format!("wrote {}; loading it", path.display()));
+                let roles = self.session.roles.clone();
+                self.load_data(path, roles);
+            }
+            // A result computed from data that has since been replaced.
+            _ => {}
+        }
+    }
+
+    // ---- data and probabilities -------------------------------------------------
+
+    fn load_data(&mut self, path: PathBuf, roles: Roles) {
+        let options = match table_options(&roles) {
+            Ok(o) => o,
+            Err(e) => return self.say(Level::Error, e),
+        };
+        self.jobs.spawn(JobKind::Load, move |_| {
+            let data = Dataset::load(&path, &options).map_err(fail)?;
+            Ok(JobOutput::Loaded(Box::new(data), roles))
+        });
+    }
+
+    fn data_loaded(&mut self, data: Dataset, roles: Roles) {
+        for w in &data.warnings {
+            self.say(Level::Warning, w.clone());
+        }
+        self.say(
+            Level::Info,
+            format!(
+                "loaded {}: {} rows, {} features, {} classes",
+                data.path.display(),
+                data.rows(),
+                data.feature_names.len(),
+                data.classes.len()
+            ),
+        );
+        let other_file = self.session.data.as_ref().is_some_and(|p| p != &data.path);
+        self.session.data = Some(data.path.clone());
+        self.session.roles = roles;
+        if other_file {
+            self.session.probs = None;
+        }
+        self.data = Some(Arc::new(data));
+        self.data_generation += 1;
+        for kind in [
+            JobKind::Probabilities,
+            JobKind::Estimate,
+            JobKind::Bootstrap,
+            JobKind::Rank,
+            JobKind::Retrain,
+            JobKind::Review,
+        ] {
+            self.jobs.cancel(kind);
+        }
+        self.probs = None;
+        self.editor = None;
+        self.estimate = None;
+        self.intervals = None;
+        self.diagnostics = None;
+        self.ranking = None;
+        self.visible.clear();
+        self.retrained = None;
+        self.review = None;
+        let probs = self.session.probs.clone();
+        self.load_probabilities(probs);
+    }
+
+    fn load_probabilities(&mut self, path: Option<PathBuf>) {
+        let Some(data) = self.data.clone() else {
+            return self.say(Level::Error, "load a data table first");
+        };
+        let options = ProbOptions {
+            renormalize: false,
+            delimiter: None,
+        };
+        let oof = self.oof_params();
+        let generation = self.data_generation;
+        self.session.probs = path.clone();
+        self.jobs.spawn(JobKind::Probabilities, move |control| {
+            let probs =
+                workflow::probabilities(&data, path.as_deref(), &options, &oof, &mut |f, n| {
+                    control.set_progress(f, n);
+                    !control.is_cancelled()
+                })
+                .map_err(fail)?;
+            Ok(JobOutput::Probabilities(Box::new(probs), generation))
+        });
+    }
+
+    /// Folds, seed and model of every fit.
+    pub fn oof_params(&self) -> OofParams {
+        let s = &self.session.settings;
+        OofParams {
+            folds: s.folds,
+            seed: s.seed,
+            model: SoftmaxParams::default().l2(s.l2).max_iter(s.max_iter),
+        }
+    }
+
+    // ---- the flip matrix ----------------------------------------------------------
+
+    /// The estimator the settings pick.
+    pub fn method(&self) -> Method {
+        let s = &self.session.settings;
+        match s.estimator {
+            EstimatorName::Quantile => Method::Quantile { q: s.quantile },
+            EstimatorName::Anchor => Method::Anchor,
+            EstimatorName::Trusted => Method::Trusted {
+                fallback_quantile: Some(s.quantile),
+            },
+            EstimatorName::Counting => Method::Counting,
+        }
+    }
+
+    fn start_estimate(&mut self) {
+        let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
+            return;
+        };
+        let method = self.method();
+        let generation = self.data_generation;
+        self.jobs.spawn(JobKind::Estimate, move |_| {
+            let rows: Vec<usize> = (0..data.rows()).collect();
+            let sample = workflow::sample(&data, &probs.values, &rows);
+            let e = crate::noise::estimate(&method, &sample, &data.classes).map_err(fail)?;
+            let info = EstimateInfo {
+                source: workflow::MatrixSource::Estimate(method.clone()).describe(),
+                notes: e.notes,
+                method: Some(method),
+            };
+            Ok(JobOutput::Estimated(e.matrix, generation, info))
+        });
+    }
+
+    fn estimated(&mut self, matrix: Array2<f64>, info: EstimateInfo) {
+        for note in &info.notes {
+            self.say(Level::Warning, note.clone());
+        }
+        let classes = self
+            .data
+            .as_ref()
+            .map(|d| d.classes.clone())
+            .unwrap_or_default();
+        let restored = self
+            .pending_matrix
+            .take()
+            .filter(|m| m.classes == classes)
+            .map(|m| {
+                let k = m.classes.len();
+                let flat: Vec<f64> = m.values.into_iter().flatten().collect();
+                (Array2::from_shape_vec((k, k), flat), m.origin)
+            });
+        match (restored, &mut self.editor) {
+            (Some((Ok(saved), origin)), _) => {
+                let mut editor = MatrixEditor::new(matrix, MatrixOrigin::Estimated);
+                if origin == MatrixOrigin::Imported {
+                    editor.replace(saved, MatrixOrigin::Imported);
+                } else {
+                    // Restored edits are measured against the fresh estimate.
+                    editor.replace_current(saved, origin);
+                }
+                self.editor = Some(editor);
+            }
+            (_, Some(editor)) => editor.replace(matrix, MatrixOrigin::Estimated),
+            (_, None) => self.editor = Some(MatrixEditor::new(matrix, MatrixOrigin::Estimated)),
+        }
+        self.estimate = Some(info);
+        self.intervals = None;
+        self.matrix_changed();
+    }
+
+    fn edit(&mut self, change: fn(&mut MatrixEditor) -> bool) {
+        if let Some(e) = &mut self.editor {
+            if change(e) {
+                self.matrix_changed();
+            }
+        }
+    }
+
+    /// The matrix changed: re-rank now, diagnose alongside.
+    fn matrix_changed(&mut self) {
+        self.start_rank();
+        self.start_diagnose();
+    }
+
+    fn start_rank(&mut self) {
+        let (Some(data), Some(probs), Some(editor)) =
+            (self.data.clone(), self.probs.clone(), self.editor.as_ref())
+        else {
+            return;
+        };
+        let matrix = editor.matrix().clone();
+        let version = editor.version();
+        let kind = self.session.settings.score;
+        let generation = self.data_generation;
+        self.jobs.spawn(JobKind::Rank, move |_| {
+            let r = rank_rows(probs.values.view(), &data.labels, &matrix, kind, version);
+            Ok(JobOutput::Ranked(Box::new(r), generation))
+        });
+    }
+
+    fn start_diagnose(&mut self) {
+        let (Some(data), Some(probs), Some(editor)) =
+            (self.data.clone(), self.probs.clone(), self.editor.as_ref())
+        else {
+            return;
+        };
+        let matrix = editor.matrix().clone();
+        let version = editor.version();
+        let generation = self.data_generation;
+        self.jobs.spawn(JobKind::Diagnose, move |_| {
+            let external = matches!(probs.source, ProbSource::File(_));
+            let d = diagnose(
+                &matrix,
+                probs.values.view(),
+                &data.labels,
+                &data.classes,
+                external,
+            );
+            Ok(JobOutput::Diagnosed(Box::new(d), generation, version))
+        });
+    }
+
+    fn import_matrix(&mut self, path: &Path) {
+        let Some(data) = &self.data else {
+            return self.say(Level::Error, "load a data table first");
+        };
+        match load_matrix_csv(path, &data.classes, false) {
+            Ok((matrix, notes)) => {
+                for n in notes {
+                    self.say(Level::Warning, n);
+                }
+                let k = matrix.nrows();
+                let editor = self.editor.get_or_insert_with(|| {
+                    MatrixEditor::new(Array2::eye(k), MatrixOrigin::Imported)
+                });
+                editor.replace(matrix, MatrixOrigin::Imported);
+                self.estimate = Some(EstimateInfo {
+                    source: format!("file {}", path.display()),
+                    notes: Vec::new(),
+                    method: None,
+                });
+                self.intervals = None;
+                self.say(Level::Info, format!("imported {}", path.display()));
+                self.matrix_changed();
+            }
+            Err(e) => self.say(Level::Error, e.to_string()),
+        }
+    }
+
+    fn export_matrix(&mut self, path: PathBuf) {
+        let (Some(data), Some(editor)) = (&self.data, &self.editor) else {
+            return self.say(Level::Error, "there is no matrix to export yet");
+        };
+        let matrix = editor.matrix().clone();
+        let classes = data.classes.clone();
+        let inputs = self.input_paths();
+        self.save_job(path, inputs, move |w| {
+            write_matrix_csv(w, &matrix, &classes)
+        });
+    }
+
+    fn start_bootstrap(&mut self) {
+        let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
+            return self.say(Level::Error, "the bootstrap needs data and probabilities");
+        };
+        let Some(method) = self.estimate.as_ref().and_then(|e| e.method.clone()) else {
+            return self.say(
+                Level::Error,
+                "an imported matrix has no estimator to resample",
+            );
+        };
+        let s = &self.session.settings;
+        let (resamples, seed) = (s.resamples.max(2), s.seed);
+        let generation = self.data_generation;
+        self.jobs.spawn(JobKind::Bootstrap, move |_| {
+            let i = workflow::matrix_intervals(&data, &probs, &method, resamples, seed)
+                .map_err(fail)?;
+            Ok(JobOutput::Intervals(i, generation))
+        });
+    }
+
+    // ---- settings -------------------------------------------------------------------
+
+    fn change_settings(&mut self, new: Settings) {
+        let old = std::mem::replace(&mut self.session.settings, new);
+        let s = &self.session.settings;
+        let estimator_changed = old.estimator != s.estimator
+            || (s.estimator != EstimatorName::Anchor
+                && s.estimator != EstimatorName::Counting
+                && old.quantile != s.quantile);
+        let score_changed = old.score != s.score;
+        let filter_changed = old.min_score != s.min_score
+            || old.observed_filter != s.observed_filter
+            || old.suggested_filter != s.suggested_filter;
+        if estimator_changed {
+            self.start_estimate();
+        } else if score_changed {
+            self.start_rank();
+        }
+        if filter_changed {
+            self.refilter();
+        }
+    }
+
+    /// The filter the settings describe, with class names resolved.
+    pub fn filter(&self) -> Filter {
+        let s = &self.session.settings;
+        let class = |name: &Option<String>| {
+            let classes = &self.data.as_ref()?.classes;
+            classes.iter().position(|c| Some(c) == name.as_ref())
+        };
+        Filter {
+            observed: class(&s.observed_filter),
+            suggested: class(&s.suggested_filter),
+            min_score: s.min_score,
+        }
+    }
+
+    fn refilter(&mut self) {
+        let filter = self.filter();
+        self.visible = match (&self.ranking, &self.data) {
+            (Some(r), Some(d)) => filter_rows(&r.ranked, &d.labels, &filter),
+            _ => Vec::new(),
+        };
+    }
+
+    /// The worklist rows: the visible rows up to the budget.
+    pub fn worklist(&self) -> Vec<crate::noise::scores::RowScore> {
+        let Some(r) = &self.ranking else {
+            return Vec::new();
+        };
+        let budget = self.session.settings.budget;
+        self.visible
+            .iter()
+            .take(budget)
+            .map(|&i| r.ranked[i as usize])
+            .collect()
+    }
+
+    // ---- suspects and review ----------------------------------------------------------
+
+    fn export_worklist(&mut self, path: PathBuf) {
+        let Some(data) = self.data.clone() else {
+            return self.say(Level::Error, "load a data table first");
+        };
+        if self.ranking.is_none() {
+            return self.say(Level::Error, "the suspects are not ranked yet");
+        }
+        let rows = self.worklist();
+        let inputs = self.input_paths();
+        self.save_job(path, inputs, move |w| {
+            write_worklist(w, &data, &rows, false)
+        });
+    }
+
+    fn import_review(&mut self, path: PathBuf) {
+        let Some(data) = self.data.clone() else {
+            return self.say(Level::Error, "load a data table first");
+        };
+        let generation = self.data_generation;
+        self.jobs.spawn(JobKind::Review, move |_| {
+            let file = std::fs::File::open(&path).map_err(|source| {
+                fail(Error::Read {
+                    path: path.clone(),
+                    source,
+                })
+            })?;
+            let review = read_review(file, &path, &data).map_err(fail)?;
+            let confirmed = review.confirmed(&data);
+            let changed = review.changed(&data);
+            let read = ReviewRead {
+                path,
+                review: Arc::new(review),
+                confirmed,
+                changed,
+            };
+            Ok(JobOutput::Reviewed(read, generation))
+        });
+    }
+
+    fn save_merged(&mut self, path: PathBuf) {
+        let (Some(data), Some(review)) = (self.data.clone(), self.review.clone()) else {
+            return self.say(Level::Error, "read a reviewed worklist first");
+        };
+        let inputs = self.input_paths();
+        let mut all_inputs = inputs;
+        all_inputs.push(review.path.clone());
+        let delimiter = table_options(&self.session.roles)
+            .map(|o| o.delimiter_for(&data.path))
+            .unwrap_or(b',');
+        let target = path.clone();
+        self.jobs.spawn(JobKind::Save, move |_| {
+            let inputs: Vec<&Path> = all_inputs.iter().map(PathBuf::as_path).collect();
+            check_not_input(&target, &inputs).map_err(fail)?;
+            write_atomic(&target, |w| {
+                write_merged(w, &data, delimiter, &review.review)
+            })
+            .map_err(fail)?;
+            Ok(JobOutput::Merged(target))
+        });
+    }
+
+    // ---- retraining -------------------------------------------------------------------
+
+    fn start_retrain(&mut self) {
+        let (Some(data), Some(probs), Some(editor)) =
+            (self.data.clone(), self.probs.clone(), self.editor.as_ref())
+        else {
+            return self.say(
+                Level::Error,
+                "retraining needs data, probabilities and a matrix",
+            );
+        };
+        let matrix = editor.matrix().clone();
+        let version = editor.version();
+        let s = &self.session.settings;
+        let settings = CompareSettings {
+            holdout: s.holdout,
+            fit: self.oof_params(),
+            corrections: s
+                .corrections
+                .iter()
+                .filter_map(|c| correction_named(c))
+                .collect(),
+        };
+        let test_path = s.test.clone();
+        let generation = self.data_generation;
+        self.jobs.spawn(JobKind::Retrain, move |control| {
+            let test = test_path
+                .as_deref()
+                .map(|p| load_test(p, None, &data))
+                .transpose()
+                .map_err(fail)?;
+            let inputs = CompareInputs {
+                data: &data,
+                probs: Some(probs.values.view()),
+                matrix: MatrixChoice::Given(&matrix),
+                test: test.as_ref().map(|(x, l)| (x, l.as_slice())),
+            };
+            let comparison = compare(inputs, &settings, Some(control.flag()), &mut |i, n| {
+                control.set_progress(i, n);
+                !control.is_cancelled()
+            })
+            .map_err(fail)?;
+            let retrained = Retrained {
+                comparison: Arc::new(comparison),
+                matrix_version: version,
+            };
+            Ok(JobOutput::Compared(retrained, generation))
+        });
+    }
+
+    fn save_model(&mut self, index: usize, path: PathBuf) {
+        let (Some(data), Some(r)) = (self.data.clone(), self.retrained.clone()) else {
+            return self.say(Level::Error, "train first");
+        };
+        if index >= r.comparison.models.len() {
+            return self.say(Level::Error, "no such model");
+        }
+        let s = self.session.settings.clone();
+        let source = self.matrix_description();
+        let inputs = self.input_paths();
+        self.save_job(path, inputs, move |w| {
+            let c = &r.comparison;
+            let (correction, model) = &c.models[index];
+            let matrix = Array2::from_shape_vec(
+                (c.report.classes.len(), c.report.classes.len()),
+                c.report.matrix.iter().flatten().copied().collect(),
+            )
+            .map_err(std::io::Error::other)?;
+            let provenance = Provenance {
+                data: &data,
+                rows: &c.train,
+                correction: correction.name(),
+                matrix: correction.needs_matrix().then_some(&matrix),
+                fit: c.fits[index],
+            };
+            let settings = TrainingSettings {
+                l2: s.l2,
+                max_iter: s.max_iter,
+                seed: s.seed,
+                matrix_source: correction.needs_matrix().then(|| source.clone()),
+            };
+            write_model(w, &ModelFile::describe(model, provenance, settings))
+        });
+    }
+
+    /// How the status bar and model files name the current matrix.
+    pub fn matrix_description(&self) -> String {
+        match (&self.editor, &self.estimate) {
+            (Some(e), Some(info)) if e.origin() == MatrixOrigin::Edited => {
+                format!("{} (edited by hand)", info.source)
+            }
+            (Some(_), Some(info)) => info.source.clone(),
+            _ => "none yet".into(),
+        }
+    }
+
+    // ---- sessions -----------------------------------------------------------------------
+
+    /// The session as it would be saved now.
+    pub fn snapshot_session(&self) -> Session {
+        let mut s = self.session.clone();
+        s.matrix = match (&self.data, &self.editor) {
+            (Some(d), Some(e)) => Some(SessionMatrix {
+                classes: d.classes.clone(),
+                values: e.matrix().rows().into_iter().map(|r| r.to_vec()).collect(),
+                origin: e.origin(),
+            }),
+            _ => None,
+        };
+        s
+    }
+
+    fn save_session(&mut self, path: Option<PathBuf>) {
+        let Some(path) = path.or_else(|| self.session_path.clone()) else {
+            return self.say(Level::Error, "choose a file to save the session to");
+        };
+        let session = self.snapshot_session();
+        let inputs = self.input_paths();
+        let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+        // Sessions are small: written here, so a failure is reported before the next frame.
+        let outcome = check_not_input(&path, &refs)
+            .and_then(|()| write_atomic(&path, |w| write_session(w, &session)));
+        match outcome {
+            Ok(()) => {
+                self.say(Level::Info, format!("session saved to {}", path.display()));
+                self.session_path = Some(path);
+            }
+            Err(e) => self.say(Level::Error, format!("the session was not saved: {e}")),
+        }
+    }
+
+    fn open_session(&mut self, path: &Path) {
+        let read = std::fs::File::open(path)
+            .map_err(|source| Error::Read {
+                path: path.to_path_buf(),
+                source,
+            })
+            .and_then(|f| read_session(f, path));
+        let session = match read {
+            Ok(s) => s,
+            Err(e) => return self.say(Level::Error, e.to_string()),
+        };
+        self.session_path = Some(path.to_path_buf());
+        self.pending_matrix = session.matrix.clone();
+        let data = session.data.clone();
+        let roles = session.roles.clone();
+        self.session = session;
+        self.session.matrix = None;
+        match data {
+            Some(data) => self.load_data(data, roles),
+            None => self.say(Level::Info, format!("opened session {}", path.display())),
+        }
+    }
+
+    // ---- helpers --------------------------------------------------------------------------
+
+    /// Files the app has read, which no output may replace.
+    fn input_paths(&self) -> Vec<PathBuf> {
+        let mut inputs: Vec<PathBuf> = Vec::new();
+        inputs.extend(self.session.data.clone());
+        inputs.extend(self.session.probs.clone());
+        inputs.extend(self.session.settings.test.clone());
+        inputs.extend(self.session_path.clone());
+        inputs
+    }
+
+    /// Writes a file on a worker, atomically, never over an input.
+    fn save_job<F>(&mut self, path: PathBuf, inputs: Vec<PathBuf>, write: F)
+    where
+        F: FnOnce(&mut dyn std::io::Write) -> std::io::Result<()> + Send + 'static,
+    {
+        self.jobs.spawn(JobKind::Save, move |_| {
+            let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+            check_not_input(&path, &refs).map_err(fail)?;
+            write_atomic(&path, write).map_err(fail)?;
+            Ok(JobOutput::Saved(format!("wrote {}", path.display())))
+        });
+    }
+
+    /// Checks roles against the loaded header without reading the file again; the
+    /// message is shown beside the role pickers as the user changes them.
+    pub fn check_roles(&self, roles: &Roles) -> Result<(), String> {
+        let Some(data) = &self.data else {
+            return Ok(());
+        };
+        let options = table_options(roles)?;
+        ColumnPlan::resolve(&data.path, &data.header, &options)
+            .map(|_| ())
+            .map_err(|e| e.to_string())
+    }
+
+    /// Runs `work` as a job of `kind` (tests use it to prove a panicking worker is
+    /// reported and the app goes on).
+    pub fn spawn_job<F>(&mut self, kind: JobKind, work: F)
+    where
+        F: FnOnce(&JobControl) -> Result<JobOutput, JobFailure> + Send + 'static,
+    {
+        self.jobs.spawn(kind, work);
+    }
+}
+
+/// Library errors become job failures (cancellation stays cancellation).
+fn fail(e: Error) -> JobFailure {
+    match e {
+        Error::Cancelled => JobFailure::Cancelled,
+        e => JobFailure::Error(e.to_string()),
+    }
+}
+
+/// The correction a settings name stands for.
+pub fn correction_named(name: &str) -> Option<Correction> {
+    match name {
+        "forward" => Some(Correction::Forward),
+        "backward" => Some(Correction::Backward { guarded: true }),
+        "prune" => Some(Correction::Prune),
+        _ => None,
+    }
+}
+
+/// Roles as loader options.
+pub fn table_options(roles: &Roles) -> Result<TableOptions, String> {
+    let delimiter = match roles.delimiter.as_deref().map(str::trim) {
+        None | Some("") => None,
+        Some(text) => Some(crate::data::roles::parse_delimiter(text)?),
+    };
+    Ok(TableOptions {
+        delimiter,
+        label: roles.label.clone(),
+        id: roles.id.clone(),
+        trusted: roles.trusted.clone(),
+        features: roles.features.clone(),
+        exclude: Vec::new(),
+        unlabeled: false,
+    })
+}

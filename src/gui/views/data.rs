@@ -1,0 +1,276 @@
+//! The Data view: open a table, choose column roles (checked as they change), see the
+//! classes, and get out-of-sample probabilities.
+
+use eframe::egui;
+
+use super::widgets::path_row;
+use crate::gui::app::UiState;
+use crate::gui::command::Command;
+use crate::gui::dialogs::Purpose;
+use crate::gui::jobs::JobKind;
+use crate::gui::state::AppState;
+use crate::io::session::Roles;
+use crate::workflow::ProbSource;
+
+/// Draws the view.
+pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    egui::ScrollArea::vertical().show(ui, |ui| {
+        ui.heading("Data table");
+        ui.label("A CSV (or TSV) with feature columns and an observed label; optionally an id and a partly audited trusted label. Drop a file on the window, browse, or type a path.");
+        let draft = view.roles_draft.clone().unwrap_or_else(|| state.session.roles.clone());
+        if let Some(path) = path_row(ui, view, Purpose::OpenData, "Load", "path to a .csv or .tsv") {
+            out.push(Command::LoadData(path, draft.clone()));
+        }
+        if let Some(running) = state.jobs.running(JobKind::Load) {
+            ui.horizontal(|ui| {
+                ui.spinner();
+                ui.label("reading the table…");
+                if ui.button("Cancel").clicked() {
+                    out.push(Command::Cancel(running.ticket.kind));
+                }
+            });
+        }
+        if state.data.is_some() {
+            ui.separator();
+            roles(ui, state, view, draft, out);
+            ui.separator();
+            classes(ui, state);
+            ui.separator();
+            probabilities(ui, state, view, out);
+        }
+    });
+}
+
+fn roles(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    view: &mut UiState,
+    mut draft: Roles,
+    out: &mut Vec<Command>,
+) {
+    let Some(data) = &state.data else { return };
+    ui.heading("Column roles");
+    let before = draft.clone();
+    egui::Grid::new("roles").num_columns(2).show(ui, |ui| {
+        ui.label("observed label");
+        column_picker(
+            ui,
+            "label",
+            &data.header,
+            &mut draft.label,
+            data.label_column.as_deref(),
+        );
+        ui.end_row();
+        ui.label("id");
+        column_picker(
+            ui,
+            "id",
+            &data.header,
+            &mut draft.id,
+            data.id_column.as_deref(),
+        );
+        ui.end_row();
+        ui.label("trusted label");
+        column_picker(
+            ui,
+            "trusted",
+            &data.header,
+            &mut draft.trusted,
+            data.trusted_column.as_deref(),
+        );
+        ui.end_row();
+        ui.label("delimiter");
+        let mut text = draft.delimiter.clone().unwrap_or_default();
+        ui.add(
+            egui::TextEdit::singleline(&mut text)
+                .hint_text("automatic (tab for .tsv)")
+                .desired_width(160.0),
+        );
+        draft.delimiter = (!text.is_empty()).then_some(text);
+        ui.end_row();
+    });
+    egui::CollapsingHeader::new(format!("features ({} in use)", data.feature_names.len()))
+        .id_salt("features")
+        .show(ui, |ui| features(ui, state, &mut draft));
+    if draft != before {
+        view.roles_draft = Some(draft.clone());
+    }
+    let check = state.check_roles(&draft);
+    ui.horizontal(|ui| {
+        match &check {
+            Ok(()) => ui.colored_label(
+                ui.visuals().weak_text_color(),
+                "roles are valid for this header",
+            ),
+            Err(e) => ui.colored_label(ui.visuals().error_fg_color, e),
+        };
+    });
+    let changed = draft != state.session.roles;
+    if ui
+        .add_enabled(
+            check.is_ok() && changed,
+            egui::Button::new("Apply roles (reload)"),
+        )
+        .clicked()
+    {
+        out.push(Command::LoadData(data.path.clone(), draft));
+        view.roles_draft = None;
+    }
+    if !data.ignored.is_empty() {
+        let names: Vec<&str> = data.ignored.iter().map(|c| c.name.as_str()).collect();
+        ui.label(format!("not used: {}", names.join(", ")));
+    }
+}
+
+/// A header column picker; `None` is "automatic", and `current` says what it resolved to.
+fn column_picker(
+    ui: &mut egui::Ui,
+    id: &str,
+    header: &[String],
+    choice: &mut Option<String>,
+    current: Option<&str>,
+) {
+    let shown = match (choice.as_deref(), current) {
+        (Some(c), _) => c.to_string(),
+        (None, Some(c)) => format!("automatic ({c})"),
+        (None, None) => "automatic (none)".into(),
+    };
+    egui::ComboBox::from_id_salt(id)
+        .selected_text(shown)
+        .show_ui(ui, |ui| {
+            ui.selectable_value(choice, None, "automatic");
+            for h in header {
+                ui.selectable_value(choice, Some(h.clone()), h);
+            }
+        });
+}
+
+fn features(ui: &mut egui::Ui, state: &AppState, draft: &mut Roles) {
+    let Some(data) = &state.data else { return };
+    let mut chosen: Vec<String> = draft
+        .features
+        .clone()
+        .unwrap_or_else(|| data.feature_names.clone());
+    ui.horizontal(|ui| {
+        if ui.button("all numeric columns").clicked() {
+            draft.features = None;
+        }
+    });
+    let mut changed = false;
+    egui::ScrollArea::vertical()
+        .max_height(180.0)
+        .id_salt("feature-list")
+        .show(ui, |ui| {
+            for name in &data.header {
+                let mut on = chosen.contains(name);
+                if ui.checkbox(&mut on, name).changed() {
+                    changed = true;
+                    if on {
+                        chosen.push(name.clone());
+                    } else {
+                        chosen.retain(|c| c != name);
+                    }
+                }
+            }
+        });
+    if changed {
+        // Keep header order so the model's columns do not depend on click order.
+        chosen.sort_by_key(|c| data.header.iter().position(|h| h == c));
+        draft.features = Some(chosen);
+    }
+}
+
+fn classes(ui: &mut egui::Ui, state: &AppState) {
+    let Some(data) = &state.data else { return };
+    ui.heading("Classes");
+    let counts = data.class_counts();
+    let trusted = data.trusted_counts();
+    let n = data.rows().max(1) as f64;
+    egui::Grid::new("classes")
+        .striped(true)
+        .num_columns(4)
+        .show(ui, |ui| {
+            ui.strong("class");
+            ui.strong("rows");
+            ui.strong("share");
+            ui.strong("trusted");
+            ui.end_row();
+            for (i, c) in data.classes.iter().enumerate() {
+                ui.label(c);
+                ui.label(counts[i].to_string());
+                ui.label(format!("{:.1}%", 100.0 * counts[i] as f64 / n));
+                ui.label(if data.trusted.is_some() {
+                    trusted[i].to_string()
+                } else {
+                    "–".into()
+                });
+                ui.end_row();
+            }
+        });
+    for w in &data.warnings {
+        ui.colored_label(ui.visuals().warn_fg_color, w);
+    }
+}
+
+fn probabilities(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    ui.heading("Out-of-sample probabilities");
+    ui.label("Each row's class probabilities from a model that did not see that row. In-sample probabilities make the flip matrix look like the identity.");
+    match &state.probs {
+        Some(p) => ui.label(format!("in use: {}", p.source.describe())),
+        None => ui.label("none yet"),
+    };
+    if let Some(path) = path_row(
+        ui,
+        view,
+        Purpose::OpenProbabilities,
+        "Load",
+        "probabilities: .csv (by id) or .npy",
+    ) {
+        out.push(Command::LoadProbabilities(path));
+    }
+    let mut s = state.settings().clone();
+    ui.horizontal(|ui| {
+        ui.label("or compute them:");
+        ui.add(
+            egui::DragValue::new(&mut s.folds)
+                .range(2..=20)
+                .prefix("folds "),
+        );
+        ui.add(egui::DragValue::new(&mut s.seed).prefix("seed "));
+        ui.add(
+            egui::DragValue::new(&mut s.l2)
+                .speed(1e-4)
+                .range(0.0..=10.0)
+                .prefix("L2 "),
+        );
+        ui.add(
+            egui::DragValue::new(&mut s.max_iter)
+                .range(1..=10_000)
+                .prefix("iterations "),
+        );
+        if ui.button("Compute out-of-fold").clicked() {
+            out.push(Command::ComputeProbabilities);
+        }
+    });
+    if s != *state.settings() {
+        out.push(Command::Settings(s));
+    }
+    if let Some(running) = state.jobs.running(JobKind::Probabilities) {
+        ui.horizontal(|ui| {
+            ui.add(
+                egui::ProgressBar::new(running.control.progress())
+                    .desired_width(240.0)
+                    .show_percentage(),
+            );
+            if ui.button("Cancel").clicked() {
+                out.push(Command::Cancel(JobKind::Probabilities));
+            }
+        });
+    }
+    if matches!(
+        state.probs.as_ref().map(|p| &p.source),
+        Some(ProbSource::File(_))
+    ) {
+        ui.label("A probability file is trusted to be out-of-sample; the Flip matrix view warns when it looks in-sample.");
+    }
+}

@@ -1,0 +1,373 @@
+//! The Flip matrix view: the estimate as an editable heatmap (rows = true class), the
+//! estimator controls, and what the matrix implies (noise per class, priors, warnings).
+
+use eframe::egui;
+use egui_plot::{Bar, BarChart, Legend, Plot};
+
+use super::widgets::{heat, path_row};
+use crate::gui::app::UiState;
+use crate::gui::command::Command;
+use crate::gui::dialogs::Purpose;
+use crate::gui::matrix_edit::MatrixEditor;
+use crate::gui::state::AppState;
+use crate::io::session::EstimatorName;
+
+/// Above this many classes the grid scrolls and the largest flips are listed beside it.
+pub const MANY_CLASSES: usize = 12;
+
+/// Draws the view.
+pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    let Some(data) = &state.data else {
+        ui.label("Load a data table first (Data view).");
+        return;
+    };
+    let Some(editor) = &state.editor else {
+        ui.horizontal(|ui| {
+            ui.spinner();
+            ui.label("waiting for probabilities and the estimate…");
+        });
+        return;
+    };
+    estimator_controls(ui, state, out);
+    edit_controls(ui, state, editor, out);
+    ui.separator();
+    egui::Panel::right("matrix-side")
+        .resizable(true)
+        .default_size(340.0)
+        .show(ui, |ui| side(ui, state, editor));
+    egui::CentralPanel::default().show(ui, |ui| {
+        grid(ui, state, &data.classes, editor, out);
+        ui.separator();
+        files(ui, view, out);
+    });
+}
+
+fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
+    let mut s = state.settings().clone();
+    ui.horizontal(|ui| {
+        ui.label("estimator");
+        egui::ComboBox::from_id_salt("estimator")
+            .selected_text(estimator_name(s.estimator))
+            .show_ui(ui, |ui| {
+                for e in [
+                    EstimatorName::Quantile,
+                    EstimatorName::Anchor,
+                    EstimatorName::Trusted,
+                    EstimatorName::Counting,
+                ] {
+                    ui.selectable_value(&mut s.estimator, e, estimator_name(e));
+                }
+            });
+        let uses_quantile = matches!(
+            s.estimator,
+            EstimatorName::Quantile | EstimatorName::Trusted
+        );
+        ui.add_enabled(
+            uses_quantile,
+            egui::Slider::new(&mut s.quantile, 0.5..=1.0)
+                .text("quantile")
+                .fixed_decimals(3),
+        );
+        ui.separator();
+        ui.add(
+            egui::DragValue::new(&mut s.resamples)
+                .range(2..=1000)
+                .prefix("resamples "),
+        );
+        if ui
+            .button("Bootstrap intervals")
+            .on_hover_text("5th–95th percentiles, shown on hover")
+            .clicked()
+        {
+            out.push(Command::Bootstrap);
+        }
+    });
+    if s != *state.settings() {
+        out.push(Command::Settings(s));
+    }
+    if let Some(info) = &state.estimate {
+        ui.label(format!("matrix from {}", state.matrix_description()))
+            .on_hover_text(info.notes.join("\n"));
+    }
+}
+
+fn estimator_name(e: EstimatorName) -> &'static str {
+    match e {
+        EstimatorName::Quantile => "quantile",
+        EstimatorName::Anchor => "anchor",
+        EstimatorName::Trusted => "trusted",
+        EstimatorName::Counting => "counting",
+    }
+}
+
+fn edit_controls(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    editor: &MatrixEditor,
+    out: &mut Vec<Command>,
+) {
+    ui.horizontal(|ui| {
+        if ui
+            .add_enabled(editor.can_undo(), egui::Button::new("Undo"))
+            .clicked()
+        {
+            out.push(Command::Undo);
+        }
+        if ui
+            .add_enabled(editor.can_redo(), egui::Button::new("Redo"))
+            .clicked()
+        {
+            out.push(Command::Redo);
+        }
+        if ui.button("Reset to estimate").clicked() {
+            out.push(Command::ResetMatrix);
+        }
+        let mut s = state.settings().clone();
+        if ui
+            .checkbox(&mut s.keep_diagonal, "keep diagonal fixed")
+            .on_hover_text(
+                "an edit off the diagonal takes its mass from the other off-diagonal cells",
+            )
+            .changed()
+        {
+            out.push(Command::Settings(s));
+        }
+        ui.label("· type a value or drag a cell; the rest of its row rescales to sum to 1");
+    });
+}
+
+fn grid(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    classes: &[String],
+    editor: &MatrixEditor,
+    out: &mut Vec<Command>,
+) {
+    let k = classes.len();
+    let dark = state.settings().dark;
+    let changed_stroke = egui::Stroke::new(1.5, egui::Color32::from_rgb(255, 150, 40));
+    let height = if k > MANY_CLASSES {
+        420.0
+    } else {
+        f32::INFINITY
+    };
+    egui::ScrollArea::both()
+        .max_height(height)
+        .id_salt("matrix-grid")
+        .show(ui, |ui| {
+            egui::Grid::new("matrix")
+                .spacing([2.0, 2.0])
+                .show(ui, |ui| {
+                    ui.label("true ↓  observed →");
+                    for c in classes {
+                        ui.strong(c);
+                    }
+                    ui.strong("row sum");
+                    ui.end_row();
+                    for i in 0..k {
+                        ui.strong(&classes[i]);
+                        for j in 0..k {
+                            cell(
+                                ui,
+                                state,
+                                editor,
+                                classes,
+                                (i, j),
+                                dark,
+                                changed_stroke,
+                                out,
+                            );
+                        }
+                        ui.label(format!("{:.4}", editor.row_sum(i)));
+                        ui.end_row();
+                    }
+                });
+        });
+    if k > MANY_CLASSES {
+        largest_flips(ui, classes, editor);
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn cell(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    editor: &MatrixEditor,
+    classes: &[String],
+    (i, j): (usize, usize),
+    dark: bool,
+    changed_stroke: egui::Stroke,
+    out: &mut Vec<Command>,
+) {
+    let mut value = editor.matrix()[[i, j]];
+    let changed = editor.is_changed(i, j);
+    let frame = egui::Frame::new()
+        .fill(heat(value, dark))
+        .stroke(if changed {
+            changed_stroke
+        } else {
+            egui::Stroke::NONE
+        })
+        .inner_margin(2.0);
+    let response = frame
+        .show(ui, |ui| {
+            ui.add_sized(
+                [62.0, 20.0],
+                egui::DragValue::new(&mut value)
+                    .speed(0.002)
+                    .range(0.0..=1.0)
+                    .fixed_decimals(4),
+            )
+        })
+        .inner;
+    let label = format!("T {} → {}", classes[i], classes[j]);
+    let shown = value;
+    response.widget_info(|| {
+        let mut info = egui::WidgetInfo::drag_value(true, shown);
+        info.label = Some(label.clone());
+        info
+    });
+    if response.changed() {
+        out.push(Command::SetCell {
+            row: i,
+            col: j,
+            value,
+        });
+        if !response.dragged() {
+            out.push(Command::EndGesture);
+        }
+    }
+    if response.drag_stopped() {
+        out.push(Command::EndGesture);
+    }
+    response.on_hover_ui(|ui| {
+        ui.label(format!(
+            "P(observed {} | true {}) = {:.4}",
+            classes[j],
+            classes[i],
+            editor.matrix()[[i, j]]
+        ));
+        ui.label(format!("estimate: {:.4}", editor.reference()[[i, j]]));
+        if let Some(iv) = &state.intervals {
+            ui.label(format!(
+                "bootstrap 5–95%: {:.4} – {:.4}",
+                iv.low[[i, j]],
+                iv.high[[i, j]]
+            ));
+        }
+    });
+}
+
+/// The off-diagonal cells from largest down, for matrices too big to scan by eye.
+fn largest_flips(ui: &mut egui::Ui, classes: &[String], editor: &MatrixEditor) {
+    let m = editor.matrix();
+    let k = classes.len();
+    let mut flips: Vec<(f64, usize, usize)> = (0..k)
+        .flat_map(|i| (0..k).filter(move |&j| j != i).map(move |j| (i, j)))
+        .map(|(i, j)| (m[[i, j]], i, j))
+        .collect();
+    flips.sort_by(|a, b| b.0.total_cmp(&a.0));
+    ui.heading("Largest flips");
+    egui::ScrollArea::vertical()
+        .max_height(200.0)
+        .id_salt("largest-flips")
+        .show(ui, |ui| {
+            for (v, i, j) in flips.into_iter().take(30) {
+                ui.label(format!("{} → {}: {:.4}", classes[i], classes[j], v));
+            }
+        });
+}
+
+fn files(ui: &mut egui::Ui, view: &mut UiState, out: &mut Vec<Command>) {
+    ui.label("Matrix CSV (the format of the command line's --matrix):");
+    if let Some(path) = path_row(
+        ui,
+        view,
+        Purpose::ImportMatrix,
+        "Import",
+        "matrix CSV to read",
+    ) {
+        out.push(Command::ImportMatrix(path));
+    }
+    if let Some(path) = path_row(
+        ui,
+        view,
+        Purpose::ExportMatrix,
+        "Export",
+        "where to write the matrix CSV",
+    ) {
+        out.push(Command::ExportMatrix(path));
+    }
+}
+
+fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
+    let Some(data) = &state.data else { return };
+    let Some((d, version)) = &state.diagnostics else {
+        ui.spinner();
+        return;
+    };
+    if *version != editor.version() {
+        ui.weak("updating…");
+    }
+    ui.heading("What the matrix implies");
+    ui.label(format!(
+        "expected mislabelled rows: {:.0} ({:.1}%)",
+        d.expected_mislabeled,
+        100.0 * d.expected_mislabeled_share
+    ));
+    ui.label(format!(
+        "condition number (1-norm): {:.3}",
+        d.condition_number
+    ));
+    ui.label(format!(
+        "calibration error (ECE): {:.4}",
+        d.calibration_error
+    ));
+    let noise: Vec<Bar> = d
+        .noise_rate
+        .iter()
+        .enumerate()
+        .map(|(i, &v)| Bar::new(i as f64, v).name(&data.classes[i]))
+        .collect();
+    ui.label("noise rate per true class (1 − T[i][i])");
+    Plot::new("noise-bars")
+        .height(150.0)
+        .allow_scroll(false)
+        .show_axes([false, true])
+        .show(ui, |p| {
+            p.bar_chart(BarChart::new("noise rate", noise).width(0.7))
+        });
+    ui.label("class priors: observed vs clean (estimated)");
+    let observed: Vec<Bar> = d
+        .observed_prior
+        .iter()
+        .enumerate()
+        .map(|(i, &v)| {
+            Bar::new(i as f64 - 0.18, v)
+                .width(0.35)
+                .name(&data.classes[i])
+        })
+        .collect();
+    let clean: Vec<Bar> = d
+        .clean_prior
+        .iter()
+        .enumerate()
+        .map(|(i, &v)| {
+            Bar::new(i as f64 + 0.18, v)
+                .width(0.35)
+                .name(&data.classes[i])
+        })
+        .collect();
+    Plot::new("priors")
+        .height(150.0)
+        .allow_scroll(false)
+        .legend(Legend::default())
+        .show_axes([false, true])
+        .show(ui, |p| {
+            p.bar_chart(BarChart::new("observed", observed));
+            p.bar_chart(BarChart::new("clean", clean));
+        });
+    for w in &d.warnings {
+        ui.colored_label(ui.visuals().warn_fg_color, format!("⚠ {w}"));
+    }
+}

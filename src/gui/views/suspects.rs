@@ -1,0 +1,226 @@
+//! The Suspects view: every row ranked by how likely its label is wrong (re-ranked when
+//! the matrix changes), filters, a budget, the score histogram, and the worklist round
+//! trip (export, review elsewhere, import).
+
+use eframe::egui;
+use egui_extras::{Column, TableBuilder};
+use egui_plot::{Bar, BarChart, Plot};
+
+use super::widgets::{class_filter, path_row};
+use crate::gui::app::UiState;
+use crate::gui::command::Command;
+use crate::gui::dialogs::Purpose;
+use crate::gui::jobs::JobKind;
+use crate::gui::state::AppState;
+use crate::noise::scores::ScoreKind;
+
+/// Draws the view.
+pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    let Some(data) = &state.data else {
+        ui.label("Load a data table first (Data view).");
+        return;
+    };
+    controls(ui, state, &data.classes, out);
+    let Some(ranking) = &state.ranking else {
+        ui.horizontal(|ui| {
+            ui.spinner();
+            ui.label("ranking…");
+        });
+        return;
+    };
+    let stale = state.jobs.running(JobKind::Rank).is_some();
+    ui.horizontal(|ui| {
+        ui.label(format!(
+            "{} of {} rows pass the filters; the worklist takes the first {}",
+            state.visible.len(),
+            ranking.ranked.len(),
+            state.visible.len().min(state.settings().budget)
+        ));
+        if let Some(e) = ranking.expected_errors {
+            ui.label(format!("· expected mislabelled rows: {e:.0}"));
+        }
+        if stale {
+            ui.spinner();
+        }
+    });
+    ui.weak("Scores are estimates to guide a qualified reviewer, not verdicts; for medical, safety or other sensitive data follow your local rules and licensed practice.");
+    egui::Panel::right("suspects-side")
+        .default_size(320.0)
+        .show(ui, |ui| {
+            histogram(ui, state);
+            ui.separator();
+            worklist_files(ui, state, view, out);
+        });
+    egui::CentralPanel::default().show(ui, |ui| table(ui, state));
+}
+
+fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut Vec<Command>) {
+    let mut s = state.settings().clone();
+    ui.horizontal_wrapped(|ui| {
+        ui.label("score");
+        egui::ComboBox::from_id_salt("score")
+            .selected_text(score_name(s.score))
+            .show_ui(ui, |ui| {
+                for k in [
+                    ScoreKind::Posterior,
+                    ScoreKind::SelfConfidence,
+                    ScoreKind::Margin,
+                ] {
+                    ui.selectable_value(&mut s.score, k, score_name(k));
+                }
+            });
+        ui.label("observed");
+        if let Some(c) = class_filter(ui, "observed-filter", classes, &s.observed_filter) {
+            s.observed_filter = c;
+        }
+        ui.label("suggested");
+        if let Some(c) = class_filter(ui, "suggested-filter", classes, &s.suggested_filter) {
+            s.suggested_filter = c;
+        }
+        let low = if s.score == ScoreKind::Margin {
+            -1.0
+        } else {
+            0.0
+        };
+        ui.add(
+            egui::Slider::new(&mut s.min_score, low..=1.0)
+                .text("min score")
+                .fixed_decimals(2),
+        );
+        ui.add(
+            egui::DragValue::new(&mut s.budget)
+                .range(1..=10_000_000)
+                .prefix("budget "),
+        );
+    });
+    if s != *state.settings() {
+        out.push(Command::Settings(s));
+    }
+}
+
+fn score_name(k: ScoreKind) -> &'static str {
+    match k {
+        ScoreKind::Posterior => "posterior (uses the matrix)",
+        ScoreKind::SelfConfidence => "self-confidence",
+        ScoreKind::Margin => "normalized margin",
+    }
+}
+
+fn histogram(ui: &mut egui::Ui, state: &AppState) {
+    let Some(r) = &state.ranking else { return };
+    let h = &r.histogram;
+    let w = h.bin_width();
+    let bars: Vec<Bar> = h
+        .counts
+        .iter()
+        .enumerate()
+        .map(|(i, &c)| Bar::new(h.low + (i as f64 + 0.5) * w, c as f64).width(w * 0.95))
+        .collect();
+    ui.label("score histogram (all rows)");
+    Plot::new("score-histogram")
+        .height(160.0)
+        .allow_scroll(false)
+        .show(ui, |p| p.bar_chart(BarChart::new("rows", bars)));
+}
+
+fn table(ui: &mut egui::Ui, state: &AppState) {
+    let (Some(data), Some(r)) = (&state.data, &state.ranking) else {
+        return;
+    };
+    let classes = &data.classes;
+    TableBuilder::new(ui)
+        .id_salt("suspects-table")
+        .striped(true)
+        .column(Column::auto().at_least(50.0))
+        .column(Column::auto().at_least(60.0))
+        .column(Column::auto().at_least(80.0))
+        .column(Column::auto().at_least(90.0))
+        .column(Column::auto().at_least(90.0))
+        .column(Column::auto().at_least(60.0))
+        .column(Column::auto().at_least(90.0))
+        .column(Column::remainder().at_least(60.0))
+        .header(20.0, |mut h| {
+            for title in [
+                "rank",
+                "row",
+                "id",
+                "observed",
+                "suggested",
+                "score",
+                "alt",
+                "alt prob",
+            ] {
+                h.col(|ui| {
+                    ui.strong(title);
+                });
+            }
+        })
+        .body(|body| {
+            // Only the rows in view are laid out, so a million rows scroll smoothly.
+            body.rows(18.0, state.visible.len(), |mut row| {
+                let position = state.visible[row.index()] as usize;
+                let s = &r.ranked[position];
+                let cells = [
+                    (position + 1).to_string(),
+                    s.row.to_string(),
+                    data.id(s.row).into_owned(),
+                    classes[data.labels[s.row]].clone(),
+                    classes[s.suggested].clone(),
+                    format!("{:.4}", s.score),
+                    classes[s.alt].clone(),
+                    format!("{:.4}", s.alt_prob),
+                ];
+                for text in cells {
+                    row.col(|ui| {
+                        ui.label(text);
+                    });
+                }
+            });
+        });
+}
+
+fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    ui.heading("Worklist");
+    ui.label("Export the filtered rows up to the budget; reviewers fill the review column with the correct class (or keep).");
+    if let Some(path) = path_row(
+        ui,
+        view,
+        Purpose::ExportWorklist,
+        "Export",
+        "worklist CSV to write",
+    ) {
+        out.push(Command::ExportWorklist(path));
+    }
+    ui.label("Read a reviewed worklist (checked like the command line's review):");
+    if let Some(path) = path_row(
+        ui,
+        view,
+        Purpose::ImportReview,
+        "Import",
+        "reviewed worklist CSV",
+    ) {
+        out.push(Command::ImportReview(path));
+    }
+    if let Some(r) = &state.review {
+        ui.label(format!(
+            "{}: {} confirm, {} change the label, {} left blank",
+            r.path
+                .file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default(),
+            r.confirmed,
+            r.changed,
+            r.review.not_reviewed
+        ));
+        ui.label("Write a copy of the data with the verdicts in the trusted column, and load it:");
+        if let Some(path) = path_row(
+            ui,
+            view,
+            Purpose::SaveMerged,
+            "Write and load",
+            "merged data CSV to write",
+        ) {
+            out.push(Command::SaveMerged(path));
+        }
+    }
+}

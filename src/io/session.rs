@@ -1,0 +1,369 @@
+//! The session file: what the desktop app needs to pick up where the user left off —
+//! file paths, column roles, the (possibly hand-edited) flip matrix and the settings.
+//! JSON, versioned. Data are not copied into it: it points at the files.
+
+use std::io::{Read, Write};
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Location, Problem, Result};
+use crate::noise::matrix::validate;
+use crate::noise::scores::ScoreKind;
+
+/// The `format` field of every session file.
+pub const SESSION_FORMAT: &str = "flipmend-session";
+/// The newest session version this build reads and the one it writes.
+pub const SESSION_VERSION: u32 = 1;
+/// Session files larger than this are refused before parsing (a session holds paths, a
+/// K×K matrix and settings; even 1,000 classes stay far below it).
+pub const SESSION_MAX_BYTES: u64 = 64 << 20;
+
+/// Where the matrix on screen came from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum MatrixOrigin {
+    /// An estimator's output, untouched.
+    Estimated,
+    /// Changed by hand since it was estimated or imported.
+    Edited,
+    /// Read from a matrix CSV (or a session), untouched since.
+    Imported,
+}
+
+impl MatrixOrigin {
+    /// The word the status bar shows.
+    pub fn label(self) -> &'static str {
+        match self {
+            MatrixOrigin::Estimated => "estimated",
+            MatrixOrigin::Edited => "edited",
+            MatrixOrigin::Imported => "imported",
+        }
+    }
+}
+
+/// Column roles as the user chose them (`None`: the default rule).
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct Roles {
+    /// Field delimiter as typed (`,`, `tab`, `;` …).
+    pub delimiter: Option<String>,
+    /// Observed-label column.
+    pub label: Option<String>,
+    /// Id column.
+    pub id: Option<String>,
+    /// Trusted-label column.
+    pub trusted: Option<String>,
+    /// Feature columns.
+    pub features: Option<Vec<String>>,
+}
+
+/// The estimator picked in the Flip matrix view.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum EstimatorName {
+    /// Per-class quantile of the probabilities.
+    Quantile,
+    /// Anchor points.
+    Anchor,
+    /// Trusted subset (quantile for classes without trusted rows).
+    Trusted,
+    /// Confident counting.
+    Counting,
+}
+
+/// Every setting a session restores.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct Settings {
+    /// Folds of the out-of-fold probabilities.
+    pub folds: usize,
+    /// Seed of every random choice.
+    pub seed: u64,
+    /// L2 penalty of every fit.
+    pub l2: f64,
+    /// Iteration limit of every fit.
+    pub max_iter: usize,
+    /// Estimator.
+    pub estimator: EstimatorName,
+    /// Quantile of the quantile estimator.
+    pub quantile: f64,
+    /// Editing a cell leaves the diagonal alone.
+    pub keep_diagonal: bool,
+    /// Bootstrap resamples.
+    pub resamples: usize,
+    /// Suspect score.
+    pub score: ScoreKind,
+    /// Rows on the worklist at most.
+    pub budget: usize,
+    /// Only rows scoring at least this.
+    pub min_score: f64,
+    /// Only rows observed as this class.
+    pub observed_filter: Option<String>,
+    /// Only rows suggested as this class.
+    pub suggested_filter: Option<String>,
+    /// Corrections to train besides `none`: forward, backward, prune.
+    pub corrections: Vec<String>,
+    /// Holdout share of the comparison.
+    pub holdout: f64,
+    /// Optional labelled test table.
+    pub test: Option<PathBuf>,
+    /// Dark theme.
+    pub dark: bool,
+}
+
+impl Default for Settings {
+    fn default() -> Self {
+        Settings {
+            folds: 5,
+            seed: 0,
+            l2: 1e-3,
+            max_iter: 500,
+            estimator: EstimatorName::Quantile,
+            quantile: crate::noise::DEFAULT_QUANTILE,
+            keep_diagonal: false,
+            resamples: 20,
+            score: ScoreKind::Posterior,
+            budget: 500,
+            min_score: 0.0,
+            observed_filter: None,
+            suggested_filter: None,
+            corrections: vec!["forward".into(), "backward".into(), "prune".into()],
+            holdout: 0.2,
+            test: None,
+            dark: true,
+        }
+    }
+}
+
+/// A matrix as the session stores it, with the classes it belongs to.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SessionMatrix {
+    /// Class names of rows and columns.
+    pub classes: Vec<String>,
+    /// Rows = true class.
+    pub values: Vec<Vec<f64>>,
+    /// Where it came from.
+    pub origin: MatrixOrigin,
+}
+
+/// A whole session.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Session {
+    /// Always [`SESSION_FORMAT`].
+    pub format: String,
+    /// File version.
+    pub version: u32,
+    /// The labelled table.
+    pub data: Option<PathBuf>,
+    /// Column roles.
+    #[serde(default)]
+    pub roles: Roles,
+    /// A probability file (absent: out-of-fold probabilities are computed).
+    pub probs: Option<PathBuf>,
+    /// The flip matrix as last shown.
+    pub matrix: Option<SessionMatrix>,
+    /// Settings.
+    #[serde(default)]
+    pub settings: Settings,
+}
+
+impl Session {
+    /// An empty session with default settings.
+    pub fn new() -> Self {
+        Session {
+            format: SESSION_FORMAT.into(),
+            version: SESSION_VERSION,
+            data: None,
+            roles: Roles::default(),
+            probs: None,
+            matrix: None,
+            settings: Settings::default(),
+        }
+    }
+}
+
+impl Default for Session {
+    fn default() -> Self {
+        Session::new()
+    }
+}
+
+/// Reads and checks a session file. `path` names it in messages.
+pub fn read_session<R: Read>(reader: R, path: &Path) -> Result<Session> {
+    let bad = |detail: String| Error::input(Location::file(path), Problem::Session { detail });
+    let mut text = String::new();
+    reader
+        .take(SESSION_MAX_BYTES + 1)
+        .read_to_string(&mut text)
+        .map_err(|e| bad(format!("not a readable session file: {e}")))?;
+    if text.len() as u64 > SESSION_MAX_BYTES {
+        return Err(bad(format!(
+            "the session file is larger than {} MiB; it is not a flipmend session",
+            SESSION_MAX_BYTES >> 20
+        )));
+    }
+    let value: serde_json::Value = serde_json::from_str(&text).map_err(|e| at(path, &e))?;
+    if value.get("format").and_then(|f| f.as_str()) != Some(SESSION_FORMAT) {
+        return Err(bad(format!(
+            "not a flipmend session file (no \"format\": \"{SESSION_FORMAT}\")"
+        )));
+    }
+    let version = value.get("version").and_then(|v| v.as_u64());
+    match version {
+        None => return Err(bad("the session file has no version".into())),
+        Some(v) if v > SESSION_VERSION as u64 => {
+            return Err(bad(format!(
+                "the session file is version {v}, made by a newer flipmend; this one reads up to version {SESSION_VERSION}"
+            )))
+        }
+        Some(_) => {}
+    }
+    // Parse the text again (not the Value) so that a type error names its line and column.
+    let session: Session = serde_json::from_str(&text).map_err(|e| at(path, &e))?;
+    check(&session).map_err(bad)?;
+    Ok(session)
+}
+
+fn at(path: &Path, e: &serde_json::Error) -> Error {
+    let location = Location {
+        path: path.to_path_buf(),
+        line: Some(e.line() as u64),
+        column: None,
+        row: None,
+    };
+    Error::input(
+        location,
+        Problem::Session {
+            detail: format!("not a valid session file: {e}"),
+        },
+    )
+}
+
+/// Settings and matrix within their ranges.
+fn check(s: &Session) -> std::result::Result<(), String> {
+    let t = &s.settings;
+    if t.folds < 2 {
+        return Err(format!("folds must be at least 2, not {}", t.folds));
+    }
+    if !(t.l2.is_finite() && t.l2 >= 0.0) {
+        return Err(format!("l2 must be finite and non-negative, not {}", t.l2));
+    }
+    if !(t.quantile > 0.0 && t.quantile <= 1.0) {
+        return Err(format!("quantile must lie in (0, 1], not {}", t.quantile));
+    }
+    if !(t.holdout > 0.0 && t.holdout < 1.0) {
+        return Err(format!("holdout must lie in (0, 1), not {}", t.holdout));
+    }
+    if !t.min_score.is_finite() {
+        return Err("min_score must be a number".into());
+    }
+    if t.resamples > 10_000 {
+        return Err(format!(
+            "resamples must be at most 10000, not {}",
+            t.resamples
+        ));
+    }
+    for c in &t.corrections {
+        if !matches!(c.as_str(), "forward" | "backward" | "prune") {
+            return Err(format!(
+                "unknown correction '{c}' (forward, backward, prune)"
+            ));
+        }
+    }
+    if let Some(m) = &s.matrix {
+        let k = m.classes.len();
+        if m.values.len() != k || m.values.iter().any(|r| r.len() != k) {
+            return Err(format!("the matrix must be {k}×{k} for its {k} classes"));
+        }
+        let flat: Vec<f64> = m.values.iter().flatten().copied().collect();
+        let t = ndarray::Array2::from_shape_vec((k, k), flat).map_err(|e| e.to_string())?;
+        validate(&t).map_err(|e| format!("the session's matrix: {e}"))?;
+    }
+    Ok(())
+}
+
+/// Writes a session (pretty JSON).
+pub fn write_session(out: &mut dyn Write, session: &Session) -> std::io::Result<()> {
+    serde_json::to_writer_pretty(&mut *out, session)?;
+    out.write_all(b"\n")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn text(s: &Session) -> String {
+        let mut out = Vec::new();
+        write_session(&mut out, s).unwrap();
+        String::from_utf8(out).unwrap()
+    }
+
+    fn read(t: &str) -> Result<Session> {
+        read_session(t.as_bytes(), Path::new("s.json"))
+    }
+
+    fn sample() -> Session {
+        let mut s = Session::new();
+        s.data = Some("demo.csv".into());
+        s.roles.label = Some("material".into());
+        s.matrix = Some(SessionMatrix {
+            classes: vec!["a".into(), "b".into()],
+            values: vec![vec![0.9, 0.1], vec![0.25, 0.75]],
+            origin: MatrixOrigin::Edited,
+        });
+        s.settings.quantile = 0.95;
+        s
+    }
+
+    #[test]
+    fn a_session_round_trips_exactly() {
+        let s = sample();
+        assert_eq!(read(&text(&s)).unwrap(), s);
+    }
+
+    #[test]
+    fn wrong_format_version_or_shape_is_refused() {
+        let cases = [
+            (
+                "{\"format\": \"other\", \"version\": 1}",
+                "not a flipmend session",
+            ),
+            ("{\"format\": \"flipmend-session\"}", "has no version"),
+            (
+                "{\"format\": \"flipmend-session\", \"version\": 9}",
+                "newer flipmend",
+            ),
+            (
+                "{\"format\": \"flipmend-session\",\n \"version\": 1,\n \"data\": 5}",
+                "line 3",
+            ),
+            ("[1, 2", "not a valid session file"),
+        ];
+        for (input, expected) in cases {
+            let message = read(input).unwrap_err().to_string();
+            assert!(message.contains(expected), "{input}: {message}");
+        }
+    }
+
+    #[test]
+    fn a_bad_matrix_or_setting_is_refused() {
+        let mut s = sample();
+        s.matrix.as_mut().unwrap().values[1] = vec![0.5, 0.2];
+        assert!(read(&text(&s)).unwrap_err().to_string().contains("sum"));
+        let mut s = sample();
+        s.matrix.as_mut().unwrap().values.pop();
+        assert!(read(&text(&s)).unwrap_err().to_string().contains("2×2"));
+        let mut s = sample();
+        s.settings.folds = 1;
+        assert!(read(&text(&s)).unwrap_err().to_string().contains("folds"));
+        let mut s = sample();
+        s.settings.corrections = vec!["sideways".into()];
+        assert!(read(&text(&s))
+            .unwrap_err()
+            .to_string()
+            .contains("sideways"));
+    }
+}
