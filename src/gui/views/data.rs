@@ -18,7 +18,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         ui.heading("Data table");
         ui.label("A CSV (or TSV) with feature columns and an observed label; optionally an id and a partly audited trusted label. Drop a file on the window, browse, or type a path.");
         let draft = view.roles_draft.clone().unwrap_or_else(|| state.session.roles.clone());
-        if let Some(path) = path_row(ui, view, Purpose::OpenData, "Load", "path to a .csv or .tsv") {
+        if let Some(path) = path_row(ui, view, Purpose::OpenData, "Load table", "path to a .csv or .tsv") {
             out.push(Command::LoadData(path, draft.clone()));
         }
         if let Some(running) = state.jobs.running(JobKind::Load) {

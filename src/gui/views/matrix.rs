@@ -158,7 +158,7 @@ fn grid(
             egui::Grid::new("matrix")
                 .spacing([2.0, 2.0])
                 .show(ui, |ui| {
-                    ui.label("true ↓  observed →");
+                    ui.label("true \\ observed");
                     for c in classes {
                         ui.strong(c);
                     }
@@ -333,9 +333,13 @@ fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
     Plot::new("noise-bars")
         .height(150.0)
         .allow_scroll(false)
-        .show_axes([false, true])
+        .x_axis_formatter(class_axis(&data.classes))
         .show(ui, |p| {
-            p.bar_chart(BarChart::new("noise rate", noise).width(0.7))
+            p.bar_chart(
+                BarChart::new("noise rate", noise)
+                    .width(0.7)
+                    .color(NOISE_COLOR),
+            )
         });
     ui.label("class priors: observed vs clean (estimated)");
     let observed: Vec<Bar> = d
@@ -362,12 +366,30 @@ fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
         .height(150.0)
         .allow_scroll(false)
         .legend(Legend::default())
-        .show_axes([false, true])
+        .x_axis_formatter(class_axis(&data.classes))
         .show(ui, |p| {
-            p.bar_chart(BarChart::new("observed", observed));
-            p.bar_chart(BarChart::new("clean", clean));
+            p.bar_chart(BarChart::new("observed", observed).color(OBSERVED_COLOR));
+            p.bar_chart(BarChart::new("clean", clean).color(CLEAN_COLOR));
         });
     for w in &d.warnings {
-        ui.colored_label(ui.visuals().warn_fg_color, format!("⚠ {w}"));
+        ui.colored_label(ui.visuals().warn_fg_color, format!("warning: {w}"));
+    }
+}
+
+const NOISE_COLOR: egui::Color32 = egui::Color32::from_rgb(230, 120, 60);
+const OBSERVED_COLOR: egui::Color32 = egui::Color32::from_rgb(150, 150, 150);
+const CLEAN_COLOR: egui::Color32 = egui::Color32::from_rgb(70, 140, 255);
+
+/// Names the integer ticks of a per-class bar chart.
+fn class_axis(
+    classes: &[String],
+) -> impl Fn(egui_plot::GridMark, &std::ops::RangeInclusive<f64>) -> String + 'static {
+    let classes = classes.to_vec();
+    move |mark, _| {
+        let i = mark.value.round();
+        if (mark.value - i).abs() > 1e-6 || i < 0.0 {
+            return String::new();
+        }
+        classes.get(i as usize).cloned().unwrap_or_default()
     }
 }

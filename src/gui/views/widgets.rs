@@ -41,15 +41,18 @@ pub fn path_row(
     chosen
 }
 
-/// The fill of a matrix cell: stronger for larger values (square root, so that small
-/// flips stay visible), readable under the cell text in both themes.
+/// The fill of a matrix cell: from the theme's widget grey towards blue as the value
+/// grows (square root, so that small flips stay visible); opaque, so the cell text keeps
+/// its contrast in both themes.
 pub fn heat(value: f64, dark: bool) -> egui::Color32 {
-    let alpha = (25.0 + 200.0 * value.clamp(0.0, 1.0).sqrt()) as u8;
-    if dark {
-        egui::Color32::from_rgba_unmultiplied(70, 140, 255, alpha / 2)
+    let t = value.clamp(0.0, 1.0).sqrt() as f32;
+    let (from, to) = if dark {
+        ([48.0, 48.0, 52.0], [25.0, 85.0, 190.0])
     } else {
-        egui::Color32::from_rgba_unmultiplied(40, 110, 230, alpha / 2)
-    }
+        ([235.0, 235.0, 238.0], [120.0, 170.0, 250.0])
+    };
+    let mix = |c: usize| (from[c] + (to[c] - from[c]) * t) as u8;
+    egui::Color32::from_rgb(mix(0), mix(1), mix(2))
 }
 
 /// A share as a percentage, or a dash.

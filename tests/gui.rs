@@ -1,0 +1,277 @@
+//! The desktop app driven headless with egui_kittest (the egui project's test harness):
+//! real clicks on labelled widgets, then assertions on the app state and on files.
+#![cfg(feature = "gui")]
+
+mod common;
+
+use std::path::{Path, PathBuf};
+
+use egui_kittest::kittest::Queryable;
+use egui_kittest::Harness;
+use flipmend::gui::app::{FlipmendApp, Persisted, View};
+use flipmend::gui::command::Command;
+use flipmend::gui::dialogs::Purpose;
+use flipmend::gui::jobs::{JobFailure, JobKind};
+use flipmend::gui::state::{AppState, JobOutput};
+use flipmend::io::session::{MatrixOrigin, Roles};
+
+use common::TempDir;
+
+/// Waits for every background job, then lets the UI catch up.
+fn settle(h: &mut Harness<'_, FlipmendApp>) {
+    h.state_mut().state.settle(300.0);
+    h.run_steps(3);
+}
+
+fn app_on_demo(dir: &Path) -> Harness<'static, FlipmendApp> {
+    let demo = flipmend::gui::demo_file(dir).unwrap();
+    let mut h = Harness::builder()
+        .with_size([1400.0, 900.0])
+        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
+    h.state_mut()
+        .push(Command::LoadData(demo, Roles::default()));
+    h.run_steps(1);
+    settle(&mut h);
+    h
+}
+
+fn state<'a>(h: &'a Harness<'_, FlipmendApp>) -> &'a AppState {
+    &h.state().state
+}
+
+fn order(s: &AppState) -> Vec<usize> {
+    s.ranking
+        .as_ref()
+        .unwrap()
+        .ranked
+        .iter()
+        .map(|r| r.row)
+        .collect()
+}
+
+#[test]
+fn demo_opens_and_every_view_draws() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    let s = state(&h);
+    let data = s.data.as_ref().expect("the demo loaded");
+    assert_eq!(data.rows(), 8000);
+    assert_eq!(data.classes.len(), 8);
+    assert!(s.probs.is_some() && s.editor.is_some() && s.ranking.is_some());
+    for (title, view) in [
+        ("Flip matrix", View::Matrix),
+        ("Suspects", View::Suspects),
+        ("Retrain", View::Retrain),
+        ("Data", View::Data),
+    ] {
+        h.get_by_label(title).click();
+        h.run_steps(2);
+        assert_eq!(h.state().ui.view(), view, "{title}");
+    }
+    // The class table shows the demo's classes.
+    h.get_by_label("pet_bottle");
+}
+
+#[test]
+fn editing_a_cell_renormalises_its_row_reranks_and_undoes() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    let before = state(&h).editor.as_ref().unwrap().matrix().clone();
+    let ranking_before = order(state(&h));
+    let classes = state(&h).data.as_ref().unwrap().classes.clone();
+    let i = classes.iter().position(|c| c == "pet_bottle").unwrap();
+    let j = classes.iter().position(|c| c == "hdpe_jug").unwrap();
+    h.get_by_label("T pet_bottle → hdpe_jug")
+        .set_value_accesskit(0.3);
+    h.run_steps(2);
+    settle(&mut h);
+    let e = state(&h).editor.as_ref().unwrap();
+    let after = e.matrix().clone();
+    assert!((after[[i, j]] - 0.3).abs() < 1e-9);
+    assert!(
+        (after.row(i).sum() - 1.0).abs() < 1e-9,
+        "the row still sums to 1"
+    );
+    // The other cells of the row keep their proportions (checked on two of them).
+    let (a, b) = (i, (0..8).find(|&c| c != i && c != j).unwrap());
+    let ratio_before = before[[i, a]] / before[[i, b]];
+    let ratio_after = after[[i, a]] / after[[i, b]];
+    assert!((ratio_before - ratio_after).abs() < 1e-9 * ratio_before.abs().max(1.0));
+    assert_eq!(e.origin(), MatrixOrigin::Edited);
+    let ranking = state(&h).ranking.as_ref().unwrap();
+    assert_eq!(
+        ranking.matrix_version,
+        e.version(),
+        "re-ranked for the edit"
+    );
+    assert_ne!(
+        order(state(&h)),
+        ranking_before,
+        "the suspect order changed"
+    );
+    h.get_by_label("Undo").click();
+    h.run_steps(2);
+    settle(&mut h);
+    assert_eq!(state(&h).editor.as_ref().unwrap().matrix(), &before);
+    assert_eq!(order(state(&h)), ranking_before);
+}
+
+#[test]
+fn a_worklist_goes_out_and_its_review_comes_back() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    h.get_by_label("Suspects").click();
+    h.run_steps(2);
+    let mut settings = state(&h).settings().clone();
+    settings.budget = 25;
+    h.state_mut().push(Command::Settings(settings));
+    let out = dir.path("worklist.csv");
+    set_path(&mut h, Purpose::ExportWorklist, &out);
+    h.get_by_label("Export").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let text = std::fs::read_to_string(&out).expect("the worklist was written");
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines.len(), 26, "header + budget rows");
+    assert!(lines[0].starts_with("rank,row,id,observed,suggested,score,alt,alt_prob,review"));
+    // A reviewer accepts the suggestion on the first 10 rows and keeps the label on 5.
+    let reviewed = dir.path("reviewed.csv");
+    let mut body = vec![lines[0].to_string()];
+    for (n, line) in lines[1..].iter().enumerate() {
+        let mut cells: Vec<String> = line.split(',').map(String::from).collect();
+        cells[8] = match n {
+            0..=9 => cells[4].clone(),
+            10..=14 => "keep".into(),
+            _ => String::new(),
+        };
+        body.push(cells.join(","));
+    }
+    std::fs::write(&reviewed, body.join("\n") + "\n").unwrap();
+    set_path(&mut h, Purpose::ImportReview, &reviewed);
+    h.get_by_label("Import").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let r = state(&h).review.as_ref().expect("the review was read");
+    let changed_expected = lines[1..11]
+        .iter()
+        .filter(|l| {
+            let c: Vec<&str> = l.split(',').collect();
+            c[3] != c[4]
+        })
+        .count();
+    assert_eq!(r.confirmed + r.changed, 15);
+    assert_eq!(r.changed, changed_expected);
+    assert_eq!(r.review.not_reviewed, 10);
+}
+
+#[test]
+fn a_broken_table_shows_its_error_and_keeps_the_previous_data() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    let broken = dir.path("broken.csv");
+    std::fs::write(&broken, "a,b,label\n1,2,x\n3,4\n5,6,y\n").unwrap();
+    set_path(&mut h, Purpose::OpenData, &broken);
+    h.get_by_label("Load table").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let error = state(&h)
+        .last_error()
+        .expect("an error is shown")
+        .to_string();
+    assert!(
+        error.contains("broken.csv") && error.contains("line 3"),
+        "{error}"
+    );
+    h.get_by_label_contains("line 3");
+    assert_eq!(
+        state(&h).data.as_ref().unwrap().rows(),
+        8000,
+        "the demo stays loaded"
+    );
+}
+
+#[test]
+fn a_panicking_worker_is_reported_and_the_app_goes_on() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    h.state_mut()
+        .state
+        .spawn_job(JobKind::Test, |_| -> Result<JobOutput, JobFailure> {
+            panic!("simulated fault in a worker")
+        });
+    settle(&mut h);
+    let error = state(&h).last_error().unwrap().to_string();
+    assert!(
+        error.contains("internal error") && error.contains("simulated fault"),
+        "{error}"
+    );
+    // The app still works: an edit is applied and re-ranked.
+    h.state_mut().push(Command::SetCell {
+        row: 0,
+        col: 1,
+        value: 0.2,
+    });
+    h.run_steps(1);
+    settle(&mut h);
+    let e = state(&h).editor.as_ref().unwrap();
+    assert!((e.matrix()[[0, 1]] - 0.2).abs() < 1e-12);
+    assert_eq!(
+        state(&h).ranking.as_ref().unwrap().matrix_version,
+        e.version()
+    );
+}
+
+#[test]
+fn a_failed_save_loses_nothing_and_a_session_restores_the_edits() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    h.state_mut().push(Command::SetCell {
+        row: 2,
+        col: 4,
+        value: 0.25,
+    });
+    h.run_steps(1);
+    settle(&mut h);
+    let edited = state(&h).editor.as_ref().unwrap().matrix().clone();
+    let nowhere = dir.path("no-such-folder/s.json");
+    h.state_mut()
+        .push(Command::SaveSession(Some(nowhere.clone())));
+    h.run_steps(1);
+    let error = state(&h).last_error().unwrap().to_string();
+    assert!(error.contains("not saved"), "{error}");
+    assert!(!nowhere.exists());
+    assert_eq!(
+        state(&h).editor.as_ref().unwrap().matrix(),
+        &edited,
+        "nothing lost"
+    );
+    let file = dir.path("s.json");
+    h.state_mut().push(Command::SaveSession(Some(file.clone())));
+    h.run_steps(1);
+    assert!(file.exists());
+
+    let mut fresh = Harness::builder()
+        .with_size([1400.0, 900.0])
+        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
+    fresh.state_mut().push(Command::OpenSession(file));
+    fresh.run_steps(1);
+    settle(&mut fresh);
+    let e = state(&fresh)
+        .editor
+        .as_ref()
+        .expect("the session's data and matrix are back");
+    assert_eq!(e.matrix(), &edited);
+    assert_eq!(e.origin(), MatrixOrigin::Edited);
+    assert!(
+        e.is_changed(2, 4),
+        "the edit is still marked against the fresh estimate"
+    );
+}
+
+fn set_path(h: &mut Harness<'_, FlipmendApp>, purpose: Purpose, path: &Path) {
+    let text: PathBuf = path.to_path_buf();
+    *h.state_mut().ui.path(purpose) = text.display().to_string();
+    h.run_steps(1);
+}
