@@ -51,6 +51,34 @@ fn main() {
         let mut scores = score_rows(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
         rank(&mut scores);
     });
+    bench("suspects: posterior scores alone 1000000x10", 5, || {
+        std::hint::black_box(score_rows(
+            ScoreKind::Posterior,
+            probs.view(),
+            &labels,
+            Some(&t),
+        ));
+    });
+    let unranked = score_rows(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
+    bench("suspects: ranking alone 1000000", 5, || {
+        let mut s = unranked.clone();
+        rank(&mut s);
+    });
+    // What the desktop app does after each matrix cell edit (aim: under 50 ms, so editing
+    // stays above 20 frames per second).
+    bench("app: cell edit to re-ranked table 1000000x10", 7, || {
+        let mut edited = t.clone();
+        edited[[0, 1]] += 0.01;
+        edited[[0, 0]] -= 0.01;
+        let r = flipmend::gui::analysis::rank_rows(
+            probs.view(),
+            &labels,
+            &edited,
+            ScoreKind::Posterior,
+            1,
+        );
+        std::hint::black_box(r.ranked.len());
+    });
     bench("suspects: self scores + ranking 1000000x10", 5, || {
         let mut scores = score_rows(ScoreKind::SelfConfidence, probs.view(), &labels, None);
         rank(&mut scores);
@@ -65,7 +93,12 @@ fn main() {
     });
 }
 
+/// Runs one benchmark; with `FLIPMEND_BENCH=text` only those whose name contains `text`
+/// (handy under a profiler).
 fn bench(name: &str, runs: usize, run: impl FnMut()) {
+    if std::env::var("FLIPMEND_BENCH").is_ok_and(|f| !name.contains(&f)) {
+        return;
+    }
     let (median, fastest) = common::time(runs, run);
     println!(
         "{name:<44} median {:>8.4} s  min {:>8.4} s",

@@ -125,14 +125,14 @@ mod tests {
 
     #[test]
     fn filters_keep_rank_order_and_stop_at_the_threshold() {
-        // Three rows, identity matrix: the posterior score is 1 − p(observed).
+        // Three rows scored by self-confidence, 1 − p(observed): 0.1, 0.8, 0.6.
         let probs = array![[0.9f32, 0.1], [0.2, 0.8], [0.6, 0.4]];
         let labels = [0, 0, 1];
         let r = rank_rows(
             probs.view(),
             &labels,
             &Array2::eye(2),
-            ScoreKind::Posterior,
+            ScoreKind::SelfConfidence,
             3,
         );
         let order: Vec<usize> = r.ranked.iter().map(|s| s.row).collect();

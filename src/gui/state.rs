@@ -148,6 +148,10 @@ pub struct AppState {
     pub jobs: Jobs<JobOutput>,
     /// A matrix from a session, applied once its data's estimate arrives.
     pending_matrix: Option<SessionMatrix>,
+    /// The matrix changed while a ranking (or diagnosis) was running: run again when it
+    /// ends. At most one of each runs, so a drag over a cell never piles up stale work.
+    rank_pending: bool,
+    diagnose_pending: bool,
 }
 
 /// Messages kept at most (older ones go first).
@@ -173,6 +177,8 @@ impl AppState {
             messages: Vec::new(),
             jobs: Jobs::new(wake),
             pending_matrix: None,
+            rank_pending: false,
+            diagnose_pending: false,
         }
     }
 
@@ -276,6 +282,12 @@ impl AppState {
             }
             Err(failure) => self.say(Level::Error, failure.to_string()),
         }
+        if kind == JobKind::Rank && std::mem::take(&mut self.rank_pending) {
+            self.start_rank();
+        }
+        if kind == JobKind::Diagnose && std::mem::take(&mut self.diagnose_pending) {
+            self.start_diagnose();
+        }
     }
 
     fn accept(&mut self, output: JobOutput) {
@@ -296,11 +308,9 @@ impl AppState {
                 self.intervals = Some(interval)
             }
             JobOutput::Ranked(ranking, generation) if generation == current => {
-                let fresh = self
-                    .editor
-                    .as_ref()
-                    .is_some_and(|e| e.version() == ranking.matrix_version);
-                if fresh && ranking.kind == self.session.settings.score {
+                // A ranking of a slightly older matrix is still shown while the newer one
+                // is computed (the view says it is updating); one of another score is not.
+                if ranking.kind == self.session.settings.score {
                     self.ranking = Some(Arc::from(ranking));
                     self.refilter();
                 }
@@ -374,11 +384,14 @@ impl AppState {
         }
         self.data = Some(Arc::new(data));
         self.data_generation += 1;
+        self.rank_pending = false;
+        self.diagnose_pending = false;
         for kind in [
             JobKind::Probabilities,
             JobKind::Estimate,
             JobKind::Bootstrap,
             JobKind::Rank,
+            JobKind::Diagnose,
             JobKind::Retrain,
             JobKind::Review,
         ] {
@@ -520,6 +533,10 @@ impl AppState {
         else {
             return;
         };
+        if self.jobs.running(JobKind::Rank).is_some() {
+            self.rank_pending = true;
+            return;
+        }
         let matrix = editor.matrix().clone();
         let version = editor.version();
         let kind = self.session.settings.score;
@@ -536,6 +553,10 @@ impl AppState {
         else {
             return;
         };
+        if self.jobs.running(JobKind::Diagnose).is_some() {
+            self.diagnose_pending = true;
+            return;
+        }
         let matrix = editor.matrix().clone();
         let version = editor.version();
         let generation = self.data_generation;
