@@ -307,13 +307,13 @@ impl AppState {
             JobOutput::Intervals(interval, generation) if generation == current => {
                 self.intervals = Some(interval)
             }
-            JobOutput::Ranked(ranking, generation) if generation == current => {
-                // A ranking of a slightly older matrix is still shown while the newer one
-                // is computed (the view says it is updating); one of another score is not.
-                if ranking.kind == self.session.settings.score {
-                    self.ranking = Some(Arc::from(ranking));
-                    self.refilter();
-                }
+            // A ranking of a slightly older matrix is still shown while the newer one is
+            // computed (the view says it is updating); one of another score is not.
+            JobOutput::Ranked(ranking, generation)
+                if generation == current && ranking.kind == self.session.settings.score =>
+            {
+                self.ranking = Some(Arc::from(ranking));
+                self.refilter();
             }
             JobOutput::Diagnosed(d, generation, version) if generation == current => {
                 self.diagnostics = Some((*d, version))
