@@ -285,7 +285,8 @@ impl AppState {
         if kind == JobKind::Rank && std::mem::take(&mut self.rank_pending) {
             self.start_rank();
         }
-        if kind == JobKind::Diagnose && std::mem::take(&mut self.diagnose_pending) {
+        let ranking_idle = self.jobs.running(JobKind::Rank).is_none();
+        if ranking_idle && std::mem::take(&mut self.diagnose_pending) {
             self.start_diagnose();
         }
     }
@@ -521,10 +522,15 @@ impl AppState {
         }
     }
 
-    /// The matrix changed: re-rank now, diagnose alongside.
+    /// The matrix changed: re-rank first (the table is what the user watches while
+    /// editing), and diagnose once the ranking is done, so the two do not share the
+    /// cores.
     fn matrix_changed(&mut self) {
         self.start_rank();
-        self.start_diagnose();
+        self.diagnose_pending = true;
+        if self.jobs.running(JobKind::Rank).is_none() {
+            self.start_diagnose();
+        }
     }
 
     fn start_rank(&mut self) {

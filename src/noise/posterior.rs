@@ -19,6 +19,24 @@ const LANES: usize = 4;
 /// Up to this many classes the accumulators live on the stack.
 const MAX_STACK_CLASSES: usize = 64;
 
+/// out = Σ_j noisy_j · (row j of `inv`), with `CHUNKS` chunks of LANES accumulators on
+/// the stack (`padded` ≤ CHUNKS·LANES).
+fn accumulate<const CHUNKS: usize>(inv: &[f64], noisy: &[f32], padded: usize, out: &mut [f64]) {
+    let mut acc = [[0.0f64; LANES]; CHUNKS];
+    let acc = &mut acc[..padded / LANES];
+    for (row, &p) in inv.chunks_exact(padded).zip(noisy) {
+        let p = p as f64;
+        for (a, r) in acc.iter_mut().zip(row.chunks_exact(LANES)) {
+            for l in 0..LANES {
+                a[l] += r[l] * p;
+            }
+        }
+    }
+    out.iter_mut()
+        .zip(acc.iter().flatten())
+        .for_each(|(o, &a)| *o = a);
+}
+
 /// The flip matrix prepared for per-row posteriors. Matrices are kept as flat row-major
 /// vectors so the per-row loops run over plain slices (this runs for every row after
 /// every matrix edit in the desktop app).
@@ -82,20 +100,12 @@ impl Posterior {
         let k = self.k;
         if let Some(inv) = &self.inv {
             let padded = k.next_multiple_of(LANES);
-            let mut acc = [[0.0f64; LANES]; MAX_STACK_CLASSES / LANES];
-            if padded <= MAX_STACK_CLASSES {
-                let acc = &mut acc[..padded / LANES];
-                for (row, &p) in inv.chunks_exact(padded).zip(noisy) {
-                    let p = p as f64;
-                    for (a, r) in acc.iter_mut().zip(row.chunks_exact(LANES)) {
-                        for l in 0..LANES {
-                            a[l] += r[l] * p;
-                        }
-                    }
-                }
-                out.iter_mut()
-                    .zip(acc.iter().flatten())
-                    .for_each(|(o, &a)| *o = a);
+            // Stack accumulators sized to the class count: zeroing a 64-class array for
+            // every row of a 10-class problem cost more than the arithmetic.
+            if padded <= 16 {
+                accumulate::<4>(inv, noisy, padded, out);
+            } else if padded <= MAX_STACK_CLASSES {
+                accumulate::<{ MAX_STACK_CLASSES / LANES }>(inv, noisy, padded, out);
             } else {
                 out.fill(0.0);
                 for (row, &p) in inv.chunks_exact(padded).zip(noisy) {
