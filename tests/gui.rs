@@ -270,6 +270,45 @@ fn a_failed_save_loses_nothing_and_a_session_restores_the_edits() {
     );
 }
 
+#[test]
+fn retraining_compares_the_corrections_and_saves_a_model_predict_reads() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    h.get_by_label("Retrain").click();
+    h.run_steps(2);
+    h.get_by_label("Train and compare").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let r = state(&h).retrained.as_ref().expect("trained");
+    let names: Vec<&str> = r
+        .comparison
+        .report
+        .models
+        .iter()
+        .map(|m| m.correction)
+        .collect();
+    assert_eq!(names, ["none", "forward", "backward", "prune"]);
+    assert_eq!(
+        r.comparison.report.train_rows + r.comparison.report.holdout_rows,
+        8000
+    );
+    let model = dir.path("forward.json");
+    set_path(&mut h, Purpose::SaveModel, &model);
+    h.get_by_label("Save model").scroll_to_me();
+    h.run_steps(3);
+    h.get_by_label("Save model").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let messages = format!("{:?}", state(&h).messages);
+    let file = std::fs::File::open(&model).expect(&messages);
+    let (saved, _) = flipmend::io::model::read_model(file, &model).expect("a readable model");
+    assert_eq!(
+        saved.correction, "forward",
+        "the first correction is preselected"
+    );
+    assert_eq!(saved.classes.len(), 8);
+}
+
 fn set_path(h: &mut Harness<'_, FlipmendApp>, purpose: Purpose, path: &Path) {
     let text: PathBuf = path.to_path_buf();
     *h.state_mut().ui.path(purpose) = text.display().to_string();

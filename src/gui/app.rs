@@ -66,8 +66,8 @@ pub struct UiState {
     pub roles_draft: Option<Roles>,
     /// Dialogs the views asked for this frame.
     pub dialog_requests: Vec<Purpose>,
-    /// Model picked for saving (index into the comparison).
-    pub model_choice: usize,
+    /// Model picked for saving (index into the comparison); `None` until picked.
+    pub model_choice: Option<usize>,
     /// The About panel is open.
     pub show_about: bool,
 }
@@ -94,6 +94,9 @@ pub struct FlipmendApp {
     pub persisted: Persisted,
     dialogs: Dialogs,
     commands: Vec<Command>,
+    /// When the process asked for the window; reported at the first frame when the
+    /// environment sets FLIPMEND_TIMING (for the start-up measurement).
+    launched: Option<std::time::Instant>,
 }
 
 /// Key of the persisted state in eframe's storage.
@@ -114,6 +117,15 @@ impl FlipmendApp {
             persisted,
             dialogs: Dialogs::default(),
             commands: Vec::new(),
+            launched: None,
+        }
+    }
+
+    /// Reports the time from `at` to the first frame on standard error when the
+    /// environment sets FLIPMEND_TIMING.
+    pub fn time_first_frame(&mut self, at: std::time::Instant) {
+        if std::env::var_os("FLIPMEND_TIMING").is_some() {
+            self.launched = Some(at);
         }
     }
 
@@ -232,7 +244,19 @@ impl FlipmendApp {
                 s.test = Some(path);
                 Command::Settings(s)
             }
-            Purpose::SaveModel => Command::SaveModel(self.ui.model_choice, path),
+            Purpose::SaveModel => {
+                let models = self
+                    .state
+                    .retrained
+                    .as_ref()
+                    .map_or(1, |r| r.comparison.models.len());
+                let chosen = self
+                    .ui
+                    .model_choice
+                    .unwrap_or(1)
+                    .min(models.saturating_sub(1));
+                Command::SaveModel(chosen, path)
+            }
             Purpose::OpenSession => Command::OpenSession(path),
             Purpose::SaveSession => Command::SaveSession(Some(path)),
         };
@@ -277,6 +301,12 @@ impl eframe::App for FlipmendApp {
 
     fn ui(&mut self, ui: &mut egui::Ui, _frame: &mut eframe::Frame) {
         self.draw(ui);
+        if let Some(at) = self.launched.take() {
+            eprintln!(
+                "flipmend: first frame drawn {:.0} ms after start",
+                at.elapsed().as_secs_f64() * 1000.0
+            );
+        }
     }
 
     fn save(&mut self, storage: &mut dyn eframe::Storage) {

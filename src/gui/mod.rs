@@ -75,6 +75,7 @@ pub fn demo_launch() -> Result<Launch> {
 
 /// Opens the window and runs until it is closed.
 pub fn run(launch: Launch) -> Result<()> {
+    let started = std::time::Instant::now();
     let options = eframe::NativeOptions {
         viewport: eframe::egui::ViewportBuilder::default()
             .with_title("flipmend")
@@ -89,6 +90,7 @@ pub fn run(launch: Launch) -> Result<()> {
         options,
         Box::new(move |cc| {
             let mut app = FlipmendApp::from_creation(cc);
+            app.time_first_frame(started);
             if let Some(probs) = launch.probs.take() {
                 app.state.session.probs = Some(probs);
             }

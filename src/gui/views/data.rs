@@ -208,7 +208,7 @@ fn classes(ui: &mut egui::Ui, state: &AppState) {
             }
         });
     for w in &data.warnings {
-        ui.colored_label(ui.visuals().warn_fg_color, w);
+        ui.colored_label(ui.visuals().warn_fg_color, super::widgets::plain(w));
     }
 }
 

@@ -4,7 +4,7 @@
 use eframe::egui;
 use egui_plot::{Bar, BarChart, Legend, Plot};
 
-use super::widgets::{heat, path_row};
+use super::widgets::{heat, index_axis, path_row, plain};
 use crate::gui::app::UiState;
 use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
@@ -87,7 +87,7 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
     }
     if let Some(info) = &state.estimate {
         ui.label(format!("matrix from {}", state.matrix_description()))
-            .on_hover_text(info.notes.join("\n"));
+            .on_hover_text(plain(&info.notes.join("\n")).into_owned());
     }
 }
 
@@ -273,7 +273,7 @@ fn largest_flips(ui: &mut egui::Ui, classes: &[String], editor: &MatrixEditor) {
         .id_salt("largest-flips")
         .show(ui, |ui| {
             for (v, i, j) in flips.into_iter().take(30) {
-                ui.label(format!("{} → {}: {:.4}", classes[i], classes[j], v));
+                ui.label(format!("{} -> {}: {:.4}", classes[i], classes[j], v));
             }
         });
 }
@@ -329,11 +329,12 @@ fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
         .enumerate()
         .map(|(i, &v)| Bar::new(i as f64, v).name(&data.classes[i]))
         .collect();
-    ui.label("noise rate per true class (1 − T[i][i])");
+    ui.label("noise rate per true class (1 - T[i][i])");
     Plot::new("noise-bars")
         .height(150.0)
         .allow_scroll(false)
-        .x_axis_formatter(class_axis(&data.classes))
+        .x_axis_formatter(index_axis(&data.classes))
+        .x_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
         .show(ui, |p| {
             p.bar_chart(
                 BarChart::new("noise rate", noise)
@@ -366,30 +367,17 @@ fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
         .height(150.0)
         .allow_scroll(false)
         .legend(Legend::default())
-        .x_axis_formatter(class_axis(&data.classes))
+        .x_axis_formatter(index_axis(&data.classes))
+        .x_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
         .show(ui, |p| {
             p.bar_chart(BarChart::new("observed", observed).color(OBSERVED_COLOR));
             p.bar_chart(BarChart::new("clean", clean).color(CLEAN_COLOR));
         });
     for w in &d.warnings {
-        ui.colored_label(ui.visuals().warn_fg_color, format!("warning: {w}"));
+        ui.colored_label(ui.visuals().warn_fg_color, format!("warning: {}", plain(w)));
     }
 }
 
 const NOISE_COLOR: egui::Color32 = egui::Color32::from_rgb(230, 120, 60);
 const OBSERVED_COLOR: egui::Color32 = egui::Color32::from_rgb(150, 150, 150);
 const CLEAN_COLOR: egui::Color32 = egui::Color32::from_rgb(70, 140, 255);
-
-/// Names the integer ticks of a per-class bar chart.
-fn class_axis(
-    classes: &[String],
-) -> impl Fn(egui_plot::GridMark, &std::ops::RangeInclusive<f64>) -> String + 'static {
-    let classes = classes.to_vec();
-    move |mark, _| {
-        let i = mark.value.round();
-        if (mark.value - i).abs() > 1e-6 || i < 0.0 {
-            return String::new();
-        }
-        classes.get(i as usize).cloned().unwrap_or_default()
-    }
-}

@@ -145,7 +145,7 @@ fn messages(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
                     if ui.small_button("x").on_hover_text("dismiss").clicked() {
                         out.push(Command::Dismiss(i));
                     }
-                    ui.colored_label(color, format!("{tag}: {}", m.text));
+                    ui.colored_label(color, format!("{tag}: {}", widgets::plain(&m.text)));
                 });
             }
         });

@@ -5,7 +5,7 @@ use eframe::egui;
 use egui_extras::{Column, TableBuilder};
 use egui_plot::{Bar, BarChart, Legend, Plot};
 
-use super::widgets::{path_row, pct};
+use super::widgets::{index_axis, path_row, pct};
 use crate::gui::app::UiState;
 use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
@@ -40,14 +40,15 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         results(ui, c);
         chart(ui, c);
         ui.separator();
-        let chosen = view.model_choice.min(c.models.len() - 1);
+        // Until one is picked, the first correction is set against `none`.
+        let chosen = view.model_choice.unwrap_or(1).min(c.models.len() - 1);
         ui.horizontal(|ui| {
             ui.label("model");
             egui::ComboBox::from_id_salt("model-choice")
                 .selected_text(c.report.models[chosen].correction)
                 .show_ui(ui, |ui| {
                     for (i, m) in c.report.models.iter().enumerate() {
-                        ui.selectable_value(&mut view.model_choice, i, m.correction);
+                        ui.selectable_value(&mut view.model_choice, Some(i), m.correction);
                     }
                 });
         });
@@ -172,7 +173,7 @@ fn results(ui: &mut egui::Ui, c: &Comparison) {
                 ui.end_row();
             }
         });
-    ui.weak("observed: holdout accuracy against the noisy labels. est. clean: implied accuracy against the true labels, trace(N·T⁻¹). test / trusted: against labels taken as correct. All are estimates for human review.");
+    ui.weak("observed: holdout accuracy against the noisy labels. est. clean: implied accuracy against the true labels, trace(N·T^-1). test / trusted: against labels taken as correct. All are estimates for human review.");
 }
 
 /// Reads one figure of a model's report.
@@ -185,11 +186,13 @@ fn chart(ui: &mut egui::Ui, c: &Comparison) {
         ("test", |m| m.test_accuracy),
     ];
     let models = &c.report.models;
+    let names: Vec<String> = models.iter().map(|m| m.correction.to_string()).collect();
     Plot::new("compare-chart")
         .height(180.0)
         .allow_scroll(false)
         .legend(Legend::default())
-        .show_axes([false, true])
+        .x_axis_formatter(index_axis(&names))
+        .x_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
         .show(ui, |p| {
             for (s, (name, get)) in metrics.iter().enumerate() {
                 let bars: Vec<Bar> = models

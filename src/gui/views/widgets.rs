@@ -78,3 +78,46 @@ pub fn class_filter(
         });
     (choice != *current).then_some(choice)
 }
+
+/// Names the integer ticks of a bar chart with one bar (group) per name.
+pub fn index_axis(
+    names: &[String],
+) -> impl Fn(egui_plot::GridMark, &std::ops::RangeInclusive<f64>) -> String + 'static {
+    let names = names.to_vec();
+    move |mark, _| {
+        let i = mark.value.round();
+        if (mark.value - i).abs() > 1e-6 || i < 0.0 {
+            return String::new();
+        }
+        names.get(i as usize).cloned().unwrap_or_default()
+    }
+}
+
+/// Library messages use a few mathematical characters the bundled font lacks; they are
+/// spelled out in ASCII for display (the command line keeps them).
+pub fn plain(text: &str) -> std::borrow::Cow<'_, str> {
+    const SWAPS: [(char, &str); 8] = [
+        ('⁻', "^-"),
+        ('¹', "1"),
+        ('²', "^2"),
+        ('→', "->"),
+        ('−', "-"),
+        ('≤', "<="),
+        ('≥', ">="),
+        ('≈', "~"),
+    ];
+    if !text
+        .chars()
+        .any(|c| SWAPS.iter().any(|(from, _)| *from == c))
+    {
+        return std::borrow::Cow::Borrowed(text);
+    }
+    let mut out = String::with_capacity(text.len() + 8);
+    for c in text.chars() {
+        match SWAPS.iter().find(|(from, _)| *from == c) {
+            Some((_, to)) => out.push_str(to),
+            None => out.push(c),
+        }
+    }
+    std::borrow::Cow::Owned(out)
+}
