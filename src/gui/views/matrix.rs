@@ -145,7 +145,7 @@ fn grid(
 ) {
     let k = classes.len();
     let dark = state.settings().dark;
-    let changed_stroke = egui::Stroke::new(1.5, egui::Color32::from_rgb(255, 150, 40));
+    let changed_stroke = egui::Stroke::new(2.0, egui::Color32::from_rgb(255, 150, 40));
     let height = if k > MANY_CLASSES {
         420.0
     } else {
@@ -201,6 +201,8 @@ fn cell(
 ) {
     let mut value = editor.matrix()[[i, j]];
     let changed = editor.is_changed(i, j);
+    // The heat colour fills a frame around the value (the value box keeps the theme's
+    // colours, so its text stays readable); a changed cell gets an orange outline.
     let frame = egui::Frame::new()
         .fill(heat(value, dark))
         .stroke(if changed {
@@ -208,7 +210,8 @@ fn cell(
         } else {
             egui::Stroke::NONE
         })
-        .inner_margin(2.0);
+        .corner_radius(3.0)
+        .inner_margin(4.0);
     let response = frame
         .show(ui, |ui| {
             ui.add_sized(

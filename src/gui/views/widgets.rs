@@ -41,15 +41,14 @@ pub fn path_row(
     chosen
 }
 
-/// The fill of a matrix cell: from the theme's widget grey towards blue as the value
-/// grows (square root, so that small flips stay visible); opaque, so the cell text keeps
-/// its contrast in both themes.
+/// The heat colour of a matrix cell: from the panel's grey towards strong blue as the
+/// value grows (square root, so that small flips stay visible).
 pub fn heat(value: f64, dark: bool) -> egui::Color32 {
     let t = value.clamp(0.0, 1.0).sqrt() as f32;
     let (from, to) = if dark {
-        ([48.0, 48.0, 52.0], [25.0, 85.0, 190.0])
+        ([40.0, 40.0, 44.0], [40.0, 120.0, 255.0])
     } else {
-        ([235.0, 235.0, 238.0], [120.0, 170.0, 250.0])
+        ([238.0, 238.0, 240.0], [30.0, 110.0, 240.0])
     };
     let mix = |c: usize| (from[c] + (to[c] - from[c]) * t) as u8;
     egui::Color32::from_rgb(mix(0), mix(1), mix(2))
