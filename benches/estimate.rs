@@ -59,6 +59,25 @@ fn main() {
             Some(&t),
         ));
     });
+    bench(
+        "suspects: posterior kernel alone, one thread 1000000x10",
+        5,
+        || {
+            let post = flipmend::noise::posterior::Posterior::new(&t);
+            let (mut clean, mut out) = (vec![0.0; k], vec![0.0; k]);
+            let mut total = 0.0;
+            for (r, &label) in labels.iter().enumerate() {
+                post.given_observed(
+                    probs.row(r).as_slice().unwrap(),
+                    label,
+                    &mut clean,
+                    &mut out,
+                );
+                total += out[label];
+            }
+            std::hint::black_box(total);
+        },
+    );
     let unranked = score_rows(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
     bench("suspects: ranking alone 1000000", 5, || {
         let mut s = unranked.clone();

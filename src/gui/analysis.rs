@@ -4,7 +4,11 @@
 
 use ndarray::{Array2, ArrayView2};
 
-use crate::noise::scores::{rank, score_rows, RowScore, ScoreKind};
+use crate::noise::scores::{rank, rank_head, score_rows, RowScore, ScoreKind};
+
+/// Rows put in order first after a matrix edit; the table shows them while the rest is
+/// sorted (a screenful scrolled many times over).
+pub const HEAD_ROWS: usize = 20_000;
 
 /// Bins of the score histogram.
 pub const HISTOGRAM_BINS: usize = 40;
@@ -60,8 +64,22 @@ pub struct Ranking {
     pub expected_errors: Option<f64>,
     /// Version of the matrix it was computed from.
     pub matrix_version: u64,
+    /// Leading rows of `ranked` already in final order (all of them once complete).
+    pub sorted_len: usize,
     /// Seconds it took.
     pub duration_secs: f64,
+}
+
+impl Ranking {
+    /// True once every row is in order.
+    pub fn is_complete(&self) -> bool {
+        self.sorted_len == self.ranked.len()
+    }
+
+    /// The ranked rows whose order is final.
+    pub fn sorted(&self) -> &[RowScore] {
+        &self.ranked[..self.sorted_len]
+    }
 }
 
 /// Scores and ranks every row.
@@ -72,20 +90,53 @@ pub fn rank_rows(
     kind: ScoreKind,
     matrix_version: u64,
 ) -> Ranking {
+    rank_rows_head(probs, labels, matrix, kind, matrix_version, usize::MAX)
+}
+
+/// Scores every row and puts the `head` most suspect first, in order; the rest follow in
+/// no order until [`finish_ranking`].
+pub fn rank_rows_head(
+    probs: ArrayView2<f32>,
+    labels: &[usize],
+    matrix: &Array2<f64>,
+    kind: ScoreKind,
+    matrix_version: u64,
+    head: usize,
+) -> Ranking {
     let started = std::time::Instant::now();
     let mut ranked = score_rows(kind, probs, labels, Some(matrix));
     let expected_errors = kind
         .is_probability()
         .then(|| ranked.iter().map(|s| s.score).sum());
     let histogram = Histogram::of(&ranked, kind);
-    rank(&mut ranked);
+    let sorted_len = head.min(ranked.len());
+    if sorted_len == ranked.len() {
+        rank(&mut ranked);
+    } else {
+        rank_head(&mut ranked, sorted_len);
+    }
     Ranking {
         ranked,
         kind,
         histogram,
         expected_errors,
         matrix_version,
+        sorted_len,
         duration_secs: started.elapsed().as_secs_f64(),
+    }
+}
+
+/// The complete ranking of a head ranking: the rest sorted after the head.
+pub fn finish_ranking(partial: &Ranking) -> Ranking {
+    let started = std::time::Instant::now();
+    let mut ranked = partial.ranked.clone();
+    rank(&mut ranked[partial.sorted_len..]);
+    Ranking {
+        ranked,
+        histogram: partial.histogram.clone(),
+        sorted_len: partial.ranked.len(),
+        duration_secs: partial.duration_secs + started.elapsed().as_secs_f64(),
+        ..*partial
     }
 }
 
@@ -100,8 +151,8 @@ pub struct Filter {
     pub min_score: f64,
 }
 
-/// Positions in `ranked` of the rows `filter` keeps, in rank order. Because the ranking
-/// is sorted by score, the threshold ends the scan.
+/// Positions in `ranked` (its rows in final order) of the rows `filter` keeps, in rank
+/// order. Because the ranking is sorted by score, the threshold ends the scan.
 pub fn filter_rows(ranked: &[RowScore], labels: &[usize], filter: &Filter) -> Vec<u32> {
     let mut kept = Vec::new();
     for (i, s) in ranked.iter().enumerate() {
@@ -169,5 +220,25 @@ mod tests {
             assert_eq!(r.histogram.counts[bin], 1, "bin {bin}");
         }
         assert_eq!(r.expected_errors, None);
+    }
+
+    #[test]
+    fn a_finished_head_ranking_is_the_full_ranking() {
+        let rows = 2000;
+        let probs = Array2::from_shape_fn((rows, 3), |(r, c)| {
+            let x = ((r * 7919 + c * 104_729) % 1000) as f32 / 1000.0 + 0.01;
+            x
+        });
+        let sums = probs.sum_axis(ndarray::Axis(1));
+        let probs = &probs / &sums.insert_axis(ndarray::Axis(1));
+        let labels: Vec<usize> = (0..rows).map(|r| r % 3).collect();
+        let t = array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]];
+        let full = rank_rows(probs.view(), &labels, &t, ScoreKind::Posterior, 1);
+        let head = rank_rows_head(probs.view(), &labels, &t, ScoreKind::Posterior, 1, 100);
+        assert!(full.is_complete() && !head.is_complete());
+        assert_eq!(head.sorted(), &full.ranked[..100]);
+        let done = finish_ranking(&head);
+        assert!(done.is_complete());
+        assert_eq!(done.ranked, full.ranked);
     }
 }

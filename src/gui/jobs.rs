@@ -25,8 +25,10 @@ pub enum JobKind {
     Estimate,
     /// Bootstrap intervals of the matrix.
     Bootstrap,
-    /// Scoring and ranking the suspects.
+    /// Scoring the suspects and putting the first rows in order.
     Rank,
+    /// Sorting the rest of a ranking.
+    RankRest,
     /// The matrix's diagnostics (priors, noise rates, warnings).
     Diagnose,
     /// Training and comparing the corrections.
@@ -48,6 +50,7 @@ impl JobKind {
             JobKind::Estimate => "estimating",
             JobKind::Bootstrap => "bootstrap",
             JobKind::Rank => "ranking",
+            JobKind::RankRest => "sorting the rest",
             JobKind::Diagnose => "diagnostics",
             JobKind::Retrain => "training",
             JobKind::Review => "reading review",

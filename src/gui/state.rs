@@ -8,7 +8,7 @@ use std::sync::Arc;
 
 use ndarray::Array2;
 
-use super::analysis::{filter_rows, rank_rows, Filter, Ranking};
+use super::analysis::{filter_rows, finish_ranking, rank_rows_head, Filter, Ranking, HEAD_ROWS};
 use super::command::Command;
 use super::jobs::{Finished, JobControl, JobFailure, JobKind, Jobs};
 use super::matrix_edit::MatrixEditor;
@@ -98,8 +98,10 @@ pub enum JobOutput {
     Estimated(Array2<f64>, u64, EstimateInfo),
     /// Bootstrap intervals for data generation `.1`.
     Intervals(Interval, u64),
-    /// A ranking for data generation `.1`.
+    /// A ranking (perhaps only its head in order) for data generation `.1`.
     Ranked(Box<Ranking>, u64),
+    /// The complete ranking of a head ranking, for data generation `.1`.
+    RankedRest(Box<Ranking>, u64),
     /// Diagnostics for data generation `.1` and matrix version `.2`.
     Diagnosed(Box<Diagnostics>, u64, u64),
     /// A comparison for data generation `.1`.
@@ -313,7 +315,20 @@ impl AppState {
             JobOutput::Ranked(ranking, generation)
                 if generation == current && ranking.kind == self.session.settings.score =>
             {
-                self.ranking = Some(Arc::from(ranking));
+                let ranking: Arc<Ranking> = Arc::from(ranking);
+                if !ranking.is_complete() {
+                    self.start_rank_rest(ranking.clone());
+                }
+                self.ranking = Some(ranking);
+                self.refilter();
+            }
+            JobOutput::RankedRest(full, generation)
+                if generation == current
+                    && self.ranking.as_ref().is_some_and(|r| {
+                        r.matrix_version == full.matrix_version && r.kind == full.kind
+                    }) =>
+            {
+                self.ranking = Some(Arc::from(full));
                 self.refilter();
             }
             JobOutput::Diagnosed(d, generation, version) if generation == current => {
@@ -392,6 +407,7 @@ impl AppState {
             JobKind::Estimate,
             JobKind::Bootstrap,
             JobKind::Rank,
+            JobKind::RankRest,
             JobKind::Diagnose,
             JobKind::Retrain,
             JobKind::Review,
@@ -547,9 +563,31 @@ impl AppState {
         let version = editor.version();
         let kind = self.session.settings.score;
         let generation = self.data_generation;
+        // Sorting the rest of an older ranking is wasted once a newer one is on its way.
+        self.jobs.cancel(JobKind::RankRest);
         self.jobs.spawn(JobKind::Rank, move |_| {
-            let r = rank_rows(probs.values.view(), &data.labels, &matrix, kind, version);
+            let r = rank_rows_head(
+                probs.values.view(),
+                &data.labels,
+                &matrix,
+                kind,
+                version,
+                HEAD_ROWS,
+            );
             Ok(JobOutput::Ranked(Box::new(r), generation))
+        });
+    }
+
+    fn start_rank_rest(&mut self, partial: Arc<Ranking>) {
+        let generation = self.data_generation;
+        self.jobs.spawn(JobKind::RankRest, move |control| {
+            if control.is_cancelled() {
+                return Err(JobFailure::Cancelled);
+            }
+            Ok(JobOutput::RankedRest(
+                Box::new(finish_ranking(&partial)),
+                generation,
+            ))
         });
     }
 
@@ -678,7 +716,7 @@ impl AppState {
     fn refilter(&mut self) {
         let filter = self.filter();
         self.visible = match (&self.ranking, &self.data) {
-            (Some(r), Some(d)) => filter_rows(&r.ranked, &d.labels, &filter),
+            (Some(r), Some(d)) => filter_rows(r.sorted(), &d.labels, &filter),
             _ => Vec::new(),
         };
     }
@@ -702,8 +740,11 @@ impl AppState {
         let Some(data) = self.data.clone() else {
             return self.say(Level::Error, "load a data table first");
         };
-        if self.ranking.is_none() {
-            return self.say(Level::Error, "the suspects are not ranked yet");
+        if !self.ranking.as_ref().is_some_and(|r| r.is_complete()) {
+            return self.say(
+                Level::Error,
+                "the suspects are still being ranked; export again in a moment",
+            );
         }
         let rows = self.worklist();
         let inputs = self.input_paths();

@@ -173,9 +173,22 @@ fn top_two(values: &[f64]) -> (usize, usize) {
 /// about 2× faster than the comparator sort, and faster than an LSD radix sort, which
 /// is memory-bound here. Rows or lengths beyond 32 bits fall back to the comparator.
 pub fn rank(scores: &mut [RowScore]) {
+    rank_head(scores, scores.len());
+}
+
+/// Puts the `head` most suspect rows first, in rank order (as [`rank`] would), and the
+/// rest after them in no particular order; `rank` is `rank_head` with `head` = all. The
+/// desktop app shows the head of a new ranking while the rest is still being sorted.
+pub fn rank_head(scores: &mut [RowScore], head: usize) {
+    let head = head.min(scores.len());
     let fits = |n: usize| n <= u32::MAX as usize;
     if !fits(scores.len()) || !scores.iter().all(|s| fits(s.row)) {
-        scores.par_sort_unstable_by(|a, b| b.score.total_cmp(&a.score).then(a.row.cmp(&b.row)));
+        let by_rank =
+            |a: &RowScore, b: &RowScore| b.score.total_cmp(&a.score).then(a.row.cmp(&b.row));
+        if head < scores.len() && head > 0 {
+            scores.select_nth_unstable_by(head - 1, by_rank);
+        }
+        scores[..head].par_sort_unstable_by(by_rank);
         return;
     }
     let mut keys: Vec<u128> = scores
@@ -185,7 +198,10 @@ pub fn rank(scores: &mut [RowScore]) {
             ((descending_key(s.score) as u128) << 64) | ((s.row as u128) << 32) | i as u128
         })
         .collect();
-    keys.par_sort_unstable();
+    if head < keys.len() && head > 0 {
+        keys.select_nth_unstable(head - 1);
+    }
+    keys[..head].par_sort_unstable();
     let sorted: Vec<RowScore> = keys
         .par_iter()
         .map(|&key| scores[(key & 0xffff_ffff) as usize])
@@ -325,9 +341,18 @@ mod tests {
             .collect();
         let mut radix = scores.clone();
         rank(&mut radix);
-        let mut reference = scores;
+        let mut reference = scores.clone();
         reference.sort_by(|a, b| b.score.total_cmp(&a.score).then(a.row.cmp(&b.row)));
         assert_eq!(radix, reference);
+        // A head ranking has the same first rows, and the same rows overall.
+        let mut head = scores;
+        rank_head(&mut head, 300);
+        assert_eq!(head[..300], reference[..300]);
+        let mut rest: Vec<usize> = head[300..].iter().map(|s| s.row).collect();
+        rest.sort_unstable();
+        let mut expected: Vec<usize> = reference[300..].iter().map(|s| s.row).collect();
+        expected.sort_unstable();
+        assert_eq!(rest, expected);
     }
 
     fn t3() -> Array2<f64> {

@@ -28,7 +28,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         });
         return;
     };
-    let stale = state.jobs.running(JobKind::Rank).is_some();
+    let stale = state.jobs.running(JobKind::Rank).is_some() || !ranking.is_complete();
     ui.horizontal(|ui| {
         ui.label(format!(
             "{} of {} rows pass the filters; the worklist takes the first {}",
@@ -38,6 +38,12 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         ));
         if let Some(e) = ranking.expected_errors {
             ui.label(format!("· expected mislabelled rows: {e:.0}"));
+        }
+        if !ranking.is_complete() {
+            ui.label(format!(
+                "· showing the top {} while the rest is sorted",
+                ranking.sorted_len
+            ));
         }
         if stale {
             ui.spinner();
