@@ -226,8 +226,7 @@ mod tests {
     fn a_finished_head_ranking_is_the_full_ranking() {
         let rows = 2000;
         let probs = Array2::from_shape_fn((rows, 3), |(r, c)| {
-            let x = ((r * 7919 + c * 104_729) % 1000) as f32 / 1000.0 + 0.01;
-            x
+            ((r * 7919 + c * 104_729) % 1000) as f32 / 1000.0 + 0.01
         });
         let sums = probs.sum_axis(ndarray::Axis(1));
         let probs = &probs / &sums.insert_axis(ndarray::Axis(1));
