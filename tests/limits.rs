@@ -96,3 +96,121 @@ fn a_single_enormous_field_is_refused_within_bounded_memory() {
     flipmend(&["inspect", "--data", &path.to_string_lossy()])
         .assert_bad_input(&["huge.csv, line 2", "longer than 64 MiB"]);
 }
+
+/// Hands out `first`, then behaves as `then` says: another program replacing, truncating
+/// or appending to the file while flipmend reads it.
+struct ChangingReader {
+    first: std::io::Cursor<Vec<u8>>,
+    then: After,
+}
+
+enum After {
+    /// The rest of the stream is these bytes (the file's content changed shape).
+    Bytes(std::io::Cursor<Vec<u8>>),
+    /// Reading fails (the file was removed or the disk went away).
+    Fails,
+}
+
+impl std::io::Read for ChangingReader {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        let n = self.first.read(buf)?;
+        if n > 0 {
+            return Ok(n);
+        }
+        match &mut self.then {
+            After::Bytes(rest) => rest.read(buf),
+            After::Fails => Err(std::io::Error::other(
+                "the file was truncated by another program",
+            )),
+        }
+    }
+}
+
+fn rows(from: usize, to: usize, extra: &str) -> Vec<u8> {
+    (from..to)
+        .map(|i| format!("{i},{}.5{extra},{}\n", i % 7, ["a", "b"][i % 2]))
+        .collect::<String>()
+        .into_bytes()
+}
+
+fn load(reader: ChangingReader) -> flipmend::Result<flipmend::data::Dataset> {
+    // A size hint far from the truth (1 TiB), as when the file shrinks after its size was
+    // read: it may only affect allocation, never the result. (It used to abort the
+    // process: the loader reserved memory for the hinted size without a fallback.)
+    flipmend::data::Dataset::from_reader(
+        reader,
+        std::path::Path::new("changing.csv"),
+        Some(1 << 40),
+        &flipmend::data::TableOptions::default(),
+    )
+}
+
+#[test]
+fn a_file_that_changes_shape_while_it_is_read_gives_a_located_error() {
+    let mut first = b"id,x,label\n".to_vec();
+    first.extend(rows(0, 200_000, ""));
+    // From row 200,000 on, the lines carry one more field.
+    let reader = ChangingReader {
+        first: std::io::Cursor::new(first),
+        then: After::Bytes(std::io::Cursor::new(rows(200_000, 200_010, ",9"))),
+    };
+    let message = load(reader).unwrap_err().to_string();
+    assert!(
+        message.contains("changing.csv") && message.contains("line 200002"),
+        "{message}"
+    );
+}
+
+#[test]
+fn a_file_that_fails_while_it_is_read_gives_a_read_error() {
+    let mut first = b"id,x,label\n".to_vec();
+    first.extend(rows(0, 300_000, ""));
+    let reader = ChangingReader {
+        first: std::io::Cursor::new(first),
+        then: After::Fails,
+    };
+    let message = load(reader).unwrap_err().to_string();
+    assert!(
+        message.contains("changing.csv")
+            && message.contains("cannot read")
+            && message.contains("truncated"),
+        "{message}"
+    );
+}
+
+#[test]
+fn a_file_cut_short_mid_record_while_it_is_read_gives_a_located_error() {
+    // The stream ends inside a record: the last line has two of its three fields.
+    let mut first = b"id,x,label\n".to_vec();
+    first.extend(rows(0, 100_000, ""));
+    first.extend(b"100000,1.5");
+    let reader = ChangingReader {
+        first: std::io::Cursor::new(first),
+        then: After::Bytes(std::io::Cursor::new(Vec::new())),
+    };
+    let message = load(reader).unwrap_err().to_string();
+    assert!(message.contains("line 100002"), "{message}");
+}
+
+#[test]
+fn a_probability_stream_shorter_than_its_header_says_is_refused() {
+    // A .npy whose data part stops early (the file was being rewritten).
+    let data = flipmend::data::Dataset::from_reader(
+        &b"x,label\n1,a\n2,b\n3,a\n"[..],
+        std::path::Path::new("t.csv"),
+        None,
+        &flipmend::data::TableOptions::default(),
+    )
+    .unwrap();
+    let mut npy = Vec::new();
+    flipmend::data::npy::write_2d(&mut npy, 3, 2, &[0.5f32, 0.5, 0.2, 0.8, 0.9, 0.1]).unwrap();
+    npy.truncate(npy.len() - 6);
+    let error = flipmend::data::Probabilities::from_npy_reader(
+        &npy[..],
+        std::path::Path::new("p.npy"),
+        &data,
+        &flipmend::data::ProbOptions::default(),
+    )
+    .unwrap_err();
+    assert!(error.to_string().contains("p.npy"), "{error}");
+}

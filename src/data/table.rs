@@ -380,14 +380,17 @@ impl<'a> Loader<'a> {
 
     /// Reserves the value buffer from the first block's density and the file size, so the
     /// big array grows once instead of doubling (which would briefly need 1.5–2× memory).
+    /// The size is only a hint (the file may change while it is read, a stream may not
+    /// know its length): when the reservation fails the buffer just grows as it fills.
     fn reserve(&mut self, out: &ChunkOut, plan: &ColumnPlan) {
         let (Some(size), true) = (self.size_hint, out.rows > 0) else {
             return;
         };
         let bytes_per_row = (out.bytes as f64 / out.rows as f64).max(2.0);
         let est_rows = (size as f64 / bytes_per_row * 1.02) as usize + 16;
-        self.values
-            .reserve_exact(est_rows.saturating_mul(plan.numeric.len()));
+        let _ = self
+            .values
+            .try_reserve_exact(est_rows.saturating_mul(plan.numeric.len()));
     }
 
     fn global_code(&mut self, name: String) -> u32 {
