@@ -549,18 +549,39 @@ impl AppState {
         }
     }
 
-    fn start_rank(&mut self) {
+    /// What a job on the current matrix needs, unless one of `kind` is already running
+    /// (then the job is marked to run again when it ends, and `None` is returned).
+    fn matrix_job_inputs(&mut self, kind: JobKind) -> Option<MatrixJobInputs> {
         let (Some(data), Some(probs), Some(editor)) =
             (self.data.clone(), self.probs.clone(), self.editor.as_ref())
         else {
+            return None;
+        };
+        if self.jobs.running(kind).is_some() {
+            match kind {
+                JobKind::Rank => self.rank_pending = true,
+                _ => self.diagnose_pending = true,
+            }
+            return None;
+        }
+        Some(MatrixJobInputs {
+            data,
+            probs,
+            matrix: editor.matrix().clone(),
+            version: editor.version(),
+        })
+    }
+
+    fn start_rank(&mut self) {
+        let Some(MatrixJobInputs {
+            data,
+            probs,
+            matrix,
+            version,
+        }) = self.matrix_job_inputs(JobKind::Rank)
+        else {
             return;
         };
-        if self.jobs.running(JobKind::Rank).is_some() {
-            self.rank_pending = true;
-            return;
-        }
-        let matrix = editor.matrix().clone();
-        let version = editor.version();
         let kind = self.session.settings.score;
         let generation = self.data_generation;
         // Sorting the rest of an older ranking is wasted once a newer one is on its way.
@@ -592,17 +613,15 @@ impl AppState {
     }
 
     fn start_diagnose(&mut self) {
-        let (Some(data), Some(probs), Some(editor)) =
-            (self.data.clone(), self.probs.clone(), self.editor.as_ref())
+        let Some(MatrixJobInputs {
+            data,
+            probs,
+            matrix,
+            version,
+        }) = self.matrix_job_inputs(JobKind::Diagnose)
         else {
             return;
         };
-        if self.jobs.running(JobKind::Diagnose).is_some() {
-            self.diagnose_pending = true;
-            return;
-        }
-        let matrix = editor.matrix().clone();
-        let version = editor.version();
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::Diagnose, move |_| {
             let external = matches!(probs.source, ProbSource::File(_));
@@ -999,6 +1018,14 @@ impl AppState {
     {
         self.jobs.spawn(kind, work);
     }
+}
+
+/// The data, probabilities and a copy of the matrix (with its version) for a job.
+struct MatrixJobInputs {
+    data: Arc<Dataset>,
+    probs: Arc<RowProbabilities>,
+    matrix: Array2<f64>,
+    version: u64,
 }
 
 /// Library errors become job failures (cancellation stays cancellation).

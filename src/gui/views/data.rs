@@ -236,18 +236,7 @@ fn probabilities(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &
                 .range(2..=20)
                 .prefix("folds "),
         );
-        ui.add(egui::DragValue::new(&mut s.seed).prefix("seed "));
-        ui.add(
-            egui::DragValue::new(&mut s.l2)
-                .speed(1e-4)
-                .range(0.0..=10.0)
-                .prefix("L2 "),
-        );
-        ui.add(
-            egui::DragValue::new(&mut s.max_iter)
-                .range(1..=10_000)
-                .prefix("iterations "),
-        );
+        super::widgets::fit_settings(ui, &mut s);
         if ui.button("Compute out-of-fold").clicked() {
             out.push(Command::ComputeProbabilities);
         }

@@ -84,18 +84,7 @@ fn controls(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         }
         ui.separator();
         ui.add(egui::Slider::new(&mut s.holdout, 0.05..=0.5).text("holdout"));
-        ui.add(
-            egui::DragValue::new(&mut s.l2)
-                .speed(1e-4)
-                .range(0.0..=10.0)
-                .prefix("L2 "),
-        );
-        ui.add(
-            egui::DragValue::new(&mut s.max_iter)
-                .range(1..=10_000)
-                .prefix("iterations "),
-        );
-        ui.add(egui::DragValue::new(&mut s.seed).prefix("seed "));
+        super::widgets::fit_settings(ui, &mut s);
     });
     ui.horizontal(|ui| {
         ui.label(match &s.test {

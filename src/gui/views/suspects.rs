@@ -12,6 +12,7 @@ use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
 use crate::gui::jobs::JobKind;
 use crate::gui::state::AppState;
+use crate::io::worklist::WORKLIST_COLUMNS;
 use crate::noise::scores::ScoreKind;
 
 /// Draws the view.
@@ -146,16 +147,8 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
         .column(Column::auto().at_least(90.0))
         .column(Column::remainder().at_least(60.0))
         .header(20.0, |mut h| {
-            for title in [
-                "rank",
-                "row",
-                "id",
-                "observed",
-                "suggested",
-                "score",
-                "alt",
-                "alt prob",
-            ] {
+            // The worklist's column names (all but the reviewer's column).
+            for &title in &WORKLIST_COLUMNS[..8] {
                 h.col(|ui| {
                     ui.strong(title);
                 });

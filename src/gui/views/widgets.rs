@@ -120,3 +120,19 @@ pub fn plain(text: &str) -> std::borrow::Cow<'_, str> {
     }
     std::borrow::Cow::Owned(out)
 }
+
+/// Penalty, iteration limit and seed of every fit (shared by the Data and Retrain views).
+pub fn fit_settings(ui: &mut egui::Ui, s: &mut crate::io::session::Settings) {
+    ui.add(
+        egui::DragValue::new(&mut s.l2)
+            .speed(1e-4)
+            .range(0.0..=10.0)
+            .prefix("L2 "),
+    );
+    ui.add(
+        egui::DragValue::new(&mut s.max_iter)
+            .range(1..=10_000)
+            .prefix("iterations "),
+    );
+    ui.add(egui::DragValue::new(&mut s.seed).prefix("seed "));
+}
