@@ -78,6 +78,18 @@ fn main() {
             std::hint::black_box(total);
         },
     );
+    bench(
+        "suspects: posterior score values alone 1000000x10",
+        5,
+        || {
+            std::hint::black_box(flipmend::noise::scores::score_values(
+                ScoreKind::Posterior,
+                probs.view(),
+                &labels,
+                Some(&t),
+            ));
+        },
+    );
     let unranked = score_rows(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
     bench("suspects: ranking alone 1000000", 5, || {
         let mut s = unranked.clone();
@@ -85,19 +97,24 @@ fn main() {
     });
     // What the desktop app does after each matrix cell edit (aim: under 50 ms, so editing
     // stays above 20 frames per second).
-    bench("app: cell edit to re-ranked table 1000000x10", 7, || {
-        let mut edited = t.clone();
-        edited[[0, 1]] += 0.01;
-        edited[[0, 0]] -= 0.01;
-        let r = flipmend::gui::analysis::rank_rows(
-            probs.view(),
-            &labels,
-            &edited,
-            ScoreKind::Posterior,
-            1,
-        );
-        std::hint::black_box(r.ranked.len());
-    });
+    bench(
+        "app: cell edit to re-ranked table (head ranking) 1000000x10",
+        7,
+        || {
+            let mut edited = t.clone();
+            edited[[0, 1]] += 0.01;
+            edited[[0, 0]] -= 0.01;
+            let r = flipmend::gui::analysis::rank_rows_head(
+                probs.view(),
+                &labels,
+                &edited,
+                ScoreKind::Posterior,
+                1,
+                flipmend::gui::analysis::HEAD_ROWS,
+            );
+            std::hint::black_box(r.ranked.len());
+        },
+    );
     bench("suspects: self scores + ranking 1000000x10", 5, || {
         let mut scores = score_rows(ScoreKind::SelfConfidence, probs.view(), &labels, None);
         rank(&mut scores);

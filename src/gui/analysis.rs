@@ -4,7 +4,11 @@
 
 use ndarray::{Array2, ArrayView2};
 
-use crate::noise::scores::{rank, rank_head, score_rows, RowScore, ScoreKind};
+use rayon::prelude::*;
+
+use crate::noise::scores::{
+    rank, rank_key, score_rows, score_selected, score_values, RowScore, ScoreKind,
+};
 
 /// Rows put in order first after a matrix edit; the table shows them while the rest is
 /// sorted (a screenful scrolled many times over).
@@ -26,22 +30,29 @@ pub struct Histogram {
 
 impl Histogram {
     /// Bins `scores` over the score's range ([0, 1], or [−1, 1] for the margin).
-    pub fn of(scores: &[RowScore], kind: ScoreKind) -> Self {
+    pub fn of(scores: &[f64], kind: ScoreKind) -> Self {
         let (low, high) = match kind {
             ScoreKind::Margin => (-1.0, 1.0),
             _ => (0.0, 1.0),
         };
-        let mut counts = vec![0; HISTOGRAM_BINS];
         let width = (high - low) / HISTOGRAM_BINS as f64;
-        for s in scores {
-            let bin = ((s.score - low) / width).floor();
-            let bin = if bin.is_finite() {
-                bin.max(0.0) as usize
-            } else {
-                0
-            };
-            counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
-        }
+        let count = |chunk: &[f64]| {
+            let mut counts = vec![0usize; HISTOGRAM_BINS];
+            for &s in chunk {
+                let bin = ((s - low) / width).floor();
+                let bin = if bin.is_finite() {
+                    bin.max(0.0) as usize
+                } else {
+                    0
+                };
+                counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
+            }
+            counts
+        };
+        let counts = scores.par_chunks(SUMMARY_CHUNK).map(count).reduce(
+            || vec![0; HISTOGRAM_BINS],
+            |a, b| a.iter().zip(&b).map(|(x, y)| x + y).collect(),
+        );
         Histogram { low, high, counts }
     }
 
@@ -51,34 +62,48 @@ impl Histogram {
     }
 }
 
-/// Every row scored for one matrix, most suspect first.
+/// Rows per chunk of the parallel summaries; partial sums are added in chunk order, so
+/// the total does not depend on the thread count.
+const SUMMARY_CHUNK: usize = 1 << 16;
+
+/// Σ scores, for scores that are probabilities of a wrong label (expected mislabelled
+/// rows).
+fn expected_errors(scores: &[f64], kind: ScoreKind) -> Option<f64> {
+    kind.is_probability().then(|| {
+        let parts: Vec<f64> = scores
+            .par_chunks(SUMMARY_CHUNK)
+            .map(|c| c.iter().sum::<f64>())
+            .collect();
+        parts.iter().sum()
+    })
+}
+
+/// Every row scored for one matrix, most suspect first: all rows, or (right after an
+/// edit) only the first rows while the rest is ranked.
 #[derive(Debug, Clone)]
 pub struct Ranking {
-    /// The ranked rows.
+    /// The ranked rows: all of them, or the head in final order.
     pub ranked: Vec<RowScore>,
+    /// Rows of the data.
+    pub rows: usize,
     /// Which score.
     pub kind: ScoreKind,
-    /// The score histogram.
+    /// The score histogram (of all rows).
     pub histogram: Histogram,
     /// Sum of the scores when they are probabilities (expected mislabelled rows).
     pub expected_errors: Option<f64>,
-    /// Version of the matrix it was computed from.
+    /// The matrix it was computed from, and its version.
+    pub matrix: Array2<f64>,
+    /// Version of `matrix`.
     pub matrix_version: u64,
-    /// Leading rows of `ranked` already in final order (all of them once complete).
-    pub sorted_len: usize,
     /// Seconds it took.
     pub duration_secs: f64,
 }
 
 impl Ranking {
-    /// True once every row is in order.
+    /// True once every row is ranked.
     pub fn is_complete(&self) -> bool {
-        self.sorted_len == self.ranked.len()
-    }
-
-    /// The ranked rows whose order is final.
-    pub fn sorted(&self) -> &[RowScore] {
-        &self.ranked[..self.sorted_len]
+        self.ranked.len() == self.rows
     }
 }
 
@@ -90,11 +115,26 @@ pub fn rank_rows(
     kind: ScoreKind,
     matrix_version: u64,
 ) -> Ranking {
-    rank_rows_head(probs, labels, matrix, kind, matrix_version, usize::MAX)
+    let started = std::time::Instant::now();
+    let mut ranked = score_rows(kind, probs, labels, Some(matrix));
+    let scores: Vec<f64> = ranked.par_iter().map(|s| s.score).collect();
+    rank(&mut ranked);
+    Ranking {
+        ranked,
+        rows: labels.len(),
+        kind,
+        histogram: Histogram::of(&scores, kind),
+        expected_errors: expected_errors(&scores, kind),
+        matrix: matrix.clone(),
+        matrix_version,
+        duration_secs: started.elapsed().as_secs_f64(),
+    }
 }
 
-/// Scores every row and puts the `head` most suspect first, in order; the rest follow in
-/// no order until [`finish_ranking`].
+/// Ranks only the `head` most suspect rows (the same rows, in the same order, as the
+/// first `head` of [`rank_rows`]): scores alone for every row, a selection of the head
+/// on packed keys, then full scores for the head only. About half the work of a full
+/// ranking, which [`finish_ranking`] then does in the background.
 pub fn rank_rows_head(
     probs: ArrayView2<f32>,
     labels: &[usize],
@@ -103,41 +143,46 @@ pub fn rank_rows_head(
     matrix_version: u64,
     head: usize,
 ) -> Ranking {
-    let started = std::time::Instant::now();
-    let mut ranked = score_rows(kind, probs, labels, Some(matrix));
-    let expected_errors = kind
-        .is_probability()
-        .then(|| ranked.iter().map(|s| s.score).sum());
-    let histogram = Histogram::of(&ranked, kind);
-    let sorted_len = head.min(ranked.len());
-    if sorted_len == ranked.len() {
-        rank(&mut ranked);
-    } else {
-        rank_head(&mut ranked, sorted_len);
+    if head >= labels.len() {
+        return rank_rows(probs, labels, matrix, kind, matrix_version);
     }
+    let started = std::time::Instant::now();
+    let scores = score_values(kind, probs, labels, Some(matrix));
+    let mut keys: Vec<u128> = scores
+        .par_iter()
+        .enumerate()
+        .map(|(r, &s)| rank_key(s, r))
+        .collect();
+    if head > 0 {
+        keys.select_nth_unstable(head - 1);
+    }
+    keys.truncate(head);
+    keys.par_sort_unstable();
+    let rows: Vec<usize> = keys
+        .iter()
+        .map(|&k| (k & u64::MAX as u128) as usize)
+        .collect();
     Ranking {
-        ranked,
+        ranked: score_selected(kind, probs, labels, Some(matrix), &rows),
+        rows: labels.len(),
         kind,
-        histogram,
-        expected_errors,
+        histogram: Histogram::of(&scores, kind),
+        expected_errors: expected_errors(&scores, kind),
+        matrix: matrix.clone(),
         matrix_version,
-        sorted_len,
         duration_secs: started.elapsed().as_secs_f64(),
     }
 }
 
-/// The complete ranking of a head ranking: the rest sorted after the head.
-pub fn finish_ranking(partial: &Ranking) -> Ranking {
-    let started = std::time::Instant::now();
-    let mut ranked = partial.ranked.clone();
-    rank(&mut ranked[partial.sorted_len..]);
-    Ranking {
-        ranked,
-        histogram: partial.histogram.clone(),
-        sorted_len: partial.ranked.len(),
-        duration_secs: partial.duration_secs + started.elapsed().as_secs_f64(),
-        ..*partial
-    }
+/// The complete ranking behind a head ranking (same matrix, score and version).
+pub fn finish_ranking(partial: &Ranking, probs: ArrayView2<f32>, labels: &[usize]) -> Ranking {
+    rank_rows(
+        probs,
+        labels,
+        &partial.matrix,
+        partial.kind,
+        partial.matrix_version,
+    )
 }
 
 /// What the table shows.
@@ -232,12 +277,19 @@ mod tests {
         let probs = &probs / &sums.insert_axis(ndarray::Axis(1));
         let labels: Vec<usize> = (0..rows).map(|r| r % 3).collect();
         let t = array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]];
-        let full = rank_rows(probs.view(), &labels, &t, ScoreKind::Posterior, 1);
-        let head = rank_rows_head(probs.view(), &labels, &t, ScoreKind::Posterior, 1, 100);
-        assert!(full.is_complete() && !head.is_complete());
-        assert_eq!(head.sorted(), &full.ranked[..100]);
-        let done = finish_ranking(&head);
-        assert!(done.is_complete());
-        assert_eq!(done.ranked, full.ranked);
+        for kind in [
+            ScoreKind::Posterior,
+            ScoreKind::SelfConfidence,
+            ScoreKind::Margin,
+        ] {
+            let full = rank_rows(probs.view(), &labels, &t, kind, 1);
+            let head = rank_rows_head(probs.view(), &labels, &t, kind, 1, 100);
+            assert!(full.is_complete() && !head.is_complete());
+            assert_eq!(head.ranked, full.ranked[..100], "{kind:?}");
+            assert_eq!(head.histogram, full.histogram);
+            assert_eq!(head.expected_errors, full.expected_errors);
+            let done = finish_ranking(&head, probs.view(), &labels);
+            assert_eq!(done.ranked, full.ranked);
+        }
     }
 }

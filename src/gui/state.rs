@@ -600,15 +600,16 @@ impl AppState {
     }
 
     fn start_rank_rest(&mut self, partial: Arc<Ranking>) {
+        let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
+            return;
+        };
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::RankRest, move |control| {
             if control.is_cancelled() {
                 return Err(JobFailure::Cancelled);
             }
-            Ok(JobOutput::RankedRest(
-                Box::new(finish_ranking(&partial)),
-                generation,
-            ))
+            let full = finish_ranking(&partial, probs.values.view(), &data.labels);
+            Ok(JobOutput::RankedRest(Box::new(full), generation))
         });
     }
 
@@ -735,7 +736,7 @@ impl AppState {
     fn refilter(&mut self) {
         let filter = self.filter();
         self.visible = match (&self.ranking, &self.data) {
-            (Some(r), Some(d)) => filter_rows(r.sorted(), &d.labels, &filter),
+            (Some(r), Some(d)) => filter_rows(&r.ranked, &d.labels, &filter),
             _ => Vec::new(),
         };
     }

@@ -34,7 +34,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         ui.label(format!(
             "{} of {} rows pass the filters; the worklist takes the first {}",
             state.visible.len(),
-            ranking.ranked.len(),
+            ranking.rows,
             state.visible.len().min(state.settings().budget)
         ));
         if let Some(e) = ranking.expected_errors {
@@ -43,7 +43,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         if !ranking.is_complete() {
             ui.label(format!(
                 "· showing the top {} while the rest is sorted",
-                ranking.sorted_len
+                ranking.ranked.len()
             ));
         }
         if stale {
