@@ -6,6 +6,7 @@ mod common;
 
 use std::path::{Path, PathBuf};
 
+use eframe::egui::{Key, Modifiers};
 use egui_kittest::kittest::Queryable;
 use egui_kittest::Harness;
 use flipmend::gui::app::{FlipmendApp, Persisted, View};
@@ -116,6 +117,15 @@ fn editing_a_cell_renormalises_its_row_reranks_and_undoes() {
     settle(&mut h);
     assert_eq!(state(&h).editor.as_ref().unwrap().matrix(), &before);
     assert_eq!(order(state(&h)), ranking_before);
+    // The keyboard shortcuts: Ctrl+Shift+Z redoes the edit, Ctrl+Z undoes it again.
+    h.key_press_modifiers(Modifiers::COMMAND | Modifiers::SHIFT, Key::Z);
+    h.run_steps(2);
+    settle(&mut h);
+    assert_eq!(state(&h).editor.as_ref().unwrap().matrix(), &after);
+    h.key_press_modifiers(Modifiers::COMMAND, Key::Z);
+    h.run_steps(2);
+    settle(&mut h);
+    assert_eq!(state(&h).editor.as_ref().unwrap().matrix(), &before);
 }
 
 #[test]
@@ -307,6 +317,37 @@ fn retraining_compares_the_corrections_and_saves_a_model_predict_reads() {
         "the first correction is preselected"
     );
     assert_eq!(saved.classes.len(), 8);
+}
+
+#[test]
+fn many_classes_get_a_scrolling_grid_and_the_largest_flips() {
+    // 14 classes (more than the 12 a grid shows whole), 50 rows each, two features that
+    // place each class on a circle: a table small enough to cross-validate in a moment.
+    let dir = TempDir::new();
+    let path = dir.path("fourteen.csv");
+    let mut text = String::from("x,y,label\n");
+    for r in 0..700 {
+        let class = r % 14;
+        let angle = class as f64 / 14.0 * std::f64::consts::TAU;
+        let jitter = ((r * 7919) % 100) as f64 / 400.0;
+        text.push_str(&format!(
+            "{:.4},{:.4},k{class}\n",
+            angle.cos() + jitter,
+            angle.sin() - jitter
+        ));
+    }
+    std::fs::write(&path, text).unwrap();
+    let mut h = Harness::builder()
+        .with_size([1400.0, 900.0])
+        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
+    h.state_mut()
+        .push(Command::LoadData(path, Roles::default()));
+    h.run_steps(1);
+    settle(&mut h);
+    assert_eq!(state(&h).editor.as_ref().expect("estimated").classes(), 14);
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    h.get_by_label("Largest flips");
 }
 
 fn set_path(h: &mut Harness<'_, FlipmendApp>, purpose: Purpose, path: &Path) {
