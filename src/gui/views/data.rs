@@ -223,7 +223,7 @@ fn probabilities(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &
         ui,
         view,
         Purpose::OpenProbabilities,
-        "Load",
+        "Load probabilities",
         "probabilities: .csv (by id) or .npy",
     ) {
         out.push(Command::LoadProbabilities(path));
