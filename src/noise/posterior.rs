@@ -180,8 +180,7 @@ impl Posterior {
         let parts: Vec<f64> = rows
             .par_chunks(8192)
             .map(|chunk| {
-                let (mut clean, mut post, mut noisy) =
-                    (vec![0.0; k], vec![0.0; k], vec![0.0f32; k]);
+                let (mut clean, mut noisy) = (vec![0.0; k], vec![0.0f32; k]);
                 chunk
                     .iter()
                     .map(|&r| {
@@ -189,8 +188,7 @@ impl Posterior {
                             .iter_mut()
                             .zip(probs.row(r))
                             .for_each(|(dst, &src)| *dst = src);
-                        self.given_observed(&noisy, labels[r], &mut clean, &mut post);
-                        1.0 - post[labels[r]]
+                        1.0 - self.observed_share(&noisy, labels[r], &mut clean)
                     })
                     .sum()
             })

@@ -63,8 +63,7 @@ pub fn score_rows(
     t: Option<&Array2<f64>>,
 ) -> Vec<RowScore> {
     let k = probs.ncols();
-    let identity = Array2::<f64>::eye(k);
-    let posterior = Posterior::new(t.unwrap_or(&identity));
+    let posterior = posterior_for(t, k);
     (0..labels.len())
         .into_par_iter()
         .with_min_len(4096)
@@ -73,6 +72,15 @@ pub fn score_rows(
             |scratch, r| score_one(kind, probs, labels[r], r, &posterior, scratch),
         )
         .collect()
+}
+
+/// The matrix prepared for scoring; without one, the identity (the probabilities then
+/// stand for the clean posterior).
+fn posterior_for(t: Option<&Array2<f64>>, k: usize) -> Posterior {
+    match t {
+        Some(t) => Posterior::new(t),
+        None => Posterior::new(&Array2::eye(k)),
+    }
 }
 
 struct Scratch {
@@ -165,8 +173,7 @@ pub fn score_values(
     t: Option<&Array2<f64>>,
 ) -> Vec<f64> {
     let k = probs.ncols();
-    let identity = Array2::<f64>::eye(k);
-    let posterior = Posterior::new(t.unwrap_or(&identity));
+    let posterior = posterior_for(t, k);
     // Rows as plain slices of one contiguous array (copied once if the view is not).
     let contiguous = probs.as_standard_layout();
     let flat = contiguous.as_slice_memory_order();
@@ -195,8 +202,7 @@ pub fn score_selected(
     rows: &[usize],
 ) -> Vec<RowScore> {
     let k = probs.ncols();
-    let identity = Array2::<f64>::eye(k);
-    let posterior = Posterior::new(t.unwrap_or(&identity));
+    let posterior = posterior_for(t, k);
     rows.par_iter()
         .map_init(
             || Scratch::new(k),
@@ -241,22 +247,9 @@ fn top_two(values: &[f64]) -> (usize, usize) {
 /// about 2× faster than the comparator sort, and faster than an LSD radix sort, which
 /// is memory-bound here. Rows or lengths beyond 32 bits fall back to the comparator.
 pub fn rank(scores: &mut [RowScore]) {
-    rank_head(scores, scores.len());
-}
-
-/// Puts the `head` most suspect rows first, in rank order (as [`rank`] would), and the
-/// rest after them in no particular order; `rank` is `rank_head` with `head` = all. The
-/// desktop app shows the head of a new ranking while the rest is still being sorted.
-pub fn rank_head(scores: &mut [RowScore], head: usize) {
-    let head = head.min(scores.len());
     let fits = |n: usize| n <= u32::MAX as usize;
     if !fits(scores.len()) || !scores.iter().all(|s| fits(s.row)) {
-        let by_rank =
-            |a: &RowScore, b: &RowScore| b.score.total_cmp(&a.score).then(a.row.cmp(&b.row));
-        if head < scores.len() && head > 0 {
-            scores.select_nth_unstable_by(head - 1, by_rank);
-        }
-        scores[..head].par_sort_unstable_by(by_rank);
+        scores.par_sort_unstable_by(|a, b| b.score.total_cmp(&a.score).then(a.row.cmp(&b.row)));
         return;
     }
     let mut keys: Vec<u128> = scores
@@ -266,10 +259,7 @@ pub fn rank_head(scores: &mut [RowScore], head: usize) {
             ((descending_key(s.score) as u128) << 64) | ((s.row as u128) << 32) | i as u128
         })
         .collect();
-    if head < keys.len() && head > 0 {
-        keys.select_nth_unstable(head - 1);
-    }
-    keys[..head].par_sort_unstable();
+    keys.par_sort_unstable();
     let sorted: Vec<RowScore> = keys
         .par_iter()
         .map(|&key| scores[(key & 0xffff_ffff) as usize])
@@ -388,39 +378,39 @@ mod tests {
             -0.75,
         ];
         let mut state = 7u64;
-        let scores: Vec<RowScore> = (0..5000)
-            .map(|row| {
+        let values: Vec<f64> = (0..5000)
+            .map(|_| {
                 state = state
                     .wrapping_mul(6364136223846793005)
                     .wrapping_add(1442695040888963407);
-                let score = if state >> 63 == 0 {
+                if state >> 63 == 0 {
                     values[(state >> 40) as usize % values.len()]
                 } else {
                     (state >> 11) as f64 / (1u64 << 53) as f64 * 2.0 - 1.0
-                };
-                RowScore {
-                    row,
-                    score,
-                    suggested: 0,
-                    alt: 1,
-                    alt_prob: 0.0,
                 }
             })
             .collect();
+        let scores = scored(&values);
         let mut radix = scores.clone();
         rank(&mut radix);
-        let mut reference = scores.clone();
+        let mut reference = scores;
         reference.sort_by(|a, b| b.score.total_cmp(&a.score).then(a.row.cmp(&b.row)));
         assert_eq!(radix, reference);
-        // A head ranking has the same first rows, and the same rows overall.
-        let mut head = scores;
-        rank_head(&mut head, 300);
-        assert_eq!(head[..300], reference[..300]);
-        let mut rest: Vec<usize> = head[300..].iter().map(|s| s.row).collect();
-        rest.sort_unstable();
-        let mut expected: Vec<usize> = reference[300..].iter().map(|s| s.row).collect();
-        expected.sort_unstable();
-        assert_eq!(rest, expected);
+    }
+
+    /// Rows 0, 1, … with these scores (the other fields do not matter for ranking).
+    fn scored(scores: &[f64]) -> Vec<RowScore> {
+        scores
+            .iter()
+            .enumerate()
+            .map(|(row, &score)| RowScore {
+                row,
+                score,
+                suggested: 0,
+                alt: 1,
+                alt_prob: 0.0,
+            })
+            .collect()
     }
 
     fn t3() -> Array2<f64> {
@@ -462,17 +452,7 @@ mod tests {
 
     #[test]
     fn ranking_breaks_ties_by_row() {
-        let mut scores: Vec<RowScore> = [0.5, 0.9, 0.5, 0.1]
-            .iter()
-            .enumerate()
-            .map(|(row, &score)| RowScore {
-                row,
-                score,
-                suggested: 0,
-                alt: 1,
-                alt_prob: 0.0,
-            })
-            .collect();
+        let mut scores = scored(&[0.5, 0.9, 0.5, 0.1]);
         rank(&mut scores);
         assert_eq!(
             scores.iter().map(|s| s.row).collect::<Vec<_>>(),
@@ -482,17 +462,7 @@ mod tests {
 
     #[test]
     fn selection_by_top_threshold_cap_and_class() {
-        let mut ranked: Vec<RowScore> = [0.9, 0.8, 0.7, 0.6, 0.2]
-            .iter()
-            .enumerate()
-            .map(|(row, &score)| RowScore {
-                row,
-                score,
-                suggested: 0,
-                alt: 1,
-                alt_prob: 0.0,
-            })
-            .collect();
+        let mut ranked = scored(&[0.9, 0.8, 0.7, 0.6, 0.2]);
         rank(&mut ranked);
         let labels = [0, 0, 1, 0, 1];
         let rows = |s: &Selection| {
