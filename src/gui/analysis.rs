@@ -101,6 +101,28 @@ pub struct Ranking {
 }
 
 impl Ranking {
+    /// `ranked` (all rows, or the head) with the summaries of every row's score in
+    /// `scores`.
+    fn new(
+        ranked: Vec<RowScore>,
+        scores: &[f64],
+        kind: ScoreKind,
+        matrix: &Array2<f64>,
+        matrix_version: u64,
+        started: std::time::Instant,
+    ) -> Self {
+        Ranking {
+            ranked,
+            rows: scores.len(),
+            kind,
+            histogram: Histogram::of(scores, kind),
+            expected_errors: expected_errors(scores, kind),
+            matrix: matrix.clone(),
+            matrix_version,
+            duration_secs: started.elapsed().as_secs_f64(),
+        }
+    }
+
     /// True once every row is ranked.
     pub fn is_complete(&self) -> bool {
         self.ranked.len() == self.rows
@@ -119,16 +141,7 @@ pub fn rank_rows(
     let mut ranked = score_rows(kind, probs, labels, Some(matrix));
     let scores: Vec<f64> = ranked.par_iter().map(|s| s.score).collect();
     rank(&mut ranked);
-    Ranking {
-        ranked,
-        rows: labels.len(),
-        kind,
-        histogram: Histogram::of(&scores, kind),
-        expected_errors: expected_errors(&scores, kind),
-        matrix: matrix.clone(),
-        matrix_version,
-        duration_secs: started.elapsed().as_secs_f64(),
-    }
+    Ranking::new(ranked, &scores, kind, matrix, matrix_version, started)
 }
 
 /// Ranks only the `head` most suspect rows (the same rows, in the same order, as the
@@ -162,16 +175,8 @@ pub fn rank_rows_head(
         .iter()
         .map(|&k| (k & u64::MAX as u128) as usize)
         .collect();
-    Ranking {
-        ranked: score_selected(kind, probs, labels, Some(matrix), &rows),
-        rows: labels.len(),
-        kind,
-        histogram: Histogram::of(&scores, kind),
-        expected_errors: expected_errors(&scores, kind),
-        matrix: matrix.clone(),
-        matrix_version,
-        duration_secs: started.elapsed().as_secs_f64(),
-    }
+    let head = score_selected(kind, probs, labels, Some(matrix), &rows);
+    Ranking::new(head, &scores, kind, matrix, matrix_version, started)
 }
 
 /// The complete ranking behind a head ranking (same matrix, score and version).

@@ -26,11 +26,11 @@ use crate::learn::train::Correction;
 use crate::learn::{OofParams, SoftmaxParams};
 use crate::noise::bootstrap::Interval;
 use crate::noise::matrix::{load_matrix_csv, write_matrix_csv};
-use crate::noise::{diagnose, Diagnostics, Method};
+use crate::noise::{Diagnostics, Method};
 use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareSettings, Comparison, MatrixChoice,
 };
-use crate::workflow::{self, ProbSource, RowProbabilities};
+use crate::workflow::{self, RowProbabilities};
 
 /// How serious a message is.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -481,15 +481,14 @@ impl AppState {
         let method = self.method();
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::Estimate, move |_| {
-            let rows: Vec<usize> = (0..data.rows()).collect();
-            let sample = workflow::sample(&data, &probs.values, &rows);
-            let e = crate::noise::estimate(&method, &sample, &data.classes).map_err(fail)?;
+            let (matrix, notes) =
+                workflow::estimate_on_all_rows(&data, &probs, &method).map_err(fail)?;
             let info = EstimateInfo {
                 source: workflow::MatrixSource::Estimate(method.clone()).describe(),
-                notes: e.notes,
+                notes,
                 method: Some(method),
             };
-            Ok(JobOutput::Estimated(e.matrix, generation, info))
+            Ok(JobOutput::Estimated(matrix, generation, info))
         });
     }
 
@@ -625,14 +624,7 @@ impl AppState {
         };
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::Diagnose, move |_| {
-            let external = matches!(probs.source, ProbSource::File(_));
-            let d = diagnose(
-                &matrix,
-                probs.values.view(),
-                &data.labels,
-                &data.classes,
-                external,
-            );
+            let d = workflow::diagnose_matrix(&data, &probs, &matrix);
             Ok(JobOutput::Diagnosed(Box::new(d), generation, version))
         });
     }

@@ -135,6 +135,34 @@ pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) 
     }
 }
 
+/// Runs `method` on every row: the matrix and the estimator's notes.
+pub fn estimate_on_all_rows(
+    data: &Dataset,
+    probs: &RowProbabilities,
+    method: &Method,
+) -> Result<(Array2<f64>, Vec<String>)> {
+    let rows: Vec<usize> = (0..data.rows()).collect();
+    let e = estimate(method, &sample(data, &probs.values, &rows), &data.classes)?;
+    Ok((e.matrix, e.notes))
+}
+
+/// What `matrix` says about the data; probabilities from a file are checked for being
+/// in-sample, flipmend's own out-of-fold ones are not.
+pub fn diagnose_matrix(
+    data: &Dataset,
+    probs: &RowProbabilities,
+    matrix: &Array2<f64>,
+) -> Diagnostics {
+    let external = matches!(probs.source, ProbSource::File(_));
+    diagnose(
+        matrix,
+        probs.values.view(),
+        &data.labels,
+        &data.classes,
+        external,
+    )
+}
+
 /// Estimates (or reads) the flip matrix and diagnoses it.
 pub fn flip_matrix(
     data: &Dataset,
@@ -142,23 +170,12 @@ pub fn flip_matrix(
     source: &MatrixSource,
 ) -> Result<FlipEstimate> {
     let (matrix, mut notes) = match source {
-        MatrixSource::Estimate(method) => {
-            let rows: Vec<usize> = (0..data.rows()).collect();
-            let estimate = estimate(method, &sample(data, &probs.values, &rows), &data.classes)?;
-            (estimate.matrix, estimate.notes)
-        }
+        MatrixSource::Estimate(method) => estimate_on_all_rows(data, probs, method)?,
         MatrixSource::File { path, renormalize } => {
             load_matrix_csv(path, &data.classes, *renormalize)?
         }
     };
-    let external = matches!(probs.source, ProbSource::File(_));
-    let diagnostics = diagnose(
-        &matrix,
-        probs.values.view(),
-        &data.labels,
-        &data.classes,
-        external,
-    );
+    let diagnostics = diagnose_matrix(data, probs, &matrix);
     notes.extend(probs.notices.iter().cloned());
     Ok(FlipEstimate {
         matrix,
