@@ -78,6 +78,12 @@ impl UiState {
         self.view.unwrap_or(View::Data)
     }
 
+    /// The model picked among `models` (index into the comparison). Until one is picked,
+    /// the first correction (index 1) is set against `none`.
+    pub fn chosen_model(&self, models: usize) -> usize {
+        self.model_choice.unwrap_or(1).min(models.saturating_sub(1))
+    }
+
     /// The typed path for `purpose`.
     pub fn path(&mut self, purpose: Purpose) -> &mut String {
         self.paths.entry(purpose).or_default()
@@ -250,12 +256,7 @@ impl FlipmendApp {
                     .retrained
                     .as_ref()
                     .map_or(1, |r| r.comparison.models.len());
-                let chosen = self
-                    .ui
-                    .model_choice
-                    .unwrap_or(1)
-                    .min(models.saturating_sub(1));
-                Command::SaveModel(chosen, path)
+                Command::SaveModel(self.ui.chosen_model(models), path)
             }
             Purpose::OpenSession => Command::OpenSession(path),
             Purpose::SaveSession => Command::SaveSession(Some(path)),

@@ -124,6 +124,9 @@ pub struct AppState {
     pub session_path: Option<PathBuf>,
     /// The loaded table.
     pub data: Option<Arc<Dataset>>,
+    /// Observed and trusted rows per class of `data`, counted once at load (the Data view
+    /// shows them every frame).
+    pub class_counts: (Vec<usize>, Vec<usize>),
     /// Bumped on every successful load; results from older data are discarded.
     pub data_generation: u64,
     /// Probabilities of the current data.
@@ -166,6 +169,7 @@ impl AppState {
             session: Session::new(),
             session_path: None,
             data: None,
+            class_counts: (Vec::new(), Vec::new()),
             data_generation: 0,
             probs: None,
             editor: None,
@@ -398,6 +402,7 @@ impl AppState {
         if other_file {
             self.session.probs = None;
         }
+        self.class_counts = (data.class_counts(), data.trusted_counts());
         self.data = Some(Arc::new(data));
         self.data_generation += 1;
         self.rank_pending = false;

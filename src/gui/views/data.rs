@@ -183,8 +183,7 @@ fn features(ui: &mut egui::Ui, state: &AppState, draft: &mut Roles) {
 fn classes(ui: &mut egui::Ui, state: &AppState) {
     let Some(data) = &state.data else { return };
     ui.heading("Classes");
-    let counts = data.class_counts();
-    let trusted = data.trusted_counts();
+    let (counts, trusted) = &state.class_counts;
     let n = data.rows().max(1) as f64;
     egui::Grid::new("classes")
         .striped(true)
@@ -244,18 +243,7 @@ fn probabilities(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &
     if s != *state.settings() {
         out.push(Command::Settings(s));
     }
-    if let Some(running) = state.jobs.running(JobKind::Probabilities) {
-        ui.horizontal(|ui| {
-            ui.add(
-                egui::ProgressBar::new(running.control.progress())
-                    .desired_width(240.0)
-                    .show_percentage(),
-            );
-            if ui.button("Cancel").clicked() {
-                out.push(Command::Cancel(JobKind::Probabilities));
-            }
-        });
-    }
+    ui.horizontal(|ui| super::widgets::job_progress(ui, state, JobKind::Probabilities, out));
     if matches!(
         state.probs.as_ref().map(|p| &p.source),
         Some(ProbSource::File(_))

@@ -40,8 +40,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         results(ui, c);
         chart(ui, c);
         ui.separator();
-        // Until one is picked, the first correction is set against `none`.
-        let chosen = view.model_choice.unwrap_or(1).min(c.models.len() - 1);
+        let chosen = view.chosen_model(c.models.len());
         ui.horizontal(|ui| {
             ui.label("model");
             egui::ComboBox::from_id_salt("model-choice")
@@ -115,16 +114,7 @@ fn controls(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         {
             out.push(Command::Retrain);
         }
-        if let Some(running) = state.jobs.running(JobKind::Retrain) {
-            ui.add(
-                egui::ProgressBar::new(running.control.progress())
-                    .desired_width(240.0)
-                    .show_percentage(),
-            );
-            if ui.button("Cancel").clicked() {
-                out.push(Command::Cancel(JobKind::Retrain));
-            }
-        }
+        super::widgets::job_progress(ui, state, JobKind::Retrain, out);
     });
 }
 

@@ -136,3 +136,23 @@ pub fn fit_settings(ui: &mut egui::Ui, s: &mut crate::io::session::Settings) {
     );
     ui.add(egui::DragValue::new(&mut s.seed).prefix("seed "));
 }
+
+/// The progress bar and Cancel button of the running job of `kind`, if one runs.
+pub fn job_progress(
+    ui: &mut egui::Ui,
+    state: &crate::gui::state::AppState,
+    kind: crate::gui::jobs::JobKind,
+    out: &mut Vec<crate::gui::command::Command>,
+) {
+    let Some(running) = state.jobs.running(kind) else {
+        return;
+    };
+    ui.add(
+        egui::ProgressBar::new(running.control.progress())
+            .desired_width(240.0)
+            .show_percentage(),
+    );
+    if ui.button("Cancel").clicked() {
+        out.push(crate::gui::command::Command::Cancel(kind));
+    }
+}
