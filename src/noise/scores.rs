@@ -5,7 +5,7 @@ use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 use serde::Serialize;
 
-use super::posterior::Posterior;
+use super::posterior::{Posterior, Workspace, BLOCK_ROWS};
 
 /// Which score ranks the rows.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
@@ -40,7 +40,7 @@ impl ScoreKind {
 }
 
 /// One row's verdict.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[derive(Debug, Clone, Copy, Default, PartialEq, Serialize)]
 pub struct RowScore {
     /// 0-based data row.
     pub row: usize,
@@ -64,14 +64,24 @@ pub fn score_rows(
 ) -> Vec<RowScore> {
     let k = probs.ncols();
     let posterior = posterior_for(t, k);
-    (0..labels.len())
-        .into_par_iter()
-        .with_min_len(4096)
-        .map_init(
-            || Scratch::new(k),
-            |scratch, r| score_one(kind, probs, labels[r], r, &posterior, scratch),
-        )
-        .collect()
+    let contiguous = probs.as_standard_layout();
+    let mut out = vec![RowScore::default(); labels.len()];
+    out.par_chunks_mut(BLOCK_ROWS).enumerate().for_each_init(
+        || Scratch::new(k),
+        |s, (block, dst)| {
+            let start = block * BLOCK_ROWS;
+            s.load(
+                kind,
+                &contiguous.view(),
+                Rows::Range(start, dst.len()),
+                &posterior,
+            );
+            for (i, d) in dst.iter_mut().enumerate() {
+                *d = s.row_score(kind, i, start + i, labels[start + i], &posterior);
+            }
+        },
+    );
+    out
 }
 
 /// The matrix prepared for scoring; without one, the identity (the probabilities then
@@ -83,83 +93,143 @@ fn posterior_for(t: Option<&Array2<f64>>, k: usize) -> Posterior {
     }
 }
 
+/// Which rows a block holds.
+#[derive(Clone, Copy)]
+enum Rows<'a> {
+    /// `len` consecutive rows from `start`.
+    Range(usize, usize),
+    /// These rows.
+    List(&'a [usize]),
+}
+
+/// One worker's buffers for a block of rows.
 struct Scratch {
+    k: usize,
+    /// The block's probabilities, row after row.
     noisy: Vec<f32>,
+    /// Their unnormalised clean posteriors (posterior score only).
     clean: Vec<f64>,
+    ok: Vec<bool>,
     belief: Vec<f64>,
+    workspace: Workspace,
 }
 
 impl Scratch {
     fn new(k: usize) -> Self {
         Scratch {
-            noisy: vec![0.0; k],
-            clean: vec![0.0; k],
+            k,
+            noisy: vec![0.0; BLOCK_ROWS * k],
+            clean: vec![0.0; BLOCK_ROWS * k],
+            ok: vec![false; BLOCK_ROWS],
             belief: vec![0.0; k],
+            workspace: Workspace::default(),
         }
     }
-}
 
-fn score_one(
-    kind: ScoreKind,
-    probs: ArrayView2<f32>,
-    observed: usize,
-    row: usize,
-    posterior: &Posterior,
-    s: &mut Scratch,
-) -> RowScore {
-    let score = belief_and_score(kind, probs, observed, row, posterior, s);
-    let (suggested, alt) = top_two(&s.belief);
-    RowScore {
-        row,
-        score,
-        suggested,
-        alt,
-        alt_prob: s.belief[alt],
+    /// Copies the block's probabilities in and, for the posterior score, computes their
+    /// clean posteriors in one go.
+    fn load(&mut self, kind: ScoreKind, probs: &ArrayView2<f32>, rows: Rows, post: &Posterior) {
+        let k = self.k;
+        let m = match rows {
+            Rows::Range(start, len) => {
+                match probs.as_slice() {
+                    Some(flat) => {
+                        self.noisy[..len * k].copy_from_slice(&flat[start * k..(start + len) * k])
+                    }
+                    None => self.gather((start..start + len).enumerate(), probs),
+                }
+                len
+            }
+            Rows::List(list) => {
+                self.gather(list.iter().copied().enumerate(), probs);
+                list.len()
+            }
+        };
+        if kind == ScoreKind::Posterior {
+            post.clean_rows(
+                &self.noisy[..m * k],
+                &mut self.clean[..m * k],
+                &mut self.ok[..m],
+                &mut self.workspace,
+            );
+        }
     }
-}
 
-/// Fills `s.belief` for `row` and returns its score. Every scoring path goes through
-/// here, so a score computed alone equals the one in the row's [`RowScore`] bit for bit.
-fn belief_and_score(
-    kind: ScoreKind,
-    probs: ArrayView2<f32>,
-    observed: usize,
-    row: usize,
-    posterior: &Posterior,
-    s: &mut Scratch,
-) -> f64 {
-    let view = probs.row(row);
-    let noisy: &[f32] = match view.to_slice() {
-        Some(slice) => slice,
-        None => {
-            s.noisy
+    fn gather(&mut self, rows: impl Iterator<Item = (usize, usize)>, probs: &ArrayView2<f32>) {
+        let k = self.k;
+        for (i, r) in rows {
+            self.noisy[i * k..(i + 1) * k]
                 .iter_mut()
-                .zip(view)
+                .zip(probs.row(r))
                 .for_each(|(dst, &src)| *dst = src);
-            &s.noisy
         }
-    };
-    match kind {
-        ScoreKind::Posterior => {
-            posterior.given_observed(noisy, observed, &mut s.clean, &mut s.belief)
-        }
-        _ => s
-            .belief
-            .iter_mut()
-            .zip(noisy)
-            .for_each(|(b, &p)| *b = p as f64),
     }
-    match kind {
-        ScoreKind::Posterior | ScoreKind::SelfConfidence => 1.0 - s.belief[observed],
-        ScoreKind::Margin => {
-            let best_other = s
+
+    /// Fills `belief` for the block's row `i` and returns its score. Every scoring path
+    /// goes through here or through [`Scratch::score_alone`], so a score computed alone
+    /// equals the one in the row's [`RowScore`] bit for bit.
+    fn belief_and_score(
+        &mut self,
+        kind: ScoreKind,
+        i: usize,
+        observed: usize,
+        post: &Posterior,
+    ) -> f64 {
+        let k = self.k;
+        match kind {
+            ScoreKind::Posterior => {
+                post.belief_from_clean(&self.clean[i * k..(i + 1) * k], observed, &mut self.belief)
+            }
+            _ => self
                 .belief
-                .iter()
-                .enumerate()
-                .filter(|(j, _)| *j != observed)
-                .map(|(_, &p)| p)
-                .fold(f64::NEG_INFINITY, f64::max);
-            best_other - s.belief[observed]
+                .iter_mut()
+                .zip(&self.noisy[i * k..(i + 1) * k])
+                .for_each(|(b, &p)| *b = p as f64),
+        }
+        match kind {
+            ScoreKind::Posterior | ScoreKind::SelfConfidence => 1.0 - self.belief[observed],
+            ScoreKind::Margin => {
+                let best_other = self
+                    .belief
+                    .iter()
+                    .enumerate()
+                    .filter(|(j, _)| *j != observed)
+                    .map(|(_, &p)| p)
+                    .fold(f64::NEG_INFINITY, f64::max);
+                best_other - self.belief[observed]
+            }
+        }
+    }
+
+    /// The score of the block's row `i` alone. For the posterior score the observed
+    /// class's share is the same number as in [`Scratch::belief_and_score`] without
+    /// normalising the other classes.
+    fn score_alone(&mut self, kind: ScoreKind, i: usize, observed: usize, post: &Posterior) -> f64 {
+        let k = self.k;
+        match kind {
+            ScoreKind::Posterior => {
+                1.0 - post.share_from_clean(&self.clean[i * k..(i + 1) * k], observed)
+            }
+            _ => self.belief_and_score(kind, i, observed, post),
+        }
+    }
+
+    fn row_score(
+        &mut self,
+        kind: ScoreKind,
+        i: usize,
+        row: usize,
+        observed: usize,
+        post: &Posterior,
+    ) -> RowScore {
+        let score = self.belief_and_score(kind, i, observed, post);
+        let (suggested, alt) = top_two(&self.belief);
+        RowScore {
+            row,
+            score,
+            suggested,
+            alt,
+            alt_prob: self.belief[alt],
         }
     }
 }
@@ -174,23 +244,24 @@ pub fn score_values(
 ) -> Vec<f64> {
     let k = probs.ncols();
     let posterior = posterior_for(t, k);
-    // Rows as plain slices of one contiguous array (copied once if the view is not).
     let contiguous = probs.as_standard_layout();
-    let flat = contiguous.as_slice_memory_order();
-    (0..labels.len())
-        .into_par_iter()
-        .with_min_len(4096)
-        .map_init(
-            || Scratch::new(k),
-            |scratch, r| match (kind, flat) {
-                (ScoreKind::Posterior, Some(flat)) => {
-                    let noisy = &flat[r * k..(r + 1) * k];
-                    1.0 - posterior.observed_share(noisy, labels[r], &mut scratch.clean)
-                }
-                _ => belief_and_score(kind, probs, labels[r], r, &posterior, scratch),
-            },
-        )
-        .collect()
+    let mut out = vec![0.0; labels.len()];
+    out.par_chunks_mut(BLOCK_ROWS).enumerate().for_each_init(
+        || Scratch::new(k),
+        |s, (block, dst)| {
+            let start = block * BLOCK_ROWS;
+            s.load(
+                kind,
+                &contiguous.view(),
+                Rows::Range(start, dst.len()),
+                &posterior,
+            );
+            for (i, d) in dst.iter_mut().enumerate() {
+                *d = s.score_alone(kind, i, labels[start + i], &posterior);
+            }
+        },
+    );
+    out
 }
 
 /// The full [`RowScore`] of the given rows, in the given order.
@@ -203,12 +274,19 @@ pub fn score_selected(
 ) -> Vec<RowScore> {
     let k = probs.ncols();
     let posterior = posterior_for(t, k);
-    rows.par_iter()
-        .map_init(
+    let mut out = vec![RowScore::default(); rows.len()];
+    out.par_chunks_mut(BLOCK_ROWS)
+        .zip(rows.par_chunks(BLOCK_ROWS))
+        .for_each_init(
             || Scratch::new(k),
-            |scratch, &r| score_one(kind, probs, labels[r], r, &posterior, scratch),
-        )
-        .collect()
+            |s, (dst, list)| {
+                s.load(kind, &probs, Rows::List(list), &posterior);
+                for (i, (d, &r)) in dst.iter_mut().zip(list).enumerate() {
+                    *d = s.row_score(kind, i, r, labels[r], &posterior);
+                }
+            },
+        );
+    out
 }
 
 /// The order-preserving key of a score for ranking: ascending keys are descending
@@ -299,15 +377,37 @@ pub fn select(
     classes: usize,
     selection: &Selection,
 ) -> Vec<RowScore> {
+    let kept = select_rows(
+        ranked.iter().map(|s| (s.row, s.score)),
+        labels,
+        classes,
+        selection,
+    );
+    // `kept` is in rank order and `ranked` is walked once.
+    let mut next = kept.iter().peekable();
+    ranked
+        .iter()
+        .filter(|s| next.next_if(|&&row| row == s.row).is_some())
+        .copied()
+        .collect()
+}
+
+/// The rows `selection` keeps from `(row, score)` pairs in rank order, in that order.
+pub fn select_rows(
+    ranked: impl Iterator<Item = (usize, f64)>,
+    labels: &[usize],
+    classes: usize,
+    selection: &Selection,
+) -> Vec<usize> {
     let mut per_class = vec![0usize; classes];
     let mut kept = Vec::new();
-    for s in ranked {
+    for (row, score) in ranked {
         if selection.top.is_some_and(|top| kept.len() >= top)
-            || selection.threshold.is_some_and(|t| s.score < t)
+            || selection.threshold.is_some_and(|t| score < t)
         {
             break;
         }
-        let observed = labels[s.row];
+        let observed = labels[row];
         if selection
             .classes
             .as_ref()
@@ -322,9 +422,24 @@ pub fn select(
             continue;
         }
         per_class[observed] += 1;
-        kept.push(*s);
+        kept.push(row);
     }
     kept
+}
+
+/// Rows from most to least suspect given every row's score (as [`score_values`] gives
+/// them): the order of [`rank`], sorted on 16-byte keys without building a full
+/// [`RowScore`] for every row.
+pub fn rank_values(scores: &[f64]) -> Vec<usize> {
+    let mut keys: Vec<u128> = scores
+        .par_iter()
+        .enumerate()
+        .map(|(r, &s)| rank_key(s, r))
+        .collect();
+    keys.par_sort_unstable();
+    keys.par_iter()
+        .map(|&k| (k & u64::MAX as u128) as usize)
+        .collect()
 }
 
 /// Area under the ROC curve of `score` for telling `positive` rows from the others
@@ -512,5 +627,62 @@ mod tests {
         // A tie between a positive and a negative counts half.
         assert_eq!(auroc(&[0.5, 0.5], &[true, false]), Some(0.5));
         assert_eq!(auroc(&[0.5, 0.7], &[true, true]), None);
+    }
+
+    #[test]
+    fn every_scoring_path_gives_the_same_scores_with_many_classes() {
+        // 20 classes (blocked product) and more rows than one block: the full scores, the
+        // scores alone, the scores of chosen rows and the value ranking must agree exactly.
+        let (rows, k) = (1000, 20);
+        let mut t = Array2::from_elem((k, k), 0.2 / (k - 1) as f64);
+        t.diag_mut().fill(0.8);
+        let raw = Array2::from_shape_fn((rows, k), |(r, c)| ((r * 31 + c * 17) % 23 + 1) as f32);
+        let probs = &raw / &raw.sum_axis(ndarray::Axis(1)).insert_axis(ndarray::Axis(1));
+        let labels: Vec<usize> = (0..rows).map(|r| (r * 3) % k).collect();
+        for kind in [
+            ScoreKind::Posterior,
+            ScoreKind::SelfConfidence,
+            ScoreKind::Margin,
+        ] {
+            let full = score_rows(kind, probs.view(), &labels, Some(&t));
+            let alone = score_values(kind, probs.view(), &labels, Some(&t));
+            assert!(full
+                .iter()
+                .zip(&alone)
+                .all(|(f, a)| f.score.to_bits() == a.to_bits()));
+            let chosen: Vec<usize> = (0..rows).rev().step_by(3).collect();
+            let some = score_selected(kind, probs.view(), &labels, Some(&t), &chosen);
+            for (s, &r) in some.iter().zip(&chosen) {
+                assert_eq!(*s, full[r]);
+            }
+            let mut ranked = full.clone();
+            rank(&mut ranked);
+            let order: Vec<usize> = ranked.iter().map(|s| s.row).collect();
+            assert_eq!(rank_values(&alone), order);
+        }
+    }
+
+    #[test]
+    fn selecting_from_values_keeps_the_rows_select_keeps() {
+        let mut ranked = scored(&[0.9, 0.8, 0.7, 0.6, 0.2, 0.75]);
+        rank(&mut ranked);
+        let labels = [0, 0, 1, 0, 1, 1];
+        let selection = Selection {
+            per_class_cap: Some(2),
+            threshold: Some(0.5),
+            ..Default::default()
+        };
+        let full: Vec<usize> = select(&ranked, &labels, 2, &selection)
+            .iter()
+            .map(|s| s.row)
+            .collect();
+        let rows = select_rows(
+            ranked.iter().map(|s| (s.row, s.score)),
+            &labels,
+            2,
+            &selection,
+        );
+        assert_eq!(full, rows);
+        assert_eq!(rows, vec![0, 1, 5, 2]);
     }
 }
