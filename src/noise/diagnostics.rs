@@ -1,6 +1,7 @@
 //! What a flip matrix says about the data, and what to be careful about.
 
 use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
 use serde::Serialize;
 
 use super::linalg::{condition_number, inverse, project_to_simplex};
@@ -60,6 +61,23 @@ pub fn diagnose(
     classes: &[String],
     external_probs: bool,
 ) -> Diagnostics {
+    diagnose_with_expected(t, probs, labels, classes, external_probs, None)
+}
+
+/// [`diagnose`], given the expected number of mislabelled rows when the caller already
+/// has it (the posterior scores under `t`, summed with [`sum_in_chunks`]): that sum is the
+/// only part of the diagnosis that needs every row's clean posterior, the bulk of the
+/// work with many classes.
+///
+/// [`sum_in_chunks`]: super::posterior::sum_in_chunks
+pub fn diagnose_with_expected(
+    t: &Array2<f64>,
+    probs: ArrayView2<f32>,
+    labels: &[usize],
+    classes: &[String],
+    external_probs: bool,
+    expected_mislabeled: Option<f64>,
+) -> Diagnostics {
     let k = classes.len();
     let n = labels.len().max(1) as f64;
     let mut warnings = Vec::new();
@@ -80,7 +98,8 @@ pub fn diagnose(
     if !posterior.inverts() {
         warnings.push("the flip matrix is (nearly) singular: per-row clean posteriors use the given probabilities unchanged".into());
     }
-    let expected_mislabeled = posterior.expected_mislabeled(probs, labels);
+    let expected_mislabeled =
+        expected_mislabeled.unwrap_or_else(|| posterior.expected_mislabeled(probs, labels));
     let (calibration_error, reliability, agreement, mean_max) = calibration(probs, labels);
     if external_probs {
         let weighted_noise: f64 = clean_prior
@@ -160,23 +179,67 @@ fn warn_in_sample(agreement: f64, mean_max: f64, weighted_noise: f64, warnings: 
     }
 }
 
+/// Rows per partial sum of the calibration bins: the chunks are summed in order, so the
+/// figures do not depend on the number of threads.
+const CALIBRATION_CHUNK_ROWS: usize = 16_384;
+
+/// Per-bin row counts, confidence sums and hits of some rows.
+#[derive(Clone, Copy)]
+struct Bins {
+    rows: [usize; CALIBRATION_BINS],
+    confidence: [f64; CALIBRATION_BINS],
+    hits: [usize; CALIBRATION_BINS],
+}
+
+impl Bins {
+    fn of(probs: ArrayView2<f32>, labels: &[usize], first: usize) -> Self {
+        let mut bins = Bins {
+            rows: [0; CALIBRATION_BINS],
+            confidence: [0.0; CALIBRATION_BINS],
+            hits: [0; CALIBRATION_BINS],
+        };
+        for (i, &y) in labels.iter().enumerate() {
+            let row = probs.row(first + i);
+            let top = match row.as_slice() {
+                Some(slice) => argmax(slice),
+                None => argmax(&row.to_vec()),
+            };
+            let conf = row[top] as f64;
+            let bin = ((conf * CALIBRATION_BINS as f64) as usize).min(CALIBRATION_BINS - 1);
+            bins.rows[bin] += 1;
+            bins.confidence[bin] += conf;
+            bins.hits[bin] += usize::from(top == y);
+        }
+        bins
+    }
+
+    fn add(mut self, other: &Bins) -> Self {
+        for b in 0..CALIBRATION_BINS {
+            self.rows[b] += other.rows[b];
+            self.confidence[b] += other.confidence[b];
+            self.hits[b] += other.hits[b];
+        }
+        self
+    }
+}
+
 /// Expected calibration error, the reliability table, agreement and mean top probability.
 fn calibration(probs: ArrayView2<f32>, labels: &[usize]) -> (f64, Vec<ReliabilityBin>, f64, f64) {
-    let mut rows = [0usize; CALIBRATION_BINS];
-    let mut confidence = [0.0f64; CALIBRATION_BINS];
-    let mut hits = [0usize; CALIBRATION_BINS];
-    let mut row = vec![0.0f32; probs.ncols()];
-    for (r, &y) in labels.iter().enumerate() {
-        row.iter_mut()
-            .zip(probs.row(r))
-            .for_each(|(dst, &src)| *dst = src);
-        let top = argmax(&row);
-        let conf = row[top] as f64;
-        let bin = ((conf * CALIBRATION_BINS as f64) as usize).min(CALIBRATION_BINS - 1);
-        rows[bin] += 1;
-        confidence[bin] += conf;
-        hits[bin] += usize::from(top == y);
-    }
+    let parts: Vec<Bins> = labels
+        .par_chunks(CALIBRATION_CHUNK_ROWS)
+        .enumerate()
+        .map(|(chunk, labels)| Bins::of(probs, labels, chunk * CALIBRATION_CHUNK_ROWS))
+        .collect();
+    let empty = Bins {
+        rows: [0; CALIBRATION_BINS],
+        confidence: [0.0; CALIBRATION_BINS],
+        hits: [0; CALIBRATION_BINS],
+    };
+    let Bins {
+        rows,
+        confidence,
+        hits,
+    } = parts.iter().fold(empty, Bins::add);
     let n = labels.len().max(1) as f64;
     let mut ece = 0.0;
     let mut table = Vec::with_capacity(CALIBRATION_BINS);

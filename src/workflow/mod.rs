@@ -11,8 +11,9 @@ use crate::data::{Dataset, ProbOptions, Probabilities};
 use crate::error::Result;
 use crate::learn::{out_of_fold, OofParams};
 use crate::noise::bootstrap::{bootstrap, Interval};
+use crate::noise::diagnostics::diagnose_with_expected;
 use crate::noise::matrix::load_matrix_csv;
-use crate::noise::{diagnose, estimate, Diagnostics, Method, Sample};
+use crate::noise::{estimate, Diagnostics, Method, Sample};
 
 /// Where the probabilities came from.
 #[derive(Debug, Clone, PartialEq)]
@@ -153,14 +154,43 @@ pub fn diagnose_matrix(
     probs: &RowProbabilities,
     matrix: &Array2<f64>,
 ) -> Diagnostics {
+    diagnose_matrix_given(data, probs, matrix, None)
+}
+
+/// [`diagnose_matrix`] with the expected number of mislabelled rows when the caller
+/// already has it (see [`diagnose_with_expected`]), so no row's posterior is computed twice.
+pub fn diagnose_matrix_given(
+    data: &Dataset,
+    probs: &RowProbabilities,
+    matrix: &Array2<f64>,
+    expected_mislabeled: Option<f64>,
+) -> Diagnostics {
     let external = matches!(probs.source, ProbSource::File(_));
-    diagnose(
+    diagnose_with_expected(
         matrix,
         probs.values.view(),
         &data.labels,
         &data.classes,
         external,
+        expected_mislabeled,
     )
+}
+
+/// Estimates (or reads) the flip matrix, without diagnosing it: the matrix and the notes
+/// from estimation, reading and loading the probabilities.
+pub fn matrix_only(
+    data: &Dataset,
+    probs: &RowProbabilities,
+    source: &MatrixSource,
+) -> Result<(Array2<f64>, Vec<String>)> {
+    let (matrix, mut notes) = match source {
+        MatrixSource::Estimate(method) => estimate_on_all_rows(data, probs, method)?,
+        MatrixSource::File { path, renormalize } => {
+            load_matrix_csv(path, &data.classes, *renormalize)?
+        }
+    };
+    notes.extend(probs.notices.iter().cloned());
+    Ok((matrix, notes))
 }
 
 /// Estimates (or reads) the flip matrix and diagnoses it.
@@ -169,14 +199,8 @@ pub fn flip_matrix(
     probs: &RowProbabilities,
     source: &MatrixSource,
 ) -> Result<FlipEstimate> {
-    let (matrix, mut notes) = match source {
-        MatrixSource::Estimate(method) => estimate_on_all_rows(data, probs, method)?,
-        MatrixSource::File { path, renormalize } => {
-            load_matrix_csv(path, &data.classes, *renormalize)?
-        }
-    };
+    let (matrix, notes) = matrix_only(data, probs, source)?;
     let diagnostics = diagnose_matrix(data, probs, &matrix);
-    notes.extend(probs.notices.iter().cloned());
     Ok(FlipEstimate {
         matrix,
         diagnostics,
