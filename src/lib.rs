@@ -22,6 +22,7 @@ pub mod gui;
 pub mod io;
 pub mod learn;
 pub mod noise;
+pub mod timing;
 pub mod workflow;
 
 pub use error::{Error, InputError, Location, Problem, Result};

@@ -12,6 +12,7 @@ use crate::data::{Dataset, Probabilities};
 use crate::error::{Error, Result};
 use crate::io::{check_not_input, write_json};
 use crate::noise::matrix::load_matrix_csv;
+use crate::timing::Stages;
 use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareReport, CompareSettings, MatrixChoice,
     ALL_CORRECTIONS,
@@ -48,7 +49,9 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
             args.holdout
         )));
     }
+    let mut stages = Stages::start();
     let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
+    stages.end("load_table");
     let test = args
         .test
         .as_deref()
@@ -64,6 +67,7 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
             Probabilities::load(path, &data, &options)
         })
         .transpose()?;
+    stages.end("load_other");
     let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
     let (given, method) = match &source {
         MatrixSource::File { path, renormalize } => (
@@ -88,13 +92,17 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
         fit: args.pipeline.fit.oof(),
         corrections: ALL_CORRECTIONS.to_vec(),
     };
-    let mut report = compare(inputs, &settings, None, &mut |_, _| true)?.report;
+    let comparison = compare(inputs, &settings, None, &mut |_, _| true)?;
+    stages.absorb(&comparison.stages);
+    let mut report = comparison.report;
     if let Some((_, notes)) = given {
         report.warnings.splice(0..0, notes);
     }
     if let Some(json) = &args.json {
         write_json(json, &report)?;
     }
+    stages.end("write");
+    super::report_stages(&stages);
     super::emit(out, &render(&report))
 }
 

@@ -119,6 +119,14 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
     }
 }
 
+/// Prints a command's stage times on standard error when `FLIPMEND_TIMING` is set
+/// (standard output keeps the report alone).
+pub(crate) fn report_stages(stages: &crate::timing::Stages) {
+    if crate::timing::wanted() {
+        eprintln!("flipmend timing: {}", stages.line());
+    }
+}
+
 /// Column width for names: the longest name in characters, and at least `min`.
 pub(crate) fn name_width<'a>(names: impl Iterator<Item = &'a str>, min: usize) -> usize {
     names.map(|n| n.chars().count()).max().unwrap_or(0).max(min)

@@ -13,7 +13,11 @@ use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::worklist::write_worklist;
 use crate::io::{check_not_input, write_atomic, write_json};
-use crate::noise::scores::{auroc, rank, score_rows, select, RowScore, ScoreKind, Selection};
+use crate::noise::posterior::sum_in_chunks;
+use crate::noise::scores::{
+    auroc, rank_values, score_selected, score_values, select_rows, RowScore, ScoreKind, Selection,
+};
+use crate::timing::Stages;
 use crate::workflow;
 
 /// Flags of `flipmend suspects`.
@@ -114,7 +118,9 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     if let Some(truth) = &args.truth {
         options.exclude.push(("--truth".into(), truth.clone()));
     }
+    let mut stages = Stages::start();
     let data = Dataset::load(&args.pipeline.table.data, &options)?;
+    stages.end("load_table");
     let selection = selection(args, &data)?;
     let probs = workflow::probabilities(
         &data,
@@ -123,24 +129,34 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         &args.pipeline.fit.oof(),
         &mut |_, _| true,
     )?;
+    stages.end("probabilities");
     let kind = args.score.kind();
     let mut warnings = data.warnings.clone();
     warnings.extend(probs.notices.iter().cloned());
-    let matrix = if kind == ScoreKind::Posterior {
-        let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
-        let estimate = workflow::flip_matrix(&data, &probs, &source)?;
-        warnings.extend(estimate.notes);
-        warnings.extend(estimate.diagnostics.warnings);
-        Some((source.describe(), estimate.matrix))
-    } else {
-        None
+    let matrix = match kind {
+        ScoreKind::Posterior => {
+            let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
+            let (t, notes) = workflow::matrix_only(&data, &probs, &source)?;
+            Some((source.describe(), t, notes))
+        }
+        _ => None,
     };
-    let mut scores = score_rows(
-        kind,
-        probs.values.view(),
-        &data.labels,
-        matrix.as_ref().map(|(_, t)| t),
-    );
+    stages.end("matrix");
+    // Scores alone for every row; the full verdict (suggested class, runner-up) only for
+    // the rows listed.
+    let t = matrix.as_ref().map(|(_, t, _)| t);
+    let scores = score_values(kind, probs.values.view(), &data.labels, t);
+    stages.end("scores");
+    let matrix = matrix.map(|(name, t, notes)| {
+        // The scores are the posteriors under t: their sum is the expected number of
+        // mislabelled rows, so the diagnosis does not compute every posterior again.
+        let expected = sum_in_chunks(scores.iter().copied());
+        let diagnostics = workflow::diagnose_matrix_given(&data, &probs, &t, Some(expected));
+        warnings.extend(notes);
+        warnings.extend(diagnostics.warnings);
+        (name, t)
+    });
+    stages.end("diagnose");
     let truth = match &args.truth {
         Some(column) => Some(truth_flags(
             &data,
@@ -153,14 +169,26 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         None => None,
     };
     let truth_auroc = truth.as_ref().map(|flipped| {
-        let values: Vec<f64> = scores.iter().map(|s| s.score).collect();
         (
-            auroc(&values, flipped),
+            auroc(&scores, flipped),
             flipped.iter().filter(|&&f| f).count(),
         )
     });
-    rank(&mut scores);
-    let listed = select(&scores, &data.labels, data.classes.len(), &selection);
+    let order = rank_values(&scores);
+    let rows = select_rows(
+        order.iter().map(|&r| (r, scores[r])),
+        &data.labels,
+        data.classes.len(),
+        &selection,
+    );
+    let listed = score_selected(
+        kind,
+        probs.values.view(),
+        &data.labels,
+        matrix.as_ref().map(|(_, t)| t),
+        &rows,
+    );
+    stages.end("rank");
     if let Some(path) = &args.out {
         write_atomic(path, |w| {
             write_worklist(w, &data, &listed, args.with_features)
@@ -192,6 +220,8 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     if let Some(path) = &args.json {
         write_json(path, &report)?;
     }
+    stages.end("write");
+    super::report_stages(&stages);
     super::emit(out, &render(&report, &data, &listed))
 }
 

@@ -16,6 +16,7 @@ use crate::learn::metrics::{accuracy, confusion, estimated_clean_accuracy, recal
 use crate::learn::train::{predict_classes, train, Correction, TrainInputs};
 use crate::learn::{out_of_fold, OofParams, SoftmaxModel};
 use crate::noise::{estimate, Method, Sample};
+use crate::timing::Stages;
 
 /// The corrections `compare` trains by default, `none` first (the others are measured
 /// against it).
@@ -85,6 +86,8 @@ pub struct Comparison {
     pub holdout: Vec<usize>,
     /// Holdout predictions of each model (indexed like `holdout`).
     pub predictions: Vec<Vec<usize>>,
+    /// Seconds of each stage (split, out-of-fold probabilities, matrix, each fit).
+    pub stages: Stages,
 }
 
 /// Where the flip matrix comes from.
@@ -135,6 +138,7 @@ pub fn compare(
             settings.holdout
         )));
     }
+    let mut stages = Stages::start();
     let data = inputs.data;
     let k = data.classes.len();
     let corrections = corrections_none_first(&settings.corrections);
@@ -143,6 +147,7 @@ pub fn compare(
     let (train_rows, holdout_rows) =
         stratified_holdout(&data.labels, k, settings.holdout, settings.fit.seed);
     let part = Part::new(data, &train_rows);
+    stages.end("split");
     let probs = match inputs.probs {
         Some(p) => p.select(Axis(0), &train_rows),
         None => {
@@ -156,7 +161,9 @@ pub fn compare(
             .0
         }
     };
+    stages.end("probabilities");
     let (matrix, mut warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
+    stages.end("matrix");
     let x_hold = data.features.select(Axis(0), &holdout_rows);
     let observed_hold: Vec<usize> = holdout_rows.iter().map(|&r| data.labels[r]).collect();
     let trusted_hold = trusted_pairs(data, &holdout_rows);
@@ -184,6 +191,7 @@ pub fn compare(
             &settings.fit.model,
         )?;
         let name = correction.name();
+        stages.end(format!("fit_{name}"));
         warnings.extend(trained.warnings.iter().map(|w| format!("{name}: {w}")));
         let hold = predict_classes(&trained.model.predict_proba(x_hold.view(), None));
         let test = inputs
@@ -201,6 +209,7 @@ pub fn compare(
             hold,
             test,
         });
+        stages.end("predict");
     }
     progress(steps, steps);
     let reference = Reference::choose(inputs.test, &trusted_hold, &observed_hold);
@@ -225,6 +234,7 @@ pub fn compare(
         classes: k,
     };
     let reports = fits.iter().map(|f| eval.report(f)).collect();
+    stages.end("evaluate");
     let report = CompareReport {
         models: reports,
         matrix: matrix.rows().into_iter().map(|r| r.to_vec()).collect(),
@@ -241,6 +251,7 @@ pub fn compare(
         train: train_rows,
         models: fits.into_iter().map(|f| (f.correction, f.model)).collect(),
         holdout: holdout_rows,
+        stages,
     })
 }
 
