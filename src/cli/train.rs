@@ -28,8 +28,8 @@ pub struct TrainArgs {
     #[arg(long, value_enum)]
     pub correction: CorrectionName,
     /// With --correction backward: use the faithful loss, which is unbounded below when the
-    /// inverse flip matrix has negative entries (by default each per-class loss is capped
-    /// at −ln 1e-4 to keep the fit from exploiting them)
+    /// inverse flip matrix has negative entries (by default each per-class loss is bounded
+    /// by −ln 1e-4, a smooth floor on the probabilities, to keep the fit from exploiting them)
     #[arg(long)]
     pub faithful: bool,
     /// Where to save the model (JSON)
