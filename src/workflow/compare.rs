@@ -174,8 +174,7 @@ pub fn compare(
         if !progress(first + i, steps) || cancelled(cancel) {
             return Err(Error::Cancelled);
         }
-        // The corrected fits start from the uncorrected one (same rows, nearby optimum).
-        let start = fits.first().map(|f| &f.model);
+        let start = warm_start(&fits, correction);
         let trained = train(
             part.x.view(),
             &all_rows,
@@ -253,6 +252,19 @@ pub fn compare(
         holdout: holdout_rows,
         stages,
     })
+}
+
+/// Where a fit starts: the corrected fits from a model already trained on the same rows
+/// (the optimum does not depend on the start, the iteration count does). Backward and
+/// prune aim, like forward, at the clean classes, so they start from the forward fit
+/// when there is one, else from the uncorrected fit.
+fn warm_start(fits: &[Fit], correction: Correction) -> Option<&SoftmaxModel> {
+    let forward = fits.iter().find(|f| f.correction == Correction::Forward);
+    match correction {
+        Correction::Backward { .. } | Correction::Prune => forward.or(fits.first()),
+        _ => fits.first(),
+    }
+    .map(|f| &f.model)
 }
 
 fn cancelled(cancel: Option<&AtomicBool>) -> bool {
