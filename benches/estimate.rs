@@ -6,14 +6,18 @@
 //! diagnostics (clean posteriors of every row, calibration), suspect scoring and ranking,
 //! and a bootstrap of 20
 //! resamples; then out-of-fold probabilities (5 folds) for 100,000 × 32 × 10 Gaussian
-//! rows. Median of 5 runs after a warm-up (3 for the slow stages).
+//! rows; then what `suspects` does after loading on 1,000,000 × 100 classes. Median of 5 runs after a warm-up (3 for the slow stages).
 
 mod common;
 
 use common::Rng;
 use flipmend::learn::{out_of_fold, OofParams};
 use flipmend::noise::bootstrap::bootstrap;
-use flipmend::noise::scores::{rank, score_rows, ScoreKind};
+use flipmend::noise::diagnostics::diagnose_with_expected;
+use flipmend::noise::posterior::sum_in_chunks;
+use flipmend::noise::scores::{
+    rank, rank_values, score_rows, score_selected, score_values, ScoreKind,
+};
 use flipmend::noise::{diagnose, estimate, Method, Sample};
 use ndarray::Array2;
 
@@ -126,6 +130,52 @@ fn main() {
     let params = OofParams::default();
     bench("out-of-fold 5 folds 100000x32x10", 3, || {
         out_of_fold(x.view(), &y, k, &params, &mut |_, _| true).unwrap();
+    });
+    drop((probs, labels, trusted));
+    many_classes();
+}
+
+/// What `flipmend suspects` does after loading, with 100 classes: the quantile estimate,
+/// the posterior score of every row (one pass; its sum is the diagnosis's expected count),
+/// the diagnosis, the ranking and the full verdicts of the 1,000 listed rows.
+fn many_classes() {
+    let (rows, k) = (1_000_000, 100);
+    if std::env::var("FLIPMEND_BENCH").is_ok_and(|f| !"estimate + scores 1000000x100".contains(&f))
+    {
+        return;
+    }
+    let (probs, labels, _) = synthetic_probabilities(rows, k);
+    let all: Vec<usize> = (0..rows).collect();
+    let classes: Vec<String> = (0..k).map(|c| format!("c{c}")).collect();
+    let sample = Sample {
+        probs: probs.view(),
+        labels: &labels,
+        trusted: None,
+        rows: &all,
+    };
+    bench(
+        "estimate + scores 1000000x100 (quantile T, posterior, diagnose, rank, top 1000)",
+        3,
+        || {
+            let t = estimate(&Method::Quantile { q: 0.97 }, &sample, &classes)
+                .unwrap()
+                .matrix;
+            let scores = score_values(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
+            let expected = sum_in_chunks(scores.iter().copied());
+            diagnose_with_expected(&t, probs.view(), &labels, &classes, true, Some(expected));
+            let order = rank_values(&scores);
+            let listed = score_selected(
+                ScoreKind::Posterior,
+                probs.view(),
+                &labels,
+                Some(&t),
+                &order[..1000],
+            );
+            std::hint::black_box(listed);
+        },
+    );
+    bench("quantile estimate alone 1000000x100", 3, || {
+        estimate(&Method::Quantile { q: 0.97 }, &sample, &classes).unwrap();
     });
 }
 

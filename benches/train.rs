@@ -1,16 +1,21 @@
 //! Benchmark of the training loop: one objective-and-gradient evaluation of each loss on
 //! 200,000 × 32 × 10 (reported as GFLOP/s of its two matrix products, 4·n·d·k flops), a
-//! full fit, and each correction's fit.
+//! full fit, each correction's fit, and `compare` end to end (from the CSV file).
 //!
 //! `cargo bench --bench train`. Median of 5 runs after a warm-up (3 for whole fits).
 
 mod common;
 
+use flipmend::data::{Dataset, TableOptions};
 use flipmend::learn::loss::{Backward, Forward, DEFAULT_BACKWARD_CAP};
 use flipmend::learn::softmax::objective;
 use flipmend::learn::train::{train, Correction, TrainInputs};
-use flipmend::learn::{CrossEntropy, RowLoss, SoftmaxParams};
+use flipmend::learn::{CrossEntropy, OofParams, RowLoss, SoftmaxParams};
 use flipmend::noise::linalg::inverse;
+use flipmend::noise::Method;
+use flipmend::workflow::compare::{
+    compare, CompareInputs, CompareSettings, MatrixChoice, ALL_CORRECTIONS,
+};
 use ndarray::Array2;
 
 fn main() {
@@ -74,6 +79,48 @@ fn main() {
             correction.name()
         );
     }
+    compare_end_to_end(&x, &labels);
+}
+
+/// `compare` end to end on a CSV written to a temporary folder: load, split, out-of-fold
+/// probabilities of the training part, quantile T, the four corrections, evaluation.
+fn compare_end_to_end(x: &Array2<f64>, labels: &[usize]) {
+    let dir = tempfile::tempdir().expect("temporary folder");
+    let path = dir.path().join("table.csv");
+    let mut text = String::from("id");
+    (0..x.ncols()).for_each(|j| text.push_str(&format!(",f{j}")));
+    text.push_str(",label\n");
+    for (r, row) in x.rows().into_iter().enumerate() {
+        text.push_str(&r.to_string());
+        row.iter().for_each(|v| text.push_str(&format!(",{v:.6}")));
+        // Every third row's label moved to the next class: 33 % pair flips.
+        let label = if r % 3 == 0 {
+            (labels[r] + 1) % 10
+        } else {
+            labels[r]
+        };
+        text.push_str(&format!(",c{label}\n"));
+    }
+    std::fs::write(&path, text).expect("write the table");
+    let mut stages = String::new();
+    let secs = median(3, || {
+        let data = Dataset::load(&path, &TableOptions::default()).unwrap();
+        let inputs = CompareInputs {
+            data: &data,
+            probs: None,
+            matrix: MatrixChoice::Estimate(&Method::Quantile { q: 0.97 }),
+            test: None,
+        };
+        let settings = CompareSettings {
+            holdout: 0.2,
+            fit: OofParams::default(),
+            corrections: ALL_CORRECTIONS.to_vec(),
+        };
+        let done = compare(inputs, &settings, None, &mut |_, _| true).unwrap();
+        stages = done.stages.line();
+    });
+    println!("compare end to end 200000x32x10 (load included)  median {secs:>8.4} s");
+    println!("  stages of the last run: {stages}");
 }
 
 fn median(runs: usize, run: impl FnMut()) -> f64 {
