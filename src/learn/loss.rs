@@ -149,8 +149,8 @@ pub fn softmax(z: &mut [f64]) -> f64 {
 /// integer held in the low bits of the result.
 const ROUNDER: f64 = 6_755_399_441_055_744.0;
 /// ln 2 split in two (fdlibm's constants): k·LN2_HI is exact for |k| < 2¹¹.
-const LN2_HI: f64 = 6.931_471_803_691_238_164_90e-1;
-const LN2_LO: f64 = 1.908_214_929_270_587_700_02e-10;
+const LN2_HI: f64 = 0.693_147_180_369_123_8;
+const LN2_LO: f64 = 1.908_214_929_270_587_7e-10;
 /// Below this e^x is under 2⁻¹⁰²² (no longer a normal number) and is returned as 0.
 const EXP_FLOOR: f64 = -708.0;
 
