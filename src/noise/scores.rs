@@ -62,10 +62,24 @@ pub fn score_rows(
     labels: &[usize],
     t: Option<&Array2<f64>>,
 ) -> Vec<RowScore> {
+    over_all_rows(kind, probs, t, labels.len(), |s, post, i, row| {
+        s.row_score(kind, i, row, labels[row], post)
+    })
+}
+
+/// `each(scratch, posterior, i, row)` for every row in order, block by block (row `row`
+/// is the block's row `i`, its clean posteriors already computed), on every core.
+fn over_all_rows<T: Default + Clone + Send>(
+    kind: ScoreKind,
+    probs: ArrayView2<f32>,
+    t: Option<&Array2<f64>>,
+    rows: usize,
+    each: impl Fn(&mut Scratch, &Posterior, usize, usize) -> T + Sync,
+) -> Vec<T> {
     let k = probs.ncols();
     let posterior = posterior_for(t, k);
     let contiguous = probs.as_standard_layout();
-    let mut out = vec![RowScore::default(); labels.len()];
+    let mut out = vec![T::default(); rows];
     out.par_chunks_mut(BLOCK_ROWS).enumerate().for_each_init(
         || Scratch::new(k),
         |s, (block, dst)| {
@@ -77,7 +91,7 @@ pub fn score_rows(
                 &posterior,
             );
             for (i, d) in dst.iter_mut().enumerate() {
-                *d = s.row_score(kind, i, start + i, labels[start + i], &posterior);
+                *d = each(s, &posterior, i, start + i);
             }
         },
     );
@@ -242,26 +256,9 @@ pub fn score_values(
     labels: &[usize],
     t: Option<&Array2<f64>>,
 ) -> Vec<f64> {
-    let k = probs.ncols();
-    let posterior = posterior_for(t, k);
-    let contiguous = probs.as_standard_layout();
-    let mut out = vec![0.0; labels.len()];
-    out.par_chunks_mut(BLOCK_ROWS).enumerate().for_each_init(
-        || Scratch::new(k),
-        |s, (block, dst)| {
-            let start = block * BLOCK_ROWS;
-            s.load(
-                kind,
-                &contiguous.view(),
-                Rows::Range(start, dst.len()),
-                &posterior,
-            );
-            for (i, d) in dst.iter_mut().enumerate() {
-                *d = s.score_alone(kind, i, labels[start + i], &posterior);
-            }
-        },
-    );
-    out
+    over_all_rows(kind, probs, t, labels.len(), |s, post, i, row| {
+        s.score_alone(kind, i, labels[row], post)
+    })
 }
 
 /// The full [`RowScore`] of the given rows, in the given order.
