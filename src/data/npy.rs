@@ -279,16 +279,6 @@ impl NpyFloat for f64 {
     }
 }
 
-/// Decodes one element.
-pub(crate) fn decode(bytes: &[u8], dtype: Dtype, big_endian: bool) -> f64 {
-    match (dtype, big_endian) {
-        (Dtype::F32, false) => f32::from_le_bytes(bytes.try_into().unwrap_or([0; 4])) as f64,
-        (Dtype::F32, true) => f32::from_be_bytes(bytes.try_into().unwrap_or([0; 4])) as f64,
-        (Dtype::F64, false) => f64::from_le_bytes(bytes.try_into().unwrap_or([0; 8])),
-        (Dtype::F64, true) => f64::from_be_bytes(bytes.try_into().unwrap_or([0; 8])),
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
