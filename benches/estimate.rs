@@ -163,7 +163,7 @@ fn many_classes() {
             let scores = score_values(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
             let expected = sum_in_chunks(scores.iter().copied());
             diagnose_with_expected(&t, probs.view(), &labels, &classes, true, Some(expected));
-            let order = rank_values(&scores);
+            let order = rank_values(&scores, scores.len());
             let listed = score_selected(
                 ScoreKind::Posterior,
                 probs.view(),

@@ -174,7 +174,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
             flipped.iter().filter(|&&f| f).count(),
         )
     });
-    let order = rank_values(&scores);
+    let order = rank_values(&scores, scores.len());
     let rows = select_rows(
         order.iter().map(|&r| (r, scores[r])),
         &data.labels,

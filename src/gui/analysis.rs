@@ -7,7 +7,7 @@ use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 
 use crate::noise::scores::{
-    rank, rank_key, score_rows, score_selected, score_values, RowScore, ScoreKind,
+    rank, rank_values, score_rows, score_selected, score_values, RowScore, ScoreKind,
 };
 
 /// Rows put in order first after a matrix edit; the table shows them while the rest is
@@ -161,20 +161,7 @@ pub fn rank_rows_head(
     }
     let started = std::time::Instant::now();
     let scores = score_values(kind, probs, labels, Some(matrix));
-    let mut keys: Vec<u128> = scores
-        .par_iter()
-        .enumerate()
-        .map(|(r, &s)| rank_key(s, r))
-        .collect();
-    if head > 0 {
-        keys.select_nth_unstable(head - 1);
-    }
-    keys.truncate(head);
-    keys.par_sort_unstable();
-    let rows: Vec<usize> = keys
-        .iter()
-        .map(|&k| (k & u64::MAX as u128) as usize)
-        .collect();
+    let rows = rank_values(&scores, head);
     let head = score_selected(kind, probs, labels, Some(matrix), &rows);
     Ranking::new(head, &scores, kind, matrix, matrix_version, started)
 }

@@ -288,7 +288,7 @@ pub fn score_selected(
 
 /// The order-preserving key of a score for ranking: ascending keys are descending
 /// scores under `f64::total_cmp`, then ascending rows.
-pub fn rank_key(score: f64, row: usize) -> u128 {
+fn rank_key(score: f64, row: usize) -> u128 {
     ((descending_key(score) as u128) << 64) | row as u128
 }
 
@@ -367,28 +367,6 @@ pub struct Selection {
     pub classes: Option<Vec<usize>>,
 }
 
-/// The ranked rows (most suspect first) that `selection` keeps, in rank order.
-pub fn select(
-    ranked: &[RowScore],
-    labels: &[usize],
-    classes: usize,
-    selection: &Selection,
-) -> Vec<RowScore> {
-    let kept = select_rows(
-        ranked.iter().map(|s| (s.row, s.score)),
-        labels,
-        classes,
-        selection,
-    );
-    // `kept` is in rank order and `ranked` is walked once.
-    let mut next = kept.iter().peekable();
-    ranked
-        .iter()
-        .filter(|s| next.next_if(|&&row| row == s.row).is_some())
-        .copied()
-        .collect()
-}
-
 /// The rows `selection` keeps from `(row, score)` pairs in rank order, in that order.
 pub fn select_rows(
     ranked: impl Iterator<Item = (usize, f64)>,
@@ -424,15 +402,21 @@ pub fn select_rows(
     kept
 }
 
-/// Rows from most to least suspect given every row's score (as [`score_values`] gives
-/// them): the order of [`rank`], sorted on 16-byte keys without building a full
-/// [`RowScore`] for every row.
-pub fn rank_values(scores: &[f64]) -> Vec<usize> {
+/// The `head` most suspect rows (all of them when `head` ≥ the row count), from most to
+/// least suspect, given every row's score (as [`score_values`] gives them): the order of
+/// [`rank`], sorted on 16-byte keys without building a full [`RowScore`] for every row.
+/// A short head is first selected, then only it is sorted.
+pub fn rank_values(scores: &[f64], head: usize) -> Vec<usize> {
+    let head = head.min(scores.len());
     let mut keys: Vec<u128> = scores
         .par_iter()
         .enumerate()
         .map(|(r, &s)| rank_key(s, r))
         .collect();
+    if head > 0 && head < keys.len() {
+        keys.select_nth_unstable(head - 1);
+    }
+    keys.truncate(head);
     keys.par_sort_unstable();
     keys.par_iter()
         .map(|&k| (k & u64::MAX as u128) as usize)
@@ -577,12 +561,8 @@ mod tests {
         let mut ranked = scored(&[0.9, 0.8, 0.7, 0.6, 0.2]);
         rank(&mut ranked);
         let labels = [0, 0, 1, 0, 1];
-        let rows = |s: &Selection| {
-            select(&ranked, &labels, 2, s)
-                .iter()
-                .map(|r| r.row)
-                .collect::<Vec<_>>()
-        };
+        let rows =
+            |s: &Selection| select_rows(ranked.iter().map(|r| (r.row, r.score)), &labels, 2, s);
         assert_eq!(
             rows(&Selection {
                 top: Some(2),
@@ -655,12 +635,13 @@ mod tests {
             let mut ranked = full.clone();
             rank(&mut ranked);
             let order: Vec<usize> = ranked.iter().map(|s| s.row).collect();
-            assert_eq!(rank_values(&alone), order);
+            assert_eq!(rank_values(&alone, rows), order);
+            assert_eq!(rank_values(&alone, 37), order[..37]);
         }
     }
 
     #[test]
-    fn selecting_from_values_keeps_the_rows_select_keeps() {
+    fn a_cap_and_a_threshold_together() {
         let mut ranked = scored(&[0.9, 0.8, 0.7, 0.6, 0.2, 0.75]);
         rank(&mut ranked);
         let labels = [0, 0, 1, 0, 1, 1];
@@ -669,17 +650,12 @@ mod tests {
             threshold: Some(0.5),
             ..Default::default()
         };
-        let full: Vec<usize> = select(&ranked, &labels, 2, &selection)
-            .iter()
-            .map(|s| s.row)
-            .collect();
         let rows = select_rows(
             ranked.iter().map(|s| (s.row, s.score)),
             &labels,
             2,
             &selection,
         );
-        assert_eq!(full, rows);
         assert_eq!(rows, vec![0, 1, 5, 2]);
     }
 }
