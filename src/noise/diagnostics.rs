@@ -184,7 +184,7 @@ fn warn_in_sample(agreement: f64, mean_max: f64, weighted_noise: f64, warnings: 
 const CALIBRATION_CHUNK_ROWS: usize = 16_384;
 
 /// Per-bin row counts, confidence sums and hits of some rows.
-#[derive(Clone, Copy)]
+#[derive(Clone, Copy, Default)]
 struct Bins {
     rows: [usize; CALIBRATION_BINS],
     confidence: [f64; CALIBRATION_BINS],
@@ -193,11 +193,7 @@ struct Bins {
 
 impl Bins {
     fn of(probs: ArrayView2<f32>, labels: &[usize], first: usize) -> Self {
-        let mut bins = Bins {
-            rows: [0; CALIBRATION_BINS],
-            confidence: [0.0; CALIBRATION_BINS],
-            hits: [0; CALIBRATION_BINS],
-        };
+        let mut bins = Bins::default();
         for (i, &y) in labels.iter().enumerate() {
             let row = probs.row(first + i);
             let top = match row.as_slice() {
@@ -230,16 +226,11 @@ fn calibration(probs: ArrayView2<f32>, labels: &[usize]) -> (f64, Vec<Reliabilit
         .enumerate()
         .map(|(chunk, labels)| Bins::of(probs, labels, chunk * CALIBRATION_CHUNK_ROWS))
         .collect();
-    let empty = Bins {
-        rows: [0; CALIBRATION_BINS],
-        confidence: [0.0; CALIBRATION_BINS],
-        hits: [0; CALIBRATION_BINS],
-    };
     let Bins {
         rows,
         confidence,
         hits,
-    } = parts.iter().fold(empty, Bins::add);
+    } = parts.iter().fold(Bins::default(), Bins::add);
     let n = labels.len().max(1) as f64;
     let mut ece = 0.0;
     let mut table = Vec::with_capacity(CALIBRATION_BINS);

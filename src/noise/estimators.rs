@@ -166,9 +166,14 @@ fn anchor(sample: &Sample) -> Array2<f64> {
     t
 }
 
+/// The sorted position numpy's "higher" quantile takes among `n` ≥ 1 values: ⌈q·(n−1)⌉.
+fn higher_index(n: usize, q: f64) -> usize {
+    ((q * (n - 1) as f64).ceil() as usize).min(n - 1)
+}
+
 /// numpy's `quantile(values, q, method="higher")`: the sorted value at ⌈q·(n−1)⌉.
 pub fn quantile_higher(values: &mut [f32], q: f64) -> f32 {
-    let index = ((q * (values.len() - 1) as f64).ceil() as usize).min(values.len() - 1);
+    let index = higher_index(values.len(), q);
     *values.select_nth_unstable_by(index, f32::total_cmp).1
 }
 
@@ -202,7 +207,7 @@ pub fn column_quantiles(probs: ArrayView2<f32>, rows: &[usize], q: f64) -> Vec<f
     if rows.is_empty() {
         return vec![f32::NAN; k];
     }
-    let index = ((q * (rows.len() - 1) as f64).ceil() as usize).min(rows.len() - 1);
+    let index = higher_index(rows.len(), q);
     let buckets = 1usize << BUCKET_BITS;
     // Few, large chunks: each has histograms of k × 4,096 counts to clear and merge.
     let chunk_rows = rows.len().div_ceil(16).max(CHUNK_ROWS);
@@ -269,20 +274,21 @@ fn quantile(sample: &Sample, q: f64, classes: &[String], notes: &mut Vec<String>
     let k = sample.probs.ncols();
     let thresholds = column_quantiles(sample.probs, sample.rows, q);
     let below = best_rows(sample, &thresholds);
-    // The highest-probability rows are only needed for classes with nothing below.
-    let anchors = below.iter().any(Option::is_none).then(|| anchor(sample));
+    // The highest-probability rows are only needed for classes with nothing below, so
+    // they are found the first time one is.
+    let mut anchors: Option<Array2<f64>> = None;
     let mut t = Array2::zeros((k, k));
     for (class, row) in below.into_iter().enumerate() {
-        match (row, &anchors) {
-            (Some(row), _) => set_row(&mut t, class, sample.probs, row),
-            (None, Some(anchors)) => {
+        match row {
+            Some(row) => set_row(&mut t, class, sample.probs, row),
+            None => {
                 notes.push(format!(
                     "class '{}': no row lies strictly below the {q} quantile; its highest-probability row was used",
                     classes[class]
                 ));
+                let anchors = anchors.get_or_insert_with(|| anchor(sample));
                 t.row_mut(class).assign(&anchors.row(class));
             }
-            (None, None) => {}
         }
     }
     t
