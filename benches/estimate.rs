@@ -14,7 +14,7 @@ use common::Rng;
 use flipmend::learn::{out_of_fold, OofParams};
 use flipmend::noise::bootstrap::bootstrap;
 use flipmend::noise::diagnostics::diagnose_with_expected;
-use flipmend::noise::posterior::sum_in_chunks;
+use flipmend::noise::posterior::{sum_in_chunks, Flip};
 use flipmend::noise::scores::{
     rank, rank_values, score_rows, score_selected, score_values, ScoreKind,
 };
@@ -52,7 +52,12 @@ fn main() {
         diagnose(&t, probs.view(), &labels, &classes, true);
     });
     bench("suspects: posterior scores + ranking 1000000x10", 5, || {
-        let mut scores = score_rows(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
+        let mut scores = score_rows(
+            ScoreKind::Posterior,
+            probs.view(),
+            &labels,
+            Some(Flip::noisy(&t)),
+        );
         rank(&mut scores);
     });
     bench("suspects: posterior scores alone 1000000x10", 5, || {
@@ -60,7 +65,7 @@ fn main() {
             ScoreKind::Posterior,
             probs.view(),
             &labels,
-            Some(&t),
+            Some(Flip::noisy(&t)),
         ));
     });
     bench(
@@ -90,11 +95,16 @@ fn main() {
                 ScoreKind::Posterior,
                 probs.view(),
                 &labels,
-                Some(&t),
+                Some(Flip::noisy(&t)),
             ));
         },
     );
-    let unranked = score_rows(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
+    let unranked = score_rows(
+        ScoreKind::Posterior,
+        probs.view(),
+        &labels,
+        Some(Flip::noisy(&t)),
+    );
     bench("suspects: ranking alone 1000000", 5, || {
         let mut s = unranked.clone();
         rank(&mut s);
@@ -111,7 +121,7 @@ fn main() {
             let r = flipmend::gui::analysis::rank_rows_head(
                 probs.view(),
                 &labels,
-                &edited,
+                Flip::noisy(&edited),
                 ScoreKind::Posterior,
                 1,
                 flipmend::gui::analysis::HEAD_ROWS,
@@ -160,7 +170,12 @@ fn many_classes() {
             let t = estimate(&Method::Quantile { q: 0.97 }, &sample, &classes)
                 .unwrap()
                 .matrix;
-            let scores = score_values(ScoreKind::Posterior, probs.view(), &labels, Some(&t));
+            let scores = score_values(
+                ScoreKind::Posterior,
+                probs.view(),
+                &labels,
+                Some(Flip::noisy(&t)),
+            );
             let expected = sum_in_chunks(scores.iter().copied());
             diagnose_with_expected(&t, probs.view(), &labels, &classes, true, Some(expected));
             let order = rank_values(&scores, scores.len());
@@ -168,7 +183,7 @@ fn many_classes() {
                 ScoreKind::Posterior,
                 probs.view(),
                 &labels,
-                Some(&t),
+                Some(Flip::noisy(&t)),
                 &order[..1000],
             );
             std::hint::black_box(listed);

@@ -11,6 +11,7 @@ use flipmend::learn::{CrossEntropy, RowLoss};
 use flipmend::noise::diagnostics::clean_prior;
 use flipmend::noise::linalg::inverse;
 use flipmend::noise::matrix::{read_matrix_csv, validate, write_matrix_csv};
+use flipmend::noise::posterior::Flip;
 use flipmend::noise::scores::{rank, score_rows, ScoreKind};
 use flipmend::noise::{estimate, Method, Sample};
 use ndarray::Array2;
@@ -90,7 +91,7 @@ proptest! {
     ) {
         let p = normalized(&raw, k);
         for kind in [ScoreKind::Posterior, ScoreKind::SelfConfidence, ScoreKind::Margin] {
-            let scores = score_rows(kind, p.view(), &labels, Some(&t));
+            let scores = score_rows(kind, p.view(), &labels, Some(Flip::noisy(&t)));
             let (low, high) = if kind == ScoreKind::Margin { (-1.0 - 1e-9, 1.0 + 1e-9) } else { (-1e-9, 1.0 + 1e-9) };
             prop_assert!(scores.iter().all(|s| s.score >= low && s.score <= high && s.suggested < k && s.alt < k));
             let mut a = scores.clone();

@@ -41,6 +41,7 @@ fn mean_abs_error(a: &Array2<f64>, b: &Array2<f64>) -> f64 {
 }
 
 struct Errors {
+    joint: f64,
     anchor: f64,
     quantile: f64,
     trusted: f64,
@@ -73,6 +74,9 @@ fn errors(records: &Array2<f64>, truth: &[usize], t: &Array2<f64>, seed: u64) ->
     let names: Vec<String> = (0..k).map(|c| format!("c{c}")).collect();
     let err = |m: Method| mean_abs_error(&estimate(&m, &sample, &names).unwrap().matrix, t);
     Errors {
+        joint: err(Method::Joint {
+            volume_weight: None,
+        }),
         anchor: err(Method::Anchor),
         quantile: err(Method::Quantile { q: 0.97 }),
         trusted: err(Method::Trusted {
@@ -93,8 +97,16 @@ fn iris_pair_flip_is_recovered_by_counting() {
     let t = pair_flip(3, 0.2);
     let e = errors(&x, &y, &t, 5);
     eprintln!(
-        "iris pair 0.2: anchor {:.4} quantile {:.4} trusted {:.4} counting {:.4}",
-        e.anchor, e.quantile, e.trusted, e.counting
+        "iris pair 0.2: joint {:.4} anchor {:.4} quantile {:.4} trusted {:.4} counting {:.4}",
+        e.joint, e.anchor, e.quantile, e.trusted, e.counting
+    );
+    // The default (joint) must land within a tenth of the identity's error, and below
+    // counting, from which it starts.
+    assert!(
+        e.joint < 0.1 * identity_error(&t) && e.joint < e.counting,
+        "joint {:.4}, counting {:.4}",
+        e.joint,
+        e.counting
     );
     // The identity is off by 1.2/9 = 0.133 here; counting must land within a quarter of
     // that. (Anchor-point and trusted estimates need the model's p(observed | x) to be
@@ -113,9 +125,10 @@ fn iris_symmetric_noise_is_recovered_by_anchor_points() {
     let t = symmetric(3, 0.3);
     let e = errors(&x, &y, &t, 6);
     eprintln!(
-        "iris sym 0.3: anchor {:.4} quantile {:.4} trusted {:.4} counting {:.4}",
-        e.anchor, e.quantile, e.trusted, e.counting
+        "iris sym 0.3: joint {:.4} anchor {:.4} quantile {:.4} trusted {:.4} counting {:.4}",
+        e.joint, e.anchor, e.quantile, e.trusted, e.counting
     );
+    assert!(e.joint < 0.1 * identity_error(&t), "joint {:.4}", e.joint);
     // The identity is off by 1.8/9 = 0.2; the anchor estimators must land within a
     // quarter (quantile) and a third (plain anchor) of that.
     assert!(
@@ -175,6 +188,61 @@ fn trusted_rows_beat_anchor_points_when_the_model_is_right() {
 }
 
 #[test]
+fn rows_reviewed_because_they_looked_wrong_do_not_bias_the_joint_estimate() {
+    // Simulation with a known T (Gaussian classes above). The 10 % of rows with the lowest
+    // p(observed | x) are "reviewed": their true class becomes known. That sample is
+    // chosen by what was observed, so the per-class mean of its probabilities (the
+    // trusted estimator) is biased; the joint fit uses P(true | x, observed) of those rows,
+    // which the choice leaves unchanged, so it must stay as good as without them.
+    let (x, y) = gaussian_classes(6000, 4.0, 31);
+    let t = Array2::from_shape_vec((3, 3), vec![0.8, 0.2, 0.0, 0.0, 0.85, 0.15, 0.1, 0.0, 0.9])
+        .unwrap();
+    let observed = flip(&y, &t, 12);
+    let params = OofParams {
+        folds: 5,
+        seed: 12,
+        ..Default::default()
+    };
+    let (probs, _) = out_of_fold(x.view(), &observed, 3, &params, &mut |_, _| true).unwrap();
+    let mut by_confidence: Vec<usize> = (0..y.len()).collect();
+    by_confidence.sort_by(|&a, &b| probs[[a, observed[a]]].total_cmp(&probs[[b, observed[b]]]));
+    let mut reviewed = vec![None; y.len()];
+    for &r in by_confidence.iter().take(y.len() / 10) {
+        reviewed[r] = Some(y[r]);
+    }
+    let rows: Vec<usize> = (0..y.len()).collect();
+    let names: Vec<String> = (0..3).map(|c| format!("c{c}")).collect();
+    let error = |m: Method, trusted: Option<&[Option<usize>]>| {
+        let sample = Sample {
+            probs: probs.view(),
+            labels: &observed,
+            trusted,
+            rows: &rows,
+        };
+        mean_abs_error(&estimate(&m, &sample, &names).unwrap().matrix, &t)
+    };
+    let joint = Method::Joint {
+        volume_weight: None,
+    };
+    let (before, after) = (error(joint.clone(), None), error(joint, Some(&reviewed)));
+    let trusted = error(
+        Method::Trusted {
+            fallback_quantile: Some(0.97),
+        },
+        Some(&reviewed),
+    );
+    eprintln!("joint before review {before:.4}, after {after:.4}; trusted on the reviewed rows {trusted:.4}");
+    assert!(
+        after <= before + 0.002,
+        "after {after:.4} vs before {before:.4}"
+    );
+    assert!(
+        trusted > 3.0 * after,
+        "trusted {trusted:.4} vs joint {after:.4}"
+    );
+}
+
+#[test]
 fn error_shrinks_like_one_over_root_n() {
     // With well-separated classes the counting estimate is a sample frequency of flips,
     // whose error falls as 1/√n (a fact of the trade): four times the rows should about
@@ -204,6 +272,7 @@ fn error_shrinks_like_one_over_root_n() {
 
 #[test]
 fn suspect_scores_find_the_flipped_rows() {
+    use flipmend::noise::posterior::Flip;
     use flipmend::noise::scores::{auroc, score_rows, ScoreKind};
     // Iris (×10, jittered) with an asymmetric flip pattern: versicolor is often typed as
     // virginica, the rest rarely.
@@ -219,7 +288,7 @@ fn suspect_scores_find_the_flipped_rows() {
     let (probs, _) = out_of_fold(x.view(), &observed, 3, &params, &mut |_, _| true).unwrap();
     let flipped: Vec<bool> = observed.iter().zip(&y).map(|(o, t)| o != t).collect();
     let auc = |kind, matrix: Option<&Array2<f64>>| {
-        let s: Vec<f64> = score_rows(kind, probs.view(), &observed, matrix)
+        let s: Vec<f64> = score_rows(kind, probs.view(), &observed, matrix.map(Flip::noisy))
             .iter()
             .map(|s| s.score)
             .collect();

@@ -75,9 +75,11 @@ impl ProbArgs {
 /// Which flip-matrix estimator to use, or a matrix file instead.
 #[derive(Debug, Clone, Args)]
 pub struct MatrixArgs {
-    /// Estimator: quantile (anchor points below the q-quantile), anchor (highest-probability
-    /// rows), trusted (mean probabilities of audited rows), counting (confident counting)
-    #[arg(long, value_enum, default_value_t = MethodName::Quantile, conflicts_with = "matrix")]
+    /// Estimator: joint (T and a clean classifier by maximum likelihood with a
+    /// minimum-volume penalty, started from counting), quantile (anchor points below the
+    /// q-quantile), anchor (highest-probability rows), trusted (mean probabilities of
+    /// audited rows), counting (confident counting)
+    #[arg(long, value_enum, default_value_t = MethodName::Joint, conflicts_with = "matrix")]
     pub method: MethodName,
     /// Quantile for --method quantile (and for --fallback quantile), in (0, 1]
     #[arg(long, value_name = "Q", default_value_t = crate::noise::DEFAULT_QUANTILE)]
@@ -85,6 +87,10 @@ pub struct MatrixArgs {
     /// With --method trusted: how to estimate classes that have no trusted rows
     #[arg(long, value_enum, default_value_t = Fallback::None)]
     pub fallback: Fallback,
+    /// With --method joint: weight λ of the minimum-volume penalty λ·ln det T against
+    /// the mean log-likelihood [default: 0.01 / number of classes]
+    #[arg(long, value_name = "X")]
+    pub volume_weight: Option<f64>,
     /// Use this flip matrix instead of estimating one: CSV with the header
     /// class,<class names…> and one row per true class, each row summing to 1
     #[arg(long, value_name = "FILE")]
@@ -94,6 +100,8 @@ pub struct MatrixArgs {
 /// Estimator names on the command line.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
 pub enum MethodName {
+    /// T and a clean classifier fitted together (maximum likelihood, minimum volume).
+    Joint,
     /// Anchor rows just below the q-quantile of each class's probability.
     Quantile,
     /// The highest-probability row of each class.
@@ -123,6 +131,9 @@ impl MatrixArgs {
                 fallback_quantile: (self.fallback == Fallback::Quantile).then_some(self.quantile),
             },
             MethodName::Counting => Method::Counting,
+            MethodName::Joint => Method::Joint {
+                volume_weight: self.volume_weight,
+            },
         }
     }
 
@@ -187,6 +198,19 @@ pub struct PipelineArgs {
 }
 
 impl PipelineArgs {
+    /// Refuses a `--quantile` outside (0, 1] whichever estimator is chosen (it also
+    /// serves `--fallback quantile`), before any file is read.
+    pub fn check(&self) -> crate::error::Result<()> {
+        let q = self.matrix.quantile;
+        if q > 0.0 && q <= 1.0 {
+            Ok(())
+        } else {
+            Err(crate::error::Error::Usage(format!(
+                "--quantile must lie in (0, 1], not {q}"
+            )))
+        }
+    }
+
     /// The files the command reads (outputs must not be any of them).
     pub fn inputs(&self) -> Vec<&Path> {
         let mut inputs = vec![self.table.data.as_path()];

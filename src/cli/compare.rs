@@ -38,6 +38,7 @@ pub struct CompareArgs {
 
 /// Runs `compare`.
 pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
+    args.pipeline.check()?;
     if let Some(json) = &args.json {
         let mut inputs = args.pipeline.inputs();
         inputs.extend(args.test.as_deref());

@@ -62,6 +62,7 @@ struct EstimateReport<'a> {
 
 /// Runs `estimate`.
 pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
+    args.pipeline.check()?;
     check_outputs(args)?;
     if args.bootstrap > 0 && args.pipeline.matrix.matrix.is_some() {
         return Err(Error::Usage(

@@ -113,6 +113,7 @@ struct SuspectsReport {
 
 /// Runs `suspects`.
 pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
+    args.pipeline.check()?;
     check_outputs(args)?;
     let mut options = args.pipeline.table.options();
     if let Some(truth) = &args.truth {
@@ -136,26 +137,31 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     let matrix = match kind {
         ScoreKind::Posterior => {
             let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
-            let (t, notes) = workflow::matrix_only(&data, &probs, &source)?;
-            Some((source.describe(), t, notes))
+            Some((
+                source.describe(),
+                workflow::matrix_only(&data, &probs, &source)?,
+            ))
         }
         _ => None,
     };
     stages.end("matrix");
     // Scores alone for every row; the full verdict (suggested class, runner-up) only for
     // the rows listed.
-    let t = matrix.as_ref().map(|(_, t, _)| t);
-    let scores = score_values(kind, probs.values.view(), &data.labels, t);
+    let (t, clean) = match &matrix {
+        Some((_, e)) => (Some(&e.matrix), e.clean.as_ref()),
+        None => (None, None),
+    };
+    let (score_probs, flip) = workflow::score_inputs(kind, &probs, clean, t);
+    let scores = score_values(kind, score_probs, &data.labels, flip);
     stages.end("scores");
-    let matrix = matrix.map(|(name, t, notes)| {
+    if let Some((_, e)) = &matrix {
         // The scores are the posteriors under t: their sum is the expected number of
         // mislabelled rows, so the diagnosis does not compute every posterior again.
         let expected = sum_in_chunks(scores.iter().copied());
-        let diagnostics = workflow::diagnose_matrix_given(&data, &probs, &t, Some(expected));
-        warnings.extend(notes);
+        let diagnostics = workflow::diagnose_matrix_given(&data, &probs, &e.matrix, Some(expected));
+        warnings.extend(e.notes.iter().cloned());
         warnings.extend(diagnostics.warnings);
-        (name, t)
-    });
+    }
     stages.end("diagnose");
     let truth = match &args.truth {
         Some(column) => Some(truth_flags(
@@ -181,13 +187,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         data.classes.len(),
         &selection,
     );
-    let listed = score_selected(
-        kind,
-        probs.values.view(),
-        &data.labels,
-        matrix.as_ref().map(|(_, t)| t),
-        &rows,
-    );
+    let listed = score_selected(kind, score_probs, &data.labels, flip, &rows);
     stages.end("rank");
     if let Some(path) = &args.out {
         write_atomic(path, |w| {

@@ -65,6 +65,7 @@ impl TrainArgs {
 
 /// Runs `train`.
 pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
+    args.pipeline.check()?;
     let inputs = args.pipeline.inputs();
     check_not_input(&args.out, &inputs)?;
     if args.faithful && args.correction != CorrectionName::Backward {

@@ -6,6 +6,7 @@ use ndarray::{Array2, ArrayView2};
 
 use rayon::prelude::*;
 
+use crate::noise::posterior::Flip;
 use crate::noise::scores::{
     rank, rank_values, score_rows, score_selected, score_values, RowScore, ScoreKind,
 };
@@ -96,6 +97,8 @@ pub struct Ranking {
     pub matrix: Array2<f64>,
     /// Version of `matrix`.
     pub matrix_version: u64,
+    /// True when the rows were scored from clean posteriors (a joint fit's).
+    pub clean_inputs: bool,
     /// Seconds it took.
     pub duration_secs: f64,
 }
@@ -107,7 +110,7 @@ impl Ranking {
         ranked: Vec<RowScore>,
         scores: &[f64],
         kind: ScoreKind,
-        matrix: &Array2<f64>,
+        flip: Flip,
         matrix_version: u64,
         started: std::time::Instant,
     ) -> Self {
@@ -117,8 +120,9 @@ impl Ranking {
             kind,
             histogram: Histogram::of(scores, kind),
             expected_errors: expected_errors(scores, kind),
-            matrix: matrix.clone(),
+            matrix: flip.matrix.clone(),
             matrix_version,
+            clean_inputs: flip.clean_inputs,
             duration_secs: started.elapsed().as_secs_f64(),
         }
     }
@@ -130,18 +134,19 @@ impl Ranking {
 }
 
 /// Scores and ranks every row.
+/// `probs` are what `flip` says they are: noisy probabilities or clean posteriors.
 pub fn rank_rows(
     probs: ArrayView2<f32>,
     labels: &[usize],
-    matrix: &Array2<f64>,
+    flip: Flip,
     kind: ScoreKind,
     matrix_version: u64,
 ) -> Ranking {
     let started = std::time::Instant::now();
-    let mut ranked = score_rows(kind, probs, labels, Some(matrix));
+    let mut ranked = score_rows(kind, probs, labels, Some(flip));
     let scores: Vec<f64> = ranked.par_iter().map(|s| s.score).collect();
     rank(&mut ranked);
-    Ranking::new(ranked, &scores, kind, matrix, matrix_version, started)
+    Ranking::new(ranked, &scores, kind, flip, matrix_version, started)
 }
 
 /// Ranks only the `head` most suspect rows (the same rows, in the same order, as the
@@ -151,30 +156,28 @@ pub fn rank_rows(
 pub fn rank_rows_head(
     probs: ArrayView2<f32>,
     labels: &[usize],
-    matrix: &Array2<f64>,
+    flip: Flip,
     kind: ScoreKind,
     matrix_version: u64,
     head: usize,
 ) -> Ranking {
     if head >= labels.len() {
-        return rank_rows(probs, labels, matrix, kind, matrix_version);
+        return rank_rows(probs, labels, flip, kind, matrix_version);
     }
     let started = std::time::Instant::now();
-    let scores = score_values(kind, probs, labels, Some(matrix));
+    let scores = score_values(kind, probs, labels, Some(flip));
     let rows = rank_values(&scores, head);
-    let head = score_selected(kind, probs, labels, Some(matrix), &rows);
-    Ranking::new(head, &scores, kind, matrix, matrix_version, started)
+    let head = score_selected(kind, probs, labels, Some(flip), &rows);
+    Ranking::new(head, &scores, kind, flip, matrix_version, started)
 }
 
 /// The complete ranking behind a head ranking (same matrix, score and version).
 pub fn finish_ranking(partial: &Ranking, probs: ArrayView2<f32>, labels: &[usize]) -> Ranking {
-    rank_rows(
-        probs,
-        labels,
-        &partial.matrix,
-        partial.kind,
-        partial.matrix_version,
-    )
+    let flip = Flip {
+        matrix: &partial.matrix,
+        clean_inputs: partial.clean_inputs,
+    };
+    rank_rows(probs, labels, flip, partial.kind, partial.matrix_version)
 }
 
 /// What the table shows.
@@ -219,7 +222,7 @@ mod tests {
         let r = rank_rows(
             probs.view(),
             &labels,
-            &Array2::eye(2),
+            Flip::noisy(&Array2::eye(2)),
             ScoreKind::SelfConfidence,
             3,
         );
@@ -249,7 +252,13 @@ mod tests {
     fn the_histogram_counts_every_row_once() {
         let probs = array![[1.0f32, 0.0], [0.5, 0.5], [0.0, 1.0], [0.25, 0.75]];
         let labels = [0, 0, 0, 1];
-        let r = rank_rows(probs.view(), &labels, &Array2::eye(2), ScoreKind::Margin, 0);
+        let r = rank_rows(
+            probs.view(),
+            &labels,
+            Flip::noisy(&Array2::eye(2)),
+            ScoreKind::Margin,
+            0,
+        );
         assert_eq!(r.histogram.counts.iter().sum::<usize>(), 4);
         assert_eq!(r.histogram.low, -1.0);
         // Margins: −1, 0, 1, −0.5 → bins 0, 20, 39 (the top edge), 10.
@@ -274,8 +283,8 @@ mod tests {
             ScoreKind::SelfConfidence,
             ScoreKind::Margin,
         ] {
-            let full = rank_rows(probs.view(), &labels, &t, kind, 1);
-            let head = rank_rows_head(probs.view(), &labels, &t, kind, 1, 100);
+            let full = rank_rows(probs.view(), &labels, Flip::noisy(&t), kind, 1);
+            let head = rank_rows_head(probs.view(), &labels, Flip::noisy(&t), kind, 1, 100);
             assert!(full.is_complete() && !head.is_complete());
             assert_eq!(head.ranked, full.ranked[..100], "{kind:?}");
             assert_eq!(head.histogram, full.histogram);

@@ -6,7 +6,7 @@
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 use super::analysis::{filter_rows, finish_ranking, rank_rows_head, Filter, Ranking, HEAD_ROWS};
 use super::command::Command;
@@ -26,6 +26,8 @@ use crate::learn::train::Correction;
 use crate::learn::{OofParams, SoftmaxParams};
 use crate::noise::bootstrap::Interval;
 use crate::noise::matrix::{load_matrix_csv, write_matrix_csv};
+use crate::noise::posterior::Flip;
+use crate::noise::scores::ScoreKind;
 use crate::noise::{Diagnostics, Method};
 use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareSettings, Comparison, MatrixChoice,
@@ -61,6 +63,9 @@ pub struct EstimateInfo {
     pub notes: Vec<String>,
     /// The method, for the bootstrap (none for imported matrices).
     pub method: Option<Method>,
+    /// Every row's clean posterior from a joint fit: the scores read it under the
+    /// (possibly edited) matrix instead of inverting the matrix.
+    pub clean: Option<Arc<Array2<f32>>>,
 }
 
 /// A comparison and the matrix version it was trained with.
@@ -470,6 +475,9 @@ impl AppState {
     pub fn method(&self) -> Method {
         let s = &self.session.settings;
         match s.estimator {
+            EstimatorName::Joint => Method::Joint {
+                volume_weight: None,
+            },
             EstimatorName::Quantile => Method::Quantile { q: s.quantile },
             EstimatorName::Anchor => Method::Anchor,
             EstimatorName::Trusted => Method::Trusted {
@@ -486,14 +494,14 @@ impl AppState {
         let method = self.method();
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::Estimate, move |_| {
-            let (matrix, notes) =
-                workflow::estimate_on_all_rows(&data, &probs, &method).map_err(fail)?;
+            let e = workflow::estimate_on_all_rows(&data, &probs, &method).map_err(fail)?;
             let info = EstimateInfo {
                 source: workflow::MatrixSource::Estimate(method.clone()).describe(),
-                notes,
+                notes: e.notes,
                 method: Some(method),
+                clean: e.clean.map(Arc::new),
             };
-            Ok(JobOutput::Estimated(matrix, generation, info))
+            Ok(JobOutput::Estimated(e.matrix, generation, info))
         });
     }
 
@@ -573,17 +581,12 @@ impl AppState {
             probs,
             matrix: editor.matrix().clone(),
             version: editor.version(),
+            clean: self.estimate.as_ref().and_then(|e| e.clean.clone()),
         })
     }
 
     fn start_rank(&mut self) {
-        let Some(MatrixJobInputs {
-            data,
-            probs,
-            matrix,
-            version,
-        }) = self.matrix_job_inputs(JobKind::Rank)
-        else {
+        let Some(inputs) = self.matrix_job_inputs(JobKind::Rank) else {
             return;
         };
         let kind = self.session.settings.score;
@@ -591,12 +594,13 @@ impl AppState {
         // Sorting the rest of an older ranking is wasted once a newer one is on its way.
         self.jobs.cancel(JobKind::RankRest);
         self.jobs.spawn(JobKind::Rank, move |_| {
+            let (probs, flip) = inputs.scored(kind);
             let r = rank_rows_head(
-                probs.values.view(),
-                &data.labels,
-                &matrix,
+                probs,
+                &inputs.data.labels,
+                flip,
                 kind,
-                version,
+                inputs.version,
                 HEAD_ROWS,
             );
             Ok(JobOutput::Ranked(Box::new(r), generation))
@@ -607,12 +611,25 @@ impl AppState {
         let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
             return;
         };
+        // The rows the head was scored from: the joint fit's clean posteriors or the
+        // noisy probabilities.
+        let clean = partial
+            .clean_inputs
+            .then(|| self.estimate.as_ref().and_then(|e| e.clean.clone()))
+            .flatten();
+        if partial.clean_inputs && clean.is_none() {
+            return;
+        }
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::RankRest, move |control| {
             if control.is_cancelled() {
                 return Err(JobFailure::Cancelled);
             }
-            let full = finish_ranking(&partial, probs.values.view(), &data.labels);
+            let rows = match &clean {
+                Some(c) => c.view(),
+                None => probs.values.view(),
+            };
+            let full = finish_ranking(&partial, rows, &data.labels);
             Ok(JobOutput::RankedRest(Box::new(full), generation))
         });
     }
@@ -623,13 +640,14 @@ impl AppState {
             probs,
             matrix,
             version,
+            clean,
         }) = self.matrix_job_inputs(JobKind::Diagnose)
         else {
             return;
         };
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::Diagnose, move |_| {
-            let d = workflow::diagnose_matrix(&data, &probs, &matrix);
+            let d = workflow::diagnose_matrix(&data, &probs, &matrix, clean.as_deref());
             Ok(JobOutput::Diagnosed(Box::new(d), generation, version))
         });
     }
@@ -652,6 +670,7 @@ impl AppState {
                     source: format!("file {}", path.display()),
                     notes: Vec::new(),
                     method: None,
+                    clean: None,
                 });
                 self.intervals = None;
                 self.say(Level::Info, format!("imported {}", path.display()));
@@ -699,9 +718,10 @@ impl AppState {
         let old = std::mem::replace(&mut self.session.settings, new);
         let s = &self.session.settings;
         let estimator_changed = old.estimator != s.estimator
-            || (s.estimator != EstimatorName::Anchor
-                && s.estimator != EstimatorName::Counting
-                && old.quantile != s.quantile);
+            || (matches!(
+                s.estimator,
+                EstimatorName::Quantile | EstimatorName::Trusted
+            ) && old.quantile != s.quantile);
         let score_changed = old.score != s.score;
         let filter_changed = old.min_score != s.min_score
             || old.observed_filter != s.observed_filter
@@ -1024,6 +1044,17 @@ struct MatrixJobInputs {
     probs: Arc<RowProbabilities>,
     matrix: Array2<f64>,
     version: u64,
+    /// The joint fit's clean posteriors, when the matrix came from one.
+    clean: Option<Arc<Array2<f32>>>,
+}
+
+impl MatrixJobInputs {
+    /// What the posterior score reads, and the matrix as it applies to it.
+    fn scored(&self, kind: ScoreKind) -> (ArrayView2<'_, f32>, Flip<'_>) {
+        let (view, flip) =
+            workflow::score_inputs(kind, &self.probs, self.clean.as_deref(), Some(&self.matrix));
+        (view, flip.unwrap_or(Flip::noisy(&self.matrix)))
+    }
 }
 
 /// Library errors become job failures (cancellation stays cancellation).

@@ -62,6 +62,8 @@ pub struct Roles {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum EstimatorName {
+    /// T and a clean classifier fitted together (the default).
+    Joint,
     /// Per-class quantile of the probabilities.
     Quantile,
     /// Anchor points.
@@ -119,7 +121,7 @@ impl Default for Settings {
             seed: 0,
             l2: 1e-3,
             max_iter: 500,
-            estimator: EstimatorName::Quantile,
+            estimator: EstimatorName::Joint,
             quantile: crate::noise::DEFAULT_QUANTILE,
             keep_diagonal: false,
             resamples: 20,

@@ -11,6 +11,7 @@ use super::softmax::{fit_from, FitReport, SoftmaxModel, SoftmaxParams};
 use crate::error::{Error, Result};
 use crate::noise::diagnostics::ILL_CONDITIONED;
 use crate::noise::linalg::{condition_number, inverse};
+use crate::noise::posterior::Flip;
 use crate::noise::scores::{rank, score_rows, ScoreKind};
 
 /// How the loss accounts for label noise.
@@ -164,7 +165,12 @@ fn prune(
     })?;
     let sub_probs = probs.select(ndarray::Axis(0), rows);
     let sub_labels: Vec<usize> = rows.iter().map(|&r| labels[r]).collect();
-    let mut scores = score_rows(ScoreKind::Posterior, sub_probs.view(), &sub_labels, matrix);
+    let mut scores = score_rows(
+        ScoreKind::Posterior,
+        sub_probs.view(),
+        &sub_labels,
+        matrix.map(Flip::noisy),
+    );
     let expected: f64 = scores.iter().map(|s| s.score).sum();
     rank(&mut scores);
     let drop_count = (expected.round() as usize).min(rows.len().saturating_sub(1));

@@ -7,6 +7,7 @@
 use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 
+use super::joint::{fit_joint, JointData, JointFit, JointParams, DEFAULT_VOLUME_SCALE};
 use super::matrix::{normalize_rows, validate};
 use crate::error::{Error, Result};
 
@@ -39,6 +40,13 @@ pub enum Method {
     /// confident joint, calibration to the observed class counts, then conditioned on
     /// the true class.
     Counting,
+    /// Maximum likelihood of T and a clean classifier together under the forward model,
+    /// with a minimum-volume penalty (Li et al., ICML 2021), started from the counting
+    /// estimate ([`super::joint`]). Audited rows add their known clean class.
+    Joint {
+        /// λ, the weight of ln det T; `None` for [`DEFAULT_VOLUME_SCALE`] / K.
+        volume_weight: Option<f64>,
+    },
 }
 
 impl Method {
@@ -49,6 +57,7 @@ impl Method {
             Method::Quantile { .. } => "quantile",
             Method::Trusted { .. } => "trusted",
             Method::Counting => "counting",
+            Method::Joint { .. } => "joint",
         }
     }
 
@@ -63,7 +72,16 @@ impl Method {
             Some(q) if !(q > 0.0 && q <= 1.0) => Err(Error::Usage(format!(
                 "--quantile must lie in (0, 1], not {q}"
             ))),
-            _ => Ok(()),
+            _ => match self {
+                Method::Joint {
+                    volume_weight: Some(volume_weight),
+                } => JointParams {
+                    volume_weight: *volume_weight,
+                    ..JointParams::default()
+                }
+                .check(),
+                _ => Ok(()),
+            },
         }
     }
 }
@@ -86,6 +104,9 @@ pub struct Sample<'a> {
 pub struct Estimate {
     /// The row-stochastic flip matrix.
     pub matrix: Array2<f64>,
+    /// The clean posterior q(x) of every row, for estimators that fit one (joint): the
+    /// scores then use it instead of inverting T.
+    pub clean: Option<Array2<f32>>,
     /// Notes such as fallbacks taken.
     pub notes: Vec<String>,
 }
@@ -99,6 +120,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
         ));
     }
     let mut notes = Vec::new();
+    let mut clean = None;
     let mut matrix = match method {
         Method::Anchor => anchor(sample),
         Method::Quantile { q } => quantile(sample, *q, classes, &mut notes),
@@ -106,10 +128,19 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
             trusted(sample, *fallback_quantile, classes, &mut notes)?
         }
         Method::Counting => counting(sample, classes, &mut notes),
+        Method::Joint { volume_weight } => {
+            let fit = joint(sample, *volume_weight, classes, &mut notes)?;
+            clean = Some(fit.clean);
+            fit.matrix
+        }
     };
     normalize_rows(&mut matrix);
     validate(&matrix).map_err(|e| Error::Internal(format!("{} estimator: {e}", method.name())))?;
-    Ok(Estimate { matrix, notes })
+    Ok(Estimate {
+        matrix,
+        clean,
+        notes,
+    })
 }
 
 /// Copies row `row` of the probabilities into T's row `class`.
@@ -355,6 +386,35 @@ fn trusted(
         }
     }
     Ok(t)
+}
+
+fn joint(
+    sample: &Sample,
+    volume_weight: Option<f64>,
+    classes: &[String],
+    notes: &mut Vec<String>,
+) -> Result<JointFit> {
+    let volume_weight =
+        volume_weight.unwrap_or(DEFAULT_VOLUME_SCALE / sample.probs.ncols().max(1) as f64);
+    let start = counting(sample, classes, notes);
+    let data = JointData {
+        probs: sample.probs,
+        labels: sample.labels,
+        trusted: sample.trusted,
+        rows: sample.rows,
+    };
+    let params = JointParams {
+        volume_weight,
+        ..JointParams::default()
+    };
+    let fit = fit_joint(&data, &start, &params, &mut |_| true)?;
+    if !fit.converged {
+        notes.push(format!(
+            "the joint fit stopped at its iteration limit ({} iterations)",
+            fit.iterations
+        ));
+    }
+    Ok(fit)
 }
 
 fn counting(sample: &Sample, classes: &[String], notes: &mut Vec<String>) -> Array2<f64> {

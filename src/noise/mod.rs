@@ -4,6 +4,7 @@
 pub mod bootstrap;
 pub mod diagnostics;
 pub mod estimators;
+pub mod joint;
 pub mod linalg;
 pub mod matrix;
 pub mod posterior;

@@ -86,9 +86,59 @@ pub struct Posterior {
     /// (no chain of dependent additions, which made the dot-product form about four
     /// times slower); for a block of rows it is the product P̃·T⁻¹.
     inv: Option<Vec<f64>>,
+    /// True when the rows handed in are already clean posteriors q(x) (a joint fit's):
+    /// they are used as they are, with no inversion and no clipping.
+    clean_inputs: bool,
+}
+
+/// The flip matrix a posterior works under, and what the probabilities handed with it
+/// are: noisy p̃(x), to be inverted, or clean q(x) from a fit that estimated both.
+#[derive(Debug, Clone, Copy)]
+pub struct Flip<'a> {
+    /// Row-stochastic, rows = true class.
+    pub matrix: &'a Array2<f64>,
+    /// True when the probabilities are clean posteriors.
+    pub clean_inputs: bool,
+}
+
+impl<'a> Flip<'a> {
+    /// Noisy probabilities under `matrix`.
+    pub fn noisy(matrix: &'a Array2<f64>) -> Self {
+        Flip {
+            matrix,
+            clean_inputs: false,
+        }
+    }
+
+    /// Clean posteriors under `matrix`.
+    pub fn clean(matrix: &'a Array2<f64>) -> Self {
+        Flip {
+            matrix,
+            clean_inputs: true,
+        }
+    }
 }
 
 impl Posterior {
+    /// Prepares `flip` for rows of the kind it names.
+    pub fn for_flip(flip: Flip) -> Self {
+        if flip.clean_inputs {
+            Posterior::for_clean_inputs(flip.matrix)
+        } else {
+            Posterior::new(flip.matrix)
+        }
+    }
+
+    /// Prepares `t` for rows that are already clean posteriors.
+    pub fn for_clean_inputs(t: &Array2<f64>) -> Self {
+        Posterior {
+            k: t.nrows(),
+            t_columns: t.t().iter().copied().collect(),
+            inv: None,
+            clean_inputs: true,
+        }
+    }
+
     /// Prepares `t` (validated, row-stochastic).
     pub fn new(t: &Array2<f64>) -> Self {
         // (Tᵀ)⁻¹ = (T⁻¹)ᵀ, so one elimination gives both the inverse and the condition.
@@ -112,13 +162,14 @@ impl Posterior {
             k: t.nrows(),
             t_columns: t.t().iter().copied().collect(),
             inv,
+            clean_inputs: false,
         }
     }
 
     /// False when T could not be inverted and the noisy probabilities stand in for the
     /// clean posterior (the caller should warn).
     pub fn inverts(&self) -> bool {
-        self.inv.is_some()
+        self.clean_inputs || self.inv.is_some()
     }
 
     /// Clean posterior of one row into `out`.
@@ -146,6 +197,11 @@ impl Posterior {
         let k = self.k;
         let rows = ok.len();
         debug_assert!(noisy.len() == rows * k && out.len() == rows * k);
+        if self.clean_inputs {
+            out.iter_mut().zip(noisy).for_each(|(o, &p)| *o = p as f64);
+            ok.fill(true);
+            return;
+        }
         let Some(inv) = &self.inv else {
             out.iter_mut().zip(noisy).for_each(|(o, &p)| *o = p as f64);
             ok.fill(false);

@@ -5,7 +5,7 @@ use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 use serde::Serialize;
 
-use super::posterior::{Posterior, Workspace, BLOCK_ROWS};
+use super::posterior::{Flip, Posterior, Workspace, BLOCK_ROWS};
 
 /// Which score ranks the rows.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
@@ -60,7 +60,7 @@ pub fn score_rows(
     kind: ScoreKind,
     probs: ArrayView2<f32>,
     labels: &[usize],
-    t: Option<&Array2<f64>>,
+    t: Option<Flip>,
 ) -> Vec<RowScore> {
     over_all_rows(kind, probs, t, labels.len(), |s, post, i, row| {
         s.row_score(kind, i, row, labels[row], post)
@@ -72,7 +72,7 @@ pub fn score_rows(
 fn over_all_rows<T: Default + Clone + Send>(
     kind: ScoreKind,
     probs: ArrayView2<f32>,
-    t: Option<&Array2<f64>>,
+    t: Option<Flip>,
     rows: usize,
     each: impl Fn(&mut Scratch, &Posterior, usize, usize) -> T + Sync,
 ) -> Vec<T> {
@@ -100,9 +100,9 @@ fn over_all_rows<T: Default + Clone + Send>(
 
 /// The matrix prepared for scoring; without one, the identity (the probabilities then
 /// stand for the clean posterior).
-fn posterior_for(t: Option<&Array2<f64>>, k: usize) -> Posterior {
+fn posterior_for(t: Option<Flip>, k: usize) -> Posterior {
     match t {
-        Some(t) => Posterior::new(t),
+        Some(flip) => Posterior::for_flip(flip),
         None => Posterior::new(&Array2::eye(k)),
     }
 }
@@ -254,7 +254,7 @@ pub fn score_values(
     kind: ScoreKind,
     probs: ArrayView2<f32>,
     labels: &[usize],
-    t: Option<&Array2<f64>>,
+    t: Option<Flip>,
 ) -> Vec<f64> {
     over_all_rows(kind, probs, t, labels.len(), |s, post, i, row| {
         s.score_alone(kind, i, labels[row], post)
@@ -266,7 +266,7 @@ pub fn score_selected(
     kind: ScoreKind,
     probs: ArrayView2<f32>,
     labels: &[usize],
-    t: Option<&Array2<f64>>,
+    t: Option<Flip>,
     rows: &[usize],
 ) -> Vec<RowScore> {
     let k = probs.ncols();
@@ -521,13 +521,23 @@ mod tests {
         // Observed label 1: P(true = k | x, obs = 1) ∝ T[k][1]·p(k) = (.05, .21, .06) / .32
         // = (0.15625, 0.65625, 0.1875). Score = 1 − 0.65625 = 0.34375; suggested 1; alt 2.
         let probs = array![[0.46f32, 0.32, 0.22]];
-        let s = score_rows(ScoreKind::Posterior, probs.view(), &[1], Some(&t3()))[0];
+        let s = score_rows(
+            ScoreKind::Posterior,
+            probs.view(),
+            &[1],
+            Some(Flip::noisy(&t3())),
+        )[0];
         assert!((s.score - 0.34375).abs() < 1e-6, "{s:?}");
         assert_eq!((s.suggested, s.alt), (1, 2));
         assert!((s.alt_prob - 0.1875).abs() < 1e-6);
         // Observed label 2: ∝ T[k][2]·p(k) = (.05, .03, .14)/.22 → P(true = 2) = 0.636364;
         // score 0.363636, suggested 2, alt 0 (0.227273).
-        let s = score_rows(ScoreKind::Posterior, probs.view(), &[2], Some(&t3()))[0];
+        let s = score_rows(
+            ScoreKind::Posterior,
+            probs.view(),
+            &[2],
+            Some(Flip::noisy(&t3())),
+        )[0];
         assert!((s.score - (1.0 - 0.14 / 0.22)).abs() < 1e-6);
         assert_eq!((s.suggested, s.alt), (2, 0));
     }
@@ -621,14 +631,14 @@ mod tests {
             ScoreKind::SelfConfidence,
             ScoreKind::Margin,
         ] {
-            let full = score_rows(kind, probs.view(), &labels, Some(&t));
-            let alone = score_values(kind, probs.view(), &labels, Some(&t));
+            let full = score_rows(kind, probs.view(), &labels, Some(Flip::noisy(&t)));
+            let alone = score_values(kind, probs.view(), &labels, Some(Flip::noisy(&t)));
             assert!(full
                 .iter()
                 .zip(&alone)
                 .all(|(f, a)| f.score.to_bits() == a.to_bits()));
             let chosen: Vec<usize> = (0..rows).rev().step_by(3).collect();
-            let some = score_selected(kind, probs.view(), &labels, Some(&t), &chosen);
+            let some = score_selected(kind, probs.view(), &labels, Some(Flip::noisy(&t)), &chosen);
             for (s, &r) in some.iter().zip(&chosen) {
                 assert_eq!(*s, full[r]);
             }

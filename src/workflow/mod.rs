@@ -13,7 +13,9 @@ use crate::learn::{out_of_fold, OofParams};
 use crate::noise::bootstrap::{bootstrap, Interval};
 use crate::noise::diagnostics::diagnose_with_expected;
 use crate::noise::matrix::load_matrix_csv;
-use crate::noise::{estimate, Diagnostics, Method, Sample};
+use crate::noise::posterior::{Flip, Posterior};
+use crate::noise::scores::ScoreKind;
+use crate::noise::{estimate, Diagnostics, Estimate, Method, Sample};
 
 /// Where the probabilities came from.
 #[derive(Debug, Clone, PartialEq)]
@@ -120,6 +122,8 @@ impl MatrixSource {
 pub struct FlipEstimate {
     /// The matrix.
     pub matrix: Array2<f64>,
+    /// Every row's clean posterior, when the estimator fitted one (joint).
+    pub clean: Option<Array2<f32>>,
     /// What it says about the data.
     pub diagnostics: Diagnostics,
     /// Notes from estimation or reading.
@@ -136,15 +140,31 @@ pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) 
     }
 }
 
-/// Runs `method` on every row: the matrix and the estimator's notes.
+/// Runs `method` on every row: the matrix, the clean posteriors (joint) and the
+/// estimator's notes.
 pub fn estimate_on_all_rows(
     data: &Dataset,
     probs: &RowProbabilities,
     method: &Method,
-) -> Result<(Array2<f64>, Vec<String>)> {
+) -> Result<Estimate> {
     let rows: Vec<usize> = (0..data.rows()).collect();
-    let e = estimate(method, &sample(data, &probs.values, &rows), &data.classes)?;
-    Ok((e.matrix, e.notes))
+    estimate(method, &sample(data, &probs.values, &rows), &data.classes)
+}
+
+/// What the posterior score reads and how: a joint fit's clean posteriors under
+/// `matrix` when there are some, else the noisy probabilities, inverted through it.
+/// Other scores read the noisy probabilities and need no matrix.
+pub fn score_inputs<'a>(
+    kind: ScoreKind,
+    probs: &'a RowProbabilities,
+    clean: Option<&'a Array2<f32>>,
+    matrix: Option<&'a Array2<f64>>,
+) -> (ndarray::ArrayView2<'a, f32>, Option<Flip<'a>>) {
+    match (kind, matrix, clean) {
+        (ScoreKind::Posterior, Some(m), Some(c)) => (c.view(), Some(Flip::clean(m))),
+        (ScoreKind::Posterior, Some(m), None) => (probs.values.view(), Some(Flip::noisy(m))),
+        _ => (probs.values.view(), None),
+    }
 }
 
 /// What `matrix` says about the data; probabilities from a file are checked for being
@@ -153,8 +173,11 @@ pub fn diagnose_matrix(
     data: &Dataset,
     probs: &RowProbabilities,
     matrix: &Array2<f64>,
+    clean: Option<&Array2<f32>>,
 ) -> Diagnostics {
-    diagnose_matrix_given(data, probs, matrix, None)
+    let expected = clean
+        .map(|c| Posterior::for_clean_inputs(matrix).expected_mislabeled(c.view(), &data.labels));
+    diagnose_matrix_given(data, probs, matrix, expected)
 }
 
 /// [`diagnose_matrix`] with the expected number of mislabelled rows when the caller
@@ -176,21 +199,27 @@ pub fn diagnose_matrix_given(
     )
 }
 
-/// Estimates (or reads) the flip matrix, without diagnosing it: the matrix and the notes
-/// from estimation, reading and loading the probabilities.
+/// Estimates (or reads) the flip matrix, without diagnosing it: the matrix, the clean
+/// posteriors of a joint fit, and the notes from estimation, reading and loading the
+/// probabilities.
 pub fn matrix_only(
     data: &Dataset,
     probs: &RowProbabilities,
     source: &MatrixSource,
-) -> Result<(Array2<f64>, Vec<String>)> {
-    let (matrix, mut notes) = match source {
+) -> Result<Estimate> {
+    let mut estimate = match source {
         MatrixSource::Estimate(method) => estimate_on_all_rows(data, probs, method)?,
         MatrixSource::File { path, renormalize } => {
-            load_matrix_csv(path, &data.classes, *renormalize)?
+            let (matrix, notes) = load_matrix_csv(path, &data.classes, *renormalize)?;
+            Estimate {
+                matrix,
+                clean: None,
+                notes,
+            }
         }
     };
-    notes.extend(probs.notices.iter().cloned());
-    Ok((matrix, notes))
+    estimate.notes.extend(probs.notices.iter().cloned());
+    Ok(estimate)
 }
 
 /// Estimates (or reads) the flip matrix and diagnoses it.
@@ -199,10 +228,15 @@ pub fn flip_matrix(
     probs: &RowProbabilities,
     source: &MatrixSource,
 ) -> Result<FlipEstimate> {
-    let (matrix, notes) = matrix_only(data, probs, source)?;
-    let diagnostics = diagnose_matrix(data, probs, &matrix);
+    let Estimate {
+        matrix,
+        clean,
+        notes,
+    } = matrix_only(data, probs, source)?;
+    let diagnostics = diagnose_matrix(data, probs, &matrix, clean.as_ref());
     Ok(FlipEstimate {
         matrix,
+        clean,
         diagnostics,
         notes,
     })

@@ -50,6 +50,7 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
             .selected_text(estimator_name(s.estimator))
             .show_ui(ui, |ui| {
                 for e in [
+                    EstimatorName::Joint,
                     EstimatorName::Quantile,
                     EstimatorName::Anchor,
                     EstimatorName::Trusted,
@@ -93,6 +94,7 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
 
 fn estimator_name(e: EstimatorName) -> &'static str {
     match e {
+        EstimatorName::Joint => "joint",
         EstimatorName::Quantile => "quantile",
         EstimatorName::Anchor => "anchor",
         EstimatorName::Trusted => "trusted",

@@ -1,0 +1,550 @@
+//! Joint maximum-likelihood estimate of the flip matrix and a clean classifier.
+//!
+//! The observed label follows the forward model p(observed = j | x) = Σ_k T[k][j]·q_k(x)
+//! with q(x) = softmax(A·z(x) + b) the clean posterior (Patrini et al. 2017, Eq. 2). The
+//! likelihood alone cannot tell T from T·M with q moved by M⁻¹, so a minimum-volume
+//! penalty λ·ln det T picks the smallest simplex of noisy posteriors that explains the
+//! data (Li et al., ICML 2021): no anchor points are needed. Audited rows add their known
+//! clean class: −ln q_{y*}(x) − ln T[y*][observed], the complete-data likelihood.
+//!
+//! The classifier's inputs z(x) are the logarithms of out-of-sample noisy probabilities
+//! (flipmend's own or a user's model's), so whatever model produced them stays the
+//! evidence and the fit has only K² + K classifier parameters: with as many rows as
+//! flipmend sees, q is out-of-sample in all but a K²/N share, and the fit takes a few
+//! milliseconds a thousand rows.
+//!
+//! Why audited rows may be any rows, even ones reviewed because they looked suspicious:
+//! their term is P(y* | x, observed), and choosing rows by (x, observed) does not change
+//! that conditional (the labels are missing at random given what was seen). Averaging
+//! their probability vectors per class, as the trusted estimator does, would be biased.
+//!
+//! T is parametrised row by row as softmax(U[i]), so every iterate is row-stochastic with
+//! positive entries; ln det T is guarded by refusing (infinite objective) any step whose
+//! determinant falls below [`MIN_DET`].
+
+use ndarray::{Array2, ArrayView2, Axis};
+use rayon::prelude::*;
+
+use super::linalg::inverse;
+use crate::error::{Error, Result};
+use crate::learn::lbfgs::{minimize, LbfgsOptions, Stop};
+use crate::learn::loss::softmax;
+
+/// Smallest probability whose logarithm becomes a classifier input (a user's file may
+/// hold exact zeros).
+const MIN_INPUT_PROB: f64 = 1e-6;
+/// Smallest entry of the starting matrix (ln 0 has no softmax parameter).
+const MIN_START_ENTRY: f64 = 1e-4;
+/// Steps to a flip matrix with a smaller determinant are refused: the penalty's
+/// logarithm is unbounded below as T becomes singular.
+pub const MIN_DET: f64 = 1e-8;
+/// Rows per parallel work item, summed in block order (thread-count independent).
+const BLOCK_ROWS: usize = 4096;
+
+/// Settings of the joint fit, checked by [`JointParams::check`] before use.
+#[derive(Debug, Clone, PartialEq)]
+pub struct JointParams {
+    /// λ, the weight of ln det T against the mean negative log-likelihood.
+    pub volume_weight: f64,
+    /// L2 penalty on A's distance from its start (the map that gives q = p̃).
+    pub l2: f64,
+    /// L-BFGS iteration limit.
+    pub max_iter: usize,
+}
+
+/// The default λ is this over the number of classes. Chosen by measurement on the
+/// validity report's cases (`../shared/bench/validity.py`, out-of-fold probabilities of
+/// flipmend's own model, with and without audited rows): c = 0, 0.01, 0.02, 0.04 gave
+/// worst flip-matrix errors of 1.68, 1.80, 2.42 and 5.36 × the oracle's, c = 0.01 the
+/// lowest mean apart from 0. λ = 0 is not used: with perfectly calibrated probabilities
+/// (the exact noisy posterior of the generating model) the likelihood alone cannot move
+/// T from the identity, and only the volume penalty does (errors 1.3–23 × the oracle's at
+/// c = 0.01, 15–33 × at c = 0).
+pub const DEFAULT_VOLUME_SCALE: f64 = 0.01;
+
+impl Default for JointParams {
+    fn default() -> Self {
+        JointParams {
+            volume_weight: DEFAULT_VOLUME_SCALE / 2.0,
+            l2: 1e-4,
+            max_iter: 500,
+        }
+    }
+}
+
+impl JointParams {
+    /// Refuses settings that cannot work.
+    pub fn check(&self) -> Result<()> {
+        if !(self.volume_weight.is_finite() && self.volume_weight >= 0.0) {
+            return Err(Error::Usage(format!(
+                "--volume-weight must be a finite number of at least 0, not {}",
+                self.volume_weight
+            )));
+        }
+        if !(self.l2.is_finite() && self.l2 >= 0.0) {
+            return Err(Error::Usage(format!(
+                "the joint fit's L2 penalty must be at least 0, not {}",
+                self.l2
+            )));
+        }
+        if self.max_iter == 0 {
+            return Err(Error::Usage(
+                "the joint fit needs at least one iteration".into(),
+            ));
+        }
+        Ok(())
+    }
+}
+
+/// The joint fit's result.
+#[derive(Debug, Clone, PartialEq)]
+pub struct JointFit {
+    /// Row-stochastic flip matrix, rows = true class.
+    pub matrix: Array2<f64>,
+    /// Clean posterior q(x) of every row of the probabilities (not only the fitted rows).
+    pub clean: Array2<f32>,
+    /// Mean negative log-likelihood of the fitted rows' observed labels at the optimum.
+    pub mean_nll: f64,
+    /// L-BFGS iterations.
+    pub iterations: usize,
+    /// False when the iteration limit stopped the fit.
+    pub converged: bool,
+}
+
+/// The rows the joint fit sees.
+#[derive(Debug, Clone, Copy)]
+pub struct JointData<'a> {
+    /// `rows × classes` out-of-sample probabilities of the observed label.
+    pub probs: ArrayView2<'a, f32>,
+    /// Observed label of every row.
+    pub labels: &'a [usize],
+    /// Audited clean class of every row, where known.
+    pub trusted: Option<&'a [Option<usize>]>,
+    /// Rows to fit on (repeats allowed, as in a bootstrap resample).
+    pub rows: &'a [usize],
+}
+
+/// Fits T and the clean classifier, starting from the flip matrix `start`.
+pub fn fit_joint(
+    data: &JointData,
+    start: &Array2<f64>,
+    params: &JointParams,
+    keep_going: &mut dyn FnMut(usize) -> bool,
+) -> Result<JointFit> {
+    params.check()?;
+    let k = data.probs.ncols();
+    if data.rows.is_empty() {
+        return Err(Error::Usage("no rows for the joint fit".into()));
+    }
+    let (inputs, mean, scale) = log_inputs(data.probs, data.rows);
+    let problem = Problem {
+        inputs: inputs.view(),
+        labels: data.labels,
+        trusted: data.trusted,
+        rows: data.rows,
+        k,
+        params,
+        scale: &scale,
+    };
+    let theta0 = initial_parameters(start, &mean, &scale);
+    let options = LbfgsOptions {
+        max_iter: params.max_iter,
+        grad_tol: 1e-5,
+        rel_decrease_tol: 2.2e-9,
+        ..Default::default()
+    };
+    let outcome = minimize(
+        |t, g| problem.evaluate(t, g),
+        theta0,
+        &options,
+        &mut *keep_going,
+    );
+    if outcome.stop == Stop::Cancelled {
+        return Err(Error::Cancelled);
+    }
+    let matrix = flip_of(&outcome.x, k);
+    let clean = problem.clean_posteriors(&outcome.x);
+    let mut scratch = vec![0.0; problem.theta_len()];
+    let mean_nll = problem.nll_only(&outcome.x, &mut scratch);
+    Ok(JointFit {
+        matrix,
+        clean,
+        mean_nll,
+        iterations: outcome.iterations,
+        converged: outcome.stop != Stop::MaxIter,
+    })
+}
+
+/// The classifier's inputs: ln p̃ floored at [`MIN_INPUT_PROB`], centred within each row
+/// (softmax ignores a shift, and the centred log-ratios drop the direction all classes
+/// share), then each column standardised over `rows`. The standardisation is returned:
+/// logits = mean + scale·z reproduce p̃ exactly, the fit's starting point. Without it the
+/// columns' strong correlation slowed L-BFGS to hundreds of iterations.
+fn log_inputs(probs: ArrayView2<f32>, rows: &[usize]) -> (Array2<f64>, Vec<f64>, Vec<f64>) {
+    let k = probs.ncols();
+    let mut z = probs.mapv(|p| (p as f64).max(MIN_INPUT_PROB).ln());
+    for mut row in z.rows_mut() {
+        let centre = row.sum() / k as f64;
+        row.mapv_inplace(|v| v - centre);
+    }
+    let n = rows.len().max(1) as f64;
+    let mut mean = vec![0.0; k];
+    let mut square = vec![0.0; k];
+    for &r in rows {
+        for (c, &v) in z.row(r).iter().enumerate() {
+            mean[c] += v;
+            square[c] += v * v;
+        }
+    }
+    let scale: Vec<f64> = (0..k)
+        .map(|c| {
+            mean[c] /= n;
+            (square[c] / n - mean[c] * mean[c])
+                .max(0.0)
+                .sqrt()
+                .max(1e-6)
+        })
+        .collect();
+    for mut row in z.rows_mut() {
+        for (c, v) in row.iter_mut().enumerate() {
+            *v = (*v - mean[c]) / scale[c];
+        }
+    }
+    (z, mean, scale)
+}
+
+/// A = diag(scale), b = mean (so q starts as p̃), U[i][j] = ln T₀[i][j] (floored).
+fn initial_parameters(start: &Array2<f64>, mean: &[f64], scale: &[f64]) -> Vec<f64> {
+    let k = mean.len();
+    let mut theta = vec![0.0; k * k + k + k * k];
+    for c in 0..k {
+        theta[c * k + c] = scale[c];
+        theta[k * k + c] = mean[c];
+    }
+    let u = &mut theta[k * k + k..];
+    for i in 0..k {
+        for j in 0..k {
+            u[i * k + j] = start[[i, j]].max(MIN_START_ENTRY).ln();
+        }
+    }
+    theta
+}
+
+/// T from the parameter vector: each row the softmax of its row of U.
+fn flip_of(theta: &[f64], k: usize) -> Array2<f64> {
+    let mut t = Array2::zeros((k, k));
+    let u = &theta[k * k + k..];
+    for i in 0..k {
+        let mut row = u[i * k..(i + 1) * k].to_vec();
+        softmax(&mut row);
+        for j in 0..k {
+            t[[i, j]] = row[j];
+        }
+    }
+    t
+}
+
+/// Natural logarithm of the determinant of a matrix with a positive determinant, by LU
+/// with partial pivoting; `None` when the determinant is not positive.
+pub fn ln_det(a: &Array2<f64>) -> Option<f64> {
+    let n = a.nrows();
+    let mut m = a.clone();
+    let mut sign = 1.0;
+    let mut total = 0.0;
+    for col in 0..n {
+        let pivot = (col..n).max_by(|&i, &j| m[[i, col]].abs().total_cmp(&m[[j, col]].abs()))?;
+        let p = m[[pivot, col]];
+        if p == 0.0 || !p.is_finite() {
+            return None;
+        }
+        if pivot != col {
+            for j in 0..n {
+                m.swap([pivot, j], [col, j]);
+            }
+            sign = -sign;
+        }
+        if p < 0.0 {
+            sign = -sign;
+        }
+        total += p.abs().ln();
+        for i in col + 1..n {
+            let factor = m[[i, col]] / p;
+            if factor != 0.0 {
+                for j in col..n {
+                    m[[i, j]] -= factor * m[[col, j]];
+                }
+            }
+        }
+    }
+    (sign > 0.0).then_some(total)
+}
+
+struct Problem<'a> {
+    inputs: ArrayView2<'a, f64>,
+    labels: &'a [usize],
+    trusted: Option<&'a [Option<usize>]>,
+    rows: &'a [usize],
+    k: usize,
+    params: &'a JointParams,
+    /// The starting map's diagonal, toward which A is shrunk.
+    scale: &'a [f64],
+}
+
+/// One block's sums: loss, ∂/∂A (k×k), ∂/∂b, ∂/∂T (k×k).
+struct Partial {
+    loss: f64,
+    grad: Vec<f64>,
+}
+
+impl Problem<'_> {
+    fn theta_len(&self) -> usize {
+        2 * self.k * self.k + self.k
+    }
+
+    /// Objective and gradient: mean negative log-likelihood + λ ln det T + (l2/2)‖A − I‖².
+    fn evaluate(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
+        let k = self.k;
+        let t = flip_of(theta, k);
+        let Some(log_det) = ln_det(&t) else {
+            return f64::INFINITY;
+        };
+        if log_det < MIN_DET.ln() {
+            return f64::INFINITY;
+        }
+        let nll = self.nll_and_grad(theta, &t, grad);
+        // grad currently holds ∂/∂A, ∂/∂b and ∂/∂T (in U's place); add the penalties.
+        let lambda = self.params.volume_weight;
+        let Some(t_inv) = inverse(&t) else {
+            return f64::INFINITY;
+        };
+        let (ga, rest) = grad.split_at_mut(k * k);
+        let gt = &mut rest[k..];
+        let mut ridge = 0.0;
+        for i in 0..k {
+            for j in 0..k {
+                let a = theta[i * k + j] - if i == j { self.scale[i] } else { 0.0 };
+                ridge += a * a;
+                ga[i * k + j] += self.params.l2 * a;
+                // ∂ ln det T / ∂T[i][j] = (T⁻¹)[j][i].
+                gt[i * k + j] += lambda * t_inv[[j, i]];
+            }
+        }
+        // Through the row softmax: ∂/∂U[i][j] = T[i][j]·(g[i][j] − Σ_l T[i][l]·g[i][l]).
+        for i in 0..k {
+            let row = &mut gt[i * k..(i + 1) * k];
+            let mean: f64 = (0..k).map(|l| t[[i, l]] * row[l]).sum();
+            for (j, g) in row.iter_mut().enumerate() {
+                *g = t[[i, j]] * (*g - mean);
+            }
+        }
+        nll + lambda * log_det + 0.5 * self.params.l2 * ridge
+    }
+
+    /// The mean negative log-likelihood alone (`grad` is scratch).
+    fn nll_only(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
+        let t = flip_of(theta, self.k);
+        self.nll_and_grad(theta, &t, grad)
+    }
+
+    /// Mean negative log-likelihood; `grad` receives its gradient with respect to A, b
+    /// and T (T's in U's place, before the chain through the row softmax).
+    fn nll_and_grad(&self, theta: &[f64], t: &Array2<f64>, grad: &mut [f64]) -> f64 {
+        let n = self.rows.len();
+        let parts: Vec<Partial> = self
+            .rows
+            .par_chunks(BLOCK_ROWS)
+            .map(|rows| self.block(theta, t, rows))
+            .collect();
+        grad.iter_mut().for_each(|g| *g = 0.0);
+        let mut loss = 0.0;
+        for p in &parts {
+            loss += p.loss;
+            grad.iter_mut().zip(&p.grad).for_each(|(g, v)| *g += v);
+        }
+        let scale = 1.0 / n as f64;
+        grad.iter_mut().for_each(|g| *g *= scale);
+        loss * scale
+    }
+
+    /// One block of rows: the logits as one product (block × Aᵀ) and ∂/∂A as another
+    /// (∂logitsᵀ × block), through matrixmultiply; only the softmax and the likelihood
+    /// run row by row. Per-row dot products were about five times slower.
+    fn block(&self, theta: &[f64], t: &Array2<f64>, rows: &[usize]) -> Partial {
+        let k = self.k;
+        let a = ArrayView2::from_shape((k, k), &theta[..k * k]).expect("k × k weights");
+        let b = &theta[k * k..k * k + k];
+        // T's columns, one after another: the observed class's column is one slice.
+        let t_cols: Vec<f64> = t.t().iter().copied().collect();
+        let zb = self.inputs.select(Axis(0), rows);
+        let mut g = zb.dot(&a.t());
+        let mut grad = vec![0.0; self.theta_len()];
+        let (_, rest) = grad.split_at_mut(k * k);
+        let (gb, gt) = rest.split_at_mut(k);
+        let mut loss = 0.0;
+        for (mut q, &r) in g.rows_mut().into_iter().zip(rows) {
+            let q = q.as_slice_mut().expect("standard layout");
+            q.iter_mut().zip(b).for_each(|(v, bias)| *v += bias);
+            softmax(q);
+            let observed = self.labels[r];
+            let column = &t_cols[observed * k..(observed + 1) * k];
+            match self.trusted.and_then(|t| t[r]) {
+                Some(clean) => {
+                    let tc = column[clean];
+                    loss -= q[clean].max(f64::MIN_POSITIVE).ln() + tc.ln();
+                    gt[clean * k + observed] -= 1.0 / tc;
+                    q[clean] -= 1.0;
+                }
+                None => {
+                    let s: f64 = q.iter().zip(column).map(|(p, t)| p * t).sum();
+                    let s = s.max(f64::MIN_POSITIVE);
+                    loss -= s.ln();
+                    for c in 0..k {
+                        gt[c * k + observed] -= q[c] / s;
+                        q[c] *= 1.0 - column[c] / s;
+                    }
+                }
+            }
+            // q now holds ∂loss/∂logits.
+            gb.iter_mut().zip(q.iter()).for_each(|(acc, v)| *acc += v);
+        }
+        let ga = g.t().dot(&zb);
+        grad[..k * k]
+            .iter_mut()
+            .zip(ga.iter())
+            .for_each(|(acc, v)| *acc = *v);
+        Partial { loss, grad }
+    }
+
+    /// q(x) of every row of the inputs.
+    fn clean_posteriors(&self, theta: &[f64]) -> Array2<f32> {
+        let k = self.k;
+        let (a, b) = (&theta[..k * k], &theta[k * k..k * k + k]);
+        let n = self.inputs.nrows();
+        let mut out = Array2::<f32>::zeros((n, k));
+        if let Some(flat) = out.as_slice_mut() {
+            flat.par_chunks_mut(k * BLOCK_ROWS)
+                .enumerate()
+                .for_each(|(block, dst)| {
+                    let mut q = vec![0.0; k];
+                    for (i, row) in dst.chunks_mut(k).enumerate() {
+                        let z = self.inputs.row(block * BLOCK_ROWS + i);
+                        for c in 0..k {
+                            q[c] = b[c]
+                                + a[c * k..(c + 1) * k]
+                                    .iter()
+                                    .zip(z)
+                                    .map(|(w, v)| w * v)
+                                    .sum::<f64>();
+                        }
+                        softmax(&mut q);
+                        row.iter_mut().zip(&q).for_each(|(o, &v)| *o = v as f32);
+                    }
+                });
+        }
+        out
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    fn toy() -> (Array2<f32>, Vec<usize>, Vec<Option<usize>>) {
+        let probs = array![
+            [0.7f32, 0.2, 0.1],
+            [0.1, 0.8, 0.1],
+            [0.2, 0.3, 0.5],
+            [0.4, 0.4, 0.2],
+            [0.05, 0.15, 0.8],
+        ];
+        let labels = vec![0, 1, 2, 1, 2];
+        let trusted = vec![None, Some(0), None, Some(1), None];
+        (probs, labels, trusted)
+    }
+
+    #[test]
+    fn gradient_matches_finite_differences() {
+        // Central differences of the whole objective (likelihood, audited rows, volume
+        // penalty, ridge) at an arbitrary point.
+        let (probs, labels, trusted) = toy();
+        let rows: Vec<usize> = (0..5).chain([2, 4]).collect();
+        let (inputs, mean, scale) = log_inputs(probs.view(), &rows);
+        let params = JointParams {
+            volume_weight: 0.05,
+            l2: 0.01,
+            max_iter: 10,
+        };
+        let problem = Problem {
+            inputs: inputs.view(),
+            labels: &labels,
+            trusted: Some(&trusted),
+            rows: &rows,
+            k: 3,
+            params: &params,
+            scale: &scale,
+        };
+        let mut theta = initial_parameters(
+            &array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]],
+            &mean,
+            &scale,
+        );
+        for (i, v) in theta.iter_mut().enumerate() {
+            *v += 0.03 * ((i * 7 % 5) as f64 - 2.0);
+        }
+        let mut grad = vec![0.0; theta.len()];
+        let f0 = problem.evaluate(&theta, &mut grad);
+        assert!(f0.is_finite());
+        let h = 1e-6;
+        let mut scratch = vec![0.0; theta.len()];
+        for i in 0..theta.len() {
+            let mut up = theta.clone();
+            up[i] += h;
+            let mut down = theta.clone();
+            down[i] -= h;
+            let numeric = (problem.evaluate(&up, &mut scratch)
+                - problem.evaluate(&down, &mut scratch))
+                / (2.0 * h);
+            assert!(
+                (numeric - grad[i]).abs() < 1e-6 * (1.0 + numeric.abs()),
+                "parameter {i}: analytic {} vs numeric {numeric}",
+                grad[i]
+            );
+        }
+    }
+
+    #[test]
+    fn log_determinant_matches_the_closed_form() {
+        // det [[a, b], [c, d]] = ad − bc; a permutation flips the sign.
+        let m = array![[0.9, 0.1], [0.3, 0.7]];
+        assert!((ln_det(&m).unwrap() - (0.9f64 * 0.7 - 0.1 * 0.3).ln()).abs() < 1e-12);
+        assert!(ln_det(&array![[0.0, 1.0], [1.0, 0.0]]).is_none());
+        assert!(ln_det(&array![[0.5, 0.5], [0.5, 0.5]]).is_none());
+        // Upper triangular 3×3: the product of the diagonal.
+        let u = array![[2.0, 1.0, 5.0], [0.0, 3.0, 1.0], [0.0, 0.0, 0.5]];
+        assert!((ln_det(&u).unwrap() - 3.0f64.ln()).abs() < 1e-12);
+    }
+
+    #[test]
+    fn bad_settings_are_refused() {
+        let base = JointParams::default();
+        assert!(JointParams {
+            volume_weight: -1.0,
+            ..base.clone()
+        }
+        .check()
+        .is_err());
+        assert!(JointParams {
+            l2: f64::NAN,
+            ..base.clone()
+        }
+        .check()
+        .is_err());
+        assert!(JointParams {
+            max_iter: 0,
+            ..base
+        }
+        .check()
+        .is_err());
+    }
+}
