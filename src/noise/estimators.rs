@@ -7,7 +7,7 @@
 use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 
-use super::joint::{fit_joint, JointData, JointFit, JointParams, DEFAULT_VOLUME_SCALE};
+use super::joint::{fit_joint, JointFit, JointParams, DEFAULT_VOLUME_SCALE};
 use super::matrix::{normalize_rows, validate};
 use crate::error::{Error, Result};
 
@@ -61,27 +61,23 @@ impl Method {
         }
     }
 
-    /// Refuses a quantile outside (0, 1].
+    /// Refuses a quantile outside (0, 1] and joint-fit settings that cannot work.
     pub fn check(&self) -> Result<()> {
-        let q = match self {
-            Method::Quantile { q } => Some(*q),
-            Method::Trusted { fallback_quantile } => *fallback_quantile,
-            _ => None,
-        };
-        match q {
-            Some(q) if !(q > 0.0 && q <= 1.0) => Err(Error::Usage(format!(
+        match self {
+            Method::Quantile { q }
+            | Method::Trusted {
+                fallback_quantile: Some(q),
+            } if !(*q > 0.0 && *q <= 1.0) => Err(Error::Usage(format!(
                 "--quantile must lie in (0, 1], not {q}"
             ))),
-            _ => match self {
-                Method::Joint {
-                    volume_weight: Some(volume_weight),
-                } => JointParams {
-                    volume_weight: *volume_weight,
-                    ..JointParams::default()
-                }
-                .check(),
-                _ => Ok(()),
-            },
+            Method::Joint {
+                volume_weight: Some(volume_weight),
+            } => JointParams {
+                volume_weight: *volume_weight,
+                ..JointParams::default()
+            }
+            .check(),
+            _ => Ok(()),
         }
     }
 }
@@ -397,17 +393,11 @@ fn joint(
     let volume_weight =
         volume_weight.unwrap_or(DEFAULT_VOLUME_SCALE / sample.probs.ncols().max(1) as f64);
     let start = counting(sample, classes, notes);
-    let data = JointData {
-        probs: sample.probs,
-        labels: sample.labels,
-        trusted: sample.trusted,
-        rows: sample.rows,
-    };
     let params = JointParams {
         volume_weight,
         ..JointParams::default()
     };
-    let fit = fit_joint(&data, &start, &params, &mut |_| true)?;
+    let fit = fit_joint(sample, &start, &params, &mut |_| true)?;
     if !fit.converged {
         notes.push(format!(
             "the joint fit stopped at its iteration limit ({} iterations)",

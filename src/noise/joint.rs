@@ -22,10 +22,11 @@
 //! positive entries; ln det T is guarded by refusing (infinite objective) any step whose
 //! determinant falls below [`MIN_DET`].
 
-use ndarray::{Array2, ArrayView2, Axis};
+use ndarray::{Array2, ArrayView2, Axis, Slice};
 use rayon::prelude::*;
 
-use super::linalg::inverse;
+use super::estimators::Sample;
+use super::linalg::inverse_and_ln_det;
 use crate::error::{Error, Result};
 use crate::learn::lbfgs::{minimize, LbfgsOptions, Stop};
 use crate::learn::loss::softmax;
@@ -103,30 +104,15 @@ pub struct JointFit {
     pub matrix: Array2<f64>,
     /// Clean posterior q(x) of every row of the probabilities (not only the fitted rows).
     pub clean: Array2<f32>,
-    /// Mean negative log-likelihood of the fitted rows' observed labels at the optimum.
-    pub mean_nll: f64,
     /// L-BFGS iterations.
     pub iterations: usize,
     /// False when the iteration limit stopped the fit.
     pub converged: bool,
 }
 
-/// The rows the joint fit sees.
-#[derive(Debug, Clone, Copy)]
-pub struct JointData<'a> {
-    /// `rows × classes` out-of-sample probabilities of the observed label.
-    pub probs: ArrayView2<'a, f32>,
-    /// Observed label of every row.
-    pub labels: &'a [usize],
-    /// Audited clean class of every row, where known.
-    pub trusted: Option<&'a [Option<usize>]>,
-    /// Rows to fit on (repeats allowed, as in a bootstrap resample).
-    pub rows: &'a [usize],
-}
-
 /// Fits T and the clean classifier, starting from the flip matrix `start`.
 pub fn fit_joint(
-    data: &JointData,
+    data: &Sample,
     start: &Array2<f64>,
     params: &JointParams,
     keep_going: &mut dyn FnMut(usize) -> bool,
@@ -164,12 +150,9 @@ pub fn fit_joint(
     }
     let matrix = flip_of(&outcome.x, k);
     let clean = problem.clean_posteriors(&outcome.x);
-    let mut scratch = vec![0.0; problem.theta_len()];
-    let mean_nll = problem.nll_only(&outcome.x, &mut scratch);
     Ok(JointFit {
         matrix,
         clean,
-        mean_nll,
         iterations: outcome.iterations,
         converged: outcome.stop != Stop::MaxIter,
     })
@@ -244,41 +227,6 @@ fn flip_of(theta: &[f64], k: usize) -> Array2<f64> {
     t
 }
 
-/// Natural logarithm of the determinant of a matrix with a positive determinant, by LU
-/// with partial pivoting; `None` when the determinant is not positive.
-pub fn ln_det(a: &Array2<f64>) -> Option<f64> {
-    let n = a.nrows();
-    let mut m = a.clone();
-    let mut sign = 1.0;
-    let mut total = 0.0;
-    for col in 0..n {
-        let pivot = (col..n).max_by(|&i, &j| m[[i, col]].abs().total_cmp(&m[[j, col]].abs()))?;
-        let p = m[[pivot, col]];
-        if p == 0.0 || !p.is_finite() {
-            return None;
-        }
-        if pivot != col {
-            for j in 0..n {
-                m.swap([pivot, j], [col, j]);
-            }
-            sign = -sign;
-        }
-        if p < 0.0 {
-            sign = -sign;
-        }
-        total += p.abs().ln();
-        for i in col + 1..n {
-            let factor = m[[i, col]] / p;
-            if factor != 0.0 {
-                for j in col..n {
-                    m[[i, j]] -= factor * m[[col, j]];
-                }
-            }
-        }
-    }
-    (sign > 0.0).then_some(total)
-}
-
 struct Problem<'a> {
     inputs: ArrayView2<'a, f64>,
     labels: &'a [usize],
@@ -305,18 +253,13 @@ impl Problem<'_> {
     fn evaluate(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
         let k = self.k;
         let t = flip_of(theta, k);
-        let Some(log_det) = ln_det(&t) else {
+        let Some((t_inv, log_det)) = inverse_and_ln_det(&t).filter(|(_, d)| *d >= MIN_DET.ln())
+        else {
             return f64::INFINITY;
         };
-        if log_det < MIN_DET.ln() {
-            return f64::INFINITY;
-        }
         let nll = self.nll_and_grad(theta, &t, grad);
         // grad currently holds ∂/∂A, ∂/∂b and ∂/∂T (in U's place); add the penalties.
         let lambda = self.params.volume_weight;
-        let Some(t_inv) = inverse(&t) else {
-            return f64::INFINITY;
-        };
         let (ga, rest) = grad.split_at_mut(k * k);
         let gt = &mut rest[k..];
         let mut ridge = 0.0;
@@ -340,20 +283,16 @@ impl Problem<'_> {
         nll + lambda * log_det + 0.5 * self.params.l2 * ridge
     }
 
-    /// The mean negative log-likelihood alone (`grad` is scratch).
-    fn nll_only(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
-        let t = flip_of(theta, self.k);
-        self.nll_and_grad(theta, &t, grad)
-    }
-
     /// Mean negative log-likelihood; `grad` receives its gradient with respect to A, b
     /// and T (T's in U's place, before the chain through the row softmax).
     fn nll_and_grad(&self, theta: &[f64], t: &Array2<f64>, grad: &mut [f64]) -> f64 {
         let n = self.rows.len();
+        // T's columns, one after another: the observed class's column is one slice.
+        let t_cols: Vec<f64> = t.t().iter().copied().collect();
         let parts: Vec<Partial> = self
             .rows
             .par_chunks(BLOCK_ROWS)
-            .map(|rows| self.block(theta, t, rows))
+            .map(|rows| self.block(theta, &t_cols, rows))
             .collect();
         grad.iter_mut().for_each(|g| *g = 0.0);
         let mut loss = 0.0;
@@ -369,22 +308,16 @@ impl Problem<'_> {
     /// One block of rows: the logits as one product (block × Aᵀ) and ∂/∂A as another
     /// (∂logitsᵀ × block), through matrixmultiply; only the softmax and the likelihood
     /// run row by row. Per-row dot products were about five times slower.
-    fn block(&self, theta: &[f64], t: &Array2<f64>, rows: &[usize]) -> Partial {
+    fn block(&self, theta: &[f64], t_cols: &[f64], rows: &[usize]) -> Partial {
         let k = self.k;
-        let a = ArrayView2::from_shape((k, k), &theta[..k * k]).expect("k × k weights");
-        let b = &theta[k * k..k * k + k];
-        // T's columns, one after another: the observed class's column is one slice.
-        let t_cols: Vec<f64> = t.t().iter().copied().collect();
         let zb = self.inputs.select(Axis(0), rows);
-        let mut g = zb.dot(&a.t());
+        let mut g = clean_of(zb.view(), theta, k);
         let mut grad = vec![0.0; self.theta_len()];
         let (_, rest) = grad.split_at_mut(k * k);
         let (gb, gt) = rest.split_at_mut(k);
         let mut loss = 0.0;
         for (mut q, &r) in g.rows_mut().into_iter().zip(rows) {
             let q = q.as_slice_mut().expect("standard layout");
-            q.iter_mut().zip(b).for_each(|(v, bias)| *v += bias);
-            softmax(q);
             let observed = self.labels[r];
             let column = &t_cols[observed * k..(observed + 1) * k];
             match self.trusted.and_then(|t| t[r]) {
@@ -415,34 +348,44 @@ impl Problem<'_> {
         Partial { loss, grad }
     }
 
-    /// q(x) of every row of the inputs.
+    /// q(x) of every row of the inputs, a block at a time.
     fn clean_posteriors(&self, theta: &[f64]) -> Array2<f32> {
         let k = self.k;
-        let (a, b) = (&theta[..k * k], &theta[k * k..k * k + k]);
         let n = self.inputs.nrows();
+        let blocks: Vec<Array2<f64>> = (0..n.div_ceil(BLOCK_ROWS))
+            .into_par_iter()
+            .map(|block| {
+                let end = ((block + 1) * BLOCK_ROWS).min(n);
+                let zb = self
+                    .inputs
+                    .slice_axis(Axis(0), Slice::from(block * BLOCK_ROWS..end));
+                clean_of(zb, theta, k)
+            })
+            .collect();
         let mut out = Array2::<f32>::zeros((n, k));
-        if let Some(flat) = out.as_slice_mut() {
-            flat.par_chunks_mut(k * BLOCK_ROWS)
-                .enumerate()
-                .for_each(|(block, dst)| {
-                    let mut q = vec![0.0; k];
-                    for (i, row) in dst.chunks_mut(k).enumerate() {
-                        let z = self.inputs.row(block * BLOCK_ROWS + i);
-                        for c in 0..k {
-                            q[c] = b[c]
-                                + a[c * k..(c + 1) * k]
-                                    .iter()
-                                    .zip(z)
-                                    .map(|(w, v)| w * v)
-                                    .sum::<f64>();
-                        }
-                        softmax(&mut q);
-                        row.iter_mut().zip(&q).for_each(|(o, &v)| *o = v as f32);
-                    }
-                });
+        for (block, q) in blocks.iter().enumerate() {
+            out.slice_axis_mut(
+                Axis(0),
+                Slice::from(block * BLOCK_ROWS..block * BLOCK_ROWS + q.nrows()),
+            )
+            .zip_mut_with(q, |o, &v| *o = v as f32);
         }
         out
     }
+}
+
+/// q = softmax(A·z + b) of each row of `inputs`, the logits as one product (block × Aᵀ)
+/// through matrixmultiply.
+fn clean_of(inputs: ArrayView2<f64>, theta: &[f64], k: usize) -> Array2<f64> {
+    let a = ArrayView2::from_shape((k, k), &theta[..k * k]).expect("k × k weights");
+    let b = &theta[k * k..k * k + k];
+    let mut q = inputs.dot(&a.t());
+    for mut row in q.rows_mut() {
+        let row = row.as_slice_mut().expect("standard layout");
+        row.iter_mut().zip(b).for_each(|(v, bias)| *v += bias);
+        softmax(row);
+    }
+    q
 }
 
 #[cfg(test)]
@@ -511,18 +454,6 @@ mod tests {
                 grad[i]
             );
         }
-    }
-
-    #[test]
-    fn log_determinant_matches_the_closed_form() {
-        // det [[a, b], [c, d]] = ad − bc; a permutation flips the sign.
-        let m = array![[0.9, 0.1], [0.3, 0.7]];
-        assert!((ln_det(&m).unwrap() - (0.9f64 * 0.7 - 0.1 * 0.3).ln()).abs() < 1e-12);
-        assert!(ln_det(&array![[0.0, 1.0], [1.0, 0.0]]).is_none());
-        assert!(ln_det(&array![[0.5, 0.5], [0.5, 0.5]]).is_none());
-        // Upper triangular 3×3: the product of the diagonal.
-        let u = array![[2.0, 1.0, 5.0], [0.0, 3.0, 1.0], [0.0, 0.0, 0.5]];
-        assert!((ln_det(&u).unwrap() - 3.0f64.ln()).abs() < 1e-12);
     }
 
     #[test]
