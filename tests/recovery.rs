@@ -40,6 +40,31 @@ fn mean_abs_error(a: &Array2<f64>, b: &Array2<f64>) -> f64 {
         / a.len() as f64
 }
 
+/// Labels flipped from `t` (seeded) and 5-fold out-of-fold probabilities of them, with
+/// the same seed for the folds.
+fn flipped_and_probabilities(
+    records: &Array2<f64>,
+    truth: &[usize],
+    t: &Array2<f64>,
+    seed: u64,
+) -> (Vec<usize>, Array2<f32>) {
+    let observed = flip(truth, t, seed);
+    let params = OofParams {
+        folds: 5,
+        seed,
+        ..Default::default()
+    };
+    let (probs, _) = out_of_fold(
+        records.view(),
+        &observed,
+        t.nrows(),
+        &params,
+        &mut |_, _| true,
+    )
+    .unwrap();
+    (observed, probs)
+}
+
 struct Errors {
     joint: f64,
     anchor: f64,
@@ -50,13 +75,7 @@ struct Errors {
 
 fn errors(records: &Array2<f64>, truth: &[usize], t: &Array2<f64>, seed: u64) -> Errors {
     let k = t.nrows();
-    let observed = flip(truth, t, seed);
-    let params = OofParams {
-        folds: 5,
-        seed,
-        ..Default::default()
-    };
-    let (probs, _) = out_of_fold(records.view(), &observed, k, &params, &mut |_, _| true).unwrap();
+    let (observed, probs) = flipped_and_probabilities(records, truth, t, seed);
     // 10 % of rows audited, every tenth row after a seeded shuffle.
     let mut order: Vec<usize> = (0..truth.len()).collect();
     rand::seq::SliceRandom::shuffle(&mut order[..], &mut ChaCha8Rng::seed_from_u64(seed + 1));
@@ -197,13 +216,7 @@ fn rows_reviewed_because_they_looked_wrong_do_not_bias_the_joint_estimate() {
     let (x, y) = gaussian_classes(6000, 4.0, 31);
     let t = Array2::from_shape_vec((3, 3), vec![0.8, 0.2, 0.0, 0.0, 0.85, 0.15, 0.1, 0.0, 0.9])
         .unwrap();
-    let observed = flip(&y, &t, 12);
-    let params = OofParams {
-        folds: 5,
-        seed: 12,
-        ..Default::default()
-    };
-    let (probs, _) = out_of_fold(x.view(), &observed, 3, &params, &mut |_, _| true).unwrap();
+    let (observed, probs) = flipped_and_probabilities(&x, &y, &t, 12);
     let mut by_confidence: Vec<usize> = (0..y.len()).collect();
     by_confidence.sort_by(|&a, &b| probs[[a, observed[a]]].total_cmp(&probs[[b, observed[b]]]));
     let mut reviewed = vec![None; y.len()];
@@ -279,13 +292,7 @@ fn suspect_scores_find_the_flipped_rows() {
     let (x, y) = iris_x10(11);
     let t = Array2::from_shape_vec((3, 3), vec![0.95, 0.05, 0.0, 0.0, 0.7, 0.3, 0.0, 0.1, 0.9])
         .unwrap();
-    let observed = flip(&y, &t, 9);
-    let params = OofParams {
-        folds: 5,
-        seed: 9,
-        ..Default::default()
-    };
-    let (probs, _) = out_of_fold(x.view(), &observed, 3, &params, &mut |_, _| true).unwrap();
+    let (observed, probs) = flipped_and_probabilities(&x, &y, &t, 9);
     let flipped: Vec<bool> = observed.iter().zip(&y).map(|(o, t)| o != t).collect();
     let auc = |kind, matrix: Option<&Array2<f64>>| {
         let s: Vec<f64> = score_rows(kind, probs.view(), &observed, matrix.map(Flip::noisy))
