@@ -14,7 +14,7 @@ use common::Rng;
 use flipmend::learn::{out_of_fold, OofParams};
 use flipmend::noise::bootstrap::bootstrap;
 use flipmend::noise::diagnostics::diagnose_with_expected;
-use flipmend::noise::posterior::{sum_in_chunks, Flip};
+use flipmend::noise::posterior::{expected_from_scores, Flip};
 use flipmend::noise::scores::{
     rank, rank_values, score_rows, score_selected, score_values, ScoreKind,
 };
@@ -176,7 +176,7 @@ fn many_classes() {
                 &labels,
                 Some(Flip::noisy(&t)),
             );
-            let expected = sum_in_chunks(scores.iter().copied());
+            let expected = expected_from_scores(&scores);
             diagnose_with_expected(&t, probs.view(), &labels, &classes, true, Some(expected));
             let order = rank_values(&scores, scores.len());
             let listed = score_selected(

@@ -145,13 +145,16 @@ fn a_worklist_goes_out_and_its_review_comes_back() {
     let text = std::fs::read_to_string(&out).expect("the worklist was written");
     let lines: Vec<&str> = text.lines().collect();
     assert_eq!(lines.len(), 26, "header + budget rows");
-    assert!(lines[0].starts_with("rank,row,id,observed,suggested,score,alt,alt_prob,review"));
+    assert!(
+        lines[0].starts_with("rank,row,id,observed,suggested,score,p_wrong,alt,alt_prob,review")
+    );
     // A reviewer accepts the suggestion on the first 10 rows and keeps the label on 5.
     let reviewed = dir.path("reviewed.csv");
     let mut body = vec![lines[0].to_string()];
+    let review = lines[0].split(',').position(|c| c == "review").unwrap();
     for (n, line) in lines[1..].iter().enumerate() {
         let mut cells: Vec<String> = line.split(',').map(String::from).collect();
-        cells[8] = match n {
+        cells[review] = match n {
             0..=9 => cells[4].clone(),
             10..=14 => "keep".into(),
             _ => String::new(),

@@ -51,6 +51,7 @@ fn worklist_columns_order_and_caution() {
             "observed",
             "suggested",
             "score",
+            "p_wrong",
             "alt",
             "alt_prob",
             "review"
@@ -59,14 +60,19 @@ fn worklist_columns_order_and_caution() {
     assert_eq!(rows.len(), 26);
     let scores: Vec<f64> = rows[1..].iter().map(|r| r[5].parse().unwrap()).collect();
     assert!(scores.windows(2).all(|w| w[0] >= w[1]), "sorted by score");
+    // The score is the log-odds of p_wrong (6 decimals each).
+    let p_wrong: Vec<f64> = rows[1..].iter().map(|r| r[6].parse().unwrap()).collect();
+    for (s, p) in scores.iter().zip(&p_wrong) {
+        assert!((1.0 / (1.0 + (-s).exp()) - p).abs() < 1e-5, "{s} {p}");
+    }
     for (i, r) in rows[1..].iter().enumerate() {
         assert_eq!(r[0], (i + 1).to_string());
-        assert!(r[8].is_empty(), "review left empty");
+        assert!(r[9].is_empty(), "review left empty");
     }
     let summary: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
     assert_eq!(summary["listed"], 25);
-    let expected: f64 = scores.iter().sum();
+    let expected: f64 = p_wrong.iter().sum();
     assert!((summary["expected_errors"].as_f64().unwrap() - expected).abs() < 1e-3);
     let per_class: u64 = summary["per_class"]
         .as_array()
@@ -98,7 +104,7 @@ fn selection_flags() {
     let rows = read_csv(&out);
     assert!(rows[1..]
         .iter()
-        .all(|r| r[5].parse::<f64>().unwrap() >= 0.9));
+        .all(|r| r[6].parse::<f64>().unwrap() >= 0.9));
     flipmend(&[
         "suspects",
         "--data",
@@ -126,7 +132,7 @@ fn selection_flags() {
         &path,
     ])
     .assert_ok();
-    assert_eq!(read_csv(&out)[0].len(), 9 + 12);
+    assert_eq!(read_csv(&out)[0].len(), 10 + 12);
     flipmend(&["suspects", "--data", &data, "--classes", "plastic"])
         .assert_bad_input(&["--classes names 'plastic'"]);
 }
@@ -152,10 +158,10 @@ fn review_round_trip() {
     // The reviewers: accept the suggestion on rows 1–2, keep the label on row 3, type the
     // observed class on row 4, leave rows 5–6 blank.
     let mut rows = read_csv(&worklist);
-    rows[1][8] = rows[1][4].clone();
-    rows[2][8] = rows[2][4].clone();
-    rows[3][8] = "keep".into();
-    rows[4][8] = rows[4][3].clone();
+    rows[1][9] = rows[1][4].clone();
+    rows[2][9] = rows[2][4].clone();
+    rows[3][9] = "keep".into();
+    rows[4][9] = rows[4][3].clone();
     let reviewed = dir.path("reviewed.csv");
     let mut w = csv::Writer::from_path(&reviewed).unwrap();
     rows.iter().for_each(|r| w.write_record(r).unwrap());
@@ -204,10 +210,10 @@ fn review_round_trip() {
         .map(|r| {
             (
                 r[1].parse::<usize>().unwrap(),
-                if r[8] == "keep" {
+                if r[9] == "keep" {
                     r[3].clone()
                 } else {
-                    r[8].clone()
+                    r[9].clone()
                 },
             )
         })

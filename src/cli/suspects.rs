@@ -13,7 +13,7 @@ use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::worklist::write_worklist;
 use crate::io::{check_not_input, write_atomic, write_json};
-use crate::noise::posterior::sum_in_chunks;
+use crate::noise::posterior::expected_from_scores;
 use crate::noise::scores::{
     auroc, rank_values, score_selected, score_values, select_rows, RowScore, ScoreKind, Selection,
 };
@@ -26,14 +26,17 @@ pub struct SuspectsArgs {
     #[command(flatten)]
     /// Table, probabilities, flip matrix and model settings.
     pub pipeline: PipelineArgs,
-    /// Score: posterior (1 − P(true = observed | x, observed) under the flip matrix), self
-    /// (1 − p(observed | x)) or margin (best other class's probability − the observed one's)
+    /// Score: posterior (P(true ≠ observed | x, observed) under the flip matrix), self
+    /// (1 − p(observed | x)) or margin (best other class's probability − the observed one's).
+    /// The worklist's `score` column holds the two probabilities as log-odds (they do not
+    /// round to a tie at 1) and `p_wrong` the probability
     #[arg(long, value_enum, default_value_t = ScoreName::Posterior)]
     pub score: ScoreName,
     /// List the N most suspect rows [default: 100 unless --threshold or --all]
     #[arg(long, value_name = "N", conflicts_with_all = ["threshold", "all"])]
     pub top: Option<usize>,
-    /// List every row scoring at least S
+    /// List every row scoring at least S (for posterior and self: a probability that the
+    /// label is wrong, in [0, 1]; for margin: a margin, in [−1, 1])
     #[arg(long, value_name = "S", conflicts_with = "all")]
     pub threshold: Option<f64>,
     /// List every row
@@ -48,7 +51,7 @@ pub struct SuspectsArgs {
     /// Add the feature values to the worklist
     #[arg(long)]
     pub with_features: bool,
-    /// Write the worklist CSV (rank,row,id,observed,suggested,score,alt,alt_prob,review)
+    /// Write the worklist CSV (rank,row,id,observed,suggested,score,p_wrong,alt,alt_prob,review)
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
     /// Write the summary as JSON
@@ -122,7 +125,8 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     let mut stages = Stages::start();
     let data = Dataset::load(&args.pipeline.table.data, &options)?;
     stages.end("load_table");
-    let selection = selection(args, &data)?;
+    let kind = args.score.kind();
+    let selection = selection(args, kind, &data)?;
     let probs = workflow::probabilities(
         &data,
         args.pipeline.probs.probs.as_deref(),
@@ -131,7 +135,6 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         &mut |_, _| true,
     )?;
     stages.end("probabilities");
-    let kind = args.score.kind();
     let mut warnings = data.warnings.clone();
     warnings.extend(probs.notices.iter().cloned());
     let matrix = match kind {
@@ -157,7 +160,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     if let Some((_, e)) = &matrix {
         // The scores are the posteriors under t: their sum is the expected number of
         // mislabelled rows, so the diagnosis does not compute every posterior again.
-        let expected = sum_in_chunks(scores.iter().copied());
+        let expected = expected_from_scores(&scores);
         let diagnostics = workflow::diagnose_matrix_given(&data, &probs, &e.matrix, Some(expected));
         warnings.extend(e.notes.iter().cloned());
         warnings.extend(diagnostics.warnings);
@@ -191,7 +194,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     stages.end("rank");
     if let Some(path) = &args.out {
         write_atomic(path, |w| {
-            write_worklist(w, &data, &listed, args.with_features)
+            write_worklist(w, &data, kind, &listed, args.with_features)
         })?;
     }
     let truth_check = match (&args.truth, &truth, truth_auroc) {
@@ -222,7 +225,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     }
     stages.end("write");
     super::report_stages(&stages);
-    super::emit(out, &render(&report, &data, &listed))
+    super::emit(out, &render(&report, kind, &data, &listed))
 }
 
 fn check_outputs(args: &SuspectsArgs) -> Result<()> {
@@ -233,7 +236,7 @@ fn check_outputs(args: &SuspectsArgs) -> Result<()> {
     Ok(())
 }
 
-fn selection(args: &SuspectsArgs, data: &Dataset) -> Result<Selection> {
+fn selection(args: &SuspectsArgs, kind: ScoreKind, data: &Dataset) -> Result<Selection> {
     let classes = match &args.classes {
         Some(names) => Some(
             names
@@ -250,9 +253,15 @@ fn selection(args: &SuspectsArgs, data: &Dataset) -> Result<Selection> {
         ),
         None => None,
     };
-    if let Some(t) = args.threshold.filter(|t| !t.is_finite()) {
+    let (low, high) = if kind.is_probability() {
+        (0.0, 1.0)
+    } else {
+        (-1.0, 1.0)
+    };
+    if let Some(t) = args.threshold.filter(|t| !(low..=high).contains(t)) {
         return Err(Error::Usage(format!(
-            "--threshold must be a number, not {t}"
+            "--threshold must be a number from {low} to {high} for the {} score, not {t}",
+            kind.name()
         )));
     }
     let top = if args.all || args.threshold.is_some() {
@@ -262,7 +271,7 @@ fn selection(args: &SuspectsArgs, data: &Dataset) -> Result<Selection> {
     };
     Ok(Selection {
         top,
-        threshold: args.threshold,
+        threshold: args.threshold.map(|t| kind.from_shown(t)),
         per_class_cap: args.per_class_cap,
         classes,
     })
@@ -294,7 +303,10 @@ fn summary(
     warnings: Vec<String>,
     truth: Option<TruthCheck>,
 ) -> SuspectsReport {
-    let probability = kind.is_probability();
+    let expected = |rows: &mut dyn Iterator<Item = &RowScore>| {
+        kind.is_probability()
+            .then(|| rows.filter_map(|s| kind.probability(s.score)).sum())
+    };
     let per_class = data
         .classes
         .iter()
@@ -304,7 +316,7 @@ fn summary(
             ClassCount {
                 class: name.clone(),
                 listed: rows.len(),
-                expected_errors: probability.then(|| rows.iter().map(|s| s.score).sum()),
+                expected_errors: expected(&mut rows.iter().copied()),
             }
         })
         .collect();
@@ -314,14 +326,14 @@ fn summary(
         probabilities: probs.source.describe(),
         rows: data.rows(),
         listed: listed.len(),
-        expected_errors: probability.then(|| listed.iter().map(|s| s.score).sum()),
+        expected_errors: expected(&mut listed.iter()),
         per_class,
         warnings,
         truth,
     }
 }
 
-fn render(r: &SuspectsReport, data: &Dataset, listed: &[RowScore]) -> String {
+fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScore]) -> String {
     let mut t = String::new();
     let _ = writeln!(
         t,
@@ -335,7 +347,7 @@ fn render(r: &SuspectsReport, data: &Dataset, listed: &[RowScore]) -> String {
         Some(e) => {
             let _ = writeln!(
                 t,
-                "expected true label errors among them: {e:.1} (sum of their scores)"
+                "expected true label errors among them: {e:.1} (sum of their p_wrong)"
             );
         }
         None => {
@@ -361,7 +373,16 @@ fn render(r: &SuspectsReport, data: &Dataset, listed: &[RowScore]) -> String {
         let _ = writeln!(
             t,
             "\n{:>5}  {:>8}  {:<14}  {:<width$}  {:<width$}  {:>8}",
-            "rank", "row", "id", "observed", "suggested", "score"
+            "rank",
+            "row",
+            "id",
+            "observed",
+            "suggested",
+            if kind.is_probability() {
+                "p_wrong"
+            } else {
+                "margin"
+            }
         );
         for (i, s) in listed.iter().take(10).enumerate() {
             let _ = writeln!(
@@ -372,7 +393,7 @@ fn render(r: &SuspectsReport, data: &Dataset, listed: &[RowScore]) -> String {
                 data.id(s.row),
                 data.classes[data.labels[s.row]],
                 data.classes[s.suggested],
-                s.score
+                kind.shown(s.score)
             );
         }
         if listed.len() > 10 {

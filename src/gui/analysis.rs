@@ -6,7 +6,7 @@ use ndarray::{Array2, ArrayView2};
 
 use rayon::prelude::*;
 
-use crate::noise::posterior::Flip;
+use crate::noise::posterior::{expected_from_scores, Flip};
 use crate::noise::scores::{
     rank, rank_values, score_rows, score_selected, score_values, RowScore, ScoreKind,
 };
@@ -30,7 +30,8 @@ pub struct Histogram {
 }
 
 impl Histogram {
-    /// Bins `scores` over the score's range ([0, 1], or [−1, 1] for the margin).
+    /// Bins `scores` as shown ([`ScoreKind::shown`]) over their range ([0, 1] for the
+    /// probabilities of a wrong label, [−1, 1] for the margin).
     pub fn of(scores: &[f64], kind: ScoreKind) -> Self {
         let (low, high) = match kind {
             ScoreKind::Margin => (-1.0, 1.0),
@@ -40,7 +41,7 @@ impl Histogram {
         let count = |chunk: &[f64]| {
             let mut counts = vec![0usize; HISTOGRAM_BINS];
             for &s in chunk {
-                let bin = ((s - low) / width).floor();
+                let bin = ((kind.shown(s) - low) / width).floor();
                 let bin = if bin.is_finite() {
                     bin.max(0.0) as usize
                 } else {
@@ -67,16 +68,11 @@ impl Histogram {
 /// the total does not depend on the thread count.
 const SUMMARY_CHUNK: usize = 1 << 16;
 
-/// Σ scores, for scores that are probabilities of a wrong label (expected mislabelled
-/// rows).
+/// Σ of the probabilities of a wrong label, for the scores that are their log-odds: the
+/// expected number of mislabelled rows, summed as the command line sums it
+/// ([`expected_from_scores`]), so both show the same figure.
 fn expected_errors(scores: &[f64], kind: ScoreKind) -> Option<f64> {
-    kind.is_probability().then(|| {
-        let parts: Vec<f64> = scores
-            .par_chunks(SUMMARY_CHUNK)
-            .map(|c| c.iter().sum::<f64>())
-            .collect();
-        parts.iter().sum()
-    })
+    kind.is_probability().then(|| expected_from_scores(scores))
 }
 
 /// Every row scored for one matrix, most suspect first: all rows, or (right after an
@@ -91,7 +87,8 @@ pub struct Ranking {
     pub kind: ScoreKind,
     /// The score histogram (of all rows).
     pub histogram: Histogram,
-    /// Sum of the scores when they are probabilities (expected mislabelled rows).
+    /// Sum of the probabilities of a wrong label (expected mislabelled rows), for the
+    /// probability scores.
     pub expected_errors: Option<f64>,
     /// The matrix it was computed from, and its version.
     pub matrix: Array2<f64>,
@@ -187,16 +184,16 @@ pub struct Filter {
     pub observed: Option<usize>,
     /// Only rows whose suggested class is this.
     pub suggested: Option<usize>,
-    /// Only rows scoring at least this.
+    /// Only rows scoring at least this, as shown ([`ScoreKind::shown`]).
     pub min_score: f64,
 }
 
-/// Positions in `ranked` (its rows in final order) of the rows `filter` keeps, in rank
-/// order. Because the ranking is sorted by score, the threshold ends the scan.
-pub fn filter_rows(ranked: &[RowScore], labels: &[usize], filter: &Filter) -> Vec<u32> {
+/// Positions in the ranking (its rows in final order) of the rows `filter` keeps, in
+/// rank order. Because the ranking is sorted by score, the threshold ends the scan.
+pub fn filter_rows(ranking: &Ranking, labels: &[usize], filter: &Filter) -> Vec<u32> {
     let mut kept = Vec::new();
-    for (i, s) in ranked.iter().enumerate() {
-        if s.score < filter.min_score {
+    for (i, s) in ranking.ranked.iter().enumerate() {
+        if ranking.kind.shown(s.score) < filter.min_score {
             break;
         }
         if filter.observed.is_some_and(|c| labels[s.row] != c)
@@ -216,7 +213,8 @@ mod tests {
 
     #[test]
     fn filters_keep_rank_order_and_stop_at_the_threshold() {
-        // Three rows scored by self-confidence, 1 − p(observed): 0.1, 0.8, 0.6.
+        // Three rows scored by self-confidence, 1 − p(observed): 0.1, 0.8, 0.6 (ranked by
+        // their log-odds, shown and filtered as these probabilities).
         let probs = array![[0.9f32, 0.1], [0.2, 0.8], [0.6, 0.4]];
         let labels = [0, 0, 1];
         let r = rank_rows(
@@ -229,23 +227,23 @@ mod tests {
         let order: Vec<usize> = r.ranked.iter().map(|s| s.row).collect();
         assert_eq!(order, vec![1, 2, 0]);
         assert!((r.expected_errors.unwrap() - (0.1 + 0.8 + 0.6)).abs() < 1e-6);
-        let all = filter_rows(&r.ranked, &labels, &Filter::default());
+        let all = filter_rows(&r, &labels, &Filter::default());
         assert_eq!(all, vec![0, 1, 2]);
         let observed_zero = Filter {
             observed: Some(0),
             ..Default::default()
         };
-        assert_eq!(filter_rows(&r.ranked, &labels, &observed_zero), vec![0, 2]);
+        assert_eq!(filter_rows(&r, &labels, &observed_zero), vec![0, 2]);
         let confident = Filter {
             min_score: 0.7,
             ..Default::default()
         };
-        assert_eq!(filter_rows(&r.ranked, &labels, &confident), vec![0]);
+        assert_eq!(filter_rows(&r, &labels, &confident), vec![0]);
         let suggested_zero = Filter {
             suggested: Some(0),
             ..Default::default()
         };
-        assert_eq!(filter_rows(&r.ranked, &labels, &suggested_zero), vec![1, 2]);
+        assert_eq!(filter_rows(&r, &labels, &suggested_zero), vec![1, 2]);
     }
 
     #[test]

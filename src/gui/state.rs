@@ -753,7 +753,7 @@ impl AppState {
     fn refilter(&mut self) {
         let filter = self.filter();
         self.visible = match (&self.ranking, &self.data) {
-            (Some(r), Some(d)) => filter_rows(&r.ranked, &d.labels, &filter),
+            (Some(r), Some(d)) => filter_rows(r, &d.labels, &filter),
             _ => Vec::new(),
         };
     }
@@ -785,8 +785,9 @@ impl AppState {
         }
         let rows = self.worklist();
         let inputs = self.input_paths();
+        let kind = self.session.settings.score;
         self.save_job(path, inputs, move |w| {
-            write_worklist(w, &data, &rows, false)
+            write_worklist(w, &data, kind, &rows, false)
         });
     }
 

@@ -9,16 +9,17 @@ use rustc_hash::FxHashMap as HashMap;
 
 use crate::data::Dataset;
 use crate::error::{shorten, Error, Location, Problem, Result};
-use crate::noise::scores::RowScore;
+use crate::noise::scores::{RowScore, ScoreKind};
 
 /// The worklist's own columns, in order.
-pub const WORKLIST_COLUMNS: [&str; 9] = [
+pub const WORKLIST_COLUMNS: [&str; 10] = [
     "rank",
     "row",
     "id",
     "observed",
     "suggested",
     "score",
+    "p_wrong",
     "alt",
     "alt_prob",
     "review",
@@ -31,6 +32,7 @@ pub const KEEP: &str = "keep";
 pub fn write_worklist(
     out: &mut dyn Write,
     data: &Dataset,
+    kind: ScoreKind,
     ranked: &[RowScore],
     with_features: bool,
 ) -> std::io::Result<()> {
@@ -56,6 +58,10 @@ pub fn write_worklist(
         record.push(data.classes[data.labels[s.row]].clone());
         record.push(data.classes[s.suggested].clone());
         record.push(format!("{:.6}", s.score));
+        record.push(
+            kind.probability(s.score)
+                .map_or(String::new(), |p| format!("{p:.6}")),
+        );
         record.push(data.classes[s.alt].clone());
         record.push(format!("{:.6}", s.alt_prob));
         record.push(String::new());

@@ -65,11 +65,11 @@ pub fn diagnose(
 }
 
 /// [`diagnose`], given the expected number of mislabelled rows when the caller already
-/// has it (the posterior scores under `t`, summed with [`sum_in_chunks`]): that sum is the
+/// has it (the posterior scores under `t`, summed with [`expected_from_scores`]): that sum is the
 /// only part of the diagnosis that needs every row's clean posterior, the bulk of the
 /// work with many classes.
 ///
-/// [`sum_in_chunks`]: super::posterior::sum_in_chunks
+/// [`expected_from_scores`]: super::posterior::expected_from_scores
 pub fn diagnose_with_expected(
     t: &Array2<f64>,
     probs: ArrayView2<f32>,

@@ -28,7 +28,7 @@ const MAX_STACK_CLASSES: usize = 16;
 pub const BLOCK_ROWS: usize = 256;
 
 /// Chunk of rows per partial sum of [`Posterior::expected_mislabeled`]; sums of scores
-/// that must equal it bit for bit use the same chunks ([`sum_in_chunks`]).
+/// that must equal it bit for bit use the same chunks ([`expected_from_scores`]).
 pub const SUM_CHUNK_ROWS: usize = 8192;
 
 /// out = Σ_j noisy_j · (row j of `inv`), with `CHUNKS` chunks of LANES accumulators on
@@ -257,30 +257,24 @@ impl Posterior {
         }
     }
 
-    /// P(true = observed | x, observed) alone: the same number, bit for bit, as
-    /// `out[observed]` after [`Posterior::given_observed`], without normalising the other
-    /// classes (ten divisions a row for ten classes, a good part of re-ranking's time).
-    pub fn observed_share(&self, noisy: &[f32], observed: usize, clean: &mut [f64]) -> f64 {
-        self.unnormalised_clean(noisy, clean);
-        self.share_from_clean(clean, observed)
-    }
-
-    /// [`Posterior::observed_share`] from the row's unnormalised clean posterior.
-    pub fn share_from_clean(&self, clean: &[f64], observed: usize) -> f64 {
+    /// ln(P(true ≠ observed) / P(true = observed)) given x and the observed label, from
+    /// the row's unnormalised clean posterior (as [`Posterior::clean_rows`] gives it).
+    /// Both sides are summed apart, so the odds keep their precision where the
+    /// probability 1 − P(true = observed) rounds to 1 (a few hundred rows of a large table
+    /// do): ranked by it, such rows keep distinct scores instead of tying at 1.
+    pub fn wrong_log_odds_from_clean(&self, clean: &[f64], observed: usize) -> f64 {
         let column = &self.t_columns[observed * self.k..(observed + 1) * self.k];
-        let mut total = 0.0;
-        for (&t, &c) in column.iter().zip(clean.iter()) {
-            total += t * c;
+        let mut wrong = 0.0;
+        for (j, (&t, &c)) in column.iter().zip(clean.iter()).enumerate() {
+            if j != observed {
+                wrong += t * c;
+            }
         }
-        if total > 0.0 {
-            column[observed] * clean[observed] / total
-        } else {
-            1.0
-        }
+        log_odds(wrong, column[observed] * clean[observed])
     }
 
-    /// Σ over rows of 1 − P(true = observed | x, observed): the expected number of
-    /// mislabelled rows.
+    /// Σ over rows of P(true ≠ observed | x, observed), each from its log-odds as a score
+    /// has it ([`wrong_probability`]): the expected number of mislabelled rows.
     pub fn expected_mislabeled(&self, probs: ArrayView2<f32>, labels: &[usize]) -> f64 {
         let k = probs.ncols();
         let contiguous = probs.as_standard_layout();
@@ -302,7 +296,7 @@ impl Posterior {
                     let m = labels.len();
                     self.clean_rows(block, &mut clean[..m * k], &mut ok[..m], &mut ws);
                     for (c, &y) in clean.chunks_exact(k.max(1)).zip(labels) {
-                        sum += 1.0 - self.share_from_clean(c, y);
+                        sum += wrong_probability(self.wrong_log_odds_from_clean(c, y));
                     }
                 }
                 sum
@@ -312,20 +306,53 @@ impl Posterior {
     }
 }
 
-/// Σ `values` as [`Posterior::expected_mislabeled`] sums: in order within chunks of
-/// [`SUM_CHUNK_ROWS`], then the chunks in order. A sum of posterior scores so equals the
-/// expected number of mislabelled rows bit for bit, and need not score every row twice.
-pub fn sum_in_chunks(values: impl ExactSizeIterator<Item = f64>) -> f64 {
-    let mut total = 0.0;
-    let mut chunk = 0.0;
-    for (i, v) in values.enumerate() {
-        chunk += v;
-        if (i + 1) % SUM_CHUNK_ROWS == 0 {
-            total += chunk;
-            chunk = 0.0;
-        }
+/// ln(wrong / right) for two non-negative weights: +∞ when only `wrong` has weight, −∞
+/// when only `right` has (or neither: nothing says the label is wrong).
+pub fn log_odds(wrong: f64, right: f64) -> f64 {
+    if wrong > 0.0 {
+        wrong.ln() - right.ln()
+    } else {
+        f64::NEG_INFINITY
     }
-    total + chunk
+}
+
+/// The probability whose log-odds is `log_odds` (the logistic function, written so that
+/// neither tail overflows).
+pub fn wrong_probability(log_odds: f64) -> f64 {
+    if log_odds >= 0.0 {
+        1.0 / (1.0 + (-log_odds).exp())
+    } else {
+        let e = log_odds.exp();
+        e / (1.0 + e)
+    }
+}
+
+/// The log-odds of a probability (the inverse of [`wrong_probability`]).
+pub fn log_odds_of(probability: f64) -> f64 {
+    log_odds(probability, 1.0 - probability)
+}
+
+/// Σ of the probabilities of a wrong label whose log-odds are `scores` (posterior
+/// scores), summed as [`Posterior::expected_mislabeled`] sums: in order within chunks of
+/// [`SUM_CHUNK_ROWS`], the chunks on every core, then their sums in order. The sum so
+/// equals the expected number of mislabelled rows bit for bit, whoever asks for it and
+/// however many threads run, and every row need not be scored twice.
+pub fn expected_from_scores(scores: &[f64]) -> f64 {
+    let parts: Vec<f64> = scores
+        .par_chunks(SUM_CHUNK_ROWS)
+        .map(|chunk| {
+            let mut sum = 0.0;
+            for &s in chunk {
+                sum += wrong_probability(s);
+            }
+            sum
+        })
+        .collect();
+    let mut total = 0.0;
+    for p in parts {
+        total += p;
+    }
+    total
 }
 
 /// out (m × k) = noisy (m × k, widened into `wide`) · T⁻¹ (k × k, rows `padded` apart).
@@ -463,11 +490,14 @@ mod tests {
                     .insert_axis(ndarray::Axis(1));
             let labels: Vec<usize> = (0..rows).map(|r| (r * 7) % k).collect();
             let mut clean = vec![0.0; k];
-            let shares = (0..rows).map(|r| {
-                let row: Vec<f32> = probs.row(r).to_vec();
-                1.0 - post.observed_share(&row, labels[r], &mut clean)
-            });
-            let summed = sum_in_chunks(shares.collect::<Vec<_>>().into_iter());
+            let scores: Vec<f64> = (0..rows)
+                .map(|r| {
+                    let row: Vec<f32> = probs.row(r).to_vec();
+                    post.clean(&row, &mut clean);
+                    post.wrong_log_odds_from_clean(&clean, labels[r])
+                })
+                .collect();
+            let summed = expected_from_scores(&scores);
             let expected = post.expected_mislabeled(probs.view(), &labels);
             assert_eq!(summed.to_bits(), expected.to_bits(), "{k} classes");
         }

@@ -5,17 +5,25 @@ use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 use serde::Serialize;
 
-use super::posterior::{Flip, Posterior, Workspace, BLOCK_ROWS};
+use super::posterior::{
+    log_odds, log_odds_of, wrong_probability, Flip, Posterior, Workspace, BLOCK_ROWS,
+};
 
 /// Which score ranks the rows.
+///
+/// The two probability scores are kept as log-odds, ln(P(wrong) / P(right)): the
+/// probability itself rounds to exactly 1 for the most certain errors (hundreds of rows
+/// on a 40,000-row table, and 6-decimal output ties thousands more), which left the head
+/// of a worklist in file order. [`ScoreKind::probability`] gives the probability back.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum ScoreKind {
-    /// 1 − P(true = observed | x, observed) under the flip matrix (the clean posterior
-    /// p = (Tᵀ)⁻¹p̃ of Patrini et al. 2017, then Bayes' rule with T[k][observed]).
-    /// Suggested label: the most probable true class.
+    /// Log-odds of P(true ≠ observed | x, observed) under the flip matrix: the clean
+    /// posterior (the joint fit's, or p = (Tᵀ)⁻¹p̃ of Patrini et al. 2017), then Bayes'
+    /// rule with T[k][observed]. Suggested label: the most probable true class.
     Posterior,
-    /// Self-confidence (Northcutt et al. 2021): 1 − p(observed | x). Suggested: argmax p.
+    /// Self-confidence (Northcutt et al. 2021) as log-odds of 1 − p(observed | x), the
+    /// same order as the published 1 − p. Suggested: argmax p.
     SelfConfidence,
     /// Normalized margin (Northcutt et al. 2021): max_{j≠observed} p_j − p_observed, in
     /// [−1, 1]. Suggested: argmax p.
@@ -32,10 +40,30 @@ impl ScoreKind {
         }
     }
 
-    /// True when the score is a probability that the observed label is wrong, so that
-    /// a sum of scores is an expected number of errors.
+    /// True when the score is the log-odds of a probability that the observed label is
+    /// wrong, so that a sum of [`ScoreKind::probability`] is an expected number of errors.
     pub fn is_probability(self) -> bool {
         !matches!(self, ScoreKind::Margin)
+    }
+
+    /// The probability that the label is wrong, for the probability scores.
+    pub fn probability(self, score: f64) -> Option<f64> {
+        self.is_probability().then(|| wrong_probability(score))
+    }
+
+    /// The score as people read it: the probability, or the margin.
+    pub fn shown(self, score: f64) -> f64 {
+        self.probability(score).unwrap_or(score)
+    }
+
+    /// The score whose [`ScoreKind::shown`] value is `shown` (a threshold given as a
+    /// probability, for the probability scores).
+    pub fn from_shown(self, shown: f64) -> f64 {
+        if self.is_probability() {
+            log_odds_of(shown)
+        } else {
+            shown
+        }
     }
 }
 
@@ -44,7 +72,7 @@ impl ScoreKind {
 pub struct RowScore {
     /// 0-based data row.
     pub row: usize,
-    /// Higher = more likely mislabelled.
+    /// Higher = more likely mislabelled (log-odds for the probability scores).
     pub score: f64,
     /// The most likely true class.
     pub suggested: usize,
@@ -180,8 +208,8 @@ impl Scratch {
     }
 
     /// Fills `belief` for the block's row `i` and returns its score. Every scoring path
-    /// goes through here or through [`Scratch::score_alone`], so a score computed alone
-    /// equals the one in the row's [`RowScore`] bit for bit.
+    /// goes through [`Scratch::score_alone`], so a score computed alone equals the one in
+    /// the row's [`RowScore`] bit for bit.
     fn belief_and_score(
         &mut self,
         kind: ScoreKind,
@@ -200,31 +228,37 @@ impl Scratch {
                 .zip(&self.noisy[i * k..(i + 1) * k])
                 .for_each(|(b, &p)| *b = p as f64),
         }
-        match kind {
-            ScoreKind::Posterior | ScoreKind::SelfConfidence => 1.0 - self.belief[observed],
-            ScoreKind::Margin => {
-                let best_other = self
-                    .belief
-                    .iter()
-                    .enumerate()
-                    .filter(|(j, _)| *j != observed)
-                    .map(|(_, &p)| p)
-                    .fold(f64::NEG_INFINITY, f64::max);
-                best_other - self.belief[observed]
-            }
-        }
+        self.score_alone(kind, i, observed, post)
     }
 
-    /// The score of the block's row `i` alone. For the posterior score the observed
-    /// class's share is the same number as in [`Scratch::belief_and_score`] without
-    /// normalising the other classes.
+    /// The score of the block's row `i` alone (no normalised belief: ten divisions a row
+    /// for ten classes were a good part of re-ranking's time).
     fn score_alone(&mut self, kind: ScoreKind, i: usize, observed: usize, post: &Posterior) -> f64 {
         let k = self.k;
         match kind {
             ScoreKind::Posterior => {
-                1.0 - post.share_from_clean(&self.clean[i * k..(i + 1) * k], observed)
+                post.wrong_log_odds_from_clean(&self.clean[i * k..(i + 1) * k], observed)
             }
-            _ => self.belief_and_score(kind, i, observed, post),
+            ScoreKind::SelfConfidence => {
+                let row = &self.noisy[i * k..(i + 1) * k];
+                let others: f64 = row
+                    .iter()
+                    .enumerate()
+                    .filter(|&(j, _)| j != observed)
+                    .map(|(_, &p)| p as f64)
+                    .sum();
+                log_odds(others, row[observed] as f64)
+            }
+            ScoreKind::Margin => {
+                let row = &self.noisy[i * k..(i + 1) * k];
+                let best_other = row
+                    .iter()
+                    .enumerate()
+                    .filter(|&(j, _)| j != observed)
+                    .map(|(_, &p)| p as f64)
+                    .fold(f64::NEG_INFINITY, f64::max);
+                best_other - row[observed] as f64
+            }
         }
     }
 
@@ -519,7 +553,8 @@ mod tests {
         // (Patrini et al. 2017, Eq. 2): p̃₀ = .8·.5 + .2·.3 + 0·.2 = .46,
         // p̃₁ = .1·.5 + .7·.3 + .3·.2 = .32, p̃₂ = .1·.5 + .1·.3 + .7·.2 = .22.
         // Observed label 1: P(true = k | x, obs = 1) ∝ T[k][1]·p(k) = (.05, .21, .06) / .32
-        // = (0.15625, 0.65625, 0.1875). Score = 1 − 0.65625 = 0.34375; suggested 1; alt 2.
+        // = (0.15625, 0.65625, 0.1875). P(wrong) = 1 − 0.65625 = 0.34375, so the score is
+        // ln(0.34375 / 0.65625); suggested 1; alt 2.
         let probs = array![[0.46f32, 0.32, 0.22]];
         let s = score_rows(
             ScoreKind::Posterior,
@@ -527,7 +562,12 @@ mod tests {
             &[1],
             Some(Flip::noisy(&t3())),
         )[0];
-        assert!((s.score - 0.34375).abs() < 1e-6, "{s:?}");
+        assert!(
+            (s.score - (0.34375f64 / 0.65625).ln()).abs() < 1e-6,
+            "{s:?}"
+        );
+        let p = ScoreKind::Posterior.probability(s.score).unwrap();
+        assert!((p - 0.34375).abs() < 1e-6, "{p}");
         assert_eq!((s.suggested, s.alt), (1, 2));
         assert!((s.alt_prob - 0.1875).abs() < 1e-6);
         // Observed label 2: ∝ T[k][2]·p(k) = (.05, .03, .14)/.22 → P(true = 2) = 0.636364;
@@ -538,22 +578,64 @@ mod tests {
             &[2],
             Some(Flip::noisy(&t3())),
         )[0];
-        assert!((s.score - (1.0 - 0.14 / 0.22)).abs() < 1e-6);
+        let p = ScoreKind::Posterior.shown(s.score);
+        assert!((p - (1.0 - 0.14 / 0.22)).abs() < 1e-6);
         assert_eq!((s.suggested, s.alt), (2, 0));
     }
 
     #[test]
     fn self_confidence_and_margin_by_hand() {
         // Northcutt et al. 2021: self-confidence p(observed | x); normalized margin
-        // p_observed − max_{j≠observed} p_j (we rank by its negative).
+        // p_observed − max_{j≠observed} p_j (we rank by its negative). Self-confidence
+        // ranks by the log-odds of 1 − p(observed | x) = 0.68: ln(0.68 / 0.32).
         let probs = array![[0.46f32, 0.32, 0.22]];
         let s = score_rows(ScoreKind::SelfConfidence, probs.view(), &[1], None)[0];
-        assert!((s.score - 0.68).abs() < 1e-6);
+        assert!((s.score - (0.68f64 / 0.32).ln()).abs() < 1e-6);
+        assert!((ScoreKind::SelfConfidence.shown(s.score) - 0.68).abs() < 1e-6);
         assert_eq!((s.suggested, s.alt), (0, 1));
         let m = score_rows(ScoreKind::Margin, probs.view(), &[1], None)[0];
         assert!((m.score - (0.46 - 0.32)).abs() < 1e-6);
         let m = score_rows(ScoreKind::Margin, probs.view(), &[0], None)[0];
         assert!((m.score - (0.32 - 0.46)).abs() < 1e-6);
+    }
+
+    #[test]
+    fn labels_almost_certainly_wrong_keep_distinct_scores() {
+        // P(wrong) = 1 − ~1e-20 and 1 − ~1e-30 are both 1.0 in f64, so as probabilities
+        // these rows would tie and be ordered by row; their log-odds do not. Clean
+        // posteriors (0.9… , 1e-20) under a symmetric 10 % flip, observed 1:
+        // odds = T[0][1]·p₀ / (T[1][1]·p₁) = 0.1 / (0.9·1e-20). Self-confidence: 1 / 1e-20.
+        let t = array![[0.9, 0.1], [0.1, 0.9]];
+        let probs = array![[1.0f32, 1e-20], [1.0, 1e-30], [0.5, 0.5]];
+        let ln10 = 10f64.ln();
+        let cases = [
+            (ScoreKind::Posterior, (0.1f64 / 0.9).ln()),
+            (ScoreKind::SelfConfidence, 0.0),
+        ];
+        for (kind, offset) in cases {
+            let mut s = score_rows(kind, probs.view(), &[1, 1, 1], Some(Flip::clean(&t)));
+            assert!(
+                (s[0].score - 20.0 * ln10 - offset).abs() < 1e-3,
+                "{kind:?} {s:?}"
+            );
+            assert!(
+                (s[1].score - 30.0 * ln10 - offset).abs() < 1e-3,
+                "{kind:?} {s:?}"
+            );
+            assert_eq!(kind.shown(s[0].score), kind.shown(s[1].score));
+            rank(&mut s);
+            assert_eq!(s.iter().map(|s| s.row).collect::<Vec<_>>(), vec![1, 0, 2]);
+        }
+    }
+
+    #[test]
+    fn thresholds_given_as_probabilities_map_to_log_odds_and_back() {
+        for p in [0.0, 1e-9, 0.3, 0.5, 0.9, 1.0 - 1e-9, 1.0] {
+            let score = ScoreKind::Posterior.from_shown(p);
+            assert!((ScoreKind::Posterior.shown(score) - p).abs() < 1e-12, "{p}");
+        }
+        assert_eq!(ScoreKind::Margin.from_shown(-0.25), -0.25);
+        assert_eq!(ScoreKind::Margin.probability(0.3), None);
     }
 
     #[test]

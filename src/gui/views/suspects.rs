@@ -165,7 +165,7 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
                     data.id(s.row).into_owned(),
                     classes[data.labels[s.row]].clone(),
                     classes[s.suggested].clone(),
-                    format!("{:.4}", s.score),
+                    format!("{:.4}", r.kind.shown(s.score)),
                     classes[s.alt].clone(),
                     format!("{:.4}", s.alt_prob),
                 ];
