@@ -6,11 +6,10 @@
 
 mod common;
 
-use common::{flip, iris_x10};
-use flipmend::learn::{out_of_fold, OofParams};
+use common::{flipped_and_probabilities, gaussian_classes, iris_x10};
 use flipmend::noise::{estimate, Method, Sample};
 use ndarray::Array2;
-use rand::{Rng, SeedableRng};
+use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
 fn pair_flip(k: usize, r: f64) -> Array2<f64> {
@@ -38,31 +37,6 @@ fn mean_abs_error(a: &Array2<f64>, b: &Array2<f64>) -> f64 {
         .map(|(x, y)| (x - y).abs())
         .sum::<f64>()
         / a.len() as f64
-}
-
-/// Labels flipped from `t` (seeded) and 5-fold out-of-fold probabilities of them, with
-/// the same seed for the folds.
-fn flipped_and_probabilities(
-    records: &Array2<f64>,
-    truth: &[usize],
-    t: &Array2<f64>,
-    seed: u64,
-) -> (Vec<usize>, Array2<f32>) {
-    let observed = flip(truth, t, seed);
-    let params = OofParams {
-        folds: 5,
-        seed,
-        ..Default::default()
-    };
-    let (probs, _) = out_of_fold(
-        records.view(),
-        &observed,
-        t.nrows(),
-        &params,
-        &mut |_, _| true,
-    )
-    .unwrap();
-    (observed, probs)
 }
 
 struct Errors {
@@ -165,25 +139,6 @@ fn iris_symmetric_noise_is_recovered_by_anchor_points() {
         "counting {:.4}",
         e.counting
     );
-}
-
-/// Three Gaussian classes (unit variance, means on a triangle of side `sep`) in two
-/// dimensions: softmax regression is the exact Bayes model for such clean data, so
-/// estimators that rely on the model's probabilities can be judged on their own merits.
-fn gaussian_classes(n: usize, sep: f64, seed: u64) -> (Array2<f64>, Vec<usize>) {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let means = [(0.0, 0.0), (sep, 0.0), (sep / 2.0, sep * 0.866)];
-    let truth: Vec<usize> = (0..n).map(|r| r % 3).collect();
-    let mut x = Array2::zeros((n, 2));
-    for r in 0..n {
-        let (mx, my) = means[truth[r]];
-        // Box–Muller: two independent standard normals from two uniforms.
-        let (u, v): (f64, f64) = (rng.random::<f64>().max(1e-300), rng.random());
-        let radius = (-2.0 * u.ln()).sqrt();
-        x[[r, 0]] = mx + radius * (std::f64::consts::TAU * v).cos();
-        x[[r, 1]] = my + radius * (std::f64::consts::TAU * v).sin();
-    }
-    (x, truth)
 }
 
 #[test]

@@ -23,7 +23,8 @@ pub struct EstimateArgs {
     #[command(flatten)]
     /// Table, probabilities, flip matrix and model settings.
     pub pipeline: PipelineArgs,
-    /// Resample rows B times (seeded) and report each entry's 5th–95th percentile
+    /// Resample rows B ≥ 2 times (seeded), refit, and report a 90 % interval for each entry:
+    /// the estimate ± 1.645 × 1.1 × the bootstrap standard deviation (the 1.1 measured)
     #[arg(long, value_name = "B", default_value_t = 0)]
     pub bootstrap: usize,
     /// Write the matrix as CSV (header class,<classes>; one row per true class)
@@ -64,6 +65,11 @@ struct EstimateReport<'a> {
 pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
     args.pipeline.check()?;
     check_outputs(args)?;
+    if args.bootstrap == 1 {
+        return Err(Error::Usage(
+            "--bootstrap needs at least 2 resamples (their spread is the interval's width)".into(),
+        ));
+    }
     if args.bootstrap > 0 && args.pipeline.matrix.matrix.is_some() {
         return Err(Error::Usage(
             "--bootstrap re-estimates the matrix, so it cannot be used with --matrix".into(),

@@ -1,5 +1,10 @@
 //! Bootstrap intervals for the flip matrix: rows are resampled with replacement and the
-//! matrix re-estimated from the same probabilities (no refitting), B times.
+//! matrix re-estimated (the joint fit refitted) on each resample, B times.
+//!
+//! The interval is the point estimate ± z₀.₉₅ · [`WIDENING`] · the bootstrap standard
+//! deviation, clipped to [0, 1]. A standard deviation, unlike the 5th and 95th
+//! percentiles of 30 resamples, does not shrink with few resamples; the widening covers
+//! the estimator's bias, which resampling does not see (see [`WIDENING`]).
 
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
@@ -9,17 +14,31 @@ use rayon::prelude::*;
 use super::estimators::{estimate, Method, Sample};
 use crate::error::Result;
 
-/// Per-entry 5th and 95th percentiles over the resamples.
+/// The normal quantile of a two-sided 90 % interval.
+const Z_90: f64 = 1.644_853_626_951_472_2;
+
+/// How many bootstrap standard deviations, beyond z₀.₉₅, the interval reaches.
+/// Measured on tables with a known generating matrix (make_data.py, 6 designs from
+/// 600 rows × 3 classes to 10,000 × 6 with sub-clusters or label sources, seeds 301–310
+/// each, 30 resamples, the default joint estimator; DEVELOPERS.md, "Interval coverage"):
+/// the share of the generating matrix's non-zero cells inside point ± z·c·sd was 0.887
+/// at c = 1, 0.910 at 1.1, 0.928 at 1.2 (all cells: 0.911, 0.929, 0.943). The
+/// percentile interval it replaces covered 0.840 (all cells 0.874). Two classes are the
+/// weak spot: 0.75 at 1.1 on 3,000 rows, where the fit's bias is largest.
+pub const WIDENING: f64 = 1.1;
+
+/// A 90 % interval for every cell of the matrix.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Interval {
-    /// 5th percentiles.
+    /// Lower ends.
     pub low: Array2<f64>,
-    /// 95th percentiles.
+    /// Upper ends.
     pub high: Array2<f64>,
 }
 
-/// Resamples `base.rows` `resamples` times. Resample `b` draws from ChaCha8 seeded with
-/// `seed` on stream `b`, so the result does not depend on the thread count.
+/// Estimates on `base` and on `resamples` resamples of its rows. Resample `b` draws from
+/// ChaCha8 seeded with `seed` on stream `b`, so the result does not depend on the thread
+/// count. Needs at least two resamples (a standard deviation).
 pub fn bootstrap(
     method: &Method,
     base: &Sample,
@@ -27,6 +46,7 @@ pub fn bootstrap(
     resamples: usize,
     seed: u64,
 ) -> Result<Interval> {
+    let point = estimate(method, base, classes)?.matrix;
     let n = base.rows.len();
     let matrices: Vec<Array2<f64>> = (0..resamples)
         .into_par_iter()
@@ -43,48 +63,31 @@ pub fn bootstrap(
             estimate(method, &sample, classes).map(|e| e.matrix)
         })
         .collect::<Result<_>>()?;
-    let k = classes.len();
-    let mut low = Array2::zeros((k, k));
-    let mut high = Array2::zeros((k, k));
-    let mut values = vec![0.0; matrices.len()];
-    for i in 0..k {
-        for j in 0..k {
-            values
-                .iter_mut()
-                .zip(&matrices)
-                .for_each(|(v, m)| *v = m[[i, j]]);
-            values.sort_by(f64::total_cmp);
-            low[[i, j]] = percentile(&values, 0.05);
-            high[[i, j]] = percentile(&values, 0.95);
-        }
-    }
-    Ok(Interval { low, high })
+    Ok(interval_around(&point, &matrices))
 }
 
-/// Percentile of sorted values with linear interpolation between neighbours (numpy's
-/// default "linear" method).
-pub fn percentile(sorted: &[f64], p: f64) -> f64 {
-    if sorted.is_empty() {
-        return f64::NAN;
+/// point ± z₀.₉₅ · [`WIDENING`] · the standard deviation of `resampled`, cell by cell,
+/// clipped to [0, 1].
+fn interval_around(point: &Array2<f64>, resampled: &[Array2<f64>]) -> Interval {
+    let b = resampled.len() as f64;
+    let mut mean = Array2::<f64>::zeros(point.raw_dim());
+    resampled.iter().for_each(|m| mean += m);
+    mean /= b;
+    let mut variance = Array2::<f64>::zeros(point.raw_dim());
+    for m in resampled {
+        variance.zip_mut_with(&(m - &mean), |v, d| *v += d * d);
     }
-    let position = p * (sorted.len() - 1) as f64;
-    let lower = position.floor() as usize;
-    let upper = (lower + 1).min(sorted.len() - 1);
-    let fraction = position - lower as f64;
-    sorted[lower] + fraction * (sorted[upper] - sorted[lower])
+    let half = variance.mapv(|v| Z_90 * WIDENING * (v / (b - 1.0).max(1.0)).sqrt());
+    Interval {
+        low: (point - &half).mapv(|v| v.clamp(0.0, 1.0)),
+        high: (point + &half).mapv(|v| v.clamp(0.0, 1.0)),
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
     use ndarray::Array2;
-
-    #[test]
-    fn percentile_matches_numpy_linear() {
-        // numpy.percentile([1, 2, 3, 4], 5) = 1.15 and 95 → 3.85 (linear method).
-        assert!((percentile(&[1.0, 2.0, 3.0, 4.0], 0.05) - 1.15).abs() < 1e-12);
-        assert!((percentile(&[1.0, 2.0, 3.0, 4.0], 0.95) - 3.85).abs() < 1e-12);
-    }
 
     #[test]
     fn intervals_bracket_the_estimate_and_repeat_with_the_seed() {

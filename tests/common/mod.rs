@@ -5,6 +5,7 @@
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
+use flipmend::learn::{out_of_fold, OofParams};
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -124,4 +125,48 @@ pub fn flip(truth: &[usize], t: &Array2<f64>, seed: u64) -> Vec<usize> {
                 .unwrap_or(t.ncols() - 1)
         })
         .collect()
+}
+
+/// Labels flipped from `t` (seeded) and 5-fold out-of-fold probabilities of them, with
+/// the same seed for the folds.
+pub fn flipped_and_probabilities(
+    records: &Array2<f64>,
+    truth: &[usize],
+    t: &Array2<f64>,
+    seed: u64,
+) -> (Vec<usize>, Array2<f32>) {
+    let observed = flip(truth, t, seed);
+    let params = OofParams {
+        folds: 5,
+        seed,
+        ..Default::default()
+    };
+    let (probs, _) = out_of_fold(
+        records.view(),
+        &observed,
+        t.nrows(),
+        &params,
+        &mut |_, _| true,
+    )
+    .unwrap();
+    (observed, probs)
+}
+
+/// Three Gaussian classes (unit variance, means on a triangle of side `sep`) in two
+/// dimensions: softmax regression is the exact Bayes model for such clean data, so
+/// estimators that rely on the model's probabilities can be judged on their own merits.
+pub fn gaussian_classes(n: usize, sep: f64, seed: u64) -> (Array2<f64>, Vec<usize>) {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let means = [(0.0, 0.0), (sep, 0.0), (sep / 2.0, sep * 0.866)];
+    let truth: Vec<usize> = (0..n).map(|r| r % 3).collect();
+    let mut x = Array2::zeros((n, 2));
+    for r in 0..n {
+        let (mx, my) = means[truth[r]];
+        // Box–Muller: two independent standard normals from two uniforms.
+        let (u, v): (f64, f64) = (rng.random::<f64>().max(1e-300), rng.random());
+        let radius = (-2.0 * u.ln()).sqrt();
+        x[[r, 0]] = mx + radius * (std::f64::consts::TAU * v).cos();
+        x[[r, 1]] = my + radius * (std::f64::consts::TAU * v).sin();
+    }
+    (x, truth)
 }

@@ -77,7 +77,7 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
         );
         if ui
             .button("Bootstrap intervals")
-            .on_hover_text("5th–95th percentiles, shown on hover")
+            .on_hover_text("90 % intervals from refitting on resampled rows, shown on hover")
             .clicked()
         {
             out.push(Command::Bootstrap);
