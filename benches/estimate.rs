@@ -30,6 +30,7 @@ fn main() {
         probs: probs.view(),
         labels: &labels,
         trusted: Some(&trusted),
+        origins: None,
         rows: &all,
     };
     for method in [
@@ -161,6 +162,7 @@ fn many_classes() {
         probs: probs.view(),
         labels: &labels,
         trusted: None,
+        origins: None,
         rows: &all,
     };
     bench(

@@ -167,6 +167,12 @@ pub enum Problem {
     /// An empty label cell.
     #[error("the label cell is empty; every row needs an observed label")]
     EmptyLabel,
+    /// A trusted-origin cell that is not one of the origin words.
+    #[error("'{found}' is not an origin of a trusted label; write audit (a random audit), review (a reviewed suspect) or control (a reviewed control row), or leave it empty for audit")]
+    UnknownOrigin {
+        /// The cell's text.
+        found: String,
+    },
     /// Bytes that are not UTF-8 where text is needed.
     #[error("the text is not valid UTF-8; save the file as UTF-8")]
     InvalidUtf8,

@@ -335,6 +335,35 @@ fn refuses_to_write_over_an_input() {
 }
 
 #[test]
+fn unknown_trusted_origin() {
+    refused(
+        "bad_origin.csv",
+        &[],
+        &[
+            "bad_origin.csv, line 4, column 6 'trusted_origin'",
+            "'guessed' is not an origin of a trusted label",
+        ],
+    );
+}
+
+#[test]
+fn a_bootstrap_of_one_resample_is_refused() {
+    let run = flipmend(&[
+        "estimate",
+        "--data",
+        &fixture("good.csv"),
+        "--bootstrap",
+        "1",
+    ]);
+    assert_eq!(run.code, 2);
+    assert!(
+        run.stderr.contains("at least 2 resamples"),
+        "{}",
+        run.stderr
+    );
+}
+
+#[test]
 fn usage_errors_exit_2() {
     let run = flipmend(&[
         "inspect",

@@ -32,6 +32,7 @@ fn ninety_percent_intervals_cover_about_ninety_percent_of_the_true_cells() {
             probs: probs.view(),
             labels: &observed,
             trusted: None,
+            origins: None,
             rows: &rows,
         };
         let interval = bootstrap(&method, &sample, &names, 20, seed).unwrap();

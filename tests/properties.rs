@@ -77,7 +77,7 @@ proptest! {
     fn estimators_return_stochastic_matrices((k, raw, labels, trusted) in problem()) {
         let p = normalized(&raw, k);
         let rows: Vec<usize> = (0..labels.len()).collect();
-        let sample = Sample { probs: p.view(), labels: &labels, trusted: Some(&trusted), rows: &rows };
+        let sample = Sample { probs: p.view(), labels: &labels, trusted: Some(&trusted), origins: None, rows: &rows };
         for method in [Method::Anchor, Method::Quantile { q: 0.97 }, Method::Trusted { fallback_quantile: Some(0.9) }, Method::Counting] {
             let t = estimate(&method, &sample, &names(k)).unwrap().matrix;
             prop_assert!(validate(&t).is_ok(), "{:?}: {:?}", method, t);
@@ -184,7 +184,7 @@ proptest! {
             let _ = Probabilities::from_csv_reader(input, Path::new("p.csv"), &good, &ProbOptions::default());
             let _ = Probabilities::from_npy_reader(input, Path::new("p.npy"), &good, &ProbOptions::default());
             let _ = read_matrix_csv(input, Path::new("m.csv"), &good.classes, true);
-            let _ = flipmend::io::worklist::read_review(input, Path::new("w.csv"), &good);
+            let _ = flipmend::io::review::read_review(input, Path::new("w.csv"), &good);
             let _ = read_model(input, Path::new("m.json"));
         }
         // A real header in front of random bytes reaches deeper into the row parsers.

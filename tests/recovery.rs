@@ -62,6 +62,7 @@ fn errors(records: &Array2<f64>, truth: &[usize], t: &Array2<f64>, seed: u64) ->
         probs: probs.view(),
         labels: &observed,
         trusted: Some(&trusted),
+        origins: None,
         rows: &rows,
     };
     let names: Vec<String> = (0..k).map(|c| format!("c{c}")).collect();
@@ -185,6 +186,7 @@ fn rows_reviewed_because_they_looked_wrong_do_not_bias_the_joint_estimate() {
             probs: probs.view(),
             labels: &observed,
             trusted,
+            origins: None,
             rows: &rows,
         };
         mean_abs_error(&estimate(&m, &sample, &names).unwrap().matrix, &t)

@@ -30,6 +30,8 @@ fn worklist_columns_order_and_caution() {
         &demo(),
         "--top",
         "25",
+        "--control",
+        "0",
         "--out",
         &out.to_string_lossy(),
         "--json",
@@ -97,6 +99,8 @@ fn selection_flags() {
         "self",
         "--threshold",
         "0.9",
+        "--control",
+        "0",
         "--out",
         &path,
     ])
@@ -114,6 +118,8 @@ fn selection_flags() {
         "3",
         "--classes",
         "paper,glass",
+        "--control",
+        "0",
         "--out",
         &path,
     ])
@@ -127,6 +133,8 @@ fn selection_flags() {
         &data,
         "--top",
         "3",
+        "--control",
+        "0",
         "--with-features",
         "--out",
         &path,
@@ -151,6 +159,8 @@ fn review_round_trip() {
         &data,
         "--top",
         "6",
+        "--control",
+        "0",
         "--out",
         &worklist.to_string_lossy(),
     ])
@@ -200,10 +210,13 @@ fn review_round_trip() {
         before,
         "the input is byte-identical"
     );
-    // The merged file: same rows and cells, with the verdicts in 'trusted'.
+    // The merged file: same rows and cells, with the verdicts in 'trusted' and their
+    // origin in a new last column 'trusted_origin' (reviews of listed suspects).
     let original = read_csv(&data_path);
-    let out = read_csv(&merged);
+    let mut out = read_csv(&merged);
     assert_eq!(out.len(), original.len());
+    assert_eq!(out[0].last().unwrap(), "trusted_origin");
+    let origins: Vec<String> = out.iter_mut().map(|r| r.pop().unwrap()).collect();
     let trusted = original[0].iter().position(|h| h == "trusted").unwrap();
     let expect: Vec<(usize, String)> = rows[1..5]
         .iter()
@@ -223,13 +236,22 @@ fn review_round_trip() {
         match expect.iter().find(|(r, _)| *r == row) {
             Some((_, label)) => {
                 assert_eq!(&new[trusted], label, "row {row}");
+                let earlier = !orig[trusted].is_empty();
+                let origin = if earlier { "audit" } else { "review" };
+                assert_eq!(
+                    origins[i], origin,
+                    "row {row}: an earlier audit stays an audit"
+                );
                 let mut rest_a = orig.clone();
                 let mut rest_b = new.clone();
                 rest_a.remove(trusted);
                 rest_b.remove(trusted);
                 assert_eq!(rest_a, rest_b);
             }
-            None => assert_eq!(orig, new, "row {row} unchanged"),
+            None => {
+                assert_eq!(orig, new, "row {row} unchanged");
+                assert_eq!(origins[i], "", "row {row}");
+            }
         }
     }
     // The merged file feeds the trusted estimator.
@@ -261,7 +283,7 @@ fn review_adds_a_trusted_column_when_there_is_none() {
     .assert_ok();
     assert_eq!(
         std::fs::read_to_string(&merged).unwrap(),
-        "f1,label,trusted\n1,a,a\n2,a,\n3,b,b\n"
+        "f1,label,trusted,trusted_origin\n1,a,a,review\n2,a,,\n3,b,b,review\n"
     );
 }
 
@@ -324,4 +346,127 @@ fn malformed_reviews_exit_2_and_write_nothing() {
         &reviewed.to_string_lossy(),
     ])
     .assert_bad_input(&["refusing to write"]);
+}
+
+#[test]
+fn a_blind_worklist_with_control_rows_comes_back_with_its_key() {
+    // The default worklist: 95 suspects and 5 control rows (5 % of a budget of 100),
+    // shuffled, with no column that tells them apart; the key says which is which, and
+    // `review` finds it beside the worklist.
+    let dir = TempDir::new();
+    let data = demo();
+    let worklist = dir.path("w.csv");
+    let run = flipmend(&[
+        "suspects",
+        "--data",
+        &data,
+        "--seed",
+        "4",
+        "--out",
+        &worklist.to_string_lossy(),
+    ]);
+    run.assert_ok();
+    assert!(run.stdout.contains("plus 5 control rows"), "{}", run.stdout);
+    let rows = read_csv(&worklist);
+    assert_eq!(rows[0], ["item", "row", "id", "observed", "review"]);
+    assert_eq!(rows.len(), 101);
+    let key = read_csv(&dir.path("w.key.csv"));
+    let slice = key[0].iter().position(|h| h == "slice").unwrap();
+    let control: Vec<&Vec<String>> = key[1..].iter().filter(|r| r[slice] == "control").collect();
+    assert_eq!(control.len(), 5);
+    let rank = key[0].iter().position(|h| h == "rank").unwrap();
+    assert!(
+        control
+            .iter()
+            .all(|r| r[rank].parse::<usize>().unwrap() > 95),
+        "control rows come from the unlisted rows"
+    );
+    let positions: Vec<usize> = key[1..]
+        .iter()
+        .enumerate()
+        .filter(|(_, r)| r[slice] == "control")
+        .map(|(i, _)| i)
+        .collect();
+    assert_ne!(
+        positions,
+        vec![95, 96, 97, 98, 99],
+        "shuffled in, not appended"
+    );
+    // The same seed draws the same worklist.
+    let again = dir.path("again.csv");
+    flipmend(&[
+        "suspects",
+        "--data",
+        &data,
+        "--seed",
+        "4",
+        "--out",
+        &again.to_string_lossy(),
+    ])
+    .assert_ok();
+    assert_eq!(read_csv(&again), rows);
+    // Reviewers keep every label but the first row's.
+    let mut reviewed = rows.clone();
+    for (i, r) in reviewed[1..].iter_mut().enumerate() {
+        r[4] = if i == 0 {
+            "glass".into()
+        } else {
+            "keep".into()
+        };
+    }
+    let reviewed_path = dir.path("w_done.csv");
+    let mut w = csv::Writer::from_path(&reviewed_path).unwrap();
+    reviewed.iter().for_each(|r| w.write_record(r).unwrap());
+    w.flush().unwrap();
+    let merged = dir.path("merged.csv");
+    let json = dir.path("review.json");
+    let run = flipmend(&[
+        "review",
+        "--data",
+        &data,
+        "--worklist",
+        &reviewed_path.to_string_lossy(),
+        "--key",
+        &dir.path("w.key.csv").to_string_lossy(),
+        "--out",
+        &merged.to_string_lossy(),
+        "--json",
+        &json.to_string_lossy(),
+    ]);
+    run.assert_ok();
+    assert!(
+        run.stdout.contains("control rows found wrong:"),
+        "{}",
+        run.stdout
+    );
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(summary["control"]["wrong"]["of"], 5);
+    assert_eq!(summary["listed"]["wrong"]["of"], 95);
+    let out = read_csv(&merged);
+    let origin = out[0].iter().position(|h| h == "trusted_origin").unwrap();
+    let count = |word: &str| out[1..].iter().filter(|r| r[origin] == word).count();
+    let earlier_audits = read_csv(std::path::Path::new(&data))[1..]
+        .iter()
+        .zip(&out[1..])
+        .filter(|(orig, new)| !orig[orig.len() - 1].is_empty() && !new[origin].is_empty())
+        .count();
+    assert_eq!(count("control") + count("review") + earlier_audits, 100);
+    assert!(count("control") <= 5 && count("control") + earlier_audits >= 5);
+    // The trusted estimator leaves the reviewed rows out, and says so.
+    let run = flipmend(&[
+        "estimate",
+        "--data",
+        &merged.to_string_lossy(),
+        "--method",
+        "trusted",
+        "--fallback",
+        "quantile",
+    ]);
+    run.assert_ok();
+    assert!(
+        run.stdout.contains("from reviews left out"),
+        "{}",
+        run.stdout
+    );
 }

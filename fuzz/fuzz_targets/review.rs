@@ -6,5 +6,5 @@ mod common;
 
 fuzz_target!(|data: &[u8]| {
     let d = common::dataset();
-    let _ = flipmend::io::worklist::read_review(data, Path::new("w.csv"), &d);
+    let _ = flipmend::io::review::read_review(data, Path::new("w.csv"), &d);
 });

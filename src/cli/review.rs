@@ -1,16 +1,19 @@
-//! `flipmend review`: merge a reviewed worklist into a copy of the dataset.
+//! `flipmend review`: merge a reviewed worklist into a copy of the dataset, and report what
+//! the review measured.
 
 use std::fmt::Write as _;
 use std::io::Write;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use clap::Args;
 
 use super::args::TableArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
-use crate::io::worklist::{read_review, write_merged};
-use crate::io::{check_not_input, write_atomic};
+use crate::io::review::{read_key, read_review, write_merged, Key};
+use crate::io::worklist::key_path;
+use crate::io::{check_not_input, write_atomic, write_json};
+use crate::workflow::review::{summarise, ReviewSummary, SliceResult};
 
 /// Flags of `flipmend review`.
 #[derive(Debug, Clone, Args)]
@@ -22,55 +25,110 @@ pub struct ReviewArgs {
     /// observed label, or empty for not reviewed
     #[arg(long, value_name = "FILE")]
     pub worklist: PathBuf,
-    /// Where to write the merged copy of the dataset (reviewed rows carry their verified
-    /// label in the trusted column, which is added when absent). The input is never changed.
+    /// The worklist's key (which rows were control rows) [default: NAME.key.csv beside the
+    /// worklist, when it exists]
+    #[arg(long, value_name = "FILE")]
+    pub key: Option<PathBuf>,
+    /// Where to write the merged copy of the dataset: reviewed rows carry their verified
+    /// label in the trusted column and how it was obtained (review or control) in its
+    /// origin column, both added when absent. The input is never changed.
     #[arg(long, value_name = "FILE")]
     pub out: PathBuf,
+    /// Write the summary as JSON
+    #[arg(long, value_name = "FILE")]
+    pub json: Option<PathBuf>,
 }
 
 /// Runs `review`.
 pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
-    check_not_input(
-        &args.out,
-        &[args.table.data.as_path(), args.worklist.as_path()],
-    )?;
+    let key_file = args.key.clone().or_else(|| {
+        let beside = key_path(&args.worklist);
+        beside.exists().then_some(beside)
+    });
+    let mut inputs = vec![args.table.data.as_path(), args.worklist.as_path()];
+    inputs.extend(key_file.as_deref());
+    for output in [Some(&args.out), args.json.as_ref()].into_iter().flatten() {
+        check_not_input(output, &inputs)?;
+    }
     let data = Dataset::load(&args.table.data, &args.table.options())?;
-    let file = std::fs::File::open(&args.worklist).map_err(|source| Error::Read {
-        path: args.worklist.clone(),
-        source,
-    })?;
-    let review = read_review(file, &args.worklist, &data)?;
+    let mut review = read_review(open(&args.worklist)?, &args.worklist, &data)?;
+    let key = match &key_file {
+        Some(path) => Some(read_key(open(path)?, path, &data)?),
+        None => None,
+    };
+    let summary = summarise(&data, &mut review, key.as_ref());
     let delimiter = args.table.options().delimiter_for(&args.table.data);
     write_atomic(&args.out, |w| write_merged(w, &data, delimiter, &review))?;
-    let replaced = review
-        .verdicts
-        .iter()
-        .filter(|v| {
-            data.trusted
-                .as_ref()
-                .and_then(|t| t[v.row])
-                .is_some_and(|earlier| earlier != v.label)
-        })
-        .count();
+    if let Some(path) = &args.json {
+        write_json(path, &summary)?;
+    }
+    super::emit(
+        out,
+        &render(args, &data, &summary, key_file.as_deref(), key.as_ref()),
+    )
+}
+
+fn open(path: &Path) -> Result<std::fs::File> {
+    std::fs::File::open(path).map_err(|source| Error::Read {
+        path: path.to_path_buf(),
+        source,
+    })
+}
+
+fn render(
+    args: &ReviewArgs,
+    data: &Dataset,
+    s: &ReviewSummary,
+    key_file: Option<&Path>,
+    key: Option<&Key>,
+) -> String {
     let mut text = String::new();
     let _ = writeln!(
         text,
         "{}: {} reviewed rows merged",
         args.out.display(),
-        review.verdicts.len()
+        s.reviewed
     );
-    let _ = writeln!(
-        text,
-        "  confirmed (label kept):  {}",
-        review.confirmed(&data)
-    );
-    let _ = writeln!(text, "  changed:                 {}", review.changed(&data));
-    let _ = writeln!(text, "  not reviewed:            {}", review.not_reviewed);
-    if replaced > 0 {
+    let _ = writeln!(text, "  confirmed (label kept):  {}", s.confirmed);
+    let _ = writeln!(text, "  changed:                 {}", s.changed);
+    let _ = writeln!(text, "  not reviewed:            {}", s.not_reviewed);
+    if s.replaced > 0 {
         let _ = writeln!(
             text,
-            "  earlier trusted labels replaced by the review: {replaced}"
+            "  earlier trusted labels replaced by the review: {}",
+            s.replaced
         );
+    }
+    if let (Some(path), Some(key)) = (key_file, key) {
+        let (listed, control) = key.counts();
+        let _ = writeln!(
+            text,
+            "key {}: {listed} listed suspects, {control} control rows",
+            path.display()
+        );
+    }
+    if let Some(l) = &s.listed {
+        let _ = writeln!(
+            text,
+            "listed suspects found wrong: {}",
+            rate(l, "flipmend expected")
+        );
+    }
+    if let Some(c) = &s.control {
+        let _ = writeln!(
+            text,
+            "control rows found wrong:    {}",
+            rate(c, "flipmend expected")
+        );
+    }
+    if let (Some((low, mid, high)), Some(n)) = (s.missed_errors, s.unlisted_rows) {
+        let _ = writeln!(
+            text,
+            "wrong labels left among the {n} rows not listed: about {mid:.0} (90 % interval {low:.0}–{high:.0})"
+        );
+    }
+    for note in &s.notes {
+        let _ = writeln!(text, "note: {note}");
     }
     let column = data
         .trusted_column
@@ -78,8 +136,30 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
         .unwrap_or(crate::data::roles::DEFAULT_TRUSTED);
     let _ = writeln!(
         text,
-        "The verified labels are in the column '{column}'; `flipmend estimate --data {} --method trusted` uses them.",
+        "The verified labels are in the column '{column}' and their origin in '{column}_origin'; \
+         `flipmend estimate --data {}` uses them all (the trusted estimator only random audits).",
         args.out.display()
     );
-    super::emit(out, &text)
+    let _ = writeln!(
+        text,
+        "These figures are estimates from a sample of reviews; where labels concern health, safety \
+         or people, have qualified reviewers confirm them under your local rules."
+    );
+    text
+}
+
+/// "3 of 4 (75 %, 90 % interval 36–96 %; flipmend expected 90 %)".
+fn rate(r: &SliceResult, expected_word: &str) -> String {
+    let w = &r.wrong;
+    let expected = r.expected.map_or(String::new(), |e| {
+        format!("; {expected_word} {:.0} %", 100.0 * e)
+    });
+    format!(
+        "{} of {} ({:.0} %, 90 % interval {:.0}–{:.0} %{expected})",
+        w.count,
+        w.of,
+        100.0 * w.value,
+        100.0 * w.low,
+        100.0 * w.high
+    )
 }

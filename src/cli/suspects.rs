@@ -11,7 +11,7 @@ use super::args::PipelineArgs;
 use crate::data::text_column::read_text_column;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
-use crate::io::worklist::write_worklist;
+use crate::io::worklist::{key_path, write_blind, write_key, write_worklist};
 use crate::io::{check_not_input, write_atomic, write_json};
 use crate::noise::posterior::expected_from_scores;
 use crate::noise::scores::{
@@ -19,6 +19,7 @@ use crate::noise::scores::{
 };
 use crate::timing::Stages;
 use crate::workflow;
+use crate::workflow::worklist::{ranks_of, split_budget, with_control, DEFAULT_CONTROL_SHARE};
 
 /// Flags of `flipmend suspects`.
 #[derive(Debug, Clone, Args)]
@@ -48,10 +49,18 @@ pub struct SuspectsArgs {
     /// Only rows observed as one of these classes (comma-separated)
     #[arg(long, value_name = "A,B,..", value_delimiter = ',')]
     pub classes: Option<Vec<String>>,
+    /// Share of the worklist given to control rows: drawn at random (with --seed) from the
+    /// rows not listed and shuffled in among the suspects, so that `review` can measure
+    /// what the list misses. With control rows the worklist is blind (no rank, score or
+    /// suggestion; NAME.key.csv beside it says which row is which); 0 gives the ranked list
+    #[arg(long, value_name = "SHARE", default_value_t = DEFAULT_CONTROL_SHARE)]
+    pub control: f64,
     /// Add the feature values to the worklist
     #[arg(long)]
     pub with_features: bool,
-    /// Write the worklist CSV (rank,row,id,observed,suggested,score,p_wrong,alt,alt_prob,review)
+    /// Write the worklist CSV: blind (item,row,id,observed,review) with its key NAME.key.csv
+    /// when there are control rows, else ranked
+    /// (rank,row,id,observed,suggested,score,p_wrong,alt,alt_prob,review)
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
     /// Write the summary as JSON
@@ -108,6 +117,8 @@ struct SuspectsReport {
     probabilities: String,
     rows: usize,
     listed: usize,
+    control: usize,
+    key: Option<String>,
     expected_errors: Option<f64>,
     per_class: Vec<ClassCount>,
     warnings: Vec<String>,
@@ -184,19 +195,18 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         )
     });
     let order = rank_values(&scores, scores.len());
-    let rows = select_rows(
-        order.iter().map(|&r| (r, scores[r])),
-        &data.labels,
-        data.classes.len(),
-        &selection,
-    );
+    let (rows, control) = choose_rows(args, &data, &order, &scores, &selection);
     let listed = score_selected(kind, score_probs, &data.labels, flip, &rows);
     stages.end("rank");
-    if let Some(path) = &args.out {
-        write_atomic(path, |w| {
-            write_worklist(w, &data, kind, &listed, args.with_features)
-        })?;
-    }
+    let (control, key) = write_lists(
+        args,
+        &data,
+        (kind, &selection),
+        &order,
+        &listed,
+        control,
+        (score_probs, flip),
+    )?;
     let truth_check = match (&args.truth, &truth, truth_auroc) {
         (Some(column), Some(flipped), Some((auc, flipped_rows))) => {
             let hits = listed.iter().filter(|s| flipped[s.row]).count();
@@ -214,7 +224,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     let report = summary(
         kind,
         &data,
-        &listed,
+        (&listed, control, key),
         matrix.map(|(name, _)| name),
         &probs,
         warnings,
@@ -229,11 +239,90 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
 }
 
 fn check_outputs(args: &SuspectsArgs) -> Result<()> {
+    if !(0.0..0.5).contains(&args.control) {
+        return Err(Error::Usage(format!(
+            "--control must be a share from 0 to below 0.5 of the worklist, not {}",
+            args.control
+        )));
+    }
     let inputs = args.pipeline.inputs();
-    for output in [&args.out, &args.json].into_iter().flatten() {
+    let key = args.out.as_deref().map(key_path);
+    for output in [&args.out, &args.json, &key].into_iter().flatten() {
         check_not_input(output, &inputs)?;
     }
     Ok(())
+}
+
+/// The suspects to list (in rank order) and how many control rows to add: a budget
+/// (`--top`) is split between them; otherwise the control rows come on top of the list.
+fn choose_rows(
+    args: &SuspectsArgs,
+    data: &Dataset,
+    order: &[usize],
+    scores: &[f64],
+    selection: &Selection,
+) -> (Vec<usize>, usize) {
+    let mut for_list = selection.clone();
+    let budget_control = selection.top.map(|top| {
+        let (suspects, control) = split_budget(top, args.control);
+        for_list.top = Some(suspects);
+        control
+    });
+    let listed = select_rows(
+        order.iter().map(|&r| (r, scores[r])),
+        &data.labels,
+        data.classes.len(),
+        &for_list,
+    );
+    let count =
+        budget_control.unwrap_or_else(|| (listed.len() as f64 * args.control).ceil() as usize);
+    (listed, count)
+}
+
+/// Writes the worklist (`--out`): ranked, or blind with its key when there are control
+/// rows to add; returns the number of control rows and where the key went.
+fn write_lists(
+    args: &SuspectsArgs,
+    data: &Dataset,
+    (kind, selection): (ScoreKind, &Selection),
+    order: &[usize],
+    listed: &[RowScore],
+    control: usize,
+    (probs, flip): (
+        ndarray::ArrayView2<f32>,
+        Option<crate::noise::posterior::Flip>,
+    ),
+) -> Result<(usize, Option<PathBuf>)> {
+    let Some(path) = &args.out else {
+        return Ok((0, None));
+    };
+    let ranks = ranks_of(
+        order.iter().copied(),
+        &listed.iter().map(|s| s.row).collect::<Vec<_>>(),
+    );
+    let listed: Vec<(RowScore, usize)> = listed.iter().copied().zip(ranks).collect();
+    let classes = selection.classes.as_deref();
+    let items = with_control(
+        &listed,
+        data.rows(),
+        control,
+        args.pipeline.fit.seed,
+        |r| classes.is_none_or(|c| c.contains(&data.labels[r])),
+        |rows| score_selected(kind, probs, &data.labels, flip, rows),
+        |rows| ranks_of(order.iter().copied(), rows),
+    );
+    let drawn = items.len() - listed.len();
+    if drawn == 0 {
+        let ranked: Vec<RowScore> = listed.iter().map(|(s, _)| *s).collect();
+        write_atomic(path, |w| {
+            write_worklist(w, data, kind, &ranked, args.with_features)
+        })?;
+        return Ok((0, None));
+    }
+    let key = key_path(path);
+    write_atomic(&key, |w| write_key(w, data, kind, &items))?;
+    write_atomic(path, |w| write_blind(w, data, &items, args.with_features))?;
+    Ok((drawn, Some(key)))
 }
 
 fn selection(args: &SuspectsArgs, kind: ScoreKind, data: &Dataset) -> Result<Selection> {
@@ -297,7 +386,7 @@ fn truth_flags(data: &Dataset, column: &str, delimiter: u8) -> Result<Vec<bool>>
 fn summary(
     kind: ScoreKind,
     data: &Dataset,
-    listed: &[RowScore],
+    (listed, control, key): (&[RowScore], usize, Option<PathBuf>),
     matrix: Option<String>,
     probs: &workflow::RowProbabilities,
     warnings: Vec<String>,
@@ -326,6 +415,8 @@ fn summary(
         probabilities: probs.source.describe(),
         rows: data.rows(),
         listed: listed.len(),
+        control,
+        key: key.map(|k| k.display().to_string()),
         expected_errors: expected(&mut listed.iter()),
         per_class,
         warnings,
@@ -342,6 +433,16 @@ fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScor
     );
     if let Some(m) = &r.matrix {
         let _ = writeln!(t, "flip matrix: {m}");
+    }
+    if let Some(key) = &r.key {
+        let _ = writeln!(
+            t,
+            "plus {} control rows drawn at random from the rows not listed, shuffled in among \
+             them: the worklist shows no rank, score or suggestion, so reviewers judge every row \
+             alike. Which row is which is in {key}; keep it from the reviewers and give it to \
+             `flipmend review` with the reviewed worklist.",
+            r.control
+        );
     }
     match r.expected_errors {
         Some(e) => {

@@ -5,6 +5,7 @@ use rustc_hash::FxHashMap as HashMap;
 
 use crate::error::{shorten, Problem};
 
+use super::origin::Origin;
 use super::roles::ColumnPlan;
 
 /// Code of "no trusted label" in [`ChunkOut::trusted`].
@@ -60,6 +61,8 @@ pub(crate) struct ChunkOut {
     pub labels: Vec<u32>,
     /// Trusted label per row as a code into `names`, or [`NONE`].
     pub trusted: Vec<u32>,
+    /// Origin of each row's trusted label (only when the plan has an origin column).
+    pub origins: Vec<Origin>,
     /// The block's label strings, in order of first appearance.
     pub names: Vec<String>,
     /// Concatenated ids.
@@ -195,6 +198,7 @@ impl Fields for csv::ByteRecord {
 enum Kind {
     Label,
     Trusted,
+    Origin,
     Id,
     Numeric(usize),
     Unused,
@@ -207,6 +211,9 @@ fn kinds(plan: &ColumnPlan) -> Vec<Kind> {
     }
     if let Some(t) = plan.trusted {
         kinds[t] = Kind::Trusted;
+    }
+    if let Some(o) = plan.origin {
+        kinds[o] = Kind::Origin;
     }
     if let Some(i) = plan.id {
         kinds[i] = Kind::Id;
@@ -290,6 +297,7 @@ impl<'a> BlockParser<'a> {
                 }
                 Kind::Label => self.label(cell, line_no, f)?,
                 Kind::Trusted => self.trusted(cell, line_no, f)?,
+                Kind::Origin => self.origin(cell, line_no, f)?,
                 Kind::Id => self.id(cell, line_no, f)?,
                 Kind::Unused => {}
             }
@@ -321,6 +329,22 @@ impl<'a> BlockParser<'a> {
         Ok(())
     }
 
+    fn origin(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
+        let text =
+            std::str::from_utf8(cell).map_err(|_| (line, Some(field), Problem::InvalidUtf8))?;
+        let origin = Origin::parse(text).ok_or_else(|| {
+            (
+                line,
+                Some(field),
+                Problem::UnknownOrigin {
+                    found: shorten(text),
+                },
+            )
+        })?;
+        self.out.origins.push(origin);
+        Ok(())
+    }
+
     fn id(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
         let id =
             std::str::from_utf8(cell).map_err(|_| (line, Some(field), Problem::InvalidUtf8))?;
@@ -340,6 +364,9 @@ impl<'a> BlockParser<'a> {
         }
         if let Some(field) = self.plan.trusted {
             self.trusted(record.field(field), line, field)?;
+        }
+        if let Some(field) = self.plan.origin {
+            self.origin(record.field(field), line, field)?;
         }
         if let Some(field) = self.plan.id {
             self.id(record.field(field), line, field)?;

@@ -4,6 +4,7 @@ mod blocks;
 mod chunk;
 pub mod natural;
 pub mod npy;
+pub mod origin;
 pub mod probs;
 pub mod roles;
 pub mod summary;

@@ -4,6 +4,7 @@
 
 use std::path::Path;
 
+use super::origin::origin_column;
 use crate::error::{Error, Location, Problem, Result};
 
 /// Default name of the observed-label column.
@@ -76,6 +77,9 @@ pub struct ColumnPlan {
     pub id: Option<usize>,
     /// Field index of the trusted label, if any.
     pub trusted: Option<usize>,
+    /// Field index of the trusted labels' origin (the trusted column's name + `_origin`),
+    /// if any.
+    pub origin: Option<usize>,
     /// Field indices parsed as numbers: the features when `explicit`, else candidates.
     pub numeric: Vec<usize>,
     /// True when `--features` fixed the feature list.
@@ -117,10 +121,14 @@ impl ColumnPlan {
             Some(name) => Some(lookup("--trusted", name)?),
             None => find(DEFAULT_TRUSTED).filter(|&i| Some(i) != label && Some(i) != id),
         };
+        let origin = trusted
+            .and_then(|t| find(&origin_column(&header[t])))
+            .filter(|&i| Some(i) != label && Some(i) != id);
         let roles = [
             ("label", label),
             ("id column", id),
             ("trusted label", trusted),
+            ("trusted origin", origin),
         ];
         check_clashes(path, header, &roles)?;
         let mut excluded = Vec::with_capacity(options.exclude.len());
@@ -157,6 +165,7 @@ impl ColumnPlan {
             label,
             id,
             trusted,
+            origin,
             numeric,
             explicit,
         })

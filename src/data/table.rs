@@ -13,6 +13,7 @@ use rayon::prelude::*;
 use super::blocks::{BlockError, Blocks};
 use super::chunk::{parse_block, ChunkOut, SlotStats, NONE};
 use super::natural::natural_cmp;
+use super::origin::Origin;
 use super::roles::{ColumnPlan, TableOptions};
 use crate::error::{Error, Location, Problem, Result};
 
@@ -85,6 +86,9 @@ pub struct Dataset {
     pub id_column: Option<String>,
     /// Name of the trusted-label column, when there is one.
     pub trusted_column: Option<String>,
+    /// Name of the column that says how each trusted label was obtained, when there is
+    /// one (the trusted column's name + `_origin`).
+    pub origin_column: Option<String>,
     /// Names of the feature columns, in the order of `features`' columns.
     pub feature_names: Vec<String>,
     /// Row-major `rows × features`, all finite.
@@ -96,6 +100,9 @@ pub struct Dataset {
     /// Trusted (audited) label of each row, `None` where not audited; `None` as a whole
     /// when the table has no trusted column.
     pub trusted: Option<Vec<Option<usize>>>,
+    /// How each row's trusted label was obtained; `None` when the table has no origin
+    /// column (every trusted label then counts as a random audit).
+    pub trusted_origins: Option<Vec<Origin>>,
     /// Ids from the id column; rows are identified by 0-based row number when absent.
     pub ids: Option<StringColumn>,
     /// Columns no role uses.
@@ -149,6 +156,38 @@ impl Dataset {
         counts
     }
 
+    /// How `row`'s trusted label was obtained (meaningful where it has one).
+    pub fn origin(&self, row: usize) -> Origin {
+        self.trusted_origins
+            .as_ref()
+            .map_or(Origin::Audit, |o| o[row])
+    }
+
+    /// The trusted labels that came from a random audit ([`Origin::is_random_sample`]),
+    /// the others removed; `None` when the table has no trusted column.
+    pub fn randomly_audited(&self) -> Option<Vec<Option<usize>>> {
+        let trusted = self.trusted.as_ref()?;
+        Some(
+            trusted
+                .iter()
+                .enumerate()
+                .map(|(r, &t)| t.filter(|_| self.origin(r).is_random_sample()))
+                .collect(),
+        )
+    }
+
+    /// Trusted rows of each origin, in the order of [`Origin::ALL`].
+    pub fn trusted_by_origin(&self) -> [usize; 3] {
+        let mut counts = [0; 3];
+        for (r, t) in self.trusted.iter().flatten().enumerate() {
+            if t.is_some() {
+                let origin = self.origin(r);
+                counts[Origin::ALL.iter().position(|&o| o == origin).unwrap_or(0)] += 1;
+            }
+        }
+        counts
+    }
+
     /// Trusted rows per class (zeros when there is no trusted column).
     pub fn trusted_counts(&self) -> Vec<usize> {
         let mut counts = vec![0; self.classes.len()];
@@ -171,6 +210,7 @@ struct Loader<'a> {
     values: Vec<f64>,
     labels: Vec<u32>,
     trusted: Vec<u32>,
+    origins: Vec<Origin>,
     names: Vec<String>,
     codes: HashMap<String, u32>,
     ids: StringColumn,
@@ -196,6 +236,7 @@ impl<'a> Loader<'a> {
             values: Vec::new(),
             labels: Vec::new(),
             trusted: Vec::new(),
+            origins: Vec::new(),
             names: Vec::new(),
             codes: HashMap::default(),
             ids: StringColumn::default(),
@@ -366,6 +407,7 @@ impl<'a> Loader<'a> {
                 remap[c as usize]
             }
         }));
+        self.origins.extend_from_slice(&out.origins);
         self.ids.append(&out.ids, &out.id_ends);
         self.row_lines
             .extend(out.row_lines.iter().map(|l| l + base));
@@ -426,6 +468,10 @@ impl<'a> Loader<'a> {
                 .map(|&c| (c != NONE).then(|| order[c as usize]))
                 .collect::<Vec<_>>()
         });
+        let trusted_origins = plan
+            .origin
+            .filter(|_| trusted.is_some())
+            .map(|_| std::mem::take(&mut self.origins));
         let plan_labeled = plan.label.is_some();
         let ids = plan.id.map(|_| std::mem::take(&mut self.ids));
         if let Some(ids) = &ids {
@@ -436,6 +482,7 @@ impl<'a> Loader<'a> {
             label_column: plan.label.map(|l| plan.header[l].clone()),
             id_column: plan.id.map(|i| plan.header[i].clone()),
             trusted_column: plan.trusted.map(|i| plan.header[i].clone()),
+            origin_column: plan.origin.map(|i| plan.header[i].clone()),
             feature_names: kept
                 .iter()
                 .map(|&s| plan.header[plan.numeric[s]].clone())
@@ -445,6 +492,7 @@ impl<'a> Loader<'a> {
             classes,
             labels,
             trusted,
+            trusted_origins,
             ids,
             ignored,
             missing,
@@ -744,6 +792,27 @@ mod tests {
                 }
             ]
         );
+    }
+
+    #[test]
+    fn the_origin_column_says_how_each_trusted_label_was_obtained() {
+        let text = "x,label,trusted,trusted_origin\n1,a,a,review\n2,b,,\n3,b,a,\n4,a,b,control\n";
+        let d = load(text, &TableOptions::default()).unwrap();
+        assert_eq!(d.origin_column.as_deref(), Some("trusted_origin"));
+        assert_eq!(d.feature_names, ["x"], "the origin column is not a feature");
+        let origins: Vec<Origin> = (0..4).map(|r| d.origin(r)).collect();
+        let expected = [
+            Origin::Review,
+            Origin::Audit,
+            Origin::Audit,
+            Origin::Control,
+        ];
+        assert_eq!(origins, expected);
+        assert_eq!(d.randomly_audited(), Some(vec![None, None, Some(0), None]));
+        assert_eq!(d.trusted_by_origin(), [1, 1, 1]);
+        let plain = load("x,label,trusted\n1,a,a\n2,b,\n", &TableOptions::default()).unwrap();
+        assert_eq!(plain.origin(0), Origin::Audit);
+        assert_eq!(plain.trusted_by_origin(), [1, 0, 0]);
     }
 
     #[test]

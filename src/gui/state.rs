@@ -16,22 +16,26 @@ use crate::data::roles::ColumnPlan;
 use crate::data::{Dataset, ProbOptions, TableOptions};
 use crate::error::Error;
 use crate::io::model::{write_model, ModelFile, Provenance, TrainingSettings};
+use crate::io::review::{read_key, read_review, write_merged, Review};
 use crate::io::session::{
     read_session, write_session, EstimatorName, MatrixOrigin, Roles, Session, SessionMatrix,
     Settings,
 };
-use crate::io::worklist::{read_review, write_merged, write_worklist, Review};
+use crate::io::worklist::{key_path, write_blind, write_key, Item};
 use crate::io::{check_not_input, write_atomic};
 use crate::learn::train::Correction;
 use crate::learn::{OofParams, SoftmaxParams};
 use crate::noise::bootstrap::Interval;
 use crate::noise::matrix::{load_matrix_csv, write_matrix_csv};
 use crate::noise::posterior::Flip;
+use crate::noise::scores::RowScore;
 use crate::noise::scores::ScoreKind;
 use crate::noise::{Diagnostics, Method};
 use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareSettings, Comparison, MatrixChoice,
 };
+use crate::workflow::review::{summarise, ReviewSummary};
+use crate::workflow::worklist::{split_budget, with_control, DEFAULT_CONTROL_SHARE};
 use crate::workflow::{self, RowProbabilities};
 
 /// How serious a message is.
@@ -88,6 +92,8 @@ pub struct ReviewRead {
     pub confirmed: usize,
     /// Verdicts that change it.
     pub changed: usize,
+    /// What the review measured.
+    pub summary: ReviewSummary,
 }
 
 /// What a finished job hands back. Each result carries the data generation (and, where
@@ -758,19 +764,6 @@ impl AppState {
         };
     }
 
-    /// The worklist rows: the visible rows up to the budget.
-    pub fn worklist(&self) -> Vec<crate::noise::scores::RowScore> {
-        let Some(r) = &self.ranking else {
-            return Vec::new();
-        };
-        let budget = self.session.settings.budget;
-        self.visible
-            .iter()
-            .take(budget)
-            .map(|&i| r.ranked[i as usize])
-            .collect()
-    }
-
     // ---- suspects and review ----------------------------------------------------------
 
     fn export_worklist(&mut self, path: PathBuf) {
@@ -783,11 +776,36 @@ impl AppState {
                 "the suspects are still being ranked; export again in a moment",
             );
         }
-        let rows = self.worklist();
+        let (Some(ranking), Some(filter)) = (self.ranking.clone(), Some(self.filter())) else {
+            return;
+        };
+        let settings = &self.session.settings;
+        let (suspects, control) = split_budget(settings.budget, DEFAULT_CONTROL_SHARE);
+        let listed: Vec<(RowScore, usize)> = self
+            .visible
+            .iter()
+            .take(suspects)
+            .map(|&i| (ranking.ranked[i as usize], i as usize + 1))
+            .collect();
         let inputs = self.input_paths();
-        let kind = self.session.settings.score;
-        self.save_job(path, inputs, move |w| {
-            write_worklist(w, &data, kind, &rows, false)
+        let (kind, seed) = (settings.score, settings.seed);
+        self.jobs.spawn(JobKind::Save, move |_| {
+            let items = ranked_with_control(&ranking, &data, &listed, control, seed, &filter);
+            let key = key_path(&path);
+            let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+            for target in [&path, &key] {
+                check_not_input(target, &refs).map_err(fail)?;
+            }
+            write_atomic(&key, |w| write_key(w, &data, kind, &items)).map_err(fail)?;
+            write_atomic(&path, |w| write_blind(w, &data, &items, false)).map_err(fail)?;
+            Ok(JobOutput::Saved(format!(
+                "wrote {} ({} suspects and {} control rows, shuffled) and its key {}: keep the key \
+                 from the reviewers",
+                path.display(),
+                listed.len(),
+                items.len() - listed.len(),
+                key.display()
+            )))
         });
     }
 
@@ -803,14 +821,19 @@ impl AppState {
                     source,
                 })
             })?;
-            let review = read_review(file, &path, &data).map_err(fail)?;
-            let confirmed = review.confirmed(&data);
-            let changed = review.changed(&data);
+            let mut review = read_review(file, &path, &data).map_err(fail)?;
+            let key_file = key_path(&path);
+            let key = match std::fs::File::open(&key_file) {
+                Ok(file) => Some(read_key(file, &key_file, &data).map_err(fail)?),
+                Err(_) => None,
+            };
+            let summary = summarise(&data, &mut review, key.as_ref());
             let read = ReviewRead {
                 path,
                 review: Arc::new(review),
-                confirmed,
-                changed,
+                confirmed: summary.confirmed,
+                changed: summary.changed,
+                summary,
             };
             Ok(JobOutput::Reviewed(read, generation))
         });
@@ -1091,4 +1114,29 @@ pub fn table_options(roles: &Roles) -> Result<TableOptions, String> {
         exclude: Vec::new(),
         unlabeled: false,
     })
+}
+
+/// The listed rows of the app's worklist plus `control` control rows drawn from the rows
+/// the filter's class choices allow, with their verdicts and ranks from the ranking.
+fn ranked_with_control(
+    ranking: &Ranking,
+    data: &Dataset,
+    listed: &[(RowScore, usize)],
+    control: usize,
+    seed: u64,
+    filter: &Filter,
+) -> Vec<Item> {
+    let mut position = vec![0usize; ranking.ranked.len()];
+    for (i, s) in ranking.ranked.iter().enumerate() {
+        position[s.row] = i;
+    }
+    with_control(
+        listed,
+        data.rows(),
+        control,
+        seed,
+        |r| filter.observed.is_none_or(|c| data.labels[r] == c),
+        |rows| rows.iter().map(|&r| ranking.ranked[position[r]]).collect(),
+        |rows| rows.iter().map(|&r| position[r] + 1).collect(),
+    )
 }

@@ -2,6 +2,7 @@
 //! the worklist files exchanged with annotators.
 
 pub mod model;
+pub mod review;
 pub mod session;
 pub mod worklist;
 

@@ -17,6 +17,54 @@ pub fn accuracy(predicted: &[usize], reference: &[usize]) -> Option<f64> {
     })
 }
 
+/// The normal quantile of a two-sided 90 % interval.
+pub const Z_90: f64 = 1.644_853_626_951_472_2;
+
+/// A proportion with its interval.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Proportion {
+    /// Successes.
+    pub count: usize,
+    /// Trials.
+    pub of: usize,
+    /// count / of.
+    pub value: f64,
+    /// Lower end of the 90 % Wilson score interval.
+    pub low: f64,
+    /// Upper end.
+    pub high: f64,
+}
+
+impl Proportion {
+    /// `count` of `of` with its 90 % Wilson score interval; `None` without trials.
+    pub fn of(count: usize, of: usize) -> Option<Proportion> {
+        let (low, high) = wilson(count, of, Z_90)?;
+        Some(Proportion {
+            count,
+            of,
+            value: count as f64 / of as f64,
+            low,
+            high,
+        })
+    }
+}
+
+/// The Wilson score interval of `successes` in `trials` at normal quantile `z` (Wilson
+/// 1927; Newcombe 1998, method 3). Unlike p̂ ± z·se it stays inside [0, 1] and does not
+/// collapse to a point at 0 or n successes, which matters for small review samples.
+pub fn wilson(successes: usize, trials: usize, z: f64) -> Option<(f64, f64)> {
+    if trials == 0 {
+        return None;
+    }
+    let n = trials as f64;
+    let p = successes as f64 / n;
+    let z2 = z * z;
+    let denominator = 1.0 + z2 / n;
+    let centre = (p + z2 / (2.0 * n)) / denominator;
+    let half = z * (p * (1.0 - p) / n + z2 / (4.0 * n * n)).sqrt() / denominator;
+    Some(((centre - half).max(0.0), (centre + half).min(1.0)))
+}
+
 /// Counts with rows = reference class, columns = predicted class.
 pub fn confusion(predicted: &[usize], reference: &[usize], classes: usize) -> Array2<usize> {
     let mut c = Array2::zeros((classes, classes));
@@ -72,6 +120,30 @@ pub fn estimated_clean_accuracy(
 mod tests {
     use super::*;
     use ndarray::array;
+
+    #[test]
+    fn wilson_intervals_match_newcombes_worked_examples() {
+        // Newcombe (Statistics in Medicine 1998, Table I, method 3, 95 %), values from
+        // memory of the paper: 81/263 → 0.2553–0.3662, 15/148 → 0.0624–0.1605,
+        // 0/20 → 0–0.1611, 1/29 → 0.0061–0.1718.
+        let z95 = 1.959_963_984_540_054;
+        let cases = [
+            (81, 263, 0.2553, 0.3662),
+            (15, 148, 0.0624, 0.1605),
+            (0, 20, 0.0, 0.1611),
+            (1, 29, 0.0061, 0.1718),
+        ];
+        for (x, n, low, high) in cases {
+            let (l, h) = wilson(x, n, z95).unwrap();
+            assert!(
+                (l - low).abs() < 6e-5 && (h - high).abs() < 6e-5,
+                "{x}/{n}: {l} {h}"
+            );
+        }
+        assert_eq!(wilson(0, 0, z95), None);
+        let p = Proportion::of(3, 25).unwrap();
+        assert!(p.low < 0.12 && 0.12 < p.high && p.value == 0.12);
+    }
 
     #[test]
     fn confusion_and_recall() {

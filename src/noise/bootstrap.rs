@@ -58,6 +58,7 @@ pub fn bootstrap(
                 probs: base.probs.reborrow(),
                 labels: base.labels,
                 trusted: base.trusted,
+                origins: base.origins,
                 rows: &rows[..],
             };
             estimate(method, &sample, classes).map(|e| e.matrix)
@@ -106,6 +107,7 @@ mod tests {
             probs: probs.view(),
             labels: &labels,
             trusted: None,
+            origins: None,
             rows: &rows,
         };
         let classes = vec!["a".to_string(), "b".to_string()];

@@ -9,6 +9,7 @@ use rayon::prelude::*;
 
 use super::joint::{fit_joint, JointFit, JointParams, DEFAULT_VOLUME_SCALE};
 use super::matrix::{normalize_rows, validate};
+use crate::data::origin::Origin;
 use crate::error::{Error, Result};
 
 /// The quantile the quantile estimator uses unless told otherwise (command line and app).
@@ -91,8 +92,18 @@ pub struct Sample<'a> {
     pub labels: &'a [usize],
     /// Trusted label of every row, where audited.
     pub trusted: Option<&'a [Option<usize>]>,
+    /// How each trusted label was obtained (`None`: every one by a random audit). The
+    /// trusted estimator averages only random audits; the joint fit uses every one.
+    pub origins: Option<&'a [Origin]>,
     /// Which rows to use (repeats allowed, as in a bootstrap resample).
     pub rows: &'a [usize],
+}
+
+impl Sample<'_> {
+    /// True when row `r`'s trusted label (if any) came from a random audit.
+    pub fn at_random(&self, r: usize) -> bool {
+        self.origins.is_none_or(|o| o[r].is_random_sample())
+    }
 }
 
 /// An estimated matrix and what the user should know about it.
@@ -338,7 +349,7 @@ fn trusted(
             let mut sums = Array2::<f64>::zeros((k, k));
             let mut counts = vec![0usize; k];
             for &r in rows {
-                if let Some(class) = trusted[r] {
+                if let Some(class) = trusted[r].filter(|_| sample.at_random(r)) {
                     counts[class] += 1;
                     for (s, &v) in sums.row_mut(class).iter_mut().zip(sample.probs.row(r)) {
                         *s += v as f64;
@@ -357,11 +368,23 @@ fn trusted(
                 (s, c)
             },
         );
+    let chosen = sample
+        .rows
+        .iter()
+        .filter(|&&r| trusted[r].is_some() && !sample.at_random(r))
+        .count();
+    if chosen > 0 {
+        notes.push(format!(
+            "{chosen} trusted label(s) from reviews left out of the trusted estimate: those rows \
+             were chosen, not drawn at random, so their average would be biased"
+        ));
+    }
     let missing: Vec<usize> = (0..k).filter(|&c| counts[c] == 0).collect();
     if !missing.is_empty() && fallback.is_none() {
         let names: Vec<&str> = missing.iter().map(|&c| classes[c].as_str()).collect();
         return Err(Error::Usage(format!(
-            "no trusted rows for the class(es) {}; audit some, or pass --fallback quantile",
+            "no trusted rows for the class(es) {} from a random audit; audit some at random, or \
+             pass --fallback quantile",
             names.join(", ")
         )));
     }
@@ -376,7 +399,8 @@ fn trusted(
         for &c in &missing {
             t.row_mut(c).assign(&by_quantile.row(c));
             notes.push(format!(
-                "class '{}' has no trusted rows; its row comes from the {q} quantile estimator",
+                "class '{}' has no trusted rows from a random audit; its row comes from the {q} \
+                 quantile estimator",
                 classes[c]
             ));
         }
@@ -518,6 +542,7 @@ mod tests {
             probs: p.view(),
             labels,
             trusted,
+            origins: None,
             rows: &rows,
         };
         estimate(&method, &sample, &names())
@@ -563,6 +588,43 @@ mod tests {
         );
         let mut column = vec![0.05f32, 0.9, 0.1, 0.1, 0.2, 0.3, 0.6, 0.7];
         assert_eq!(quantile_higher(&mut column, 0.8), 0.7);
+    }
+
+    #[test]
+    fn trusted_averages_only_the_rows_audited_at_random() {
+        // The audit of trusted_averages_the_audited_rows plus rows 1 and 4 reviewed (as a
+        // and as c): reviewed rows were chosen, so the average leaves them out and says so.
+        let (p, y) = eight();
+        let trusted = [
+            Some(0),
+            Some(0),
+            Some(0),
+            Some(1),
+            Some(2),
+            None,
+            Some(2),
+            Some(2),
+        ];
+        let mut origins = [Origin::Audit; 8];
+        origins[1] = Origin::Review;
+        origins[4] = Origin::Control;
+        let rows: Vec<usize> = (0..8).collect();
+        let sample = Sample {
+            probs: p.view(),
+            labels: &y,
+            trusted: Some(&trusted),
+            origins: Some(&origins),
+            rows: &rows,
+        };
+        let method = Method::Trusted {
+            fallback_quantile: None,
+        };
+        let e = estimate(&method, &sample, &names()).unwrap();
+        close(
+            &e.matrix,
+            &[[0.75, 0.175, 0.075], [0.10, 0.80, 0.10], [0.20, 0.30, 0.50]],
+        );
+        assert!(e.notes[0].starts_with("2 trusted label(s) from reviews left out"));
     }
 
     #[test]

@@ -8,6 +8,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use ndarray::{Array2, ArrayView2, Axis};
 use serde::Serialize;
 
+use crate::data::origin::Origin;
 use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
 use crate::io::model::FitSummary;
@@ -283,7 +284,9 @@ fn corrections_none_first(asked: &[Correction]) -> Vec<Correction> {
     list
 }
 
-/// (holdout index, trusted label) of the holdout rows that have one.
+/// (holdout index, trusted label) of the holdout rows that have one from a random audit:
+/// reviewed rows were chosen because they looked wrong, so accuracy on them would not be
+/// accuracy on the table.
 fn trusted_pairs(data: &Dataset, holdout: &[usize]) -> Vec<(usize, usize)> {
     data.trusted
         .as_ref()
@@ -291,6 +294,7 @@ fn trusted_pairs(data: &Dataset, holdout: &[usize]) -> Vec<(usize, usize)> {
             holdout
                 .iter()
                 .enumerate()
+                .filter(|&(_, &r)| data.origin(r).is_random_sample())
                 .filter_map(|(i, &r)| t[r].map(|l| (i, l)))
                 .collect()
         })
@@ -345,6 +349,7 @@ struct Part {
     x: Array2<f64>,
     labels: Vec<usize>,
     trusted: Option<Vec<Option<usize>>>,
+    origins: Option<Vec<Origin>>,
 }
 
 impl Part {
@@ -356,6 +361,10 @@ impl Part {
                 .trusted
                 .as_ref()
                 .map(|t| rows.iter().map(|&r| t[r]).collect()),
+            origins: data
+                .trusted_origins
+                .as_ref()
+                .map(|o| rows.iter().map(|&r| o[r]).collect()),
         }
     }
 
@@ -373,6 +382,7 @@ impl Part {
                     probs: probs.view(),
                     labels: &self.labels,
                     trusted: self.trusted.as_deref(),
+                    origins: self.origins.as_deref(),
                     rows: &rows,
                 };
                 let e = estimate(method, &sample, classes)?;

@@ -2,6 +2,8 @@
 //! probabilities, then a flip matrix, then its diagnostics.
 
 pub mod compare;
+pub mod review;
+pub mod worklist;
 
 use std::path::{Path, PathBuf};
 
@@ -136,6 +138,7 @@ pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) 
         probs: probs.view(),
         labels: &data.labels,
         trusted: data.trusted.as_deref(),
+        origins: data.trusted_origins.as_deref(),
         rows,
     }
 }

@@ -14,6 +14,7 @@ use crate::gui::jobs::JobKind;
 use crate::gui::state::AppState;
 use crate::io::worklist::WORKLIST_COLUMNS;
 use crate::noise::scores::ScoreKind;
+use crate::workflow::review::{ReviewSummary, SliceResult};
 
 /// Draws the view.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
@@ -211,6 +212,9 @@ fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: 
             r.changed,
             r.review.not_reviewed
         ));
+        for line in review_findings(&r.summary) {
+            ui.label(line);
+        }
         ui.label("Write a copy of the data with the verdicts in the trusted column, and load it:");
         if let Some(path) = path_row(
             ui,
@@ -222,4 +226,35 @@ fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: 
             out.push(Command::SaveMerged(path));
         }
     }
+}
+
+/// The review's measurements in words: precision of the listed rows, the error rate of
+/// the control rows and what it implies for the rows not listed, and any note.
+fn review_findings(s: &ReviewSummary) -> Vec<String> {
+    let rate = |what: &str, r: &SliceResult| {
+        format!(
+            "{what}: {} of {} wrong ({:.0} %, 90 % interval {:.0}–{:.0} %){}",
+            r.wrong.count,
+            r.wrong.of,
+            100.0 * r.wrong.value,
+            100.0 * r.wrong.low,
+            100.0 * r.wrong.high,
+            r.expected
+                .map_or(String::new(), |e| format!("; expected {:.0} %", 100.0 * e))
+        )
+    };
+    let mut lines = Vec::new();
+    if let Some(l) = &s.listed {
+        lines.push(rate("listed suspects", l));
+    }
+    if let Some(c) = &s.control {
+        lines.push(rate("control rows", c));
+    }
+    if let (Some((low, mid, high)), Some(n)) = (s.missed_errors, s.unlisted_rows) {
+        lines.push(format!(
+            "about {mid:.0} wrong labels left among the {n} rows not listed (90 % interval {low:.0}–{high:.0})"
+        ));
+    }
+    lines.extend(s.notes.iter().map(|n| format!("note: {n}")));
+    lines
 }

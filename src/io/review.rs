@@ -1,0 +1,430 @@
+//! A reviewed worklist read back (and its key, which says which rows were control rows),
+//! and the merged copy of the dataset that carries the verdicts as trusted labels with
+//! their origin.
+
+use std::collections::hash_map::Entry;
+use std::io::{Read, Write};
+use std::path::Path;
+
+use rustc_hash::FxHashMap as HashMap;
+
+use crate::data::origin::{origin_column, Origin};
+use crate::data::Dataset;
+use crate::error::{shorten, Error, Location, Problem, Result};
+use crate::io::worklist::Slice;
+
+/// The review word that confirms the observed label.
+pub const KEEP: &str = "keep";
+
+/// One reviewed row.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Verdict {
+    /// 0-based data row.
+    pub row: usize,
+    /// The verified class.
+    pub label: usize,
+    /// Worklist line it came from.
+    pub line: u64,
+    /// How the row came to be reviewed: a listed suspect unless the worklist's key says
+    /// it was a control row.
+    pub origin: Origin,
+}
+
+/// What a worklist's key says about one row.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct KeyRow {
+    /// Listed suspect or control row.
+    pub slice: Slice,
+    /// flipmend's probability that its label was wrong, when the score was one.
+    pub p_wrong: Option<f64>,
+}
+
+/// A worklist's key: which rows were listed and which were control rows.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Key {
+    /// By data row.
+    pub rows: HashMap<usize, KeyRow>,
+}
+
+impl Key {
+    /// Rows of each slice on the worklist, (listed, control).
+    pub fn counts(&self) -> (usize, usize) {
+        let control = self
+            .rows
+            .values()
+            .filter(|k| k.slice == Slice::Control)
+            .count();
+        (self.rows.len() - control, control)
+    }
+}
+
+/// What a reviewed worklist says.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Review {
+    /// One verdict per reviewed row, in worklist order.
+    pub verdicts: Vec<Verdict>,
+    /// Worklist rows left blank.
+    pub not_reviewed: usize,
+}
+
+impl Review {
+    /// Gives each verdict the origin its key row says; returns how many verdicts the key
+    /// does not know (they stay reviews of suspects, the safe reading).
+    pub fn apply_key(&mut self, key: &Key) -> usize {
+        let mut unknown = 0;
+        for v in &mut self.verdicts {
+            match key.rows.get(&v.row) {
+                Some(k) => v.origin = k.slice.origin(),
+                None => unknown += 1,
+            }
+        }
+        unknown
+    }
+
+    /// Verdicts that confirm the observed label.
+    pub fn confirmed(&self, data: &Dataset) -> usize {
+        self.verdicts
+            .iter()
+            .filter(|v| data.labels[v.row] == v.label)
+            .count()
+    }
+
+    /// Verdicts that change it.
+    pub fn changed(&self, data: &Dataset) -> usize {
+        self.verdicts.len() - self.confirmed(data)
+    }
+}
+
+/// Reads a reviewed worklist for `data`. The `row` and `review` columns are required;
+/// `id` and `observed`, when present, must agree with the data (so a worklist made from
+/// another version of the file is caught).
+pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Review> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .from_reader(reader);
+    let mut records = rdr.records();
+    let syntax = crate::error::csv_syntax(path);
+    let header: Vec<String> = match records.next() {
+        Some(r) => r
+            .map_err(syntax)?
+            .iter()
+            .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
+            .collect(),
+        None => return Err(Error::input(Location::file(path), Problem::Empty)),
+    };
+    let find = |name: &str| header.iter().position(|h| h == name);
+    let (Some(row_col), Some(review_col)) = (find("row"), find("review")) else {
+        let detail = format!(
+            "a reviewed worklist needs the columns 'row' and 'review'; this header has: {}",
+            header.join(", ")
+        );
+        return Err(Error::input(
+            Location::line(path, 1),
+            Problem::Review { detail },
+        ));
+    };
+    let (id_col, observed_col) = (find("id"), find("observed"));
+    let mut seen: HashMap<usize, (usize, u64)> = HashMap::default();
+    let mut review = Review {
+        verdicts: Vec::new(),
+        not_reviewed: 0,
+    };
+    for record in records {
+        let record = record.map_err(syntax)?;
+        let line = record.position().map_or(0, |p| p.line());
+        let bad = |col: usize, detail: String| {
+            Error::input(
+                Location::line(path, line).at_column(col, &header[col]),
+                Problem::Review { detail },
+            )
+        };
+        let cell = |col: usize| record.get(col).unwrap_or("").trim();
+        let row = cell(row_col)
+            .parse::<usize>()
+            .ok()
+            .filter(|&r| r < data.rows())
+            .ok_or_else(|| {
+                bad(
+                    row_col,
+                    format!(
+                        "'{}' is not a data row (0 to {})",
+                        shorten(cell(row_col)),
+                        data.rows() - 1
+                    ),
+                )
+            })?;
+        if let Some(col) = id_col {
+            if cell(col) != data.id(row) {
+                return Err(bad(
+                    col,
+                    format!(
+                        "row {row} has the id '{}' in the data, not '{}'",
+                        data.id(row),
+                        shorten(cell(col))
+                    ),
+                ));
+            }
+        }
+        if let Some(col) = observed_col {
+            let observed = &data.classes[data.labels[row]];
+            if cell(col) != observed {
+                return Err(bad(
+                    col,
+                    format!(
+                        "row {row} is labelled '{observed}' in the data, not '{}'",
+                        shorten(cell(col))
+                    ),
+                ));
+            }
+        }
+        let verdict = cell(review_col);
+        if verdict.is_empty() {
+            review.not_reviewed += 1;
+            continue;
+        }
+        let label = if verdict.eq_ignore_ascii_case(KEEP) {
+            data.labels[row]
+        } else {
+            data.classes.iter().position(|c| c == verdict).ok_or_else(|| {
+                bad(review_col, format!(
+                    "'{}' is not a class; write one of {}, or '{KEEP}' to confirm the observed label, or leave it empty",
+                    shorten(verdict),
+                    data.classes.join(", ")
+                ))
+            })?
+        };
+        match seen.entry(row) {
+            Entry::Occupied(first) => {
+                let (earlier, first_line) = *first.get();
+                if earlier != label {
+                    return Err(bad(
+                        review_col,
+                        format!(
+                            "row {row} was reviewed as '{}' on line {first_line}, and as '{}' here",
+                            data.classes[earlier], data.classes[label]
+                        ),
+                    ));
+                }
+            }
+            Entry::Vacant(slot) => {
+                slot.insert((label, line));
+                review.verdicts.push(Verdict {
+                    row,
+                    label,
+                    line,
+                    origin: Origin::Review,
+                });
+            }
+        }
+    }
+    Ok(review)
+}
+
+/// Copies the dataset file to `out`, putting each verdict into the trusted column (a
+/// new last column `trusted` when the data has none) and its origin into the origin
+/// column (`trusted_origin`, added likewise). A row that already had a trusted label keeps
+/// its origin: it was chosen by that audit, not by this review. Every other cell is
+/// copied as read.
+pub fn write_merged(
+    out: &mut dyn Write,
+    data: &Dataset,
+    delimiter: u8,
+    review: &Review,
+) -> std::io::Result<()> {
+    let file = std::fs::File::open(&data.path)?;
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .delimiter(delimiter)
+        .from_reader(file);
+    let mut w = csv::WriterBuilder::new()
+        .delimiter(delimiter)
+        .from_writer(out);
+    let verdicts: HashMap<usize, (usize, Origin)> = review
+        .verdicts
+        .iter()
+        .map(|v| (v.row, (v.label, v.origin)))
+        .collect();
+    let mut record = csv::ByteRecord::new();
+    if !rdr.read_byte_record(&mut record)? {
+        return Ok(());
+    }
+    let position = |name: &Option<String>| {
+        name.as_ref()
+            .and_then(|name| data.header.iter().position(|h| h == name))
+    };
+    let trusted_name = data
+        .trusted_column
+        .clone()
+        .unwrap_or_else(|| crate::data::roles::DEFAULT_TRUSTED.to_string());
+    let (trusted_field, new_trusted) = match position(&data.trusted_column) {
+        Some(i) => (i, false),
+        None => {
+            record.push_field(trusted_name.as_bytes());
+            (record.len() - 1, true)
+        }
+    };
+    let (origin_field, new_origin) = match position(&data.origin_column) {
+        Some(i) => (i, false),
+        None => {
+            record.push_field(origin_column(&trusted_name).as_bytes());
+            (record.len() - 1, true)
+        }
+    };
+    w.write_byte_record(&record)?;
+    let mut row = 0usize;
+    let mut fields: Vec<Vec<u8>> = Vec::new();
+    while rdr.read_byte_record(&mut record)? {
+        fields.clear();
+        fields.extend(record.iter().map(<[u8]>::to_vec));
+        fields.extend((0..usize::from(new_trusted) + usize::from(new_origin)).map(|_| Vec::new()));
+        if let Some(&(label, origin)) = verdicts.get(&row) {
+            let had_label = data.trusted.as_ref().is_some_and(|t| t[row].is_some());
+            let origin = if had_label { data.origin(row) } else { origin };
+            if let Some(cell) = fields.get_mut(trusted_field) {
+                *cell = data.classes[label].as_bytes().to_vec();
+            }
+            if let Some(cell) = fields.get_mut(origin_field) {
+                *cell = origin.name().as_bytes().to_vec();
+            }
+        }
+        w.write_record(&fields)?;
+        row += 1;
+    }
+    w.flush()
+}
+
+/// Reads a worklist's key for `data`: the `row` and `slice` columns are required; `id`,
+/// when present, must agree with the data, and `p_wrong` is read when it has a value.
+pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .from_reader(reader);
+    let mut records = rdr.records();
+    let syntax = crate::error::csv_syntax(path);
+    let header: Vec<String> = match records.next() {
+        Some(r) => r
+            .map_err(syntax)?
+            .iter()
+            .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
+            .collect(),
+        None => return Err(Error::input(Location::file(path), Problem::Empty)),
+    };
+    let find = |name: &str| header.iter().position(|h| h == name);
+    let (Some(row_col), Some(slice_col)) = (find("row"), find("slice")) else {
+        let detail = format!(
+            "a worklist key needs the columns 'row' and 'slice'; this header has: {}",
+            header.join(", ")
+        );
+        return Err(Error::input(
+            Location::line(path, 1),
+            Problem::Review { detail },
+        ));
+    };
+    let (id_col, p_col) = (find("id"), find("p_wrong"));
+    let mut key = Key::default();
+    for record in records {
+        let record = record.map_err(syntax)?;
+        let line = record.position().map_or(0, |p| p.line());
+        let bad = |col: usize, detail: String| {
+            Error::input(
+                Location::line(path, line).at_column(col, &header[col]),
+                Problem::Review { detail },
+            )
+        };
+        let cell = |col: usize| record.get(col).unwrap_or("").trim();
+        let row = data_row(cell(row_col), data).ok_or_else(|| {
+            bad(
+                row_col,
+                format!("'{}' is not a data row", shorten(cell(row_col))),
+            )
+        })?;
+        if let Some(col) = id_col.filter(|&c| cell(c) != data.id(row)) {
+            return Err(bad(
+                col,
+                format!(
+                    "row {row} has the id '{}' in the data, not '{}': is this the key of \
+                     another table's worklist?",
+                    data.id(row),
+                    shorten(cell(col))
+                ),
+            ));
+        }
+        let slice = Slice::parse(cell(slice_col)).ok_or_else(|| {
+            bad(
+                slice_col,
+                format!(
+                    "'{}' is not a slice; write listed or control",
+                    shorten(cell(slice_col))
+                ),
+            )
+        })?;
+        let p_wrong = p_col.and_then(|c| cell(c).parse::<f64>().ok());
+        key.rows.insert(row, KeyRow { slice, p_wrong });
+    }
+    Ok(key)
+}
+
+/// A 0-based data row number of `data`, from a cell.
+fn data_row(cell: &str, data: &Dataset) -> Option<usize> {
+    cell.parse::<usize>().ok().filter(|&r| r < data.rows())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::data::TableOptions;
+
+    fn data() -> Dataset {
+        let text = "id,x,label\nr0,1,cat\nr1,2,dog\nr2,3,cat\n";
+        Dataset::from_reader(
+            text.as_bytes(),
+            Path::new("d.csv"),
+            None,
+            &TableOptions::default(),
+        )
+        .unwrap()
+    }
+
+    fn read(text: &str) -> Result<Review> {
+        read_review(text.as_bytes(), Path::new("w.csv"), &data())
+    }
+
+    #[test]
+    fn verdicts_keep_and_blank() {
+        let r = read("rank,row,id,observed,review\n1,1,r1,dog,cat\n2,0,r0,cat,KEEP\n3,2,r2,cat,\n")
+            .unwrap();
+        assert_eq!(
+            r.verdicts
+                .iter()
+                .map(|v| (v.row, v.label))
+                .collect::<Vec<_>>(),
+            vec![(1, 0), (0, 0)]
+        );
+        assert_eq!(r.not_reviewed, 1);
+        assert_eq!((r.confirmed(&data()), r.changed(&data())), (1, 1));
+    }
+
+    #[test]
+    fn malformed_reviews_name_line_and_column() {
+        let e = |t: &str| read(t).unwrap_err().to_string();
+        assert!(e("rank,id\n").contains("needs the columns 'row' and 'review'"));
+        assert!(e("row,review\n7,cat\n")
+            .contains("w.csv, line 2, column 1 'row': '7' is not a data row (0 to 2)"));
+        assert!(e("row,review\nx,cat\n").contains("'x' is not a data row"));
+        assert!(e("row,id,review\n1,r9,cat\n")
+            .contains("column 2 'id': row 1 has the id 'r1' in the data, not 'r9'"));
+        assert!(
+            e("row,observed,review\n1,cat,cat\n").contains("row 1 is labelled 'dog' in the data")
+        );
+        assert!(e("row,review\n1,bird\n").contains("column 2 'review': 'bird' is not a class"));
+        assert!(e("row,review\n1,cat\n1,dog\n")
+            .contains("line 3, column 2 'review': row 1 was reviewed as 'cat' on line 2"));
+        assert!(
+            read("row,review\n1,cat\n1,cat\n").is_ok(),
+            "a repeated identical verdict is fine"
+        );
+    }
+}

@@ -1,0 +1,222 @@
+//! What a review round measured: the precision of the listed suspects, the error rate
+//! among the rows the list left out (from the control rows), and how both compare with
+//! what flipmend expected. Both front ends summarise a review here.
+
+use serde::Serialize;
+
+use crate::data::origin::Origin;
+use crate::data::Dataset;
+use crate::io::review::{Key, Review};
+use crate::learn::metrics::Proportion;
+
+/// One slice of a review: how many of its reviewed rows had a wrong label.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct SliceResult {
+    /// Wrong labels among the reviewed rows, with a 90 % Wilson interval.
+    pub wrong: Proportion,
+    /// The mean probability of a wrong label flipmend gave these rows (from the key).
+    pub expected: Option<f64>,
+}
+
+/// What a review round measured.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ReviewSummary {
+    /// Rows with a verdict.
+    pub reviewed: usize,
+    /// Verdicts that confirm the observed label.
+    pub confirmed: usize,
+    /// Verdicts that change it.
+    pub changed: usize,
+    /// Worklist rows left blank.
+    pub not_reviewed: usize,
+    /// Earlier trusted labels the review replaced with a different class.
+    pub replaced: usize,
+    /// The listed suspects: their precision.
+    pub listed: Option<SliceResult>,
+    /// The control rows: the error rate among the rows not listed.
+    pub control: Option<SliceResult>,
+    /// Rows the worklist did not list (with a key).
+    pub unlisted_rows: Option<usize>,
+    /// Wrong labels estimated to remain among them: the control rate times their number,
+    /// with its interval (low, estimate, high).
+    pub missed_errors: Option<(f64, f64, f64)>,
+    /// Things the user should know.
+    pub notes: Vec<String>,
+}
+
+/// Summarises `review` of `data`; with the worklist's `key`, the verdicts get their
+/// origins (control rows become [`Origin::Control`]) and the control slice is measured.
+pub fn summarise(data: &Dataset, review: &mut Review, key: Option<&Key>) -> ReviewSummary {
+    let mut notes = Vec::new();
+    match key {
+        Some(key) => {
+            let unknown = review.apply_key(key);
+            if unknown > 0 {
+                notes.push(format!(
+                    "{unknown} reviewed row(s) are not in the key; they count as reviewed suspects"
+                ));
+            }
+        }
+        None => notes.push(
+            "no key: every reviewed row counts as a reviewed suspect (chosen, not random), and \
+             what the list missed is not measured"
+                .into(),
+        ),
+    }
+    let slice = |origin: Origin| -> Option<SliceResult> {
+        let verdicts: Vec<_> = review
+            .verdicts
+            .iter()
+            .filter(|v| v.origin == origin)
+            .collect();
+        let wrong = verdicts
+            .iter()
+            .filter(|v| v.label != data.labels[v.row])
+            .count();
+        let p: Vec<f64> = verdicts
+            .iter()
+            .filter_map(|v| key?.rows.get(&v.row)?.p_wrong)
+            .collect();
+        let expected = (!p.is_empty() && p.len() == verdicts.len())
+            .then(|| p.iter().sum::<f64>() / p.len() as f64);
+        Some(SliceResult {
+            wrong: Proportion::of(wrong, verdicts.len())?,
+            expected,
+        })
+    };
+    let listed = slice(Origin::Review);
+    let control = slice(Origin::Control);
+    let unlisted_rows = key.map(|k| data.rows() - k.counts().0);
+    let missed_errors = control.zip(unlisted_rows).map(|(c, n)| {
+        let n = n as f64;
+        (c.wrong.low * n, c.wrong.value * n, c.wrong.high * n)
+    });
+    if let (Some(l), Some(expected)) = (listed, listed.and_then(|l| l.expected)) {
+        if expected < l.wrong.low || expected > l.wrong.high {
+            notes.push(format!(
+                "flipmend expected {:.0} % of the listed rows to be wrong; the review found {:.0} % \
+                 (90 % interval {:.0}–{:.0} %): its probabilities are {} here",
+                100.0 * expected,
+                100.0 * l.wrong.value,
+                100.0 * l.wrong.low,
+                100.0 * l.wrong.high,
+                if expected > l.wrong.high {
+                    "too confident"
+                } else {
+                    "too cautious"
+                }
+            ));
+        }
+    }
+    ReviewSummary {
+        reviewed: review.verdicts.len(),
+        confirmed: review.confirmed(data),
+        changed: review.changed(data),
+        not_reviewed: review.not_reviewed,
+        replaced: replaced(data, review),
+        listed,
+        control,
+        unlisted_rows,
+        missed_errors,
+        notes,
+    }
+}
+
+/// Earlier trusted labels that a verdict changes.
+fn replaced(data: &Dataset, review: &Review) -> usize {
+    review
+        .verdicts
+        .iter()
+        .filter(|v| {
+            data.trusted
+                .as_ref()
+                .and_then(|t| t[v.row])
+                .is_some_and(|earlier| earlier != v.label)
+        })
+        .count()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::data::TableOptions;
+    use crate::io::review::{read_key, read_review};
+    use std::path::Path;
+
+    fn data() -> Dataset {
+        let mut text = String::from("id,x,label\n");
+        for r in 0..10 {
+            text.push_str(&format!(
+                "r{r},{r},{}\n",
+                if r % 2 == 0 { "cat" } else { "dog" }
+            ));
+        }
+        Dataset::from_reader(
+            text.as_bytes(),
+            Path::new("d.csv"),
+            None,
+            &TableOptions::default(),
+        )
+        .unwrap()
+    }
+
+    #[test]
+    fn the_key_splits_precision_from_the_missed_error_rate() {
+        // Rows 0–3 listed (p_wrong 0.9 each), rows 8 and 9 control. Reviewers change 3 of
+        // the 4 listed rows and 1 of the 2 control rows.
+        let d = data();
+        let key = "row,id,slice,p_wrong\n0,r0,listed,0.9\n1,r1,listed,0.9\n2,r2,listed,0.9\n\
+                   3,r3,listed,0.9\n8,r8,control,0.01\n9,r9,control,0.02\n";
+        let key = read_key(key.as_bytes(), Path::new("k.csv"), &d).unwrap();
+        let worklist = "row,review\n0,dog\n1,cat\n2,dog\n3,keep\n8,keep\n9,cat\n";
+        let mut review = read_review(worklist.as_bytes(), Path::new("w.csv"), &d).unwrap();
+        let s = summarise(&d, &mut review, Some(&key));
+        let listed = s.listed.unwrap();
+        assert_eq!((listed.wrong.count, listed.wrong.of), (3, 4));
+        assert!((listed.expected.unwrap() - 0.9).abs() < 1e-12);
+        let control = s.control.unwrap();
+        assert_eq!((control.wrong.count, control.wrong.of), (1, 2));
+        assert_eq!(s.unlisted_rows, Some(6));
+        let (low, mid, high) = s.missed_errors.unwrap();
+        assert!(low < mid && mid == 3.0 && high > mid);
+        let origins: Vec<Origin> = review.verdicts.iter().map(|v| v.origin).collect();
+        assert_eq!(origins[4..], [Origin::Control, Origin::Control]);
+        assert!(origins[..4].iter().all(|&o| o == Origin::Review));
+        assert!(s.notes.is_empty(), "{:?}", s.notes);
+    }
+
+    #[test]
+    fn without_a_key_every_verdict_is_a_reviewed_suspect() {
+        let d = data();
+        let mut review = read_review(
+            "row,review\n0,dog\n5,keep\n".as_bytes(),
+            Path::new("w.csv"),
+            &d,
+        )
+        .unwrap();
+        let s = summarise(&d, &mut review, None);
+        assert_eq!(s.listed.unwrap().wrong.count, 1);
+        assert_eq!(s.control, None);
+        assert_eq!(s.missed_errors, None);
+        assert!(s.notes[0].starts_with("no key"));
+    }
+
+    #[test]
+    fn a_confident_list_that_reviews_refute_is_flagged() {
+        let d = data();
+        let mut key = String::from("row,slice,p_wrong\n");
+        let mut worklist = String::from("row,review\n");
+        for r in 0..10 {
+            key.push_str(&format!("{r},listed,0.95\n"));
+            worklist.push_str(&format!("{r},keep\n"));
+        }
+        let key = read_key(key.as_bytes(), Path::new("k.csv"), &d).unwrap();
+        let mut review = read_review(worklist.as_bytes(), Path::new("w.csv"), &d).unwrap();
+        let s = summarise(&d, &mut review, Some(&key));
+        assert!(
+            s.notes.iter().any(|n| n.contains("too confident")),
+            "{:?}",
+            s.notes
+        );
+    }
+}
