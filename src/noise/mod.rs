@@ -4,6 +4,7 @@
 pub mod bootstrap;
 pub mod diagnostics;
 pub mod estimators;
+pub mod fit_check;
 pub mod joint;
 pub mod linalg;
 pub mod matrix;

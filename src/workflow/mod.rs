@@ -14,6 +14,7 @@ use crate::error::Result;
 use crate::learn::{out_of_fold, OofParams};
 use crate::noise::bootstrap::{bootstrap, Interval};
 use crate::noise::diagnostics::diagnose_with_expected;
+use crate::noise::fit_check::audit_disagreements;
 use crate::noise::matrix::load_matrix_csv;
 use crate::noise::posterior::{Flip, Posterior};
 use crate::noise::scores::ScoreKind;
@@ -192,14 +193,41 @@ pub fn diagnose_matrix_given(
     expected_mislabeled: Option<f64>,
 ) -> Diagnostics {
     let external = matches!(probs.source, ProbSource::File(_));
-    diagnose_with_expected(
+    let mut diagnostics = diagnose_with_expected(
         matrix,
         probs.values.view(),
         &data.labels,
         &data.classes,
         external,
         expected_mislabeled,
-    )
+    );
+    diagnostics.warnings.extend(audit_warnings(data, matrix));
+    diagnostics
+}
+
+/// A warning for each true class whose randomly audited rows contradict `matrix`.
+fn audit_warnings(data: &Dataset, matrix: &Array2<f64>) -> Vec<String> {
+    let Some(audited) = data.randomly_audited() else {
+        return Vec::new();
+    };
+    audit_disagreements(matrix, &data.labels, &audited)
+        .into_iter()
+        .map(|d| {
+            let (worst, seen, model) = d.worst;
+            format!(
+                "the {} randomly audited rows of true class '{}' disagree with the matrix \
+                 (G = {:.1}, p = {:.1e}): {:.1} % of them are labelled '{}', the matrix says \
+                 {:.1} %. Audit more rows of this class, or check the probabilities",
+                d.audited,
+                data.classes[d.class],
+                d.g,
+                d.p_value,
+                100.0 * seen,
+                data.classes[worst],
+                100.0 * model
+            )
+        })
+        .collect()
 }
 
 /// Estimates (or reads) the flip matrix, without diagnosing it: the matrix, the clean
