@@ -154,8 +154,50 @@ fn render(r: &CompareReport) -> String {
         }
         let _ = writeln!(t);
     }
+    gains(&mut t, r);
     for w in &r.warnings {
         let _ = writeln!(t, "warning: {w}");
     }
     t
+}
+
+/// Each correction's accuracy with its 90 % interval, and its gain over `none` on the
+/// same rows.
+fn gains(t: &mut String, r: &CompareReport) {
+    let (against, rows) = if r.models.iter().any(|m| m.test_accuracy.is_some()) {
+        ("test", "test rows")
+    } else {
+        ("trusted", "randomly audited holdout rows")
+    };
+    let _ = writeln!(
+        t,
+        "
+accuracy on the {rows}, with 90 % intervals, and the gain over 'none':"
+    );
+    for m in &r.models {
+        let (value, interval) = match against {
+            "test" => (m.test_accuracy, m.test_accuracy_interval),
+            _ => (m.trusted_accuracy, m.trusted_accuracy_interval),
+        };
+        let (Some(v), Some([low, high])) = (value, interval) else {
+            continue;
+        };
+        let gain = match m.gain_vs_none.filter(|_| m.correction != "none") {
+            Some([gl, g, gh]) => format!(
+                "  {:+.2} points ({:+.2} to {:+.2})",
+                100.0 * g,
+                100.0 * gl,
+                100.0 * gh
+            ),
+            None => String::new(),
+        };
+        let _ = writeln!(
+            t,
+            "  {:<11} {:.2}% ({:.2}–{:.2}%){gain}",
+            m.correction,
+            100.0 * v,
+            100.0 * low,
+            100.0 * high
+        );
+    }
 }

@@ -65,6 +65,34 @@ pub fn wilson(successes: usize, trials: usize, z: f64) -> Option<(f64, f64)> {
     Some(((centre - half).max(0.0), (centre + half).min(1.0)))
 }
 
+/// The 90 % Wilson interval of an accuracy.
+pub fn accuracy_interval(predicted: &[usize], reference: &[usize]) -> Option<[f64; 2]> {
+    let right = predicted
+        .iter()
+        .zip(reference)
+        .filter(|(p, r)| p == r)
+        .count();
+    let p = Proportion::of(right, reference.len())?;
+    Some([p.low, p.high])
+}
+
+/// Accuracy of `a` minus that of `b` on the same `labels`, with a 90 % interval from the
+/// paired per-row differences (a normal interval on their mean; the rows where both are
+/// right or both wrong add nothing, as in McNemar's test): [low, estimate, high].
+pub fn paired_gain(a: &[usize], b: &[usize], labels: &[usize]) -> Option<[f64; 3]> {
+    let n = labels.len();
+    if n < 2 || a.len() != n || b.len() != n {
+        return None;
+    }
+    let d: Vec<f64> = (0..n)
+        .map(|i| f64::from(u8::from(a[i] == labels[i])) - f64::from(u8::from(b[i] == labels[i])))
+        .collect();
+    let mean = d.iter().sum::<f64>() / n as f64;
+    let variance = d.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1) as f64;
+    let half = Z_90 * (variance / n as f64).sqrt();
+    Some([mean - half, mean, mean + half])
+}
+
 /// Counts with rows = reference class, columns = predicted class.
 pub fn confusion(predicted: &[usize], reference: &[usize], classes: usize) -> Array2<usize> {
     let mut c = Array2::zeros((classes, classes));
@@ -120,6 +148,21 @@ pub fn estimated_clean_accuracy(
 mod tests {
     use super::*;
     use ndarray::array;
+
+    #[test]
+    fn paired_gain_by_hand() {
+        // a right on rows 0, 1, 3; b right on row 0 only: differences 0, 1, 0, 1, mean
+        // 0.5, sample variance (4 × 0.25) / 3 = 1/3, standard error √(1/12), half-width
+        // 1.645 × 0.2887 = 0.4748.
+        let labels = [0, 1, 2, 0];
+        let g = paired_gain(&[0, 1, 0, 0], &[0, 0, 0, 1], &labels).unwrap();
+        let half = Z_90 * (1.0f64 / 12.0).sqrt();
+        assert!((g[1] - 0.5).abs() < 1e-12);
+        assert!((g[0] - (0.5 - half)).abs() < 1e-12 && (g[2] - (0.5 + half)).abs() < 1e-12);
+        assert_eq!(paired_gain(&[0], &[0], &[0]), None, "one row has no spread");
+        let [low, high] = accuracy_interval(&[0, 1, 0, 0], &labels).unwrap();
+        assert!(low < 0.75 && 0.75 < high);
+    }
 
     #[test]
     fn wilson_intervals_match_newcombes_worked_examples() {

@@ -13,7 +13,9 @@ use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
 use crate::io::model::FitSummary;
 use crate::learn::folds::stratified_holdout;
-use crate::learn::metrics::{accuracy, confusion, estimated_clean_accuracy, recall};
+use crate::learn::metrics::{
+    accuracy, accuracy_interval, confusion, estimated_clean_accuracy, paired_gain, recall,
+};
 use crate::learn::train::{predict_classes, train, Correction, TrainInputs};
 use crate::learn::{out_of_fold, OofParams, SoftmaxModel};
 use crate::noise::{estimate, Method, Sample};
@@ -39,8 +41,16 @@ pub struct ModelReport {
     pub estimated_clean_accuracy: Option<f64>,
     /// Accuracy on the test table, when one was given.
     pub test_accuracy: Option<f64>,
-    /// Accuracy on the holdout rows with a trusted label.
+    /// Its 90 % Wilson interval.
+    pub test_accuracy_interval: Option<[f64; 2]>,
+    /// Accuracy on the holdout rows with a trusted label from a random audit.
     pub trusted_accuracy: Option<f64>,
+    /// Its 90 % Wilson interval.
+    pub trusted_accuracy_interval: Option<[f64; 2]>,
+    /// Accuracy gained over `none` on the same rows (test table, else randomly audited
+    /// holdout rows): [90 % low, estimate, 90 % high] from the paired differences, so the
+    /// noise the two models share cancels.
+    pub gain_vs_none: Option<[f64; 3]>,
     /// Recall per class against the report's reference labels.
     pub per_class_recall: Vec<Option<f64>>,
     /// Confusion (rows: reference label, columns: prediction).
@@ -231,6 +241,7 @@ pub fn compare(
         reference: &reference,
         matrix: &matrix,
         none: &fits[0].hold,
+        none_test: fits[0].test.as_deref(),
         classes: k,
     };
     let reports = fits.iter().map(|f| eval.report(f)).collect();
@@ -318,6 +329,8 @@ struct Evaluation<'a> {
     reference: &'a Reference,
     matrix: &'a Array2<f64>,
     none: &'a [usize],
+    /// The `none` model's test predictions.
+    none_test: Option<&'a [usize]>,
     classes: usize,
 }
 
@@ -327,14 +340,23 @@ impl Evaluation<'_> {
         let c = confusion(&pred_ref, &labels_ref, self.classes);
         let trusted_pred: Vec<usize> = self.trusted.iter().map(|&(i, _)| f.hold[i]).collect();
         let trusted_labels: Vec<usize> = self.trusted.iter().map(|&(_, l)| l).collect();
+        let test_pred = f.test.as_deref().unwrap_or(&[]);
+        let gain = match self.test {
+            Some(labels) => paired_gain(test_pred, self.none_test.unwrap_or(&[]), labels),
+            None => {
+                let none: Vec<usize> = self.trusted.iter().map(|&(i, _)| self.none[i]).collect();
+                paired_gain(&trusted_pred, &none, &trusted_labels)
+            }
+        };
         ModelReport {
             correction: f.correction.name(),
             holdout_accuracy_observed: accuracy(&f.hold, self.observed),
             estimated_clean_accuracy: estimated_clean_accuracy(&f.hold, self.observed, self.matrix),
-            test_accuracy: self
-                .test
-                .and_then(|l| accuracy(f.test.as_deref().unwrap_or(&[]), l)),
+            test_accuracy: self.test.and_then(|l| accuracy(test_pred, l)),
+            test_accuracy_interval: self.test.and_then(|l| accuracy_interval(test_pred, l)),
             trusted_accuracy: accuracy(&trusted_pred, &trusted_labels),
+            trusted_accuracy_interval: accuracy_interval(&trusted_pred, &trusted_labels),
+            gain_vs_none: gain,
             per_class_recall: recall(&c),
             confusion: c.rows().into_iter().map(|r| r.to_vec()).collect(),
             changed_vs_none: f.hold.iter().zip(self.none).filter(|(a, b)| a != b).count(),
