@@ -93,7 +93,7 @@ proptest! {
         for kind in [ScoreKind::Posterior, ScoreKind::SelfConfidence, ScoreKind::Margin] {
             let scores = score_rows(kind, p.view(), &labels, Some(Flip::noisy(&t)));
             let (low, high) = if kind == ScoreKind::Margin { (-1.0 - 1e-9, 1.0 + 1e-9) } else { (-1e-9, 1.0 + 1e-9) };
-            // The probability scores rank by log-odds (any value but NaN); as shown they are
+            // The probability scores rank by odds (any value but NaN); as shown they are
             // probabilities.
             prop_assert!(scores.iter().all(|s| !s.score.is_nan() && kind.shown(s.score) >= low
                 && kind.shown(s.score) <= high && s.suggested < k && s.alt < k));

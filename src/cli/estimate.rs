@@ -15,6 +15,7 @@ use crate::io::{check_not_input, write_atomic, write_json};
 use crate::noise::bootstrap::Interval;
 use crate::noise::diagnostics::ReliabilityBin;
 use crate::noise::matrix::write_matrix_csv;
+use crate::noise::Method;
 use crate::workflow::{self, FlipEstimate, MatrixSource, RowProbabilities};
 
 /// Flags of `flipmend estimate`.
@@ -214,6 +215,22 @@ fn render(
         source.describe(),
         probs.source.describe()
     );
+    if let MatrixSource::Estimate(Method::Joint { .. }) = source {
+        let _ = writeln!(
+            t,
+            "joint: T and a clean classifier fitted together on the probabilities, with a \
+             minimum-volume penalty (the default: the closest to the truth on simulated tables \
+             with a known matrix; README, 'How close the estimates are to the truth')"
+        );
+    }
+    let [audit, review, control] = data.trusted_by_origin();
+    if audit + review + control > 0 {
+        let _ = writeln!(
+            t,
+            "trusted rows: {audit} from random audits, {review} reviewed suspects, {control} \
+             control rows (joint uses all; trusted uses random audits only)"
+        );
+    }
     let _ = writeln!(
         t,
         "rows = true class, columns = observed label, T[i][j] = P(observed j | true i)\n"

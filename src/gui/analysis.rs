@@ -6,7 +6,7 @@ use ndarray::{Array2, ArrayView2};
 
 use rayon::prelude::*;
 
-use crate::noise::posterior::{expected_from_scores, Flip};
+use crate::noise::posterior::{Flip, SUM_CHUNK_ROWS};
 use crate::noise::scores::{
     rank, rank_values, score_rows, score_selected, score_values, RowScore, ScoreKind,
 };
@@ -30,49 +30,52 @@ pub struct Histogram {
 }
 
 impl Histogram {
-    /// Bins `scores` as shown ([`ScoreKind::shown`]) over their range ([0, 1] for the
-    /// probabilities of a wrong label, [−1, 1] for the margin).
-    pub fn of(scores: &[f64], kind: ScoreKind) -> Self {
-        let (low, high) = match kind {
-            ScoreKind::Margin => (-1.0, 1.0),
-            _ => (0.0, 1.0),
-        };
-        let width = (high - low) / HISTOGRAM_BINS as f64;
-        let count = |chunk: &[f64]| {
-            let mut counts = vec![0usize; HISTOGRAM_BINS];
-            for &s in chunk {
-                let bin = ((kind.shown(s) - low) / width).floor();
-                let bin = if bin.is_finite() {
-                    bin.max(0.0) as usize
-                } else {
-                    0
-                };
-                counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
-            }
-            counts
-        };
-        let counts = scores.par_chunks(SUMMARY_CHUNK).map(count).reduce(
-            || vec![0; HISTOGRAM_BINS],
-            |a, b| a.iter().zip(&b).map(|(x, y)| x + y).collect(),
-        );
-        Histogram { low, high, counts }
-    }
-
     /// Width of one bin.
     pub fn bin_width(&self) -> f64 {
         (self.high - self.low) / self.counts.len() as f64
     }
 }
 
-/// Rows per chunk of the parallel summaries; partial sums are added in chunk order, so
-/// the total does not depend on the thread count.
-const SUMMARY_CHUNK: usize = 1 << 16;
-
-/// Σ of the probabilities of a wrong label, for the scores that are their log-odds: the
-/// expected number of mislabelled rows, summed as the command line sums it
-/// ([`expected_from_scores`]), so both show the same figure.
-fn expected_errors(scores: &[f64], kind: ScoreKind) -> Option<f64> {
-    kind.is_probability().then(|| expected_from_scores(scores))
+/// The histogram of every row's score as shown ([`ScoreKind::shown`]: [0, 1] for the
+/// probabilities of a wrong label, [−1, 1] for the margin) and, for the probability
+/// scores, the expected number of mislabelled rows: Σ of those probabilities, summed in
+/// [`SUM_CHUNK_ROWS`] chunks exactly as [`expected_from_scores`] sums them, so the app's
+/// figure is the command line's bit for bit. One pass and one logistic per row: after a
+/// matrix edit this runs over every row before the table redraws.
+///
+/// [`expected_from_scores`]: crate::noise::posterior::expected_from_scores
+fn summaries(scores: &[f64], kind: ScoreKind) -> (Histogram, Option<f64>) {
+    let (low, high) = match kind {
+        ScoreKind::Margin => (-1.0, 1.0),
+        _ => (0.0, 1.0),
+    };
+    let width = (high - low) / HISTOGRAM_BINS as f64;
+    let chunk = |values: &[f64]| {
+        let mut counts = [0usize; HISTOGRAM_BINS];
+        let mut sum = 0.0;
+        for &s in values {
+            let shown = kind.shown(s);
+            sum += shown;
+            let bin = ((shown - low) / width).floor();
+            let bin = if bin.is_finite() {
+                bin.max(0.0) as usize
+            } else {
+                0
+            };
+            counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
+        }
+        (counts, sum)
+    };
+    let parts: Vec<([usize; HISTOGRAM_BINS], f64)> =
+        scores.par_chunks(SUM_CHUNK_ROWS).map(chunk).collect();
+    let mut counts = vec![0usize; HISTOGRAM_BINS];
+    let mut total = 0.0;
+    for (c, sum) in parts {
+        counts.iter_mut().zip(c).for_each(|(a, b)| *a += b);
+        total += sum;
+    }
+    let histogram = Histogram { low, high, counts };
+    (histogram, kind.is_probability().then_some(total))
 }
 
 /// Every row scored for one matrix, most suspect first: all rows, or (right after an
@@ -111,12 +114,13 @@ impl Ranking {
         matrix_version: u64,
         started: std::time::Instant,
     ) -> Self {
+        let (histogram, expected_errors) = summaries(scores, kind);
         Ranking {
             ranked,
             rows: scores.len(),
             kind,
-            histogram: Histogram::of(scores, kind),
-            expected_errors: expected_errors(scores, kind),
+            histogram,
+            expected_errors,
             matrix: flip.matrix.clone(),
             matrix_version,
             clean_inputs: flip.clean_inputs,
@@ -191,9 +195,11 @@ pub struct Filter {
 /// Positions in the ranking (its rows in final order) of the rows `filter` keeps, in
 /// rank order. Because the ranking is sorted by score, the threshold ends the scan.
 pub fn filter_rows(ranking: &Ranking, labels: &[usize], filter: &Filter) -> Vec<u32> {
+    // The threshold on the score's own scale, once: no logistic per row on the UI thread.
+    let threshold = ranking.kind.from_shown(filter.min_score);
     let mut kept = Vec::new();
     for (i, s) in ranking.ranked.iter().enumerate() {
-        if ranking.kind.shown(s.score) < filter.min_score {
+        if s.score < threshold {
             break;
         }
         if filter.observed.is_some_and(|c| labels[s.row] != c)
@@ -214,7 +220,7 @@ mod tests {
     #[test]
     fn filters_keep_rank_order_and_stop_at_the_threshold() {
         // Three rows scored by self-confidence, 1 − p(observed): 0.1, 0.8, 0.6 (ranked by
-        // their log-odds, shown and filtered as these probabilities).
+        // their odds, shown and filtered as these probabilities).
         let probs = array![[0.9f32, 0.1], [0.2, 0.8], [0.6, 0.4]];
         let labels = [0, 0, 1];
         let r = rank_rows(
@@ -244,6 +250,23 @@ mod tests {
             ..Default::default()
         };
         assert_eq!(filter_rows(&r, &labels, &suggested_zero), vec![1, 2]);
+    }
+
+    #[test]
+    fn the_expected_count_is_the_command_lines_bit_for_bit() {
+        let rows = 3 * SUM_CHUNK_ROWS + 17;
+        let probs = Array2::from_shape_fn((rows, 3), |(r, c)| {
+            ((r * 7919 + c * 104_729) % 1000) as f32 / 1000.0 + 0.01
+        });
+        let sums = probs.sum_axis(ndarray::Axis(1));
+        let probs = &probs / &sums.insert_axis(ndarray::Axis(1));
+        let labels: Vec<usize> = (0..rows).map(|r| r % 3).collect();
+        let t = array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]];
+        let kind = ScoreKind::Posterior;
+        let r = rank_rows(probs.view(), &labels, Flip::noisy(&t), kind, 1);
+        let scores = score_values(kind, probs.view(), &labels, Some(Flip::noisy(&t)));
+        let cli = crate::noise::posterior::expected_from_scores(&scores);
+        assert_eq!(r.expected_errors.map(f64::to_bits), Some(cli.to_bits()));
     }
 
     #[test]

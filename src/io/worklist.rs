@@ -148,7 +148,7 @@ pub fn write_worklist(
 /// suggested, score, p_wrong, alt, alt_prob.
 fn push_verdict(record: &mut Vec<String>, data: &Dataset, kind: ScoreKind, s: &RowScore) {
     record.push(data.classes[s.suggested].clone());
-    record.push(format!("{:.6}", s.score));
+    record.push(format!("{:.6}", kind.written(s.score)));
     record.push(
         kind.probability(s.score)
             .map_or(String::new(), |p| format!("{p:.6}")),

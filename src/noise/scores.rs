@@ -5,25 +5,24 @@ use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
 use serde::Serialize;
 
-use super::posterior::{
-    log_odds, log_odds_of, wrong_probability, Flip, Posterior, Workspace, BLOCK_ROWS,
-};
+use super::posterior::{odds, odds_of, wrong_probability, Flip, Posterior, Workspace, BLOCK_ROWS};
 
 /// Which score ranks the rows.
 ///
-/// The two probability scores are kept as log-odds, ln(P(wrong) / P(right)): the
-/// probability itself rounds to exactly 1 for the most certain errors (hundreds of rows
-/// on a 40,000-row table, and 6-decimal output ties thousands more), which left the head
-/// of a worklist in file order. [`ScoreKind::probability`] gives the probability back.
+/// The two probability scores are kept as odds, P(wrong) / P(right): the probability
+/// itself rounds to exactly 1 for the most certain errors (hundreds of rows on a
+/// 40,000-row table, and 6-decimal output ties thousands more), which left the head of a
+/// worklist in file order. [`ScoreKind::probability`] gives the probability back, and
+/// files show the log-odds ([`ScoreKind::written`]), easier to read than odds of 10³⁰.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum ScoreKind {
-    /// Log-odds of P(true ≠ observed | x, observed) under the flip matrix: the clean
+    /// Odds of P(true ≠ observed | x, observed) under the flip matrix: the clean
     /// posterior (the joint fit's, or p = (Tᵀ)⁻¹p̃ of Patrini et al. 2017), then Bayes'
     /// rule with T[k][observed]. Suggested label: the most probable true class.
     Posterior,
-    /// Self-confidence (Northcutt et al. 2021) as log-odds of 1 − p(observed | x), the
-    /// same order as the published 1 − p. Suggested: argmax p.
+    /// Self-confidence (Northcutt et al. 2021) as odds of 1 − p(observed | x), the same
+    /// order as the published 1 − p. Suggested: argmax p.
     SelfConfidence,
     /// Normalized margin (Northcutt et al. 2021): max_{j≠observed} p_j − p_observed, in
     /// [−1, 1]. Suggested: argmax p.
@@ -40,7 +39,7 @@ impl ScoreKind {
         }
     }
 
-    /// True when the score is the log-odds of a probability that the observed label is
+    /// True when the score is the odds of a probability that the observed label is
     /// wrong, so that a sum of [`ScoreKind::probability`] is an expected number of errors.
     pub fn is_probability(self) -> bool {
         !matches!(self, ScoreKind::Margin)
@@ -56,11 +55,21 @@ impl ScoreKind {
         self.probability(score).unwrap_or(score)
     }
 
+    /// The score as files write it: the log-odds for the probability scores (0 = even
+    /// odds), the margin as it is.
+    pub fn written(self, score: f64) -> f64 {
+        if self.is_probability() {
+            score.ln()
+        } else {
+            score
+        }
+    }
+
     /// The score whose [`ScoreKind::shown`] value is `shown` (a threshold given as a
     /// probability, for the probability scores).
     pub fn from_shown(self, shown: f64) -> f64 {
         if self.is_probability() {
-            log_odds_of(shown)
+            odds_of(shown)
         } else {
             shown
         }
@@ -72,7 +81,7 @@ impl ScoreKind {
 pub struct RowScore {
     /// 0-based data row.
     pub row: usize,
-    /// Higher = more likely mislabelled (log-odds for the probability scores).
+    /// Higher = more likely mislabelled (odds for the probability scores).
     pub score: f64,
     /// The most likely true class.
     pub suggested: usize,
@@ -237,7 +246,7 @@ impl Scratch {
         let k = self.k;
         match kind {
             ScoreKind::Posterior => {
-                post.wrong_log_odds_from_clean(&self.clean[i * k..(i + 1) * k], observed)
+                post.wrong_odds_from_clean(&self.clean[i * k..(i + 1) * k], observed)
             }
             ScoreKind::SelfConfidence => {
                 let row = &self.noisy[i * k..(i + 1) * k];
@@ -247,7 +256,7 @@ impl Scratch {
                     .filter(|&(j, _)| j != observed)
                     .map(|(_, &p)| p as f64)
                     .sum();
-                log_odds(others, row[observed] as f64)
+                odds(others, row[observed] as f64)
             }
             ScoreKind::Margin => {
                 let row = &self.noisy[i * k..(i + 1) * k];
@@ -554,7 +563,7 @@ mod tests {
         // p̃₁ = .1·.5 + .7·.3 + .3·.2 = .32, p̃₂ = .1·.5 + .1·.3 + .7·.2 = .22.
         // Observed label 1: P(true = k | x, obs = 1) ∝ T[k][1]·p(k) = (.05, .21, .06) / .32
         // = (0.15625, 0.65625, 0.1875). P(wrong) = 1 − 0.65625 = 0.34375, so the score is
-        // ln(0.34375 / 0.65625); suggested 1; alt 2.
+        // the odds 0.34375 / 0.65625; suggested 1; alt 2.
         let probs = array![[0.46f32, 0.32, 0.22]];
         let s = score_rows(
             ScoreKind::Posterior,
@@ -562,10 +571,7 @@ mod tests {
             &[1],
             Some(Flip::noisy(&t3())),
         )[0];
-        assert!(
-            (s.score - (0.34375f64 / 0.65625).ln()).abs() < 1e-6,
-            "{s:?}"
-        );
+        assert!((s.score - 0.34375 / 0.65625).abs() < 1e-6, "{s:?}");
         let p = ScoreKind::Posterior.probability(s.score).unwrap();
         assert!((p - 0.34375).abs() < 1e-6, "{p}");
         assert_eq!((s.suggested, s.alt), (1, 2));
@@ -587,10 +593,10 @@ mod tests {
     fn self_confidence_and_margin_by_hand() {
         // Northcutt et al. 2021: self-confidence p(observed | x); normalized margin
         // p_observed − max_{j≠observed} p_j (we rank by its negative). Self-confidence
-        // ranks by the log-odds of 1 − p(observed | x) = 0.68: ln(0.68 / 0.32).
+        // ranks by the odds of 1 − p(observed | x) = 0.68: 0.68 / 0.32.
         let probs = array![[0.46f32, 0.32, 0.22]];
         let s = score_rows(ScoreKind::SelfConfidence, probs.view(), &[1], None)[0];
-        assert!((s.score - (0.68f64 / 0.32).ln()).abs() < 1e-6);
+        assert!((s.score - 0.68 / 0.32).abs() < 1e-6);
         assert!((ScoreKind::SelfConfidence.shown(s.score) - 0.68).abs() < 1e-6);
         assert_eq!((s.suggested, s.alt), (0, 1));
         let m = score_rows(ScoreKind::Margin, probs.view(), &[1], None)[0];
@@ -602,7 +608,8 @@ mod tests {
     #[test]
     fn labels_almost_certainly_wrong_keep_distinct_scores() {
         // P(wrong) = 1 − ~1e-20 and 1 − ~1e-30 are both 1.0 in f64, so as probabilities
-        // these rows would tie and be ordered by row; their log-odds do not. Clean
+        // these rows would tie and be ordered by row; their odds (written as log-odds) do
+        // not. Clean
         // posteriors (0.9… , 1e-20) under a symmetric 10 % flip, observed 1:
         // odds = T[0][1]·p₀ / (T[1][1]·p₁) = 0.1 / (0.9·1e-20). Self-confidence: 1 / 1e-20.
         let t = array![[0.9, 0.1], [0.1, 0.9]];
@@ -615,11 +622,11 @@ mod tests {
         for (kind, offset) in cases {
             let mut s = score_rows(kind, probs.view(), &[1, 1, 1], Some(Flip::clean(&t)));
             assert!(
-                (s[0].score - 20.0 * ln10 - offset).abs() < 1e-3,
+                (kind.written(s[0].score) - 20.0 * ln10 - offset).abs() < 1e-3,
                 "{kind:?} {s:?}"
             );
             assert!(
-                (s[1].score - 30.0 * ln10 - offset).abs() < 1e-3,
+                (kind.written(s[1].score) - 30.0 * ln10 - offset).abs() < 1e-3,
                 "{kind:?} {s:?}"
             );
             assert_eq!(kind.shown(s[0].score), kind.shown(s[1].score));
@@ -629,7 +636,7 @@ mod tests {
     }
 
     #[test]
-    fn thresholds_given_as_probabilities_map_to_log_odds_and_back() {
+    fn thresholds_given_as_probabilities_map_to_odds_and_back() {
         for p in [0.0, 1e-9, 0.3, 0.5, 0.9, 1.0 - 1e-9, 1.0] {
             let score = ScoreKind::Posterior.from_shown(p);
             assert!((ScoreKind::Posterior.shown(score) - p).abs() < 1e-12, "{p}");
