@@ -145,11 +145,13 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
         .column(Column::auto().at_least(90.0))
         .column(Column::auto().at_least(90.0))
         .column(Column::auto().at_least(60.0))
+        .column(Column::auto().at_least(60.0))
         .column(Column::auto().at_least(90.0))
         .column(Column::remainder().at_least(60.0))
         .header(20.0, |mut h| {
-            // The worklist's column names (all but the reviewer's column).
-            for &title in &WORKLIST_COLUMNS[..8] {
+            // The ranked worklist's column names (all but the reviewer's column), and
+            // below them the same figures as the file writes.
+            for &title in &WORKLIST_COLUMNS[..9] {
                 h.col(|ui| {
                     ui.strong(title);
                 });
@@ -166,7 +168,10 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
                     data.id(s.row).into_owned(),
                     classes[data.labels[s.row]].clone(),
                     classes[s.suggested].clone(),
-                    format!("{:.4}", r.kind.shown(s.score)),
+                    format!("{:.2}", r.kind.written(s.score)),
+                    r.kind
+                        .probability(s.score)
+                        .map_or(String::new(), |p| format!("{p:.4}")),
                     classes[s.alt].clone(),
                     format!("{:.4}", s.alt_prob),
                 ];
