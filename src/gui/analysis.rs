@@ -252,9 +252,8 @@ mod tests {
         assert_eq!(filter_rows(&r, &labels, &suggested_zero), vec![1, 2]);
     }
 
-    #[test]
-    fn the_expected_count_is_the_command_lines_bit_for_bit() {
-        let rows = 3 * SUM_CHUNK_ROWS + 17;
+    /// `rows` rows of spread probabilities over three classes, labels in turn, and a T.
+    fn three_classes(rows: usize) -> (Array2<f32>, Vec<usize>, Array2<f64>) {
         let probs = Array2::from_shape_fn((rows, 3), |(r, c)| {
             ((r * 7919 + c * 104_729) % 1000) as f32 / 1000.0 + 0.01
         });
@@ -262,6 +261,13 @@ mod tests {
         let probs = &probs / &sums.insert_axis(ndarray::Axis(1));
         let labels: Vec<usize> = (0..rows).map(|r| r % 3).collect();
         let t = array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]];
+        (probs, labels, t)
+    }
+
+    #[test]
+    fn the_expected_count_is_the_command_lines_bit_for_bit() {
+        let rows = 3 * SUM_CHUNK_ROWS + 17;
+        let (probs, labels, t) = three_classes(rows);
         let kind = ScoreKind::Posterior;
         let r = rank_rows(probs.view(), &labels, Flip::noisy(&t), kind, 1);
         let scores = score_values(kind, probs.view(), &labels, Some(Flip::noisy(&t)));
@@ -292,13 +298,7 @@ mod tests {
     #[test]
     fn a_finished_head_ranking_is_the_full_ranking() {
         let rows = 2000;
-        let probs = Array2::from_shape_fn((rows, 3), |(r, c)| {
-            ((r * 7919 + c * 104_729) % 1000) as f32 / 1000.0 + 0.01
-        });
-        let sums = probs.sum_axis(ndarray::Axis(1));
-        let probs = &probs / &sums.insert_axis(ndarray::Axis(1));
-        let labels: Vec<usize> = (0..rows).map(|r| r % 3).collect();
-        let t = array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]];
+        let (probs, labels, t) = three_classes(rows);
         for kind in [
             ScoreKind::Posterior,
             ScoreKind::SelfConfidence,

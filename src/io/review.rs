@@ -105,25 +105,9 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
         .from_reader(reader);
     let mut records = rdr.records();
     let syntax = crate::error::csv_syntax(path);
-    let header: Vec<String> = match records.next() {
-        Some(r) => r
-            .map_err(syntax)?
-            .iter()
-            .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
-            .collect(),
-        None => return Err(Error::input(Location::file(path), Problem::Empty)),
-    };
+    let header = read_header(&mut records, path)?;
     let find = |name: &str| header.iter().position(|h| h == name);
-    let (Some(row_col), Some(review_col)) = (find("row"), find("review")) else {
-        let detail = format!(
-            "a reviewed worklist needs the columns 'row' and 'review'; this header has: {}",
-            header.join(", ")
-        );
-        return Err(Error::input(
-            Location::line(path, 1),
-            Problem::Review { detail },
-        ));
-    };
+    let [row_col, review_col] = required(&header, path, "a reviewed worklist", ["row", "review"])?;
     let (id_col, observed_col) = (find("id"), find("observed"));
     let mut seen: HashMap<usize, (usize, u64)> = HashMap::default();
     let mut review = Review {
@@ -304,25 +288,9 @@ pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> 
         .from_reader(reader);
     let mut records = rdr.records();
     let syntax = crate::error::csv_syntax(path);
-    let header: Vec<String> = match records.next() {
-        Some(r) => r
-            .map_err(syntax)?
-            .iter()
-            .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
-            .collect(),
-        None => return Err(Error::input(Location::file(path), Problem::Empty)),
-    };
+    let header = read_header(&mut records, path)?;
     let find = |name: &str| header.iter().position(|h| h == name);
-    let (Some(row_col), Some(slice_col)) = (find("row"), find("slice")) else {
-        let detail = format!(
-            "a worklist key needs the columns 'row' and 'slice'; this header has: {}",
-            header.join(", ")
-        );
-        return Err(Error::input(
-            Location::line(path, 1),
-            Problem::Review { detail },
-        ));
-    };
+    let [row_col, slice_col] = required(&header, path, "a worklist key", ["row", "slice"])?;
     let (id_col, p_col) = (find("id"), find("p_wrong"));
     let mut key = Key::default();
     for record in records {
@@ -365,6 +333,43 @@ pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> 
         key.rows.insert(row, KeyRow { slice, p_wrong });
     }
     Ok(key)
+}
+
+/// The header of a worklist or key, trimmed and without a byte-order mark.
+fn read_header<R: Read>(
+    records: &mut csv::StringRecordsIter<R>,
+    path: &Path,
+) -> Result<Vec<String>> {
+    match records.next() {
+        Some(r) => Ok(r
+            .map_err(crate::error::csv_syntax(path))?
+            .iter()
+            .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
+            .collect()),
+        None => Err(Error::input(Location::file(path), Problem::Empty)),
+    }
+}
+
+/// The positions of the `names` that `what` cannot do without, or an error listing the
+/// header.
+fn required<const N: usize>(
+    header: &[String],
+    path: &Path,
+    what: &str,
+    names: [&str; N],
+) -> Result<[usize; N]> {
+    let mut found = [0; N];
+    for (slot, name) in found.iter_mut().zip(names) {
+        *slot = header.iter().position(|h| h == name).ok_or_else(|| {
+            let detail = format!(
+                "{what} needs the columns {}; this header has: {}",
+                names.map(|n| format!("'{n}'")).join(" and "),
+                header.join(", ")
+            );
+            Error::input(Location::line(path, 1), Problem::Review { detail })
+        })?;
+    }
+    Ok(found)
 }
 
 /// A 0-based data row number of `data`, from a cell.

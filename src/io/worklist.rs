@@ -170,10 +170,7 @@ pub fn write_blind(
     let mut record: Vec<String> = Vec::with_capacity(BLIND_COLUMNS.len());
     for (i, item) in items.iter().enumerate() {
         let row = item.score.row;
-        record.clear();
-        record.push((i + 1).to_string());
-        record.push(row.to_string());
-        record.push(data.id(row).into_owned());
+        start_item(&mut record, data, i, row);
         record.push(data.classes[data.labels[row]].clone());
         record.push(String::new());
         if with_features {
@@ -182,6 +179,15 @@ pub fn write_blind(
         w.write_record(&record)?;
     }
     w.flush()
+}
+
+/// Starts `record` with the item's number (1-based), its data row and its id: the first
+/// columns of the blind worklist and of its key, which must agree line by line.
+fn start_item(record: &mut Vec<String>, data: &Dataset, i: usize, row: usize) {
+    record.clear();
+    record.push((i + 1).to_string());
+    record.push(row.to_string());
+    record.push(data.id(row).into_owned());
 }
 
 /// Writes the key of a blind worklist: each item's slice, rank and verdict.
@@ -195,11 +201,7 @@ pub fn write_key(
     w.write_record(KEY_COLUMNS)?;
     let mut record: Vec<String> = Vec::with_capacity(KEY_COLUMNS.len());
     for (i, item) in items.iter().enumerate() {
-        let row = item.score.row;
-        record.clear();
-        record.push((i + 1).to_string());
-        record.push(row.to_string());
-        record.push(data.id(row).into_owned());
+        start_item(&mut record, data, i, item.score.row);
         record.push(item.slice.name().to_string());
         record.push(item.rank.to_string());
         push_verdict(&mut record, data, kind, &item.score);
