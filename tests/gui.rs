@@ -185,6 +185,34 @@ fn a_worklist_goes_out_and_its_review_comes_back() {
 }
 
 #[test]
+fn a_control_share_of_zero_exports_the_ranked_worklist() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""));
+    h.get_by_label("Suspects").click();
+    h.run_steps(2);
+    let mut settings = state(&h).settings().clone();
+    settings.budget = 10;
+    settings.control = 0.0;
+    h.state_mut().push(Command::Settings(settings));
+    let out = dir.path("ranked.csv");
+    set_path(&mut h, Purpose::ExportWorklist, &out);
+    h.get_by_label("Export").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let text = std::fs::read_to_string(&out).expect("the worklist was written");
+    assert_eq!(
+        text.lines().count(),
+        11,
+        "header + budget rows, no control rows"
+    );
+    assert!(text.starts_with("rank,row,id,observed,suggested,score,p_wrong"));
+    assert!(
+        !dir.path("ranked.key.csv").exists(),
+        "no key without control rows"
+    );
+}
+
+#[test]
 fn a_broken_table_shows_its_error_and_keeps_the_previous_data() {
     let dir = TempDir::new();
     let mut h = app_on_demo(&dir.path(""));

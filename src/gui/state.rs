@@ -21,7 +21,7 @@ use crate::io::session::{
     read_session, write_session, EstimatorName, MatrixOrigin, Roles, Session, SessionMatrix,
     Settings,
 };
-use crate::io::worklist::{key_path, write_blind, write_key, Item};
+use crate::io::worklist::{key_path, write_blind, write_key, write_worklist, Item};
 use crate::io::{check_not_input, write_atomic};
 use crate::learn::train::Correction;
 use crate::learn::{OofParams, SoftmaxParams};
@@ -35,7 +35,7 @@ use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareSettings, Comparison, MatrixChoice,
 };
 use crate::workflow::review::{summarise, ReviewSummary};
-use crate::workflow::worklist::{split_budget, with_control, DEFAULT_CONTROL_SHARE};
+use crate::workflow::worklist::{split_budget, with_control};
 use crate::workflow::{self, RowProbabilities};
 
 /// How serious a message is.
@@ -780,7 +780,7 @@ impl AppState {
             return;
         };
         let settings = &self.session.settings;
-        let (suspects, control) = split_budget(settings.budget, DEFAULT_CONTROL_SHARE);
+        let (suspects, control) = split_budget(settings.budget, settings.control);
         let listed: Vec<(RowScore, usize)> = self
             .visible
             .iter()
@@ -791,19 +791,29 @@ impl AppState {
         let (kind, seed) = (settings.score, settings.seed);
         self.jobs.spawn(JobKind::Save, move |_| {
             let items = ranked_with_control(&ranking, &data, &listed, control, seed, &filter);
-            let key = key_path(&path);
             let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+            let key = key_path(&path);
             for target in [&path, &key] {
                 check_not_input(target, &refs).map_err(fail)?;
+            }
+            let drawn = items.len() - listed.len();
+            if drawn == 0 {
+                let ranked: Vec<RowScore> = listed.iter().map(|(s, _)| *s).collect();
+                write_atomic(&path, |w| write_worklist(w, &data, kind, &ranked, false))
+                    .map_err(fail)?;
+                return Ok(JobOutput::Saved(format!(
+                    "wrote {} ({} suspects, ranked)",
+                    path.display(),
+                    listed.len()
+                )));
             }
             write_atomic(&key, |w| write_key(w, &data, kind, &items)).map_err(fail)?;
             write_atomic(&path, |w| write_blind(w, &data, &items, false)).map_err(fail)?;
             Ok(JobOutput::Saved(format!(
-                "wrote {} ({} suspects and {} control rows, shuffled) and its key {}: keep the key \
-                 from the reviewers",
+                "wrote {} ({} suspects and {drawn} control rows, shuffled) and its key {}: keep \
+                 the key from the reviewers",
                 path.display(),
                 listed.len(),
-                items.len() - listed.len(),
                 key.display()
             )))
         });

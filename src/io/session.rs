@@ -98,6 +98,8 @@ pub struct Settings {
     pub score: ScoreKind,
     /// Rows on the worklist at most.
     pub budget: usize,
+    /// Share of the worklist given to control rows (0: a ranked worklist without them).
+    pub control: f64,
     /// Only rows scoring at least this.
     pub min_score: f64,
     /// Only rows observed as this class.
@@ -127,6 +129,7 @@ impl Default for Settings {
             resamples: 20,
             score: ScoreKind::Posterior,
             budget: 500,
+            control: crate::workflow::worklist::DEFAULT_CONTROL_SHARE,
             min_score: 0.0,
             observed_filter: None,
             suggested_filter: None,
@@ -262,6 +265,9 @@ fn check(s: &Session) -> std::result::Result<(), String> {
     if !t.min_score.is_finite() {
         return Err("min_score must be a number".into());
     }
+    if !(0.0..0.5).contains(&t.control) {
+        return Err(format!("control must lie in [0, 0.5), not {}", t.control));
+    }
     if t.resamples > 10_000 {
         return Err(format!(
             "resamples must be at most 10000, not {}",
@@ -367,5 +373,22 @@ mod tests {
             .unwrap_err()
             .to_string()
             .contains("sideways"));
+        let mut s = sample();
+        s.settings.control = 0.6;
+        assert!(read(&text(&s))
+            .unwrap_err()
+            .to_string()
+            .contains("control must lie in [0, 0.5)"));
+    }
+
+    #[test]
+    fn a_session_written_before_the_control_share_reads_with_the_default() {
+        let mut value: serde_json::Value = serde_json::from_str(&text(&sample())).unwrap();
+        value["settings"].as_object_mut().unwrap().remove("control");
+        let s = read(&value.to_string()).unwrap();
+        assert_eq!(
+            s.settings.control,
+            crate::workflow::worklist::DEFAULT_CONTROL_SHARE
+        );
     }
 }

@@ -100,6 +100,18 @@ fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut V
                 .range(1..=10_000_000)
                 .prefix("budget "),
         );
+        ui.add(
+            egui::DragValue::new(&mut s.control)
+                .range(0.0..=0.45)
+                .speed(0.005)
+                .fixed_decimals(2)
+                .prefix("control share "),
+        )
+        .on_hover_text(
+            "Share of the worklist given to rows drawn at random from the rows not listed, \
+             shuffled in so reviewers judge every row alike; the review then measures what \
+             the list misses. 0 exports a ranked list without them.",
+        );
     });
     if s != *state.settings() {
         out.push(Command::Settings(s));
@@ -186,7 +198,7 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
 
 fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
     ui.heading("Worklist");
-    ui.label("Export the filtered rows up to the budget; reviewers fill the review column with the correct class (or keep).");
+    ui.label("Export the filtered rows up to the budget (with the control share drawn at random and shuffled in, and the key beside the file); reviewers fill the review column with the correct class (or keep).");
     if let Some(path) = path_row(
         ui,
         view,
