@@ -13,9 +13,7 @@ use rayon::prelude::*;
 
 use super::estimators::{estimate, Method, Sample};
 use crate::error::Result;
-
-/// The normal quantile of a two-sided 90 % interval.
-const Z_90: f64 = 1.644_853_626_951_472_2;
+use crate::learn::metrics::Z_90;
 
 /// How many bootstrap standard deviations, beyond z₀.₉₅, the interval reaches.
 /// Measured on tables with a known generating matrix (make_data.py, 6 designs from
