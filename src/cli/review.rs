@@ -9,9 +9,9 @@ use clap::Args;
 
 use super::args::TableArgs;
 use crate::data::Dataset;
-use crate::error::{Error, Result};
-use crate::io::review::{read_key, read_review, write_merged, Key};
-use crate::io::worklist::key_path;
+use crate::error::Result;
+use crate::io::review::{load_key, load_review, write_merged, Key};
+use crate::io::worklist::key_beside;
 use crate::io::{check_not_input, write_atomic, write_json};
 use crate::workflow::review::{summarise, ReviewSummary, SliceResult};
 
@@ -41,21 +41,18 @@ pub struct ReviewArgs {
 
 /// Runs `review`.
 pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
-    let key_file = args.key.clone().or_else(|| {
-        let beside = key_path(&args.worklist);
-        beside.exists().then_some(beside)
-    });
+    let key_file = args.key.clone().or_else(|| key_beside(&args.worklist));
     let mut inputs = vec![args.table.data.as_path(), args.worklist.as_path()];
     inputs.extend(key_file.as_deref());
     for output in [Some(&args.out), args.json.as_ref()].into_iter().flatten() {
         check_not_input(output, &inputs)?;
     }
     let data = Dataset::load(&args.table.data, &args.table.options())?;
-    let mut review = read_review(open(&args.worklist)?, &args.worklist, &data)?;
-    let key = match &key_file {
-        Some(path) => Some(read_key(open(path)?, path, &data)?),
-        None => None,
-    };
+    let mut review = load_review(&args.worklist, &data)?;
+    let key = key_file
+        .as_deref()
+        .map(|path| load_key(path, &data))
+        .transpose()?;
     let summary = summarise(&data, &mut review, key.as_ref());
     let delimiter = args.table.options().delimiter_for(&args.table.data);
     write_atomic(&args.out, |w| write_merged(w, &data, delimiter, &review))?;
@@ -66,13 +63,6 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
         out,
         &render(args, &data, &summary, key_file.as_deref(), key.as_ref()),
     )
-}
-
-fn open(path: &Path) -> Result<std::fs::File> {
-    std::fs::File::open(path).map_err(|source| Error::Read {
-        path: path.to_path_buf(),
-        source,
-    })
 }
 
 fn render(

@@ -16,12 +16,12 @@ use crate::data::roles::ColumnPlan;
 use crate::data::{Dataset, ProbOptions, TableOptions};
 use crate::error::Error;
 use crate::io::model::{write_model, ModelFile, Provenance, TrainingSettings};
-use crate::io::review::{read_key, read_review, write_merged, Review};
+use crate::io::review::{load_key, load_review, write_merged, Review};
 use crate::io::session::{
     read_session, write_session, EstimatorName, MatrixOrigin, Roles, Session, SessionMatrix,
     Settings,
 };
-use crate::io::worklist::{key_path, write_blind, write_key, write_worklist, Item};
+use crate::io::worklist::{key_beside, key_path, write_blind, write_key, write_worklist, Item};
 use crate::io::{check_not_input, write_atomic};
 use crate::learn::train::Correction;
 use crate::learn::{OofParams, SoftmaxParams};
@@ -825,18 +825,11 @@ impl AppState {
         };
         let generation = self.data_generation;
         self.jobs.spawn(JobKind::Review, move |_| {
-            let file = std::fs::File::open(&path).map_err(|source| {
-                fail(Error::Read {
-                    path: path.clone(),
-                    source,
-                })
-            })?;
-            let mut review = read_review(file, &path, &data).map_err(fail)?;
-            let key_file = key_path(&path);
-            let key = match std::fs::File::open(&key_file) {
-                Ok(file) => Some(read_key(file, &key_file, &data).map_err(fail)?),
-                Err(_) => None,
-            };
+            let mut review = load_review(&path, &data).map_err(fail)?;
+            let key = key_beside(&path)
+                .map(|key| load_key(&key, &data))
+                .transpose()
+                .map_err(fail)?;
             let summary = summarise(&data, &mut review, key.as_ref());
             let read = ReviewRead {
                 path,

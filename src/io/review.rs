@@ -99,13 +99,7 @@ impl Review {
 /// `id` and `observed`, when present, must agree with the data (so a worklist made from
 /// another version of the file is caught).
 pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Review> {
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .from_reader(reader);
-    let mut records = rdr.records();
-    let syntax = crate::error::csv_syntax(path);
-    let header = read_header(&mut records, path)?;
+    let (records, header) = open_edited(reader, path)?;
     let find = |name: &str| header.iter().position(|h| h == name);
     let [row_col, review_col] = required(&header, path, "a reviewed worklist", ["row", "review"])?;
     let (id_col, observed_col) = (find("id"), find("observed"));
@@ -115,40 +109,13 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
         not_reviewed: 0,
     };
     for record in records {
-        let record = record.map_err(syntax)?;
+        let record = record.map_err(crate::error::csv_syntax(path))?;
         let line = record.position().map_or(0, |p| p.line());
-        let bad = |col: usize, detail: String| {
-            Error::input(
-                Location::line(path, line).at_column(col, &header[col]),
-                Problem::Review { detail },
-            )
-        };
+        let bad = |col: usize, detail: String| located(path, &header, line, col, detail);
         let cell = |col: usize| record.get(col).unwrap_or("").trim();
-        let row = cell(row_col)
-            .parse::<usize>()
-            .ok()
-            .filter(|&r| r < data.rows())
-            .ok_or_else(|| {
-                bad(
-                    row_col,
-                    format!(
-                        "'{}' is not a data row (0 to {})",
-                        shorten(cell(row_col)),
-                        data.rows() - 1
-                    ),
-                )
-            })?;
+        let row = data_row(cell(row_col), data).map_err(|d| bad(row_col, d))?;
         if let Some(col) = id_col {
-            if cell(col) != data.id(row) {
-                return Err(bad(
-                    col,
-                    format!(
-                        "row {row} has the id '{}' in the data, not '{}'",
-                        data.id(row),
-                        shorten(cell(col))
-                    ),
-                ));
-            }
+            same_id(cell(col), row, data).map_err(|d| bad(col, d))?;
         }
         if let Some(col) = observed_col {
             let observed = &data.classes[data.labels[row]];
@@ -279,46 +246,39 @@ pub fn write_merged(
     w.flush()
 }
 
+/// Reads the reviewed worklist file at `path` for `data` (see [`read_review`]).
+pub fn load_review(path: &Path, data: &Dataset) -> Result<Review> {
+    read_review(open(path)?, path, data)
+}
+
+/// Reads the key file at `path` for `data` (see [`read_key`]).
+pub fn load_key(path: &Path, data: &Dataset) -> Result<Key> {
+    read_key(open(path)?, path, data)
+}
+
+fn open(path: &Path) -> Result<std::fs::File> {
+    std::fs::File::open(path).map_err(|source| Error::Read {
+        path: path.to_path_buf(),
+        source,
+    })
+}
+
 /// Reads a worklist's key for `data`: the `row` and `slice` columns are required; `id`,
 /// when present, must agree with the data, and `p_wrong` is read when it has a value.
 pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> {
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .from_reader(reader);
-    let mut records = rdr.records();
-    let syntax = crate::error::csv_syntax(path);
-    let header = read_header(&mut records, path)?;
+    let (records, header) = open_edited(reader, path)?;
     let find = |name: &str| header.iter().position(|h| h == name);
     let [row_col, slice_col] = required(&header, path, "a worklist key", ["row", "slice"])?;
     let (id_col, p_col) = (find("id"), find("p_wrong"));
     let mut key = Key::default();
     for record in records {
-        let record = record.map_err(syntax)?;
+        let record = record.map_err(crate::error::csv_syntax(path))?;
         let line = record.position().map_or(0, |p| p.line());
-        let bad = |col: usize, detail: String| {
-            Error::input(
-                Location::line(path, line).at_column(col, &header[col]),
-                Problem::Review { detail },
-            )
-        };
+        let bad = |col: usize, detail: String| located(path, &header, line, col, detail);
         let cell = |col: usize| record.get(col).unwrap_or("").trim();
-        let row = data_row(cell(row_col), data).ok_or_else(|| {
-            bad(
-                row_col,
-                format!("'{}' is not a data row", shorten(cell(row_col))),
-            )
-        })?;
-        if let Some(col) = id_col.filter(|&c| cell(c) != data.id(row)) {
-            return Err(bad(
-                col,
-                format!(
-                    "row {row} has the id '{}' in the data, not '{}': is this the key of \
-                     another table's worklist?",
-                    data.id(row),
-                    shorten(cell(col))
-                ),
-            ));
+        let row = data_row(cell(row_col), data).map_err(|d| bad(row_col, d))?;
+        if let Some(col) = id_col {
+            same_id(cell(col), row, data).map_err(|d| bad(col, d))?;
         }
         let slice = Slice::parse(cell(slice_col)).ok_or_else(|| {
             bad(
@@ -335,19 +295,34 @@ pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> 
     Ok(key)
 }
 
-/// The header of a worklist or key, trimmed and without a byte-order mark.
-fn read_header<R: Read>(
-    records: &mut csv::StringRecordsIter<R>,
+/// The records of a worklist or key (a small CSV that people edit, so rows may be
+/// ragged) after its header, and the header, trimmed and without a byte-order mark.
+fn open_edited<R: Read>(
+    reader: R,
     path: &Path,
-) -> Result<Vec<String>> {
-    match records.next() {
-        Some(r) => Ok(r
+) -> Result<(csv::StringRecordsIntoIter<R>, Vec<String>)> {
+    let mut records = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .from_reader(reader)
+        .into_records();
+    let header = match records.next() {
+        Some(r) => r
             .map_err(crate::error::csv_syntax(path))?
             .iter()
             .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
-            .collect()),
-        None => Err(Error::input(Location::file(path), Problem::Empty)),
-    }
+            .collect(),
+        None => return Err(Error::input(Location::file(path), Problem::Empty)),
+    };
+    Ok((records, header))
+}
+
+/// A problem with the cell at `line` and column `col` of an edited worklist or key.
+fn located(path: &Path, header: &[String], line: u64, col: usize, detail: String) -> Error {
+    Error::input(
+        Location::line(path, line).at_column(col, &header[col]),
+        Problem::Review { detail },
+    )
 }
 
 /// The positions of the `names` that `what` cannot do without, or an error listing the
@@ -373,8 +348,30 @@ fn required<const N: usize>(
 }
 
 /// A 0-based data row number of `data`, from a cell.
-fn data_row(cell: &str, data: &Dataset) -> Option<usize> {
-    cell.parse::<usize>().ok().filter(|&r| r < data.rows())
+fn data_row(cell: &str, data: &Dataset) -> std::result::Result<usize, String> {
+    cell.parse::<usize>()
+        .ok()
+        .filter(|&r| r < data.rows())
+        .ok_or_else(|| {
+            format!(
+                "'{}' is not a data row (0 to {})",
+                shorten(cell),
+                data.rows() - 1
+            )
+        })
+}
+
+/// Checks that an id cell names `row`'s id (a worklist or key made from another version
+/// of the table is caught here).
+fn same_id(cell: &str, row: usize, data: &Dataset) -> std::result::Result<(), String> {
+    if cell == data.id(row) {
+        return Ok(());
+    }
+    Err(format!(
+        "row {row} has the id '{}' in the data, not '{}'",
+        data.id(row),
+        shorten(cell)
+    ))
 }
 
 #[cfg(test)]

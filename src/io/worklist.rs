@@ -101,6 +101,12 @@ pub fn key_path(worklist: &Path) -> PathBuf {
     worklist.with_file_name(format!("{stem}.key.{extension}"))
 }
 
+/// The key beside `worklist` ([`key_path`]), when that file exists.
+pub fn key_beside(worklist: &Path) -> Option<PathBuf> {
+    let key = key_path(worklist);
+    key.exists().then_some(key)
+}
+
 /// The header: `own` columns, then with `with_features` the feature names (a feature
 /// whose name is one of `own` gets the prefix `data_`).
 fn header(own: &[&str], data: &Dataset, with_features: bool) -> Vec<String> {
