@@ -11,15 +11,17 @@ use super::args::PipelineArgs;
 use crate::data::text_column::read_text_column;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
-use crate::io::worklist::{key_path, write_blind, write_key, write_worklist};
-use crate::io::{check_not_input, write_atomic, write_json};
+use crate::io::worklist::{key_path, write_worklist_files};
+use crate::io::{check_not_input, write_json};
 use crate::noise::posterior::expected_from_scores;
 use crate::noise::scores::{
     auroc, rank_values, score_selected, score_values, select_rows, RowScore, ScoreKind, Selection,
 };
 use crate::timing::Stages;
 use crate::workflow;
-use crate::workflow::worklist::{ranks_of, split_budget, with_control, DEFAULT_CONTROL_SHARE};
+use crate::workflow::worklist::{
+    ranks_of, split_budget, valid_control_share, with_control, DEFAULT_CONTROL_SHARE,
+};
 
 /// Flags of `flipmend suspects`.
 #[derive(Debug, Clone, Args)]
@@ -239,7 +241,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
 }
 
 fn check_outputs(args: &SuspectsArgs) -> Result<()> {
-    if !(0.0..0.5).contains(&args.control) {
+    if !valid_control_share(args.control) {
         return Err(Error::Usage(format!(
             "--control must be a share from 0 to below 0.5 of the worklist, not {}",
             args.control
@@ -311,18 +313,8 @@ fn write_lists(
         |rows| score_selected(kind, probs, &data.labels, flip, rows),
         |rows| ranks_of(order.iter().copied(), rows),
     );
-    let drawn = items.len() - listed.len();
-    if drawn == 0 {
-        let ranked: Vec<RowScore> = listed.iter().map(|(s, _)| *s).collect();
-        write_atomic(path, |w| {
-            write_worklist(w, data, kind, &ranked, args.with_features)
-        })?;
-        return Ok((0, None));
-    }
-    let key = key_path(path);
-    write_atomic(&key, |w| write_key(w, data, kind, &items))?;
-    write_atomic(path, |w| write_blind(w, data, &items, args.with_features))?;
-    Ok((drawn, Some(key)))
+    let key = write_worklist_files(path, data, kind, &items, args.with_features)?;
+    Ok((items.len() - listed.len(), key))
 }
 
 fn selection(args: &SuspectsArgs, kind: ScoreKind, data: &Dataset) -> Result<Selection> {

@@ -21,7 +21,7 @@ use crate::io::session::{
     read_session, write_session, EstimatorName, MatrixOrigin, Roles, Session, SessionMatrix,
     Settings,
 };
-use crate::io::worklist::{key_beside, key_path, write_blind, write_key, write_worklist, Item};
+use crate::io::worklist::{key_beside, key_path, write_worklist_files, Item};
 use crate::io::{check_not_input, write_atomic};
 use crate::learn::train::Correction;
 use crate::learn::{OofParams, SoftmaxParams};
@@ -776,9 +776,10 @@ impl AppState {
                 "the suspects are still being ranked; export again in a moment",
             );
         }
-        let (Some(ranking), Some(filter)) = (self.ranking.clone(), Some(self.filter())) else {
+        let Some(ranking) = self.ranking.clone() else {
             return;
         };
+        let filter = self.filter();
         let settings = &self.session.settings;
         let (suspects, control) = split_budget(settings.budget, settings.control);
         let listed: Vec<(RowScore, usize)> = self
@@ -792,30 +793,25 @@ impl AppState {
         self.jobs.spawn(JobKind::Save, move |_| {
             let items = ranked_with_control(&ranking, &data, &listed, control, seed, &filter);
             let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
-            let key = key_path(&path);
-            for target in [&path, &key] {
+            for target in [&path, &key_path(&path)] {
                 check_not_input(target, &refs).map_err(fail)?;
             }
+            let key = write_worklist_files(&path, &data, kind, &items, false).map_err(fail)?;
             let drawn = items.len() - listed.len();
-            if drawn == 0 {
-                let ranked: Vec<RowScore> = listed.iter().map(|(s, _)| *s).collect();
-                write_atomic(&path, |w| write_worklist(w, &data, kind, &ranked, false))
-                    .map_err(fail)?;
-                return Ok(JobOutput::Saved(format!(
+            Ok(JobOutput::Saved(match key {
+                None => format!(
                     "wrote {} ({} suspects, ranked)",
                     path.display(),
                     listed.len()
-                )));
-            }
-            write_atomic(&key, |w| write_key(w, &data, kind, &items)).map_err(fail)?;
-            write_atomic(&path, |w| write_blind(w, &data, &items, false)).map_err(fail)?;
-            Ok(JobOutput::Saved(format!(
-                "wrote {} ({} suspects and {drawn} control rows, shuffled) and its key {}: keep \
-                 the key from the reviewers",
-                path.display(),
-                listed.len(),
-                key.display()
-            )))
+                ),
+                Some(key) => format!(
+                    "wrote {} ({} suspects and {drawn} control rows, shuffled) and its key {}: \
+                     keep the key from the reviewers",
+                    path.display(),
+                    listed.len(),
+                    key.display()
+                ),
+            }))
         });
     }
 

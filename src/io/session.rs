@@ -265,7 +265,7 @@ fn check(s: &Session) -> std::result::Result<(), String> {
     if !t.min_score.is_finite() {
         return Err("min_score must be a number".into());
     }
-    if !(0.0..0.5).contains(&t.control) {
+    if !crate::workflow::worklist::valid_control_share(t.control) {
         return Err(format!("control must lie in [0, 0.5), not {}", t.control));
     }
     if t.resamples > 10_000 {

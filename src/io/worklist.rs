@@ -12,6 +12,7 @@ use std::path::{Path, PathBuf};
 
 use crate::data::origin::Origin;
 use crate::data::Dataset;
+use crate::io::write_atomic;
 use crate::noise::scores::{RowScore, ScoreKind};
 
 /// The ranked worklist's own columns, in order.
@@ -99,6 +100,31 @@ pub fn key_path(worklist: &Path) -> PathBuf {
         .extension()
         .map_or_else(|| "csv".into(), |e| e.to_string_lossy().into_owned());
     worklist.with_file_name(format!("{stem}.key.{extension}"))
+}
+
+/// Writes the worklist `items` to `path`: blind, with its key beside it, when they hold
+/// control rows (returns where the key went); otherwise ranked, in rank order. The key
+/// is written first, so a blind worklist never stands without it.
+pub fn write_worklist_files(
+    path: &Path,
+    data: &Dataset,
+    kind: ScoreKind,
+    items: &[Item],
+    with_features: bool,
+) -> crate::error::Result<Option<PathBuf>> {
+    if items.iter().all(|i| i.slice == Slice::Listed) {
+        let mut ranked = items.to_vec();
+        ranked.sort_by_key(|i| i.rank);
+        let ranked: Vec<RowScore> = ranked.iter().map(|i| i.score).collect();
+        write_atomic(path, |w| {
+            write_worklist(w, data, kind, &ranked, with_features)
+        })?;
+        return Ok(None);
+    }
+    let key = key_path(path);
+    write_atomic(&key, |w| write_key(w, data, kind, items))?;
+    write_atomic(path, |w| write_blind(w, data, items, with_features))?;
+    Ok(Some(key))
 }
 
 /// The key beside `worklist` ([`key_path`]), when that file exists.

@@ -18,6 +18,12 @@ use crate::noise::scores::RowScore;
 /// errors in 25: 4.9–26.5 % and 0–9.8 %), for 5 % fewer suspects reviewed.
 pub const DEFAULT_CONTROL_SHARE: f64 = 0.05;
 
+/// True for a control share the worklist can hold: from 0 to below one half (the rows
+/// chosen for being suspect stay the majority).
+pub fn valid_control_share(share: f64) -> bool {
+    (0.0..0.5).contains(&share)
+}
+
 /// A budget of `budget` rows split into (suspects, control rows): ⌈share × budget⌉
 /// control rows, but always at least one suspect.
 pub fn split_budget(budget: usize, share: f64) -> (usize, usize) {
