@@ -172,8 +172,8 @@ fn a_worklist_goes_out_and_its_review_comes_back() {
     h.run_steps(2);
     settle(&mut h);
     let r = state(&h).review.as_ref().expect("the review was read");
-    assert_eq!(r.confirmed + r.changed, 15);
-    assert_eq!(r.changed, 10);
+    assert_eq!(r.summary.confirmed + r.summary.changed, 15);
+    assert_eq!(r.summary.changed, 10);
     assert_eq!(r.review.not_reviewed, 10);
     let reviewed_rows =
         |s: &Option<flipmend::workflow::review::SliceResult>| s.map_or(0, |s| s.wrong.of);

@@ -88,11 +88,7 @@ pub struct ReviewRead {
     pub path: PathBuf,
     /// Its verdicts.
     pub review: Arc<Review>,
-    /// Verdicts that confirm the observed label.
-    pub confirmed: usize,
-    /// Verdicts that change it.
-    pub changed: usize,
-    /// What the review measured.
+    /// What the review measured (verdicts that confirm or change the label among it).
     pub summary: ReviewSummary,
 }
 
@@ -362,9 +358,9 @@ impl AppState {
                     format!(
                         "{}: {} verdicts ({} confirm, {} change the label)",
                         r.path.display(),
-                        r.confirmed + r.changed,
-                        r.confirmed,
-                        r.changed
+                        r.summary.reviewed,
+                        r.summary.confirmed,
+                        r.summary.changed
                     ),
                 );
                 self.review = Some(r);
@@ -830,8 +826,6 @@ impl AppState {
             let read = ReviewRead {
                 path,
                 review: Arc::new(review),
-                confirmed: summary.confirmed,
-                changed: summary.changed,
                 summary,
             };
             Ok(JobOutput::Reviewed(read, generation))

@@ -225,8 +225,8 @@ fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: 
                 .file_name()
                 .map(|n| n.to_string_lossy().into_owned())
                 .unwrap_or_default(),
-            r.confirmed,
-            r.changed,
+            r.summary.confirmed,
+            r.summary.changed,
             r.review.not_reviewed
         ));
         for line in review_findings(&r.summary) {
