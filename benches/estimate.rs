@@ -119,13 +119,13 @@ fn main() {
             let mut edited = t.clone();
             edited[[0, 1]] += 0.01;
             edited[[0, 0]] -= 0.01;
-            let r = flipmend::gui::analysis::rank_rows_head(
+            let r = flipmend::workflow::ranking::rank_rows_head(
                 probs.view(),
                 &labels,
                 Flip::noisy(&edited),
                 ScoreKind::Posterior,
                 1,
-                flipmend::gui::analysis::HEAD_ROWS,
+                flipmend::workflow::ranking::HEAD_ROWS,
             );
             std::hint::black_box(r.ranked.len());
         },

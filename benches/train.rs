@@ -50,11 +50,7 @@ fn main() {
     }
     let rows: Vec<usize> = (0..n).collect();
     let params = SoftmaxParams::default();
-    for correction in [
-        Correction::None,
-        Correction::Forward,
-        Correction::Backward { guarded: true },
-    ] {
+    for correction in [Correction::None, Correction::Forward, Correction::Backward] {
         let mut iterations = 0;
         let secs = median(3, || {
             let trained = train(

@@ -62,7 +62,7 @@ fn demo_opens_and_every_view_draws() {
     for (title, view) in [
         ("Flip matrix", View::Matrix),
         ("Suspects", View::Suspects),
-        ("Retrain", View::Retrain),
+        ("Compare", View::Retrain),
         ("Data", View::Data),
     ] {
         h.get_by_label(title).click();
@@ -320,7 +320,7 @@ fn a_failed_save_loses_nothing_and_a_session_restores_the_edits() {
 fn retraining_compares_the_corrections_and_saves_a_model_predict_reads() {
     let dir = TempDir::new();
     let mut h = app_on_demo(&dir.path(""));
-    h.get_by_label("Retrain").click();
+    h.get_by_label("Compare").click();
     h.run_steps(2);
     h.get_by_label("Train and compare").click();
     h.run_steps(2);

@@ -96,7 +96,7 @@ proptest! {
             // The probability scores rank by odds (any value but NaN); as shown they are
             // probabilities.
             prop_assert!(scores.iter().all(|s| !s.score.is_nan() && kind.shown(s.score) >= low
-                && kind.shown(s.score) <= high && s.suggested < k && s.alt < k));
+                && kind.shown(s.score) <= high && s.suggested < k && s.second_choice < k));
             let mut a = scores.clone();
             let mut b = scores;
             rank(&mut a);

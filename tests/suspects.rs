@@ -54,8 +54,8 @@ fn worklist_columns_order_and_caution() {
             "suggested",
             "score",
             "p_wrong",
-            "alt",
-            "alt_prob",
+            "second_choice",
+            "second_choice_prob",
             "review"
         ]
     );

@@ -7,7 +7,7 @@ use clap::Args;
 use crate::data::roles::parse_delimiter;
 use crate::data::{ProbOptions, TableOptions};
 use crate::learn::{OofParams, SoftmaxParams};
-use crate::noise::Method;
+use crate::noise::{Estimator, EstimatorSettings, Method, TrustedFallback};
 use crate::workflow::MatrixSource;
 
 /// Which file to read and which column plays which role.
@@ -79,14 +79,14 @@ pub struct MatrixArgs {
     /// minimum-volume penalty, started from counting), quantile (anchor points below the
     /// q-quantile), anchor (highest-probability rows), trusted (mean probabilities of
     /// audited rows), counting (confident counting)
-    #[arg(long, value_enum, default_value_t = MethodName::Joint, conflicts_with = "matrix")]
-    pub method: MethodName,
+    #[arg(long, value_enum, default_value_t = Estimator::Joint, conflicts_with = "matrix")]
+    pub method: Estimator,
     /// Quantile for --method quantile (and for --fallback quantile), in (0, 1]
     #[arg(long, value_name = "Q", default_value_t = crate::noise::DEFAULT_QUANTILE)]
     pub quantile: f64,
     /// With --method trusted: how to estimate classes that have no trusted rows
-    #[arg(long, value_enum, default_value_t = Fallback::None)]
-    pub fallback: Fallback,
+    #[arg(long, value_enum, default_value_t = TrustedFallback::None)]
+    pub fallback: TrustedFallback,
     /// With --method joint: weight λ of the minimum-volume penalty λ·ln det T against
     /// the mean log-likelihood [default: 0.01 / number of classes]
     #[arg(long, value_name = "X")]
@@ -97,44 +97,14 @@ pub struct MatrixArgs {
     pub matrix: Option<PathBuf>,
 }
 
-/// Estimator names on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum MethodName {
-    /// T and a clean classifier fitted together (maximum likelihood, minimum volume).
-    Joint,
-    /// Anchor rows just below the q-quantile of each class's probability.
-    Quantile,
-    /// The highest-probability row of each class.
-    Anchor,
-    /// Mean probabilities of the rows with a trusted label.
-    Trusted,
-    /// Confident counting with per-class thresholds.
-    Counting,
-}
-
-/// What `--method trusted` does for classes without trusted rows.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum Fallback {
-    /// Stop with an error naming the classes.
-    None,
-    /// Estimate those rows with the quantile estimator.
-    Quantile,
-}
-
 impl MatrixArgs {
     /// The estimator as library data.
     pub fn method(&self) -> Method {
-        match self.method {
-            MethodName::Quantile => Method::Quantile { q: self.quantile },
-            MethodName::Anchor => Method::Anchor,
-            MethodName::Trusted => Method::Trusted {
-                fallback_quantile: (self.fallback == Fallback::Quantile).then_some(self.quantile),
-            },
-            MethodName::Counting => Method::Counting,
-            MethodName::Joint => Method::Joint {
-                volume_weight: self.volume_weight,
-            },
-        }
+        self.method.with(&EstimatorSettings {
+            quantile: self.quantile,
+            fallback: self.fallback,
+            volume_weight: self.volume_weight,
+        })
     }
 
     /// Where the matrix comes from.
@@ -201,10 +171,10 @@ impl PipelineArgs {
     /// Refuses a `--quantile` outside (0, 1] whichever estimator is chosen (it also
     /// serves `--fallback quantile`), before any file is read.
     pub fn check(&self) -> crate::error::Result<()> {
-        Method::Quantile {
-            q: self.matrix.quantile,
-        }
-        .check()
+        let q = self.matrix.quantile;
+        Method::Quantile { q }.check().map_err(|_| {
+            crate::error::Error::Usage(format!("--quantile must lie in (0, 1], not {q}"))
+        })
     }
 
     /// The files the command reads (outputs must not be any of them).

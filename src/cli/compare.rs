@@ -8,7 +8,7 @@ use std::path::PathBuf;
 use clap::Args;
 
 use super::args::PipelineArgs;
-use crate::data::{Dataset, Probabilities};
+use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::{check_not_input, write_json};
 use crate::noise::matrix::load_matrix_csv;
@@ -17,7 +17,7 @@ use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareReport, CompareSettings, MatrixChoice,
     ALL_CORRECTIONS,
 };
-use crate::workflow::MatrixSource;
+use crate::workflow::{self, MatrixSource};
 
 /// Flags of `flipmend compare`.
 #[derive(Debug, Clone, Args)]
@@ -65,7 +65,7 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
         .as_deref()
         .map(|path| {
             let options = args.pipeline.probs.options(args.pipeline.table.delimiter);
-            Probabilities::load(path, &data, &options)
+            workflow::load_probabilities(&data, path, &options)
         })
         .transpose()?;
     stages.end("load_other");
@@ -84,7 +84,7 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
     };
     let inputs = CompareInputs {
         data: &data,
-        probs: probs.as_ref().map(|p| p.values.view()),
+        probs: probs.as_ref(),
         matrix,
         test: test.as_ref().map(|(x, l)| (x, l.as_slice())),
     };

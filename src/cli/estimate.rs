@@ -12,11 +12,11 @@ use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::{check_not_input, write_atomic, write_json};
-use crate::noise::bootstrap::Interval;
 use crate::noise::diagnostics::ReliabilityBin;
 use crate::noise::matrix::write_matrix_csv;
 use crate::noise::Method;
-use crate::workflow::{self, FlipEstimate, MatrixSource, RowProbabilities};
+use crate::workflow::estimate::{estimate, EstimateParams, Estimated};
+use crate::workflow::{self, MatrixSource, RowProbabilities};
 
 /// Flags of `flipmend estimate`.
 #[derive(Debug, Clone, Args)]
@@ -84,23 +84,14 @@ pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
         &args.pipeline.fit.oof(),
         &mut progress_line,
     )?;
-    let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
-    let estimate = workflow::flip_matrix(&data, &probs, &source)?;
-    let interval = match &source {
-        MatrixSource::Estimate(method) if args.bootstrap > 0 => Some(workflow::matrix_intervals(
-            &data,
-            &probs,
-            method,
-            args.bootstrap,
-            args.pipeline.fit.seed,
-        )?),
-        _ => None,
+    let params = EstimateParams {
+        matrix: args.pipeline.matrix.source(args.pipeline.probs.renormalize),
+        resamples: args.bootstrap,
+        seed: args.pipeline.fit.seed,
     };
-    write_outputs(args, &data, &probs, &estimate, interval.as_ref(), &source)?;
-    super::emit(
-        out,
-        &render(&data, &probs, &estimate, interval.as_ref(), &source),
-    )
+    let found = estimate(&data, &probs, &params)?;
+    write_outputs(args, &data, &probs, &found, &params.matrix)?;
+    super::emit(out, &render(&data, &probs, &found, &params.matrix))
 }
 
 fn check_outputs(args: &EstimateArgs) -> Result<()> {
@@ -136,10 +127,10 @@ fn write_outputs(
     args: &EstimateArgs,
     data: &Dataset,
     probs: &RowProbabilities,
-    estimate: &FlipEstimate,
-    interval: Option<&Interval>,
+    found: &Estimated,
     source: &MatrixSource,
 ) -> Result<()> {
+    let (estimate, interval) = (&found.estimate, found.interval.as_ref());
     if let Some(path) = &args.out {
         write_atomic(path, |w| {
             write_matrix_csv(w, &estimate.matrix, &data.classes)
@@ -163,7 +154,7 @@ fn write_outputs(
             condition_number: d.condition_number.is_finite().then_some(d.condition_number),
             calibration_error: d.calibration_error,
             reliability: &d.reliability,
-            warnings: all_warnings(data, estimate),
+            warnings: found.warnings.clone(),
             matrix_low: interval.map(|i| rows_of(&i.low)),
             matrix_high: interval.map(|i| rows_of(&i.high)),
         };
@@ -192,20 +183,13 @@ pub fn write_probs_csv(
     writer.flush()
 }
 
-fn all_warnings(data: &Dataset, estimate: &FlipEstimate) -> Vec<String> {
-    let mut warnings = data.warnings.clone();
-    warnings.extend(estimate.notes.iter().cloned());
-    warnings.extend(estimate.diagnostics.warnings.iter().cloned());
-    warnings
-}
-
 fn render(
     data: &Dataset,
     probs: &RowProbabilities,
-    estimate: &FlipEstimate,
-    interval: Option<&Interval>,
+    found: &Estimated,
     source: &MatrixSource,
 ) -> String {
+    let (estimate, interval) = (&found.estimate, found.interval.as_ref());
     let mut t = String::new();
     let d = &estimate.diagnostics;
     let k = data.classes.len();
@@ -299,7 +283,7 @@ fn render(
         "calibration error against observed labels (ECE, 15 bins): {:.4}",
         d.calibration_error
     );
-    for w in all_warnings(data, estimate) {
+    for w in &found.warnings {
         let _ = writeln!(t, "warning: {w}");
     }
     let _ = writeln!(

@@ -45,7 +45,7 @@ pub enum Command {
     /// the noise summary, diagnostics and warnings.
     Estimate(EstimateArgs),
     /// Rank the rows most likely mislabelled and write a relabel worklist for annotators
-    /// (rank,row,id,observed,suggested,score,alt,alt_prob,review).
+    /// (rank,row,id,observed,suggested,score,second_choice,second_choice_prob,review).
     Suspects(SuspectsArgs),
     /// Merge a reviewed worklist into a copy of the dataset: reviewed rows get their
     /// verified label in the trusted column. The input file is never changed.

@@ -13,15 +13,11 @@ use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::worklist::{key_path, write_worklist_files};
 use crate::io::{check_not_input, write_json};
-use crate::noise::posterior::expected_from_scores;
-use crate::noise::scores::{
-    auroc, rank_values, score_selected, score_values, select_rows, RowScore, ScoreKind, Selection,
-};
+use crate::noise::scores::{auroc, RowScore, ScoreKind};
 use crate::timing::Stages;
 use crate::workflow;
-use crate::workflow::worklist::{
-    ranks_of, split_budget, valid_control_share, with_control, DEFAULT_CONTROL_SHARE,
-};
+use crate::workflow::suspects::{expected_among, suspects, Suspects, SuspectsParams, DEFAULT_TOP};
+use crate::workflow::worklist::{valid_control_share, DEFAULT_CONTROL_SHARE};
 
 /// Flags of `flipmend suspects`.
 #[derive(Debug, Clone, Args)]
@@ -29,17 +25,18 @@ pub struct SuspectsArgs {
     #[command(flatten)]
     /// Table, probabilities, flip matrix and model settings.
     pub pipeline: PipelineArgs,
-    /// Score: posterior (P(true ≠ observed | x, observed) under the flip matrix), self
-    /// (1 − p(observed | x)) or margin (best other class's probability − the observed one's).
+    /// Score: posterior (P(true ≠ observed | x, observed) under the flip matrix),
+    /// self-confidence (1 − p(observed | x); `self` is still accepted) or margin (best other class's probability − the observed one's).
     /// The worklist's `score` column holds the two probabilities as log-odds (they do not
     /// round to a tie at 1) and `p_wrong` the probability
-    #[arg(long, value_enum, default_value_t = ScoreName::Posterior)]
-    pub score: ScoreName,
-    /// List the N most suspect rows [default: 100 unless --threshold or --all]
-    #[arg(long, value_name = "N", conflicts_with_all = ["threshold", "all"])]
-    pub top: Option<usize>,
-    /// List every row scoring at least S (for posterior and self: a probability that the
-    /// label is wrong, in [0, 1]; for margin: a margin, in [−1, 1])
+    #[arg(long, value_enum, default_value_t = ScoreKind::Posterior)]
+    pub score: ScoreKind,
+    /// At most N rows on the worklist, the most suspect first, control rows included
+    /// [default: 100 unless --threshold or --all]
+    #[arg(long, visible_alias = "top", value_name = "N", conflicts_with_all = ["threshold", "all"])]
+    pub budget: Option<usize>,
+    /// List every row scoring at least S (for posterior and self-confidence: a probability
+    /// that the label is wrong, in [0, 1]; for margin: a margin, in [−1, 1])
     #[arg(long, value_name = "S", conflicts_with = "all")]
     pub threshold: Option<f64>,
     /// List every row
@@ -62,7 +59,7 @@ pub struct SuspectsArgs {
     pub with_features: bool,
     /// Write the worklist CSV: blind (item,row,id,observed,review) with its key NAME.key.csv
     /// when there are control rows, else ranked
-    /// (rank,row,id,observed,suggested,score,p_wrong,alt,alt_prob,review)
+    /// (rank,row,id,observed,suggested,score,p_wrong,second_choice,second_choice_prob,review)
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
     /// Write the summary as JSON
@@ -72,28 +69,6 @@ pub struct SuspectsArgs {
     /// precision of the score against the rows whose observed label differs from it
     #[arg(long, value_name = "COL")]
     pub truth: Option<String>,
-}
-
-/// Score names on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum ScoreName {
-    /// Posterior probability that the observed label is wrong, under the flip matrix.
-    Posterior,
-    /// One minus the probability of the observed label.
-    #[value(name = "self")]
-    SelfConfidence,
-    /// Normalized margin of the best other class over the observed one.
-    Margin,
-}
-
-impl ScoreName {
-    fn kind(self) -> ScoreKind {
-        match self {
-            ScoreName::Posterior => ScoreKind::Posterior,
-            ScoreName::SelfConfidence => ScoreKind::SelfConfidence,
-            ScoreName::Margin => ScoreKind::Margin,
-        }
-    }
 }
 
 #[derive(Debug, Serialize)]
@@ -138,8 +113,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     let mut stages = Stages::start();
     let data = Dataset::load(&args.pipeline.table.data, &options)?;
     stages.end("load_table");
-    let kind = args.score.kind();
-    let selection = selection(args, kind, &data)?;
+    let params = params(args, &data)?;
     let probs = workflow::probabilities(
         &data,
         args.pipeline.probs.probs.as_deref(),
@@ -148,96 +122,24 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         &mut |_, _| true,
     )?;
     stages.end("probabilities");
-    let mut warnings = data.warnings.clone();
-    warnings.extend(probs.notices.iter().cloned());
-    let matrix = match kind {
-        ScoreKind::Posterior => {
-            let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
-            Some((
-                source.describe(),
-                workflow::matrix_only(&data, &probs, &source)?,
-            ))
+    let found = suspects(&data, &probs, &params, &mut stages)?;
+    let key = match &args.out {
+        Some(path) => {
+            write_worklist_files(path, &data, found.kind, &found.items, args.with_features)?
         }
-        _ => None,
-    };
-    stages.end("matrix");
-    // Scores alone for every row; the full verdict (suggested class, runner-up) only for
-    // the rows listed.
-    let (t, clean) = match &matrix {
-        Some((_, e)) => (Some(&e.matrix), e.clean.as_ref()),
-        None => (None, None),
-    };
-    let (score_probs, flip) = workflow::score_inputs(kind, &probs, clean, t);
-    let scores = score_values(kind, score_probs, &data.labels, flip);
-    stages.end("scores");
-    if let Some((_, e)) = &matrix {
-        // The scores are the posteriors under t: their sum is the expected number of
-        // mislabelled rows, so the diagnosis does not compute every posterior again.
-        let expected = expected_from_scores(&scores);
-        let diagnostics = workflow::diagnose_matrix_given(&data, &probs, &e.matrix, Some(expected));
-        warnings.extend(e.notes.iter().cloned());
-        warnings.extend(diagnostics.warnings);
-    }
-    stages.end("diagnose");
-    let truth = match &args.truth {
-        Some(column) => Some(truth_flags(
-            &data,
-            column,
-            args.pipeline
-                .table
-                .options()
-                .delimiter_for(&args.pipeline.table.data),
-        )?),
         None => None,
     };
-    let truth_auroc = truth.as_ref().map(|flipped| {
-        (
-            auroc(&scores, flipped),
-            flipped.iter().filter(|&&f| f).count(),
-        )
-    });
-    let order = rank_values(&scores, scores.len());
-    let (rows, control) = choose_rows(args, &data, &order, &scores, &selection);
-    let listed = score_selected(kind, score_probs, &data.labels, flip, &rows);
-    stages.end("rank");
-    let (control, key) = write_lists(
-        args,
-        &data,
-        (kind, &selection),
-        &order,
-        &listed,
-        control,
-        (score_probs, flip),
-    )?;
-    let truth_check = match (&args.truth, &truth, truth_auroc) {
-        (Some(column), Some(flipped), Some((auc, flipped_rows))) => {
-            let hits = listed.iter().filter(|s| flipped[s.row]).count();
-            let precision = (!listed.is_empty()).then(|| hits as f64 / listed.len() as f64);
-            Some(TruthCheck {
-                truth_column: column.clone(),
-                flipped_rows,
-                auroc: auc,
-                precision_at_n: precision,
-                n: listed.len(),
-            })
-        }
-        _ => None,
+    let truth = match &args.truth {
+        Some(column) => Some(truth_check(args, &data, column, &found)?),
+        None => None,
     };
-    let report = summary(
-        kind,
-        &data,
-        (&listed, control, key),
-        matrix.map(|(name, _)| name),
-        &probs,
-        warnings,
-        truth_check,
-    );
+    let report = summary(&data, &found, key, &probs, truth);
     if let Some(path) = &args.json {
         write_json(path, &report)?;
     }
     stages.end("write");
     super::report_stages(&stages);
-    super::emit(out, &render(&report, kind, &data, &listed))
+    super::emit(out, &render(&report, found.kind, &data, &found.listed))
 }
 
 fn check_outputs(args: &SuspectsArgs) -> Result<()> {
@@ -255,69 +157,9 @@ fn check_outputs(args: &SuspectsArgs) -> Result<()> {
     Ok(())
 }
 
-/// The suspects to list (in rank order) and how many control rows to add: a budget
-/// (`--top`) is split between them; otherwise the control rows come on top of the list.
-fn choose_rows(
-    args: &SuspectsArgs,
-    data: &Dataset,
-    order: &[usize],
-    scores: &[f64],
-    selection: &Selection,
-) -> (Vec<usize>, usize) {
-    let mut for_list = selection.clone();
-    let budget_control = selection.top.map(|top| {
-        let (suspects, control) = split_budget(top, args.control);
-        for_list.top = Some(suspects);
-        control
-    });
-    let listed = select_rows(
-        order.iter().map(|&r| (r, scores[r])),
-        &data.labels,
-        data.classes.len(),
-        &for_list,
-    );
-    let count =
-        budget_control.unwrap_or_else(|| (listed.len() as f64 * args.control).ceil() as usize);
-    (listed, count)
-}
-
-/// Writes the worklist (`--out`): ranked, or blind with its key when there are control
-/// rows to add; returns the number of control rows and where the key went.
-fn write_lists(
-    args: &SuspectsArgs,
-    data: &Dataset,
-    (kind, selection): (ScoreKind, &Selection),
-    order: &[usize],
-    listed: &[RowScore],
-    control: usize,
-    (probs, flip): (
-        ndarray::ArrayView2<f32>,
-        Option<crate::noise::posterior::Flip>,
-    ),
-) -> Result<(usize, Option<PathBuf>)> {
-    let Some(path) = &args.out else {
-        return Ok((0, None));
-    };
-    let ranks = ranks_of(
-        order.iter().copied(),
-        &listed.iter().map(|s| s.row).collect::<Vec<_>>(),
-    );
-    let listed: Vec<(RowScore, usize)> = listed.iter().copied().zip(ranks).collect();
-    let classes = selection.classes.as_deref();
-    let items = with_control(
-        &listed,
-        data.rows(),
-        control,
-        args.pipeline.fit.seed,
-        |r| classes.is_none_or(|c| c.contains(&data.labels[r])),
-        |rows| score_selected(kind, probs, &data.labels, flip, rows),
-        |rows| ranks_of(order.iter().copied(), rows),
-    );
-    let key = write_worklist_files(path, data, kind, &items, args.with_features)?;
-    Ok((items.len() - listed.len(), key))
-}
-
-fn selection(args: &SuspectsArgs, kind: ScoreKind, data: &Dataset) -> Result<Selection> {
+/// The flags as the suspects job's parameters; a class or threshold the flags get wrong
+/// is reported by its flag.
+fn params(args: &SuspectsArgs, data: &Dataset) -> Result<SuspectsParams> {
     let classes = match &args.classes {
         Some(names) => Some(
             names
@@ -334,27 +176,51 @@ fn selection(args: &SuspectsArgs, kind: ScoreKind, data: &Dataset) -> Result<Sel
         ),
         None => None,
     };
-    let (low, high) = if kind.is_probability() {
-        (0.0, 1.0)
-    } else {
-        (-1.0, 1.0)
-    };
+    let (low, high) = args.score.shown_range();
     if let Some(t) = args.threshold.filter(|t| !(low..=high).contains(t)) {
         return Err(Error::Usage(format!(
             "--threshold must be a number from {low} to {high} for the {} score, not {t}",
-            kind.name()
+            args.score.name()
         )));
     }
-    let top = if args.all || args.threshold.is_some() {
-        args.top
+    let budget = if args.all || args.threshold.is_some() {
+        args.budget
     } else {
-        Some(args.top.unwrap_or(100))
+        Some(args.budget.unwrap_or(DEFAULT_TOP))
     };
-    Ok(Selection {
-        top,
-        threshold: args.threshold.map(|t| kind.from_shown(t)),
+    Ok(SuspectsParams {
+        score: args.score,
+        matrix: args.pipeline.matrix.source(args.pipeline.probs.renormalize),
+        budget,
+        threshold: args.threshold,
         per_class_cap: args.per_class_cap,
         classes,
+        control_share: args.control,
+        seed: args.pipeline.fit.seed,
+    })
+}
+
+/// `--truth`: how well the score finds the rows whose observed label differs from it.
+fn truth_check(
+    args: &SuspectsArgs,
+    data: &Dataset,
+    column: &str,
+    found: &Suspects,
+) -> Result<TruthCheck> {
+    let delimiter = args
+        .pipeline
+        .table
+        .options()
+        .delimiter_for(&args.pipeline.table.data);
+    let flipped = truth_flags(data, column, delimiter)?;
+    let hits = found.listed.iter().filter(|s| flipped[s.row]).count();
+    let n = found.listed.len();
+    Ok(TruthCheck {
+        truth_column: column.to_string(),
+        flipped_rows: flipped.iter().filter(|&&f| f).count(),
+        auroc: auroc(&found.scores, &flipped),
+        precision_at_n: (n > 0).then(|| hits as f64 / n as f64),
+        n,
     })
 }
 
@@ -376,18 +242,14 @@ fn truth_flags(data: &Dataset, column: &str, delimiter: u8) -> Result<Vec<bool>>
 }
 
 fn summary(
-    kind: ScoreKind,
     data: &Dataset,
-    (listed, control, key): (&[RowScore], usize, Option<PathBuf>),
-    matrix: Option<String>,
+    found: &Suspects,
+    key: Option<PathBuf>,
     probs: &workflow::RowProbabilities,
-    warnings: Vec<String>,
     truth: Option<TruthCheck>,
 ) -> SuspectsReport {
-    let expected = |rows: &mut dyn Iterator<Item = &RowScore>| {
-        kind.is_probability()
-            .then(|| rows.filter_map(|s| kind.probability(s.score)).sum())
-    };
+    let kind = found.kind;
+    let listed = &found.listed;
     let per_class = data
         .classes
         .iter()
@@ -397,21 +259,26 @@ fn summary(
             ClassCount {
                 class: name.clone(),
                 listed: rows.len(),
-                expected_errors: expected(&mut rows.iter().copied()),
+                expected_errors: expected_among(kind, &rows),
             }
         })
         .collect();
+    let all: Vec<&RowScore> = listed.iter().collect();
     SuspectsReport {
         score: kind.name(),
-        matrix,
+        matrix: found.matrix.as_ref().map(|m| m.description.clone()),
         probabilities: probs.source.describe(),
         rows: data.rows(),
         listed: listed.len(),
-        control,
+        control: if key.is_some() {
+            found.control_rows()
+        } else {
+            0
+        },
         key: key.map(|k| k.display().to_string()),
-        expected_errors: expected(&mut listed.iter()),
+        expected_errors: expected_among(kind, &all),
         per_class,
-        warnings,
+        warnings: found.warnings.clone(),
         truth,
     }
 }

@@ -5,16 +5,15 @@ use std::io::Write;
 use std::path::PathBuf;
 
 use clap::Args;
-use ndarray::Array2;
 
 use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
-use crate::io::model::{write_model, FitSummary, ModelFile, Provenance, TrainingSettings};
+use crate::io::model::{write_model, ModelFile};
 use crate::io::{check_not_input, write_atomic};
-use crate::learn::train::{train, Correction, TrainInputs, Trained};
-use crate::noise::matrix::load_matrix_csv;
-use crate::workflow::{self, MatrixSource};
+use crate::learn::train::{Correction, Trained};
+use crate::workflow;
+use crate::workflow::train::{train_model, TrainParams};
 
 /// Flags of `flipmend train`.
 #[derive(Debug, Clone, Args)]
@@ -22,43 +21,32 @@ pub struct TrainArgs {
     #[command(flatten)]
     /// Table, probabilities, flip matrix and model settings.
     pub pipeline: PipelineArgs,
-    /// none (plain cross-entropy), forward or backward (loss corrected by the flip matrix),
-    /// prune (drop the most suspect rows, as many as the expected number of mislabelled
-    /// rows, then plain cross-entropy)
+    /// none (plain cross-entropy), forward or backward (loss corrected by the flip matrix;
+    /// backward bounds each per-class loss by −ln 1e-4 so the fit cannot exploit the
+    /// negative entries of the inverse), backward-unbounded (the published backward loss,
+    /// unbounded below when the inverse has negative entries), prune (drop the most suspect
+    /// rows, as many as the expected number of mislabelled rows, then plain cross-entropy)
     #[arg(long, value_enum)]
-    pub correction: CorrectionName,
-    /// With --correction backward: use the faithful loss, which is unbounded below when the
-    /// inverse flip matrix has negative entries (by default each per-class loss is bounded
-    /// by −ln 1e-4, a smooth floor on the probabilities, to keep the fit from exploiting them)
-    #[arg(long)]
+    pub correction: Correction,
+    /// The earlier spelling of `--correction backward-unbounded`, still accepted
+    #[arg(long, hide = true)]
     pub faithful: bool,
     /// Where to save the model (JSON)
     #[arg(long, value_name = "FILE")]
     pub out: PathBuf,
 }
 
-/// Correction names on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum CorrectionName {
-    /// Cross-entropy on the observed labels.
-    None,
-    /// Forward correction.
-    Forward,
-    /// Backward correction.
-    Backward,
-    /// Drop the most suspect rows, then cross-entropy.
-    Prune,
-}
-
 impl TrainArgs {
-    fn correction(&self) -> Correction {
-        match self.correction {
-            CorrectionName::None => Correction::None,
-            CorrectionName::Forward => Correction::Forward,
-            CorrectionName::Backward => Correction::Backward {
-                guarded: !self.faithful,
-            },
-            CorrectionName::Prune => Correction::Prune,
+    /// The correction, with the earlier `--faithful` flag read as backward-unbounded.
+    fn correction(&self) -> Result<Correction> {
+        match (self.faithful, self.correction) {
+            (false, c) => Ok(c),
+            (true, Correction::Backward | Correction::BackwardUnbounded) => {
+                Ok(Correction::BackwardUnbounded)
+            }
+            (true, _) => Err(Error::Usage(
+                "--faithful applies to --correction backward only".into(),
+            )),
         }
     }
 }
@@ -68,121 +56,27 @@ pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
     args.pipeline.check()?;
     let inputs = args.pipeline.inputs();
     check_not_input(&args.out, &inputs)?;
-    if args.faithful && args.correction != CorrectionName::Backward {
-        return Err(Error::Usage(
-            "--faithful applies to --correction backward only".into(),
-        ));
-    }
-    let correction = args.correction();
+    let correction = args.correction()?;
     let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
-    let params = args.pipeline.fit.oof().model;
-    params.check()?;
-    let (matrix, probs, matrix_source, mut warnings) = matrix_and_probs(args, &data, correction)?;
-    let rows: Vec<usize> = (0..data.rows()).collect();
-    let trained = train(
-        data.features.view(),
-        &rows,
-        &data.labels,
-        data.classes.len(),
+    let params = TrainParams {
         correction,
-        TrainInputs {
-            matrix: matrix.as_ref(),
-            probs: probs.as_ref().map(|p| p.view()),
-            start: None,
-            cancel: None,
-        },
-        &params,
-    )?;
-    warnings.extend(trained.warnings.iter().cloned());
-    let file = model_file(
-        args,
-        &data,
-        &trained,
-        correction,
-        matrix.as_ref(),
-        matrix_source,
-        &rows,
-    );
-    write_atomic(&args.out, |w| write_model(w, &file))?;
-    super::emit(out, &render(args, &data, &file, &trained, &warnings))
-}
-
-type MatrixAndProbs = (
-    Option<Array2<f64>>,
-    Option<Array2<f32>>,
-    Option<String>,
-    Vec<String>,
-);
-
-/// The flip matrix (read, or estimated from probabilities) and, for prune, the
-/// probabilities; nothing for `none`.
-fn matrix_and_probs(
-    args: &TrainArgs,
-    data: &Dataset,
-    correction: Correction,
-) -> Result<MatrixAndProbs> {
-    if !correction.needs_matrix() {
-        return Ok((None, None, None, Vec::new()));
-    }
-    let source = args.pipeline.matrix.source(args.pipeline.probs.renormalize);
-    if let (MatrixSource::File { path, renormalize }, false) =
-        (&source, correction == Correction::Prune)
-    {
-        let (t, notes) = load_matrix_csv(path, &data.classes, *renormalize)?;
-        return Ok((
-            Some(t),
-            None,
-            Some(format!("file {}", path.display())),
-            notes,
-        ));
-    }
-    let probs = workflow::probabilities(
-        data,
-        args.pipeline.probs.probs.as_deref(),
-        &args.pipeline.probs.options(args.pipeline.table.delimiter),
-        &args.pipeline.fit.oof(),
-        &mut |_, _| true,
-    )?;
-    let estimate = workflow::flip_matrix(data, &probs, &source)?;
-    let name = source.describe();
-    let mut warnings = estimate.notes;
-    warnings.extend(estimate.diagnostics.warnings);
-    Ok((
-        Some(estimate.matrix),
-        Some(probs.values),
-        Some(name),
-        warnings,
-    ))
-}
-
-fn model_file(
-    args: &TrainArgs,
-    data: &Dataset,
-    trained: &Trained,
-    correction: Correction,
-    matrix: Option<&Array2<f64>>,
-    matrix_source: Option<String>,
-    rows: &[usize],
-) -> ModelFile {
-    let provenance = Provenance {
-        data,
-        rows,
-        correction: correction.name(),
-        matrix,
-        fit: FitSummary {
-            objective: trained.report.objective,
-            iterations: trained.report.iterations,
-            converged: trained.report.converged,
-            dropped_rows: trained.dropped.len(),
-        },
+        matrix: args.pipeline.matrix.source(args.pipeline.probs.renormalize),
+        fit: args.pipeline.fit.oof(),
     };
-    let settings = TrainingSettings {
-        l2: args.pipeline.fit.l2,
-        max_iter: args.pipeline.fit.max_iter,
-        seed: args.pipeline.fit.seed,
-        matrix_source,
-    };
-    ModelFile::describe(&trained.model, provenance, settings)
+    let made = train_model(&data, &params, &mut || {
+        workflow::probabilities(
+            &data,
+            args.pipeline.probs.probs.as_deref(),
+            &args.pipeline.probs.options(args.pipeline.table.delimiter),
+            &args.pipeline.fit.oof(),
+            &mut |_, _| true,
+        )
+    })?;
+    write_atomic(&args.out, |w| write_model(w, &made.file))?;
+    super::emit(
+        out,
+        &render(args, &data, &made.file, &made.trained, &made.warnings),
+    )
 }
 
 fn render(

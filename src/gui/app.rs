@@ -1,7 +1,7 @@
 //! The eframe app: runtime UI state, the frame loop (poll jobs, draw, then apply the
 //! commands the drawing produced), shortcuts, drag-and-drop and persistence.
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 use std::sync::Arc;
 
 use eframe::egui;
@@ -37,7 +37,7 @@ impl View {
             View::Data => "Data",
             View::Matrix => "Flip matrix",
             View::Suspects => "Suspects",
-            View::Retrain => "Retrain",
+            View::Retrain => "Compare",
         }
     }
 }
@@ -48,7 +48,7 @@ impl View {
 pub struct Persisted {
     /// Recently opened data files and sessions, newest first.
     pub recent: Vec<PathBuf>,
-    /// Dark theme.
+    /// Dark theme (`None`: dark). An app preference, not part of any session.
     pub dark: Option<bool>,
 }
 
@@ -113,10 +113,7 @@ impl FlipmendApp {
     pub fn new(ctx: &egui::Context, persisted: Persisted) -> Self {
         let repaint = ctx.clone();
         let wake: Arc<dyn Fn() + Send + Sync> = Arc::new(move || repaint.request_repaint());
-        let mut state = AppState::new(wake);
-        if let Some(dark) = persisted.dark {
-            state.session.settings.dark = dark;
-        }
+        let state = AppState::new(wake);
         FlipmendApp {
             state,
             ui: UiState::default(),
@@ -212,22 +209,8 @@ impl FlipmendApp {
                 .collect()
         });
         for path in dropped {
-            let command = self.command_for_dropped(&path);
+            let command = Command::open(&path);
             self.push(command);
-        }
-    }
-
-    /// A dropped `.json` opens as a session, a `.npy` as probabilities, anything else
-    /// as a data table.
-    fn command_for_dropped(&self, path: &Path) -> Command {
-        let ext = path
-            .extension()
-            .and_then(|e| e.to_str())
-            .map(str::to_ascii_lowercase);
-        match ext.as_deref() {
-            Some("json") => Command::OpenSession(path.to_path_buf()),
-            Some("npy") => Command::LoadProbabilities(path.to_path_buf()),
-            _ => Command::LoadData(path.to_path_buf(), Roles::default()),
         }
     }
 
@@ -267,7 +250,7 @@ impl FlipmendApp {
     /// One frame's drawing; commands are applied at its end.
     pub fn draw(&mut self, ui: &mut egui::Ui) {
         let ctx = ui.ctx().clone();
-        ctx.set_theme(if self.state.settings().dark {
+        ctx.set_theme(if self.persisted.dark.unwrap_or(true) {
             egui::Theme::Dark
         } else {
             egui::Theme::Light
@@ -311,7 +294,6 @@ impl eframe::App for FlipmendApp {
     }
 
     fn save(&mut self, storage: &mut dyn eframe::Storage) {
-        self.persisted.dark = Some(self.state.settings().dark);
         eframe::set_value(storage, STORAGE_KEY, &self.persisted);
     }
 }

@@ -61,3 +61,19 @@ pub enum Command {
     /// Hide a message.
     Dismiss(usize),
 }
+
+impl Command {
+    /// What opening `path` by itself means (a dropped file, a Recent entry): a `.json`
+    /// opens as a session, a `.npy` as probabilities, anything else as a data table.
+    pub fn open(path: &std::path::Path) -> Command {
+        let ext = path
+            .extension()
+            .and_then(|e| e.to_str())
+            .map(str::to_ascii_lowercase);
+        match ext.as_deref() {
+            Some("json") => Command::OpenSession(path.to_path_buf()),
+            Some("npy") => Command::LoadProbabilities(path.to_path_buf()),
+            _ => Command::LoadData(path.to_path_buf(), Roles::default()),
+        }
+    }
+}

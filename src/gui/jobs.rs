@@ -35,8 +35,9 @@ pub enum JobKind {
     Retrain,
     /// Reading a reviewed worklist.
     Review,
-    /// Writing a file.
-    Save,
+    /// Writing a file. Every save is its own job (numbered by the caller), so a second
+    /// save neither cancels the first nor hides its error.
+    Save(u64),
     /// A test's job.
     Test,
 }
@@ -54,7 +55,7 @@ impl JobKind {
             JobKind::Diagnose => "diagnostics",
             JobKind::Retrain => "training",
             JobKind::Review => "reading review",
-            JobKind::Save => "saving",
+            JobKind::Save(_) => "saving",
             JobKind::Test => "test",
         }
     }

@@ -1,7 +1,6 @@
 //! The desktop app (eframe). [`state`] holds the app's logic without drawing, [`jobs`]
 //! runs long work on worker threads, [`app`] is the frame loop and `views` draw.
 
-pub mod analysis;
 pub mod app;
 pub mod command;
 pub mod dialogs;

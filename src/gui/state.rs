@@ -8,7 +8,6 @@ use std::sync::Arc;
 
 use ndarray::{Array2, ArrayView2};
 
-use super::analysis::{filter_rows, finish_ranking, rank_rows_head, Filter, Ranking, HEAD_ROWS};
 use super::command::Command;
 use super::jobs::{Finished, JobControl, JobFailure, JobKind, Jobs};
 use super::matrix_edit::MatrixEditor;
@@ -18,21 +17,22 @@ use crate::error::Error;
 use crate::io::model::{write_model, ModelFile, Provenance, TrainingSettings};
 use crate::io::review::{load_key, load_review, write_merged, Review};
 use crate::io::session::{
-    read_session, write_session, EstimatorName, MatrixOrigin, Roles, Session, SessionMatrix,
-    Settings,
+    read_session, write_session, MatrixOrigin, Roles, Session, SessionMatrix, Settings,
 };
 use crate::io::worklist::{key_beside, key_path, write_worklist_files, Item};
 use crate::io::{check_not_input, write_atomic};
-use crate::learn::train::Correction;
 use crate::learn::{OofParams, SoftmaxParams};
 use crate::noise::bootstrap::Interval;
 use crate::noise::matrix::{load_matrix_csv, write_matrix_csv};
 use crate::noise::posterior::Flip;
 use crate::noise::scores::RowScore;
 use crate::noise::scores::ScoreKind;
-use crate::noise::{Diagnostics, Method};
+use crate::noise::{Diagnostics, Estimator, EstimatorSettings, Method};
 use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareSettings, Comparison, MatrixChoice,
+};
+use crate::workflow::ranking::{
+    filter_rows, finish_ranking, rank_rows_head, Filter, Ranking, HEAD_ROWS,
 };
 use crate::workflow::review::{summarise, ReviewSummary};
 use crate::workflow::worklist::{split_budget, with_control};
@@ -164,6 +164,8 @@ pub struct AppState {
     /// ends. At most one of each runs, so a drag over a cell never piles up stale work.
     rank_pending: bool,
     diagnose_pending: bool,
+    /// Saves started so far (each save is its own job).
+    saves: u64,
 }
 
 /// Messages kept at most (older ones go first).
@@ -191,6 +193,7 @@ impl AppState {
             jobs: Jobs::new(wake),
             pending_matrix: None,
             rank_pending: false,
+            saves: 0,
             diagnose_pending: false,
         }
     }
@@ -476,17 +479,11 @@ impl AppState {
     /// The estimator the settings pick.
     pub fn method(&self) -> Method {
         let s = &self.session.settings;
-        match s.estimator {
-            EstimatorName::Joint => Method::Joint {
-                volume_weight: None,
-            },
-            EstimatorName::Quantile => Method::Quantile { q: s.quantile },
-            EstimatorName::Anchor => Method::Anchor,
-            EstimatorName::Trusted => Method::Trusted {
-                fallback_quantile: Some(s.quantile),
-            },
-            EstimatorName::Counting => Method::Counting,
-        }
+        s.estimator.with(&EstimatorSettings {
+            quantile: s.quantile,
+            fallback: s.fallback,
+            volume_weight: None,
+        })
     }
 
     fn start_estimate(&mut self) {
@@ -720,10 +717,8 @@ impl AppState {
         let old = std::mem::replace(&mut self.session.settings, new);
         let s = &self.session.settings;
         let estimator_changed = old.estimator != s.estimator
-            || (matches!(
-                s.estimator,
-                EstimatorName::Quantile | EstimatorName::Trusted
-            ) && old.quantile != s.quantile);
+            || (matches!(s.estimator, Estimator::Quantile | Estimator::Trusted)
+                && old.quantile != s.quantile);
         let score_changed = old.score != s.score;
         let filter_changed = old.min_score != s.min_score
             || old.observed_filter != s.observed_filter
@@ -786,7 +781,8 @@ impl AppState {
             .collect();
         let inputs = self.input_paths();
         let (kind, seed) = (settings.score, settings.seed);
-        self.jobs.spawn(JobKind::Save, move |_| {
+        let job = self.next_save();
+        self.jobs.spawn(job, move |_| {
             let items = ranked_with_control(&ranking, &data, &listed, control, seed, &filter);
             let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
             for target in [&path, &key_path(&path)] {
@@ -843,7 +839,8 @@ impl AppState {
             .map(|o| o.delimiter_for(&data.path))
             .unwrap_or(b',');
         let target = path.clone();
-        self.jobs.spawn(JobKind::Save, move |_| {
+        let kind = self.next_save();
+        self.jobs.spawn(kind, move |_| {
             let inputs: Vec<&Path> = all_inputs.iter().map(PathBuf::as_path).collect();
             check_not_input(&target, &inputs).map_err(fail)?;
             write_atomic(&target, |w| {
@@ -871,11 +868,7 @@ impl AppState {
         let settings = CompareSettings {
             holdout: s.holdout,
             fit: self.oof_params(),
-            corrections: s
-                .corrections
-                .iter()
-                .filter_map(|c| correction_named(c))
-                .collect(),
+            corrections: s.corrections.clone(),
         };
         let test_path = s.test.clone();
         let generation = self.data_generation;
@@ -887,7 +880,7 @@ impl AppState {
                 .map_err(fail)?;
             let inputs = CompareInputs {
                 data: &data,
-                probs: Some(probs.values.view()),
+                probs: Some(&probs),
                 matrix: MatrixChoice::Given(&matrix),
                 test: test.as_ref().map(|(x, l)| (x, l.as_slice())),
             };
@@ -1020,12 +1013,19 @@ impl AppState {
         inputs
     }
 
+    /// A new job kind for one save.
+    fn next_save(&mut self) -> JobKind {
+        self.saves += 1;
+        JobKind::Save(self.saves)
+    }
+
     /// Writes a file on a worker, atomically, never over an input.
     fn save_job<F>(&mut self, path: PathBuf, inputs: Vec<PathBuf>, write: F)
     where
         F: FnOnce(&mut dyn std::io::Write) -> std::io::Result<()> + Send + 'static,
     {
-        self.jobs.spawn(JobKind::Save, move |_| {
+        let kind = self.next_save();
+        self.jobs.spawn(kind, move |_| {
             let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
             check_not_input(&path, &refs).map_err(fail)?;
             write_atomic(&path, write).map_err(fail)?;
@@ -1079,16 +1079,6 @@ fn fail(e: Error) -> JobFailure {
     match e {
         Error::Cancelled => JobFailure::Cancelled,
         e => JobFailure::Error(e.to_string()),
-    }
-}
-
-/// The correction a settings name stands for.
-pub fn correction_named(name: &str) -> Option<Correction> {
-    match name {
-        "forward" => Some(Correction::Forward),
-        "backward" => Some(Correction::Backward { guarded: true }),
-        "prune" => Some(Correction::Prune),
-        _ => None,
     }
 }
 

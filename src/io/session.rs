@@ -8,8 +8,10 @@ use std::path::{Path, PathBuf};
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Location, Problem, Result};
+use crate::learn::train::Correction;
 use crate::noise::matrix::validate;
 use crate::noise::scores::ScoreKind;
+use crate::noise::{Estimator, TrustedFallback};
 
 /// The `format` field of every session file.
 pub const SESSION_FORMAT: &str = "flipmend-session";
@@ -58,22 +60,6 @@ pub struct Roles {
     pub features: Option<Vec<String>>,
 }
 
-/// The estimator picked in the Flip matrix view.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum EstimatorName {
-    /// T and a clean classifier fitted together (the default).
-    Joint,
-    /// Per-class quantile of the probabilities.
-    Quantile,
-    /// Anchor points.
-    Anchor,
-    /// Trusted subset (quantile for classes without trusted rows).
-    Trusted,
-    /// Confident counting.
-    Counting,
-}
-
 /// Every setting a session restores.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
@@ -87,7 +73,9 @@ pub struct Settings {
     /// Iteration limit of every fit.
     pub max_iter: usize,
     /// Estimator.
-    pub estimator: EstimatorName,
+    pub estimator: Estimator,
+    /// What the trusted estimator does for classes without randomly audited rows.
+    pub fallback: TrustedFallback,
     /// Quantile of the quantile estimator.
     pub quantile: f64,
     /// Editing a cell leaves the diagonal alone.
@@ -106,14 +94,16 @@ pub struct Settings {
     pub observed_filter: Option<String>,
     /// Only rows suggested as this class.
     pub suggested_filter: Option<String>,
-    /// Corrections to train besides `none`: forward, backward, prune.
-    pub corrections: Vec<String>,
+    /// Corrections to train besides `none`.
+    pub corrections: Vec<Correction>,
     /// Holdout share of the comparison.
     pub holdout: f64,
     /// Optional labelled test table.
     pub test: Option<PathBuf>,
-    /// Dark theme.
-    pub dark: bool,
+    /// Read from sessions written when the theme was kept in them, and ignored: the
+    /// theme is the app's preference, so opening a session does not switch it.
+    #[serde(rename = "dark", skip_serializing)]
+    pub ignored_dark: Option<bool>,
 }
 
 impl Default for Settings {
@@ -123,7 +113,8 @@ impl Default for Settings {
             seed: 0,
             l2: 1e-3,
             max_iter: 500,
-            estimator: EstimatorName::Joint,
+            estimator: Estimator::Joint,
+            fallback: TrustedFallback::None,
             quantile: crate::noise::DEFAULT_QUANTILE,
             keep_diagonal: false,
             resamples: 20,
@@ -133,10 +124,10 @@ impl Default for Settings {
             min_score: 0.0,
             observed_filter: None,
             suggested_filter: None,
-            corrections: vec!["forward".into(), "backward".into(), "prune".into()],
+            corrections: vec![Correction::Forward, Correction::Backward, Correction::Prune],
             holdout: 0.2,
             test: None,
-            dark: true,
+            ignored_dark: None,
         }
     }
 }
@@ -274,13 +265,6 @@ fn check(s: &Session) -> std::result::Result<(), String> {
             t.resamples
         ));
     }
-    for c in &t.corrections {
-        if !matches!(c.as_str(), "forward" | "backward" | "prune") {
-            return Err(format!(
-                "unknown correction '{c}' (forward, backward, prune)"
-            ));
-        }
-    }
     if let Some(m) = &s.matrix {
         let k = m.classes.len();
         if m.values.len() != k || m.values.iter().any(|r| r.len() != k) {
@@ -367,12 +351,11 @@ mod tests {
         let mut s = sample();
         s.settings.folds = 1;
         assert!(read(&text(&s)).unwrap_err().to_string().contains("folds"));
-        let mut s = sample();
-        s.settings.corrections = vec!["sideways".into()];
-        assert!(read(&text(&s))
-            .unwrap_err()
-            .to_string()
-            .contains("sideways"));
+        // An unknown correction name is refused by name (serde's unknown-variant message).
+        let s = sample();
+        let bad = text(&s).replacen("\"forward\"", "\"sideways\"", 1);
+        assert!(bad.contains("sideways"));
+        assert!(read(&bad).unwrap_err().to_string().contains("sideways"));
         let mut s = sample();
         s.settings.control = 0.6;
         assert!(read(&text(&s))

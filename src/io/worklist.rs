@@ -24,8 +24,8 @@ pub const WORKLIST_COLUMNS: [&str; 10] = [
     "suggested",
     "score",
     "p_wrong",
-    "alt",
-    "alt_prob",
+    "second_choice",
+    "second_choice_prob",
     "review",
 ];
 
@@ -42,8 +42,8 @@ pub const KEY_COLUMNS: [&str; 10] = [
     "suggested",
     "score",
     "p_wrong",
-    "alt",
-    "alt_prob",
+    "second_choice",
+    "second_choice_prob",
 ];
 
 /// Why a row is on a worklist.
@@ -177,7 +177,7 @@ pub fn write_worklist(
     w.flush()
 }
 
-/// suggested, score, p_wrong, alt, alt_prob.
+/// suggested, score, p_wrong, second_choice, second_choice_prob.
 fn push_verdict(record: &mut Vec<String>, data: &Dataset, kind: ScoreKind, s: &RowScore) {
     record.push(data.classes[s.suggested].clone());
     record.push(format!("{:.6}", kind.written(s.score)));
@@ -185,8 +185,8 @@ fn push_verdict(record: &mut Vec<String>, data: &Dataset, kind: ScoreKind, s: &R
         kind.probability(s.score)
             .map_or(String::new(), |p| format!("{p:.6}")),
     );
-    record.push(data.classes[s.alt].clone());
-    record.push(format!("{:.6}", s.alt_prob));
+    record.push(data.classes[s.second_choice].clone());
+    record.push(format!("{:.6}", s.second_choice_prob));
 }
 
 /// Writes `items` in their order with nothing that tells a control row from a suspect

@@ -62,7 +62,7 @@ impl RowLoss for Forward {
 /// Backward correction (Patrini et al., CVPR 2017): the vector ℓ of per-class
 /// cross-entropies ℓ_k = −log softmax(z)_k is corrected by the inverse flip matrix, and
 /// the observed label's entry is the loss: (T⁻¹ℓ)[observed]. Unbiased for the clean loss,
-/// but T⁻¹ has negative entries, so the faithful loss is unbounded below.
+/// but T⁻¹ has negative entries, so the published loss is unbounded below.
 ///
 /// With `cap = Some(c)` each per-class loss is ℓ_k = −log(q_k + e^−c): a probability is
 /// floored smoothly at e^−c, so ℓ_k never exceeds c and the corrected loss is bounded
@@ -70,7 +70,7 @@ impl RowLoss for Forward {
 /// negative loss. The floor is smooth (not min(−log q_k, c)) so that the objective keeps
 /// a continuous gradient: with a hard cap L-BFGS met a kink at every capped class and
 /// needed about twice the iterations. Where q_k ≫ e^−c the two agree to within e^−c/q_k.
-/// `cap = None` is the faithful loss.
+/// `cap = None` is the published (unbounded) loss.
 ///
 /// Gradient: with r_k = q_k / (q_k + e^−c) (1 when faithful),
 /// ∂/∂z_j = q_j·Σ_k T⁻¹[y][k]·r_k − T⁻¹[y][j]·r_j.
@@ -281,7 +281,7 @@ mod tests {
         check_gradient(&capped, &[0.0, 9.0], 1);
         check_gradient(&capped, &[0.0, 9.0], 0);
         // With the cap, pushing the negatively weighted class to zero stops paying:
-        // the faithful loss keeps falling, the guarded one levels off. Its bound: each
+        // the unbounded loss keeps falling, the guarded one levels off. Its bound: each
         // ℓ_k = −ln(q_k + e^−c) lies in [−ln(1 + e^−c), c], so the row's loss is at least
         // c·Σ(negative weights) − ln(1 + e^−c)·Σ(positive weights) = −0.6c − 1.6·ln(1 + 1e-4).
         let far = |l: &Backward| l.loss_and_grad(&mut [0.0, 30.0], 1);

@@ -67,6 +67,11 @@ impl SoftmaxParams {
         self.l2
     }
 
+    /// The iteration limit.
+    pub fn iteration_limit(&self) -> usize {
+        self.max_iter
+    }
+
     /// Refuses settings that cannot work.
     pub fn check(&self) -> Result<()> {
         if !(self.l2.is_finite() && self.l2 >= 0.0) {

@@ -4,7 +4,7 @@
 use std::sync::atomic::{AtomicBool, Ordering};
 
 use ndarray::{Array2, ArrayView2};
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use super::loss::{Backward, CrossEntropy, Forward, RowLoss, DEFAULT_BACKWARD_CAP};
 use super::softmax::{fit_from, FitReport, SoftmaxModel, SoftmaxParams};
@@ -14,20 +14,23 @@ use crate::noise::linalg::{condition_number, inverse};
 use crate::noise::posterior::Flip;
 use crate::noise::scores::{rank, score_rows, ScoreKind};
 
-/// How the loss accounts for label noise.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-#[serde(rename_all = "lowercase")]
+/// How the loss accounts for label noise: the command line's `--correction`, the
+/// compare list of a session and the app's checkboxes list these values.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
+#[serde(rename_all = "kebab-case")]
 pub enum Correction {
     /// Cross-entropy on the observed labels.
     None,
     /// Forward correction (Patrini et al. 2017).
     Forward,
-    /// Backward correction (Patrini et al. 2017); `guarded` bounds each per-class loss
-    /// (see [`Backward`]), otherwise the faithful, unbounded loss.
-    Backward {
-        /// Bound the per-class losses.
-        guarded: bool,
-    },
+    /// Backward correction (Patrini et al. 2017) with each per-class loss bounded by
+    /// −ln 1e-4 (see [`Backward`]), so the fit cannot exploit the negative entries of T⁻¹.
+    Backward,
+    /// Backward correction with the published loss, unbounded below when T⁻¹ has
+    /// negative entries (earlier named `backward-faithful`).
+    #[serde(alias = "backward-faithful")]
+    #[value(alias = "backward-faithful")]
+    BackwardUnbounded,
     /// Drop the most suspect rows (as many as the expected number of mislabelled rows),
     /// then train with cross-entropy.
     Prune,
@@ -39,10 +42,20 @@ impl Correction {
         match self {
             Correction::None => "none",
             Correction::Forward => "forward",
-            Correction::Backward { guarded: true } => "backward",
-            Correction::Backward { guarded: false } => "backward-faithful",
+            Correction::Backward => "backward",
+            Correction::BackwardUnbounded => "backward-unbounded",
             Correction::Prune => "prune",
         }
+    }
+
+    /// Every correction, in the order pickers list them.
+    pub fn all() -> &'static [Correction] {
+        <Correction as clap::ValueEnum>::value_variants()
+    }
+
+    /// The correction a name stands for (the current names and the earlier ones).
+    pub fn named(name: &str) -> Option<Correction> {
+        <Correction as clap::ValueEnum>::from_str(name, true).ok()
     }
 
     /// True when the correction needs a flip matrix.
@@ -92,7 +105,7 @@ pub fn train(
     let matrix = match (correction.needs_matrix(), inputs.matrix) {
         (true, None) => {
             return Err(Error::Usage(format!(
-                "--correction {} needs a flip matrix",
+                "the {} correction needs a flip matrix",
                 correction.name()
             )))
         }
@@ -103,14 +116,15 @@ pub fn train(
         Correction::Forward => Box::new(Forward::new(
             matrix.cloned().unwrap_or_else(|| Array2::eye(classes)),
         )),
-        Correction::Backward { guarded } => {
+        Correction::Backward | Correction::BackwardUnbounded => {
+            let guarded = correction == Correction::Backward;
             let t = matrix.cloned().unwrap_or_else(|| Array2::eye(classes));
             let cond = condition_number(&t);
             if cond > ILL_CONDITIONED {
                 warnings.push(format!(
                     "the flip matrix is ill-conditioned (1-norm condition number {cond:.3e}); backward correction \
                      amplifies noise{}",
-                    if guarded { "" } else { " and the faithful loss is unbounded below" }
+                    if guarded { "" } else { " and this loss is unbounded below" }
                 ));
             }
             let t_inv = inverse(&t).ok_or_else(|| {
@@ -161,7 +175,7 @@ fn prune(
     matrix: Option<&Array2<f64>>,
 ) -> Result<(Vec<usize>, Vec<usize>)> {
     let probs = inputs.probs.ok_or_else(|| {
-        Error::Usage("--correction prune needs out-of-sample probabilities".into())
+        Error::Usage("the prune correction needs out-of-sample probabilities".into())
     })?;
     let sub_probs = probs.select(ndarray::Axis(0), rows);
     let sub_labels: Vec<usize> = rows.iter().map(|&r| labels[r]).collect();

@@ -6,6 +6,7 @@
 
 use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
 
 use super::joint::{fit_joint, JointFit, JointParams, DEFAULT_VOLUME_SCALE};
 use super::matrix::{normalize_rows, validate};
@@ -18,7 +19,99 @@ pub const DEFAULT_QUANTILE: f64 = 0.97;
 /// Rows per parallel work item in the row passes.
 const CHUNK_ROWS: usize = 16_384;
 
-/// Which estimator.
+/// The estimator a user picks: the command line's `--method`, a session's `estimator` and
+/// the app's picker all list these values. [`Method`] is the same choice with its settings.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, clap::ValueEnum, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Estimator {
+    /// T and a clean classifier fitted together (maximum likelihood, minimum volume),
+    /// started from counting.
+    #[default]
+    Joint,
+    /// Anchor rows just below the q-quantile of each class's probability.
+    Quantile,
+    /// The highest-probability row of each class.
+    Anchor,
+    /// Mean probabilities of the rows with a randomly audited trusted label.
+    Trusted,
+    /// Confident counting with per-class thresholds.
+    Counting,
+}
+
+/// What the trusted estimator does for classes without randomly audited rows.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, clap::ValueEnum, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum TrustedFallback {
+    /// Stop with an error naming the classes.
+    #[default]
+    None,
+    /// Estimate those classes with the quantile estimator (and say so in a note).
+    Quantile,
+}
+
+/// The settings an [`Estimator`] may read; each ignores the ones it does not use.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct EstimatorSettings {
+    /// Quantile of the quantile estimator and of the trusted estimator's fallback.
+    pub quantile: f64,
+    /// The trusted estimator's fallback.
+    pub fallback: TrustedFallback,
+    /// λ of the joint fit; `None` for its default.
+    pub volume_weight: Option<f64>,
+}
+
+impl Default for EstimatorSettings {
+    fn default() -> Self {
+        EstimatorSettings {
+            quantile: DEFAULT_QUANTILE,
+            fallback: TrustedFallback::None,
+            volume_weight: None,
+        }
+    }
+}
+
+impl Estimator {
+    /// The name used on the command line, in files and in the app.
+    pub fn name(self) -> &'static str {
+        match self {
+            Estimator::Anchor => "anchor",
+            Estimator::Quantile => "quantile",
+            Estimator::Trusted => "trusted",
+            Estimator::Counting => "counting",
+            Estimator::Joint => "joint",
+        }
+    }
+
+    /// Every estimator, in the order pickers list them.
+    pub fn all() -> &'static [Estimator] {
+        <Estimator as clap::ValueEnum>::value_variants()
+    }
+
+    /// True when `quantile` matters to this estimator.
+    pub fn uses_quantile(self) -> bool {
+        matches!(self, Estimator::Quantile | Estimator::Trusted)
+    }
+
+    /// The estimator with its settings.
+    pub fn with(self, settings: &EstimatorSettings) -> Method {
+        match self {
+            Estimator::Quantile => Method::Quantile {
+                q: settings.quantile,
+            },
+            Estimator::Anchor => Method::Anchor,
+            Estimator::Trusted => Method::Trusted {
+                fallback_quantile: (settings.fallback == TrustedFallback::Quantile)
+                    .then_some(settings.quantile),
+            },
+            Estimator::Counting => Method::Counting,
+            Estimator::Joint => Method::Joint {
+                volume_weight: settings.volume_weight,
+            },
+        }
+    }
+}
+
+/// An estimator with its settings, as the library runs it.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Method {
     /// Patrini et al. (CVPR 2017): the row with the highest p(observed = i | x) is taken
@@ -51,15 +144,20 @@ pub enum Method {
 }
 
 impl Method {
+    /// Which estimator this is.
+    pub fn estimator(&self) -> Estimator {
+        match self {
+            Method::Anchor => Estimator::Anchor,
+            Method::Quantile { .. } => Estimator::Quantile,
+            Method::Trusted { .. } => Estimator::Trusted,
+            Method::Counting => Estimator::Counting,
+            Method::Joint { .. } => Estimator::Joint,
+        }
+    }
+
     /// The name used on the command line and in JSON.
     pub fn name(&self) -> &'static str {
-        match self {
-            Method::Anchor => "anchor",
-            Method::Quantile { .. } => "quantile",
-            Method::Trusted { .. } => "trusted",
-            Method::Counting => "counting",
-            Method::Joint { .. } => "joint",
-        }
+        self.estimator().name()
     }
 
     /// Refuses a quantile outside (0, 1] and joint-fit settings that cannot work.
@@ -69,7 +167,7 @@ impl Method {
             | Method::Trusted {
                 fallback_quantile: Some(q),
             } if !(*q > 0.0 && *q <= 1.0) => Err(Error::Usage(format!(
-                "--quantile must lie in (0, 1], not {q}"
+                "the quantile must lie in (0, 1], not {q}"
             ))),
             Method::Joint {
                 volume_weight: Some(volume_weight),

@@ -12,4 +12,7 @@ pub mod posterior;
 pub mod scores;
 
 pub use diagnostics::{diagnose, Diagnostics};
-pub use estimators::{estimate, Estimate, Method, Sample, DEFAULT_QUANTILE};
+pub use estimators::{
+    estimate, Estimate, Estimator, EstimatorSettings, Method, Sample, TrustedFallback,
+    DEFAULT_QUANTILE,
+};

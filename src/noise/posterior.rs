@@ -330,26 +330,37 @@ pub fn odds_of(probability: f64) -> f64 {
     odds(probability, 1.0 - probability)
 }
 
-/// Σ of the probabilities of a wrong label whose odds are `scores` (posterior scores), summed as [`Posterior::expected_mislabeled`] sums: in order within chunks of
-/// [`SUM_CHUNK_ROWS`], the chunks on every core, then their sums in order. The sum so
-/// equals the expected number of mislabelled rows bit for bit, whoever asks for it and
-/// however many threads run, and every row need not be scored twice.
-pub fn expected_from_scores(scores: &[f64]) -> f64 {
-    let parts: Vec<f64> = scores
-        .par_chunks(SUM_CHUNK_ROWS)
-        .map(|chunk| {
-            let mut sum = 0.0;
-            for &s in chunk {
-                sum += wrong_probability(s);
-            }
-            sum
-        })
-        .collect();
+/// The one order in which flipmend sums a per-row quantity over many rows, so a sum is
+/// the same bit for bit whoever asks for it and however many threads run: `chunk` sums
+/// each run of [`SUM_CHUNK_ROWS`] values in order (the runs on every core) and may
+/// gather something else on the way, then the runs' sums are added in order. Returns the
+/// total and what each run gathered.
+pub fn sum_in_chunks<A: Send>(
+    values: &[f64],
+    chunk: impl Fn(&[f64]) -> (f64, A) + Sync + Send,
+) -> (f64, Vec<A>) {
+    let parts: Vec<(f64, A)> = values.par_chunks(SUM_CHUNK_ROWS).map(chunk).collect();
     let mut total = 0.0;
-    for p in parts {
-        total += p;
+    let mut gathered = Vec::with_capacity(parts.len());
+    for (sum, extra) in parts {
+        total += sum;
+        gathered.push(extra);
     }
-    total
+    (total, gathered)
+}
+
+/// Σ of the probabilities of a wrong label whose odds are `scores` (posterior scores),
+/// summed by [`sum_in_chunks`] as [`Posterior::expected_mislabeled`] sums: the expected
+/// number of mislabelled rows without scoring every row twice.
+pub fn expected_from_scores(scores: &[f64]) -> f64 {
+    sum_in_chunks(scores, |chunk| {
+        let mut sum = 0.0;
+        for &s in chunk {
+            sum += wrong_probability(s);
+        }
+        (sum, ())
+    })
+    .0
 }
 
 /// out (m × k) = noisy (m × k, widened into `wide`) · T⁻¹ (k × k, rows `padded` apart).

@@ -14,15 +14,23 @@ use super::posterior::{odds, odds_of, wrong_probability, Flip, Posterior, Worksp
 /// 40,000-row table, and 6-decimal output ties thousands more), which left the head of a
 /// worklist in file order. [`ScoreKind::probability`] gives the probability back, and
 /// files show the log-odds ([`ScoreKind::written`]), easier to read than odds of 10³⁰.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
-#[serde(rename_all = "lowercase")]
+///
+/// The command line's `--score`, a session's `score` and the app's picker list these
+/// values; `self` (the earlier name of self-confidence) is still read.
+#[derive(
+    Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, serde::Deserialize, clap::ValueEnum,
+)]
+#[serde(rename_all = "kebab-case")]
 pub enum ScoreKind {
     /// Odds of P(true ≠ observed | x, observed) under the flip matrix: the clean
     /// posterior (the joint fit's, or p = (Tᵀ)⁻¹p̃ of Patrini et al. 2017), then Bayes'
     /// rule with T[k][observed]. Suggested label: the most probable true class.
+    #[default]
     Posterior,
     /// Self-confidence (Northcutt et al. 2021) as odds of 1 − p(observed | x), the same
     /// order as the published 1 − p. Suggested: argmax p.
+    #[serde(alias = "self", alias = "selfconfidence")]
+    #[value(alias = "self")]
     SelfConfidence,
     /// Normalized margin (Northcutt et al. 2021): max_{j≠observed} p_j − p_observed, in
     /// [−1, 1]. Suggested: argmax p.
@@ -34,9 +42,14 @@ impl ScoreKind {
     pub fn name(self) -> &'static str {
         match self {
             ScoreKind::Posterior => "posterior",
-            ScoreKind::SelfConfidence => "self",
+            ScoreKind::SelfConfidence => "self-confidence",
             ScoreKind::Margin => "margin",
         }
+    }
+
+    /// Every score, in the order pickers list them.
+    pub fn all() -> &'static [ScoreKind] {
+        <ScoreKind as clap::ValueEnum>::value_variants()
     }
 
     /// True when the score is the odds of a probability that the observed label is
@@ -48,6 +61,16 @@ impl ScoreKind {
     /// The probability that the label is wrong, for the probability scores.
     pub fn probability(self, score: f64) -> Option<f64> {
         self.is_probability().then(|| wrong_probability(score))
+    }
+
+    /// The range of [`ScoreKind::shown`]: [0, 1] for the probabilities, [−1, 1] for the
+    /// margin.
+    pub fn shown_range(self) -> (f64, f64) {
+        if self.is_probability() {
+            (0.0, 1.0)
+        } else {
+            (-1.0, 1.0)
+        }
     }
 
     /// The score as people read it: the probability, or the margin.
@@ -86,9 +109,9 @@ pub struct RowScore {
     /// The most likely true class.
     pub suggested: usize,
     /// The best class other than `suggested`.
-    pub alt: usize,
+    pub second_choice: usize,
     /// Its probability (posterior or model probability, as the score uses).
-    pub alt_prob: f64,
+    pub second_choice_prob: f64,
 }
 
 /// Scores every row. `t` is needed for [`ScoreKind::Posterior`]; without it (or when it
@@ -280,13 +303,13 @@ impl Scratch {
         post: &Posterior,
     ) -> RowScore {
         let score = self.belief_and_score(kind, i, observed, post);
-        let (suggested, alt) = top_two(&self.belief);
+        let (suggested, second_choice) = top_two(&self.belief);
         RowScore {
             row,
             score,
             suggested,
-            alt,
-            alt_prob: self.belief[alt],
+            second_choice,
+            second_choice_prob: self.belief[second_choice],
         }
     }
 }
@@ -546,8 +569,8 @@ mod tests {
                 row,
                 score,
                 suggested: 0,
-                alt: 1,
-                alt_prob: 0.0,
+                second_choice: 1,
+                second_choice_prob: 0.0,
             })
             .collect()
     }
@@ -563,7 +586,7 @@ mod tests {
         // p̃₁ = .1·.5 + .7·.3 + .3·.2 = .32, p̃₂ = .1·.5 + .1·.3 + .7·.2 = .22.
         // Observed label 1: P(true = k | x, obs = 1) ∝ T[k][1]·p(k) = (.05, .21, .06) / .32
         // = (0.15625, 0.65625, 0.1875). P(wrong) = 1 − 0.65625 = 0.34375, so the score is
-        // the odds 0.34375 / 0.65625; suggested 1; alt 2.
+        // the odds 0.34375 / 0.65625; suggested 1; second choice 2.
         let probs = array![[0.46f32, 0.32, 0.22]];
         let s = score_rows(
             ScoreKind::Posterior,
@@ -574,10 +597,10 @@ mod tests {
         assert!((s.score - 0.34375 / 0.65625).abs() < 1e-6, "{s:?}");
         let p = ScoreKind::Posterior.probability(s.score).unwrap();
         assert!((p - 0.34375).abs() < 1e-6, "{p}");
-        assert_eq!((s.suggested, s.alt), (1, 2));
-        assert!((s.alt_prob - 0.1875).abs() < 1e-6);
+        assert_eq!((s.suggested, s.second_choice), (1, 2));
+        assert!((s.second_choice_prob - 0.1875).abs() < 1e-6);
         // Observed label 2: ∝ T[k][2]·p(k) = (.05, .03, .14)/.22 → P(true = 2) = 0.636364;
-        // score 0.363636, suggested 2, alt 0 (0.227273).
+        // score 0.363636, suggested 2, second choice 0 (0.227273).
         let s = score_rows(
             ScoreKind::Posterior,
             probs.view(),
@@ -586,7 +609,7 @@ mod tests {
         )[0];
         let p = ScoreKind::Posterior.shown(s.score);
         assert!((p - (1.0 - 0.14 / 0.22)).abs() < 1e-6);
-        assert_eq!((s.suggested, s.alt), (2, 0));
+        assert_eq!((s.suggested, s.second_choice), (2, 0));
     }
 
     #[test]
@@ -598,7 +621,7 @@ mod tests {
         let s = score_rows(ScoreKind::SelfConfidence, probs.view(), &[1], None)[0];
         assert!((s.score - 0.68 / 0.32).abs() < 1e-6);
         assert!((ScoreKind::SelfConfidence.shown(s.score) - 0.68).abs() < 1e-6);
-        assert_eq!((s.suggested, s.alt), (0, 1));
+        assert_eq!((s.suggested, s.second_choice), (0, 1));
         let m = score_rows(ScoreKind::Margin, probs.view(), &[1], None)[0];
         assert!((m.score - (0.46 - 0.32)).abs() < 1e-6);
         let m = score_rows(ScoreKind::Margin, probs.view(), &[0], None)[0];

@@ -5,9 +5,10 @@
 use std::path::Path;
 use std::sync::atomic::{AtomicBool, Ordering};
 
-use ndarray::{Array2, ArrayView2, Axis};
+use ndarray::{Array2, Axis};
 use serde::Serialize;
 
+use super::RowProbabilities;
 use crate::data::origin::Origin;
 use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
@@ -26,7 +27,7 @@ use crate::timing::Stages;
 pub const ALL_CORRECTIONS: [Correction; 4] = [
     Correction::None,
     Correction::Forward,
-    Correction::Backward { guarded: true },
+    Correction::Backward,
     Correction::Prune,
 ];
 
@@ -115,9 +116,10 @@ pub enum MatrixChoice<'a> {
 pub struct CompareInputs<'a> {
     /// The labelled table.
     pub data: &'a Dataset,
-    /// Out-of-sample probabilities of every data row; without them they are computed by
-    /// cross-validation on the training rows alone.
-    pub probs: Option<ArrayView2<'a, f32>>,
+    /// Out-of-sample probabilities of every data row (their loading notices join the
+    /// report's warnings); without them they are computed by cross-validation on the
+    /// training rows alone.
+    pub probs: Option<&'a RowProbabilities>,
     /// The flip matrix.
     pub matrix: MatrixChoice<'a>,
     /// A separately labelled table (features, labels) whose labels are taken as correct.
@@ -160,7 +162,7 @@ pub fn compare(
     let part = Part::new(data, &train_rows);
     stages.end("split");
     let probs = match inputs.probs {
-        Some(p) => p.select(Axis(0), &train_rows),
+        Some(p) => p.values.select(Axis(0), &train_rows),
         None => {
             out_of_fold(
                 part.x.view(),
@@ -173,7 +175,10 @@ pub fn compare(
         }
     };
     stages.end("probabilities");
-    let (matrix, mut warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
+    let (matrix, matrix_warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
+    let mut warnings = data.warnings.clone();
+    warnings.extend(inputs.probs.iter().flat_map(|p| p.notices.iter().cloned()));
+    warnings.extend(matrix_warnings);
     stages.end("matrix");
     let x_hold = data.features.select(Axis(0), &holdout_rows);
     let observed_hold: Vec<usize> = holdout_rows.iter().map(|&r| data.labels[r]).collect();
@@ -273,7 +278,9 @@ pub fn compare(
 fn warm_start(fits: &[Fit], correction: Correction) -> Option<&SoftmaxModel> {
     let forward = fits.iter().find(|f| f.correction == Correction::Forward);
     match correction {
-        Correction::Backward { .. } | Correction::Prune => forward.or(fits.first()),
+        Correction::Backward | Correction::BackwardUnbounded | Correction::Prune => {
+            forward.or(fits.first())
+        }
         _ => fits.first(),
     }
     .map(|f| &f.model)

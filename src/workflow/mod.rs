@@ -2,7 +2,11 @@
 //! probabilities, then a flip matrix, then its diagnostics.
 
 pub mod compare;
+pub mod estimate;
+pub mod ranking;
 pub mod review;
+pub mod suspects;
+pub mod train;
 pub mod worklist;
 
 use std::path::{Path, PathBuf};
@@ -67,14 +71,7 @@ pub fn probabilities(
     progress: &mut dyn FnMut(usize, usize) -> bool,
 ) -> Result<RowProbabilities> {
     match path {
-        Some(path) => {
-            let loaded = Probabilities::load(path, data, options)?;
-            Ok(RowProbabilities {
-                values: loaded.values,
-                source: ProbSource::File(path.to_path_buf()),
-                notices: loaded.notices,
-            })
-        }
+        Some(path) => load_probabilities(data, path, options),
         None => {
             let (values, _) = out_of_fold(
                 data.features.view(),
@@ -93,6 +90,20 @@ pub fn probabilities(
             })
         }
     }
+}
+
+/// Reads a probability file for `data`'s rows.
+pub fn load_probabilities(
+    data: &Dataset,
+    path: &Path,
+    options: &ProbOptions,
+) -> Result<RowProbabilities> {
+    let loaded = Probabilities::load(path, data, options)?;
+    Ok(RowProbabilities {
+        values: loaded.values,
+        source: ProbSource::File(path.to_path_buf()),
+        notices: loaded.notices,
+    })
 }
 
 /// How the flip matrix is obtained.

@@ -85,7 +85,7 @@ pub fn blind_items(
 
 /// A blind worklist: the `listed` suspects (each with its rank) and `count` control rows
 /// drawn from the other rows that `eligible` accepts, shuffled together (both draws
-/// seeded with `seed`). `verdicts` scores given rows and `ranks` gives their 1-based
+/// seeded with `seed`); without control rows, the listed rows in their order. `verdicts` scores given rows and `ranks` gives their 1-based
 /// ranks, as the caller has them at hand.
 pub fn with_control(
     listed: &[(RowScore, usize)],
@@ -96,6 +96,14 @@ pub fn with_control(
     verdicts: impl FnOnce(&[usize]) -> Vec<RowScore>,
     ranks: impl FnOnce(&[usize]) -> Vec<usize>,
 ) -> Vec<Item> {
+    if count == 0 {
+        let item = |&(score, rank): &(RowScore, usize)| Item {
+            score,
+            rank,
+            slice: Slice::Listed,
+        };
+        return listed.iter().map(item).collect();
+    }
     let listed_rows: Vec<usize> = listed.iter().map(|(s, _)| s.row).collect();
     let control = draw_control(rows, &listed_rows, count, seed, eligible);
     let scored: Vec<(RowScore, usize)> = verdicts(&control)

@@ -20,7 +20,7 @@ pub fn show(ui: &mut egui::Ui, view: &mut UiState) {
         ui.label("For medical, safety-critical or other sensitive data, relabelling decisions belong to the people responsible under your local rules and licensed practice; use flipmend's lists only to direct their attention.");
         ui.add_space(6.0);
         ui.strong("Flow");
-        ui.label("Data: load a table and choose roles; probabilities are computed out-of-fold unless you load a file.\nFlip matrix: T[i][j] = P(observed j | true i), rows = true class. Edit cells to add what you know; the rest of the row rescales.\nSuspects: rows ranked by how likely the label is wrong under the matrix; export a worklist, import it once reviewed.\nRetrain: compare no correction with forward, backward and pruning on one holdout; save a model.");
+        ui.label("Data: load a table and choose roles; probabilities are computed out-of-fold unless you load a file.\nFlip matrix: T[i][j] = P(observed j | true i), rows = true class. Edit cells to add what you know; the rest of the row rescales.\nSuspects: rows ranked by how likely the label is wrong under the matrix; export a worklist, import it once reviewed.\nCompare: train no correction, forward, backward and pruning on one holdout and compare them; save a model.");
         ui.add_space(6.0);
         ui.strong("Shortcuts");
         egui::Grid::new("shortcuts").show(ui, |ui| {

@@ -10,7 +10,7 @@ use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
 use crate::gui::matrix_edit::MatrixEditor;
 use crate::gui::state::AppState;
-use crate::io::session::EstimatorName;
+use crate::noise::{Estimator, TrustedFallback};
 
 /// Above this many classes the grid scrolls and the largest flips are listed beside it.
 pub const MANY_CLASSES: usize = 12;
@@ -47,24 +47,17 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
     ui.horizontal(|ui| {
         ui.label("estimator");
         egui::ComboBox::from_id_salt("estimator")
-            .selected_text(estimator_name(s.estimator))
+            .selected_text(s.estimator.name())
             .show_ui(ui, |ui| {
-                for e in [
-                    EstimatorName::Joint,
-                    EstimatorName::Quantile,
-                    EstimatorName::Anchor,
-                    EstimatorName::Trusted,
-                    EstimatorName::Counting,
-                ] {
-                    ui.selectable_value(&mut s.estimator, e, estimator_name(e));
+                for &e in Estimator::all() {
+                    ui.selectable_value(&mut s.estimator, e, e.name());
                 }
             });
-        let uses_quantile = matches!(
-            s.estimator,
-            EstimatorName::Quantile | EstimatorName::Trusted
-        );
+        if s.estimator == Estimator::Trusted {
+            fallback_picker(ui, &mut s.fallback);
+        }
         ui.add_enabled(
-            uses_quantile,
+            s.estimator.uses_quantile(),
             egui::Slider::new(&mut s.quantile, 0.5..=1.0)
                 .text("quantile")
                 .fixed_decimals(3),
@@ -73,7 +66,7 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
         ui.add(
             egui::DragValue::new(&mut s.resamples)
                 .range(2..=1000)
-                .prefix("resamples "),
+                .prefix("bootstrap "),
         );
         if ui
             .button("Bootstrap intervals")
@@ -92,14 +85,17 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
     }
 }
 
-fn estimator_name(e: EstimatorName) -> &'static str {
-    match e {
-        EstimatorName::Joint => "joint",
-        EstimatorName::Quantile => "quantile",
-        EstimatorName::Anchor => "anchor",
-        EstimatorName::Trusted => "trusted",
-        EstimatorName::Counting => "counting",
-    }
+/// What the trusted estimator does for classes without randomly audited rows (the
+/// command line's `--fallback`).
+fn fallback_picker(ui: &mut egui::Ui, fallback: &mut TrustedFallback) {
+    let mut fill = *fallback == TrustedFallback::Quantile;
+    ui.checkbox(&mut fill, "fallback quantile")
+        .on_hover_text("classes without randomly audited rows get the quantile estimate");
+    *fallback = if fill {
+        TrustedFallback::Quantile
+    } else {
+        TrustedFallback::None
+    };
 }
 
 fn edit_controls(
@@ -146,7 +142,7 @@ fn grid(
     out: &mut Vec<Command>,
 ) {
     let k = classes.len();
-    let dark = state.settings().dark;
+    let dark = ui.visuals().dark_mode;
     let changed_stroke = egui::Stroke::new(2.0, egui::Color32::from_rgb(255, 150, 40));
     let height = if k > MANY_CLASSES {
         420.0

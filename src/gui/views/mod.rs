@@ -45,7 +45,7 @@ fn menu_bar(
     ui: &mut egui::Ui,
     state: &AppState,
     view: &mut UiState,
-    persisted: &Persisted,
+    persisted: &mut Persisted,
     out: &mut Vec<Command>,
 ) {
     egui::MenuBar::new().ui(ui, |ui| {
@@ -72,12 +72,7 @@ fn menu_bar(
                 }
                 for path in &persisted.recent {
                     if ui.button(path.display().to_string()).clicked() {
-                        let json = path.extension().is_some_and(|e| e == "json");
-                        out.push(if json {
-                            Command::OpenSession(path.clone())
-                        } else {
-                            Command::LoadData(path.clone(), Default::default())
-                        });
+                        out.push(Command::open(path));
                     }
                 }
             });
@@ -117,14 +112,14 @@ fn menu_bar(
             if ui.selectable_label(view.show_about, "About").clicked() {
                 view.show_about = !view.show_about;
             }
-            let dark = state.settings().dark;
+            // The theme is the app's preference, kept with the window state, not in
+            // sessions (opening one must not switch it).
+            let dark = persisted.dark.unwrap_or(true);
             if ui
                 .button(if dark { "Light theme" } else { "Dark theme" })
                 .clicked()
             {
-                let mut s = state.settings().clone();
-                s.dark = !dark;
-                out.push(Command::Settings(s));
+                persisted.dark = Some(!dark);
             }
         });
     });

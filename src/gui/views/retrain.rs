@@ -1,4 +1,4 @@
-//! The Retrain view: train the uncorrected model and the chosen corrections with the
+//! The Compare view: train the uncorrected model and the chosen corrections with the
 //! matrix on screen, compare them on one holdout, and save the chosen model.
 
 use eframe::egui;
@@ -11,6 +11,7 @@ use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
 use crate::gui::jobs::JobKind;
 use crate::gui::state::AppState;
+use crate::learn::train::Correction;
 use crate::workflow::compare::{Comparison, ModelReport};
 
 /// Draws the view.
@@ -72,12 +73,12 @@ fn controls(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
     let mut s = state.settings().clone();
     ui.horizontal_wrapped(|ui| {
         ui.label("corrections: none +");
-        for name in ["forward", "backward", "prune"] {
-            let mut on = s.corrections.iter().any(|c| c == name);
-            if ui.checkbox(&mut on, name).changed() {
-                s.corrections.retain(|c| c != name);
+        for &c in Correction::all().iter().filter(|&&c| c != Correction::None) {
+            let mut on = s.corrections.contains(&c);
+            if ui.checkbox(&mut on, c.name()).changed() {
+                s.corrections.retain(|&d| d != c);
                 if on {
-                    s.corrections.push(name.into());
+                    s.corrections.push(c);
                 }
             }
         }

@@ -67,14 +67,11 @@ fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut V
     ui.horizontal_wrapped(|ui| {
         ui.label("score");
         egui::ComboBox::from_id_salt("score")
-            .selected_text(score_name(s.score))
+            .selected_text(s.score.name())
             .show_ui(ui, |ui| {
-                for k in [
-                    ScoreKind::Posterior,
-                    ScoreKind::SelfConfidence,
-                    ScoreKind::Margin,
-                ] {
-                    ui.selectable_value(&mut s.score, k, score_name(k));
+                for &k in ScoreKind::all() {
+                    ui.selectable_value(&mut s.score, k, k.name())
+                        .on_hover_text(score_help(k));
                 }
             });
         ui.label("observed");
@@ -85,16 +82,13 @@ fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut V
         if let Some(c) = class_filter(ui, "suggested-filter", classes, &s.suggested_filter) {
             s.suggested_filter = c;
         }
-        let low = if s.score == ScoreKind::Margin {
-            -1.0
-        } else {
-            0.0
-        };
+        let (low, high) = s.score.shown_range();
         ui.add(
-            egui::Slider::new(&mut s.min_score, low..=1.0)
-                .text("min score")
+            egui::Slider::new(&mut s.min_score, low..=high)
+                .text("threshold")
                 .fixed_decimals(2),
-        );
+        )
+        .on_hover_text("only rows scoring at least this (p_wrong, or the margin)");
         ui.add(
             egui::DragValue::new(&mut s.budget)
                 .range(1..=10_000_000)
@@ -118,11 +112,11 @@ fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut V
     }
 }
 
-fn score_name(k: ScoreKind) -> &'static str {
+fn score_help(k: ScoreKind) -> &'static str {
     match k {
-        ScoreKind::Posterior => "posterior (uses the matrix)",
-        ScoreKind::SelfConfidence => "self-confidence",
-        ScoreKind::Margin => "normalized margin",
+        ScoreKind::Posterior => "probability that the label is wrong, under the flip matrix",
+        ScoreKind::SelfConfidence => "one minus the probability of the observed label",
+        ScoreKind::Margin => "best other class's probability minus the observed one's",
     }
 }
 
@@ -184,8 +178,8 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
                     r.kind
                         .probability(s.score)
                         .map_or(String::new(), |p| format!("{p:.4}")),
-                    classes[s.alt].clone(),
-                    format!("{:.4}", s.alt_prob),
+                    classes[s.second_choice].clone(),
+                    format!("{:.4}", s.second_choice_prob),
                 ];
                 for text in cells {
                     row.col(|ui| {
@@ -232,7 +226,9 @@ fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: 
         for line in review_findings(&r.summary) {
             ui.label(line);
         }
-        ui.label("Write a copy of the data with the verdicts in the trusted column, and load it:");
+        ui.label(
+            "Write a copy of the data with the reviewed labels in the trusted column, and load it:",
+        );
         if let Some(path) = path_row(
             ui,
             view,

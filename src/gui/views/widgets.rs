@@ -121,7 +121,7 @@ pub fn plain(text: &str) -> std::borrow::Cow<'_, str> {
     std::borrow::Cow::Owned(out)
 }
 
-/// Penalty, iteration limit and seed of every fit (shared by the Data and Retrain views).
+/// Penalty, iteration limit and seed of every fit (shared by the Data and Compare views).
 pub fn fit_settings(ui: &mut egui::Ui, s: &mut crate::io::session::Settings) {
     ui.add(
         egui::DragValue::new(&mut s.l2)
@@ -132,7 +132,7 @@ pub fn fit_settings(ui: &mut egui::Ui, s: &mut crate::io::session::Settings) {
     ui.add(
         egui::DragValue::new(&mut s.max_iter)
             .range(1..=10_000)
-            .prefix("iterations "),
+            .prefix("max iter "),
     );
     ui.add(egui::DragValue::new(&mut s.seed).prefix("seed "));
 }

@@ -1,12 +1,14 @@
-//! The suspects view's data: scores ranked for one matrix, their histogram, and the
-//! filtered list the table shows. Computed off the UI thread; filtering is cheap enough
-//! (one pass over the ranking) to redo on the UI thread when a filter changes.
+//! Every row scored and ranked for one matrix, with the histogram of the scores and the
+//! expected number of mislabelled rows, and the filtered list a table shows. The app
+//! ranks here after each matrix edit (the head first, then the rest, off the UI thread);
+//! filtering is one pass over the ranking, cheap enough for the UI thread. The suspects
+//! job ([`super::suspects`]) sums the expected count with the same [`score_summaries`].
 
 use ndarray::{Array2, ArrayView2};
 
 use rayon::prelude::*;
 
-use crate::noise::posterior::{Flip, SUM_CHUNK_ROWS};
+use crate::noise::posterior::{sum_in_chunks, Flip};
 use crate::noise::scores::{
     rank, rank_values, score_rows, score_selected, score_values, RowScore, ScoreKind,
 };
@@ -39,16 +41,11 @@ impl Histogram {
 /// The histogram of every row's score as shown ([`ScoreKind::shown`]: [0, 1] for the
 /// probabilities of a wrong label, [−1, 1] for the margin) and, for the probability
 /// scores, the expected number of mislabelled rows: Σ of those probabilities, summed in
-/// [`SUM_CHUNK_ROWS`] chunks exactly as [`expected_from_scores`] sums them, so the app's
-/// figure is the command line's bit for bit. One pass and one logistic per row: after a
-/// matrix edit this runs over every row before the table redraws.
-///
-/// [`expected_from_scores`]: crate::noise::posterior::expected_from_scores
-fn summaries(scores: &[f64], kind: ScoreKind) -> (Histogram, Option<f64>) {
-    let (low, high) = match kind {
-        ScoreKind::Margin => (-1.0, 1.0),
-        _ => (0.0, 1.0),
-    };
+/// [`SUM_CHUNK_ROWS`] chunks by [`sum_in_chunks`], as every expected count is, so the
+/// app's figure is the command line's bit for bit. One pass and one logistic per row:
+/// after a matrix edit this runs over every row before the table redraws.
+pub fn score_summaries(scores: &[f64], kind: ScoreKind) -> (Histogram, Option<f64>) {
+    let (low, high) = kind.shown_range();
     let width = (high - low) / HISTOGRAM_BINS as f64;
     let chunk = |values: &[f64]| {
         let mut counts = [0usize; HISTOGRAM_BINS];
@@ -64,15 +61,12 @@ fn summaries(scores: &[f64], kind: ScoreKind) -> (Histogram, Option<f64>) {
             };
             counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
         }
-        (counts, sum)
+        (sum, counts)
     };
-    let parts: Vec<([usize; HISTOGRAM_BINS], f64)> =
-        scores.par_chunks(SUM_CHUNK_ROWS).map(chunk).collect();
+    let (total, parts) = sum_in_chunks(scores, chunk);
     let mut counts = vec![0usize; HISTOGRAM_BINS];
-    let mut total = 0.0;
-    for (c, sum) in parts {
+    for c in parts {
         counts.iter_mut().zip(c).for_each(|(a, b)| *a += b);
-        total += sum;
     }
     let histogram = Histogram { low, high, counts };
     (histogram, kind.is_probability().then_some(total))
@@ -114,7 +108,7 @@ impl Ranking {
         matrix_version: u64,
         started: std::time::Instant,
     ) -> Self {
-        let (histogram, expected_errors) = summaries(scores, kind);
+        let (histogram, expected_errors) = score_summaries(scores, kind);
         Ranking {
             ranked,
             rows: scores.len(),
@@ -215,6 +209,7 @@ pub fn filter_rows(ranking: &Ranking, labels: &[usize], filter: &Filter) -> Vec<
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::noise::posterior::SUM_CHUNK_ROWS;
     use ndarray::array;
 
     #[test]
@@ -271,8 +266,11 @@ mod tests {
         let kind = ScoreKind::Posterior;
         let r = rank_rows(probs.view(), &labels, Flip::noisy(&t), kind, 1);
         let scores = score_values(kind, probs.view(), &labels, Some(Flip::noisy(&t)));
-        let cli = crate::noise::posterior::expected_from_scores(&scores);
-        assert_eq!(r.expected_errors.map(f64::to_bits), Some(cli.to_bits()));
+        let (_, cli) = score_summaries(&scores, kind);
+        assert_eq!(r.expected_errors.map(f64::to_bits), cli.map(f64::to_bits));
+        // The chunked sum is the plain sum up to rounding.
+        let plain: f64 = scores.iter().map(|&s| kind.shown(s)).sum();
+        assert!((cli.unwrap() - plain).abs() < 1e-6 * plain);
     }
 
     #[test]

@@ -1,0 +1,148 @@
+//! The train job: one softmax regression with a noise correction on every row, and the
+//! model file that records how it was made. (The app trains through the compare job,
+//! which fits every correction on one split, and saves one of those models.)
+
+use ndarray::Array2;
+
+use super::{flip_matrix, MatrixSource, RowProbabilities};
+use crate::data::Dataset;
+use crate::error::Result;
+use crate::io::model::{FitSummary, ModelFile, Provenance, TrainingSettings};
+use crate::learn::train::{train, Correction, TrainInputs, Trained};
+use crate::learn::OofParams;
+use crate::noise::matrix::load_matrix_csv;
+
+/// What the train job fits.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TrainParams {
+    /// The correction.
+    pub correction: Correction,
+    /// Where the flip matrix comes from (unused by `none`).
+    pub matrix: MatrixSource,
+    /// The model's penalty and iteration limit, and the folds and seed of probabilities
+    /// computed for the matrix.
+    pub fit: OofParams,
+}
+
+/// What the train job made.
+#[derive(Debug, Clone)]
+pub struct TrainedModel {
+    /// The model and how the fit went.
+    pub trained: Trained,
+    /// The model file to write.
+    pub file: ModelFile,
+    /// Everything the user should know: the table's warnings, the matrix's notes and
+    /// diagnostics, and the fit's warnings.
+    pub warnings: Vec<String>,
+}
+
+/// The matrix a correction uses, what names it, and the notes from getting it.
+struct UsedMatrix {
+    matrix: Option<Array2<f64>>,
+    probs: Option<Array2<f32>>,
+    description: Option<String>,
+    notes: Vec<String>,
+}
+
+/// Trains `params.correction` on every row. `probabilities` is called only when they are
+/// needed: to estimate the matrix, or for `prune`.
+pub fn train_model(
+    data: &Dataset,
+    params: &TrainParams,
+    probabilities: &mut dyn FnMut() -> Result<RowProbabilities>,
+) -> Result<TrainedModel> {
+    params.fit.model.check()?;
+    let used = used_matrix(data, params, probabilities)?;
+    let rows: Vec<usize> = (0..data.rows()).collect();
+    let trained = train(
+        data.features.view(),
+        &rows,
+        &data.labels,
+        data.classes.len(),
+        params.correction,
+        TrainInputs {
+            matrix: used.matrix.as_ref(),
+            probs: used.probs.as_ref().map(|p| p.view()),
+            start: None,
+            cancel: None,
+        },
+        &params.fit.model,
+    )?;
+    let mut warnings = data.warnings.clone();
+    warnings.extend(used.notes.iter().cloned());
+    warnings.extend(trained.warnings.iter().cloned());
+    let file = model_file(data, params, &trained, &used, &rows);
+    Ok(TrainedModel {
+        trained,
+        file,
+        warnings,
+    })
+}
+
+/// The flip matrix (read, or estimated from probabilities) and, for prune, the
+/// probabilities; nothing for `none`.
+fn used_matrix(
+    data: &Dataset,
+    params: &TrainParams,
+    probabilities: &mut dyn FnMut() -> Result<RowProbabilities>,
+) -> Result<UsedMatrix> {
+    let correction = params.correction;
+    if !correction.needs_matrix() {
+        return Ok(UsedMatrix {
+            matrix: None,
+            probs: None,
+            description: None,
+            notes: Vec::new(),
+        });
+    }
+    let source = &params.matrix;
+    if let (MatrixSource::File { path, renormalize }, false) =
+        (source, correction == Correction::Prune)
+    {
+        let (t, notes) = load_matrix_csv(path, &data.classes, *renormalize)?;
+        return Ok(UsedMatrix {
+            matrix: Some(t),
+            probs: None,
+            description: Some(source.describe()),
+            notes,
+        });
+    }
+    let probs = probabilities()?;
+    let estimate = flip_matrix(data, &probs, source)?;
+    let mut notes = estimate.notes;
+    notes.extend(estimate.diagnostics.warnings);
+    Ok(UsedMatrix {
+        matrix: Some(estimate.matrix),
+        probs: Some(probs.values),
+        description: Some(source.describe()),
+        notes,
+    })
+}
+
+fn model_file(
+    data: &Dataset,
+    params: &TrainParams,
+    trained: &Trained,
+    used: &UsedMatrix,
+    rows: &[usize],
+) -> ModelFile {
+    let provenance = Provenance {
+        data,
+        rows,
+        correction: params.correction.name(),
+        matrix: used.matrix.as_ref(),
+        fit: FitSummary {
+            objective: trained.report.objective,
+            iterations: trained.report.iterations,
+            converged: trained.report.converged,
+            dropped_rows: trained.dropped.len(),
+        },
+    };
+    let settings = TrainingSettings {
+        l2: params.fit.model.l2_penalty(),
+        max_iter: params.fit.model.iteration_limit(),
+        seed: params.fit.seed,
+        matrix_source: used.description.clone(),
+    };
+    ModelFile::describe(&trained.model, provenance, settings)
+}
