@@ -28,7 +28,7 @@ fn main() {
     let (data, probs) = (dir.join("table.csv"), dir.join("probs.npy"));
     write_inputs(&data, &probs);
     let mut state = AppState::new(Arc::new(|| {}));
-    state.session.probs = Some(probs.clone());
+    state.apply(Command::UseProbabilitiesFile(probs.clone()));
     let started = Instant::now();
     state.apply(Command::LoadData(data, Roles::default()));
     state.settle(600.0);
@@ -36,7 +36,7 @@ fn main() {
         "app: load 1000000x32 table + .npy probabilities, estimate, rank, diagnose: {:.2} s",
         started.elapsed().as_secs_f64()
     );
-    assert!(state.ranking.is_some(), "{:?}", state.messages);
+    assert!(state.ranking().is_some(), "{:?}", state.messages());
     let mut latencies: Vec<Duration> = Vec::new();
     let mut complete: Vec<Duration> = Vec::new();
     for edit in 0..15 {
@@ -48,13 +48,13 @@ fn main() {
             value,
         });
         state.apply(Command::EndGesture);
-        let version = state.editor.as_ref().unwrap().version();
-        while state.ranking.as_ref().map(|r| r.matrix_version) != Some(version) {
+        let version = state.editor().unwrap().version();
+        while state.ranking().map(|r| r.matrix_version) != Some(version) {
             state.poll();
             std::thread::sleep(Duration::from_micros(200));
         }
         latencies.push(started.elapsed());
-        while !state.ranking.as_ref().is_some_and(|r| r.is_complete()) {
+        while !state.ranking().is_some_and(|r| r.is_complete()) {
             state.poll();
             std::thread::sleep(Duration::from_micros(200));
         }

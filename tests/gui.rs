@@ -41,7 +41,7 @@ fn state<'a>(h: &'a Harness<'_, FlipmendApp>) -> &'a AppState {
 }
 
 fn order(s: &AppState) -> Vec<usize> {
-    s.ranking
+    s.ranking()
         .as_ref()
         .unwrap()
         .ranked
@@ -55,10 +55,10 @@ fn demo_opens_and_every_view_draws() {
     let dir = TempDir::new();
     let mut h = app_on_demo(&dir.path(""));
     let s = state(&h);
-    let data = s.data.as_ref().expect("the demo loaded");
+    let data = s.data().expect("the demo loaded");
     assert_eq!(data.rows(), 8000);
     assert_eq!(data.classes.len(), 8);
-    assert!(s.probs.is_some() && s.editor.is_some() && s.ranking.is_some());
+    assert!(s.probs().is_some() && s.editor().is_some() && s.ranking().is_some());
     for (title, view) in [
         ("Flip matrix", View::Matrix),
         ("Suspects", View::Suspects),
@@ -79,16 +79,16 @@ fn editing_a_cell_renormalises_its_row_reranks_and_undoes() {
     let mut h = app_on_demo(&dir.path(""));
     h.get_by_label("Flip matrix").click();
     h.run_steps(2);
-    let before = state(&h).editor.as_ref().unwrap().matrix().clone();
+    let before = state(&h).editor().unwrap().matrix().clone();
     let ranking_before = order(state(&h));
-    let classes = state(&h).data.as_ref().unwrap().classes.clone();
+    let classes = state(&h).data().unwrap().classes.clone();
     let i = classes.iter().position(|c| c == "pet_bottle").unwrap();
     let j = classes.iter().position(|c| c == "hdpe_jug").unwrap();
     h.get_by_label("T pet_bottle → hdpe_jug")
         .set_value_accesskit(0.3);
     h.run_steps(2);
     settle(&mut h);
-    let e = state(&h).editor.as_ref().unwrap();
+    let e = state(&h).editor().unwrap();
     let after = e.matrix().clone();
     assert!((after[[i, j]] - 0.3).abs() < 1e-9);
     assert!(
@@ -101,7 +101,7 @@ fn editing_a_cell_renormalises_its_row_reranks_and_undoes() {
     let ratio_after = after[[i, a]] / after[[i, b]];
     assert!((ratio_before - ratio_after).abs() < 1e-9 * ratio_before.abs().max(1.0));
     assert_eq!(e.origin(), MatrixOrigin::Edited);
-    let ranking = state(&h).ranking.as_ref().unwrap();
+    let ranking = state(&h).ranking().unwrap();
     assert_eq!(
         ranking.matrix_version,
         e.version(),
@@ -115,17 +115,17 @@ fn editing_a_cell_renormalises_its_row_reranks_and_undoes() {
     h.get_by_label("Undo").click();
     h.run_steps(2);
     settle(&mut h);
-    assert_eq!(state(&h).editor.as_ref().unwrap().matrix(), &before);
+    assert_eq!(state(&h).editor().unwrap().matrix(), &before);
     assert_eq!(order(state(&h)), ranking_before);
     // The keyboard shortcuts: Ctrl+Shift+Z redoes the edit, Ctrl+Z undoes it again.
     h.key_press_modifiers(Modifiers::COMMAND | Modifiers::SHIFT, Key::Z);
     h.run_steps(2);
     settle(&mut h);
-    assert_eq!(state(&h).editor.as_ref().unwrap().matrix(), &after);
+    assert_eq!(state(&h).editor().unwrap().matrix(), &after);
     h.key_press_modifiers(Modifiers::COMMAND, Key::Z);
     h.run_steps(2);
     settle(&mut h);
-    assert_eq!(state(&h).editor.as_ref().unwrap().matrix(), &before);
+    assert_eq!(state(&h).editor().unwrap().matrix(), &before);
 }
 
 #[test]
@@ -152,7 +152,7 @@ fn a_worklist_goes_out_and_its_review_comes_back() {
     assert_eq!(key.lines().filter(|l| l.contains(",control,")).count(), 2);
     assert_eq!(key.lines().filter(|l| l.contains(",listed,")).count(), 23);
     // A reviewer changes the label of the first 10 rows and keeps it on 5.
-    let classes = state(&h).data.as_ref().unwrap().classes.clone();
+    let classes = state(&h).data().unwrap().classes.clone();
     let reviewed = dir.path("reviewed.csv");
     std::fs::copy(dir.path("worklist.key.csv"), dir.path("reviewed.key.csv")).unwrap();
     let mut body = vec![lines[0].to_string()];
@@ -171,7 +171,7 @@ fn a_worklist_goes_out_and_its_review_comes_back() {
     h.get_by_label("Import").click();
     h.run_steps(2);
     settle(&mut h);
-    let r = state(&h).review.as_ref().expect("the review was read");
+    let r = state(&h).review().expect("the review was read");
     assert_eq!(r.summary.confirmed + r.summary.changed, 15);
     assert_eq!(r.summary.changed, 10);
     assert_eq!(r.review.not_reviewed, 10);
@@ -232,7 +232,7 @@ fn a_broken_table_shows_its_error_and_keeps_the_previous_data() {
     );
     h.get_by_label_contains("line 3");
     assert_eq!(
-        state(&h).data.as_ref().unwrap().rows(),
+        state(&h).data().unwrap().rows(),
         8000,
         "the demo stays loaded"
     );
@@ -261,12 +261,9 @@ fn a_panicking_worker_is_reported_and_the_app_goes_on() {
     });
     h.run_steps(1);
     settle(&mut h);
-    let e = state(&h).editor.as_ref().unwrap();
+    let e = state(&h).editor().unwrap();
     assert!((e.matrix()[[0, 1]] - 0.2).abs() < 1e-12);
-    assert_eq!(
-        state(&h).ranking.as_ref().unwrap().matrix_version,
-        e.version()
-    );
+    assert_eq!(state(&h).ranking().unwrap().matrix_version, e.version());
 }
 
 #[test]
@@ -280,7 +277,7 @@ fn a_failed_save_loses_nothing_and_a_session_restores_the_edits() {
     });
     h.run_steps(1);
     settle(&mut h);
-    let edited = state(&h).editor.as_ref().unwrap().matrix().clone();
+    let edited = state(&h).editor().unwrap().matrix().clone();
     let nowhere = dir.path("no-such-folder/s.json");
     h.state_mut()
         .push(Command::SaveSession(Some(nowhere.clone())));
@@ -289,7 +286,7 @@ fn a_failed_save_loses_nothing_and_a_session_restores_the_edits() {
     assert!(error.contains("not saved"), "{error}");
     assert!(!nowhere.exists());
     assert_eq!(
-        state(&h).editor.as_ref().unwrap().matrix(),
+        state(&h).editor().unwrap().matrix(),
         &edited,
         "nothing lost"
     );
@@ -305,8 +302,7 @@ fn a_failed_save_loses_nothing_and_a_session_restores_the_edits() {
     fresh.run_steps(1);
     settle(&mut fresh);
     let e = state(&fresh)
-        .editor
-        .as_ref()
+        .editor()
         .expect("the session's data and matrix are back");
     assert_eq!(e.matrix(), &edited);
     assert_eq!(e.origin(), MatrixOrigin::Edited);
@@ -325,7 +321,7 @@ fn retraining_compares_the_corrections_and_saves_a_model_predict_reads() {
     h.get_by_label("Train and compare").click();
     h.run_steps(2);
     settle(&mut h);
-    let r = state(&h).retrained.as_ref().expect("trained");
+    let r = state(&h).retrained().expect("trained");
     let names: Vec<&str> = r
         .comparison
         .report
@@ -345,7 +341,7 @@ fn retraining_compares_the_corrections_and_saves_a_model_predict_reads() {
     h.get_by_label("Save model").click();
     h.run_steps(2);
     settle(&mut h);
-    let messages = format!("{:?}", state(&h).messages);
+    let messages = format!("{:?}", state(&h).messages());
     let file = std::fs::File::open(&model).expect(&messages);
     let (saved, _) = flipmend::io::model::read_model(file, &model).expect("a readable model");
     assert_eq!(
@@ -380,7 +376,7 @@ fn many_classes_get_a_scrolling_grid_and_the_largest_flips() {
         .push(Command::LoadData(path, Roles::default()));
     h.run_steps(1);
     settle(&mut h);
-    assert_eq!(state(&h).editor.as_ref().expect("estimated").classes(), 14);
+    assert_eq!(state(&h).editor().expect("estimated").classes(), 14);
     h.get_by_label("Flip matrix").click();
     h.run_steps(2);
     h.get_by_label("Largest flips");

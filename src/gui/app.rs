@@ -186,7 +186,7 @@ impl FlipmendApp {
             self.ui.dialog_requests.push(Purpose::OpenData);
         }
         if s {
-            match self.state.session_path {
+            match self.state.session_path() {
                 Some(_) => self.push(Command::SaveSession(None)),
                 None => self.ui.dialog_requests.push(Purpose::SaveSession),
             }
@@ -236,7 +236,7 @@ impl FlipmendApp {
             Purpose::SaveModel => {
                 let models = self
                     .state
-                    .retrained
+                    .retrained()
                     .as_ref()
                     .map_or(1, |r| r.comparison.models.len());
                 Command::SaveModel(self.ui.chosen_model(models), path)
@@ -266,7 +266,7 @@ impl FlipmendApp {
             self.dialogs.request(purpose, &ctx);
         }
         self.apply_commands();
-        if self.state.jobs.busy() {
+        if self.state.jobs().busy() {
             // Progress bars move; the workers' wake-up covers the end of each job.
             ctx.request_repaint_after(std::time::Duration::from_millis(100));
         }

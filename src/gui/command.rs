@@ -56,6 +56,9 @@ pub enum Command {
     SaveSession(Option<PathBuf>),
     /// Open a session file.
     OpenSession(PathBuf),
+    /// Read this probability file for the next table loaded (the app's `--probs` at
+    /// start, given before the table is read).
+    UseProbabilitiesFile(PathBuf),
     /// Stop a running job.
     Cancel(JobKind),
     /// Hide a message.

@@ -91,7 +91,7 @@ pub fn run(launch: Launch) -> Result<()> {
             let mut app = FlipmendApp::from_creation(cc);
             app.time_first_frame(started);
             if let Some(probs) = launch.probs.take() {
-                app.state.session.probs = Some(probs);
+                app.push(Command::UseProbabilitiesFile(probs));
             }
             for command in launch.commands() {
                 app.push(command);

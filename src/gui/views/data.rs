@@ -17,11 +17,11 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
     egui::ScrollArea::vertical().show(ui, |ui| {
         ui.heading("Data table");
         ui.label("A CSV (or TSV) with feature columns and an observed label; optionally an id and a partly audited trusted label. Drop a file on the window, browse, or type a path.");
-        let draft = view.roles_draft.clone().unwrap_or_else(|| state.session.roles.clone());
+        let draft = view.roles_draft.clone().unwrap_or_else(|| state.session().roles.clone());
         if let Some(path) = path_row(ui, view, Purpose::OpenData, "Load table", "path to a .csv or .tsv") {
             out.push(Command::LoadData(path, draft.clone()));
         }
-        if let Some(running) = state.jobs.running(JobKind::Load) {
+        if let Some(running) = state.jobs().running(JobKind::Load) {
             ui.horizontal(|ui| {
                 ui.spinner();
                 ui.label("reading the table…");
@@ -30,7 +30,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
                 }
             });
         }
-        if state.data.is_some() {
+        if state.data().is_some() {
             ui.separator();
             roles(ui, state, view, draft, out);
             ui.separator();
@@ -48,7 +48,7 @@ fn roles(
     mut draft: Roles,
     out: &mut Vec<Command>,
 ) {
-    let Some(data) = &state.data else { return };
+    let Some(data) = state.data() else { return };
     ui.heading("Column roles");
     let before = draft.clone();
     egui::Grid::new("roles").num_columns(2).show(ui, |ui| {
@@ -105,7 +105,7 @@ fn roles(
             Err(e) => ui.colored_label(ui.visuals().error_fg_color, e),
         };
     });
-    let changed = draft != state.session.roles;
+    let changed = draft != state.session().roles;
     if ui
         .add_enabled(
             check.is_ok() && changed,
@@ -146,7 +146,7 @@ fn column_picker(
 }
 
 fn features(ui: &mut egui::Ui, state: &AppState, draft: &mut Roles) {
-    let Some(data) = &state.data else { return };
+    let Some(data) = state.data() else { return };
     let mut chosen: Vec<String> = draft
         .features
         .clone()
@@ -181,9 +181,9 @@ fn features(ui: &mut egui::Ui, state: &AppState, draft: &mut Roles) {
 }
 
 fn classes(ui: &mut egui::Ui, state: &AppState) {
-    let Some(data) = &state.data else { return };
+    let Some(data) = state.data() else { return };
     ui.heading("Classes");
-    let (counts, trusted) = &state.class_counts;
+    let (counts, trusted) = state.class_counts();
     let n = data.rows().max(1) as f64;
     egui::Grid::new("classes")
         .striped(true)
@@ -214,7 +214,7 @@ fn classes(ui: &mut egui::Ui, state: &AppState) {
 fn probabilities(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
     ui.heading("Out-of-sample probabilities");
     ui.label("Each row's class probabilities from a model that did not see that row. In-sample probabilities make the flip matrix look like the identity.");
-    match &state.probs {
+    match state.probs() {
         Some(p) => ui.label(format!("in use: {}", p.source.describe())),
         None => ui.label("none yet"),
     };
@@ -244,10 +244,7 @@ fn probabilities(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &
         out.push(Command::Settings(s));
     }
     ui.horizontal(|ui| super::widgets::job_progress(ui, state, JobKind::Probabilities, out));
-    if matches!(
-        state.probs.as_ref().map(|p| &p.source),
-        Some(ProbSource::File(_))
-    ) {
+    if matches!(state.probs().map(|p| &p.source), Some(ProbSource::File(_))) {
         ui.label("A probability file is trusted to be out-of-sample; the Flip matrix view warns when it looks in-sample.");
     }
 }

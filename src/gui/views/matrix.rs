@@ -17,11 +17,11 @@ pub const MANY_CLASSES: usize = 12;
 
 /// Draws the view.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
-    let Some(data) = &state.data else {
+    let Some(data) = state.data() else {
         ui.label("Load a data table first (Data view).");
         return;
     };
-    let Some(editor) = &state.editor else {
+    let Some(editor) = state.editor() else {
         ui.horizontal(|ui| {
             ui.spinner();
             ui.label("waiting for probabilities and the estimate…");
@@ -79,7 +79,7 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
     if s != *state.settings() {
         out.push(Command::Settings(s));
     }
-    if let Some(info) = &state.estimate {
+    if let Some(info) = state.estimate() {
         ui.label(format!("matrix from {}", state.matrix_description()))
             .on_hover_text(plain(&info.notes.join("\n")).into_owned());
     }
@@ -249,7 +249,7 @@ fn cell(
             editor.matrix()[[i, j]]
         ));
         ui.label(format!("estimate: {:.4}", editor.reference()[[i, j]]));
-        if let Some(iv) = &state.intervals {
+        if let Some(iv) = state.intervals() {
             ui.label(format!(
                 "bootstrap 5–95%: {:.4} – {:.4}",
                 iv.low[[i, j]],
@@ -302,8 +302,8 @@ fn files(ui: &mut egui::Ui, view: &mut UiState, out: &mut Vec<Command>) {
 }
 
 fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
-    let Some(data) = &state.data else { return };
-    let Some((d, version)) = &state.diagnostics else {
+    let Some(data) = state.data() else { return };
+    let Some((d, version)) = state.diagnostics() else {
         ui.spinner();
         return;
     };

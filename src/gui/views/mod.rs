@@ -25,7 +25,7 @@ pub fn frame(
 ) {
     egui::Panel::top("menu").show(ui, |ui| menu_bar(ui, state, view, persisted, out));
     egui::Panel::bottom("status").show(ui, |ui| status_bar(ui, state, out));
-    if !state.messages.is_empty() {
+    if !state.messages().is_empty() {
         egui::Panel::top("messages").show(ui, |ui| messages(ui, state, out));
     }
     if view.show_about {
@@ -57,7 +57,7 @@ fn menu_bar(
                 view.dialog_requests.push(Purpose::OpenSession);
             }
             let save = ui.add_enabled(
-                state.session_path.is_some(),
+                state.session_path().is_some(),
                 egui::Button::new("Save session  (Ctrl+S)"),
             );
             if save.clicked() {
@@ -82,7 +82,7 @@ fn menu_bar(
             }
         });
         ui.menu_button("Edit", |ui| {
-            let editor = state.editor.as_ref();
+            let editor = state.editor();
             if ui
                 .add_enabled(
                     editor.is_some_and(|e| e.can_undo()),
@@ -130,7 +130,7 @@ fn messages(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
     egui::ScrollArea::vertical()
         .max_height(96.0)
         .show(ui, |ui| {
-            for (i, m) in state.messages.iter().enumerate().rev() {
+            for (i, m) in state.messages().iter().enumerate().rev() {
                 ui.horizontal(|ui| {
                     let (tag, color) = match m.level {
                         Level::Error => ("error", ui.visuals().error_fg_color),
@@ -148,7 +148,7 @@ fn messages(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
 
 fn status_bar(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
     ui.horizontal(|ui| {
-        match &state.data {
+        match state.data() {
             Some(d) => ui.label(format!(
                 "{} · {} rows · {} classes",
                 d.path.file_name().map_or_else(
@@ -161,14 +161,14 @@ fn status_bar(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
             None => ui.label("no data"),
         };
         ui.separator();
-        let origin = state.editor.as_ref().map_or("none", |e| e.origin().label());
+        let origin = state.editor().map_or("none", |e| e.origin().label());
         ui.label(format!("matrix: {origin}"))
             .on_hover_text(state.matrix_description());
-        if let Some(r) = &state.ranking {
+        if let Some(r) = state.ranking() {
             ui.separator();
             ui.label(format!("ranked in {:.0} ms", r.duration_secs * 1000.0));
         }
-        for running in state.jobs.all_running() {
+        for running in state.jobs().all_running() {
             ui.separator();
             let kind = running.ticket.kind;
             ui.add(

@@ -16,18 +16,17 @@ use crate::workflow::compare::{Comparison, ModelReport};
 
 /// Draws the view.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
-    if state.data.is_none() {
+    if state.data().is_none() {
         ui.label("Load a data table first (Data view).");
         return;
     }
     controls(ui, state, view, out);
-    let Some(r) = &state.retrained else {
+    let Some(r) = state.retrained() else {
         ui.label("Train to compare the corrections.");
         return;
     };
     if state
-        .editor
-        .as_ref()
+        .editor()
         .is_some_and(|e| e.version() != r.matrix_version)
     {
         ui.colored_label(
@@ -108,7 +107,7 @@ fn controls(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         out.push(Command::Settings(s));
     }
     ui.horizontal(|ui| {
-        let ready = state.probs.is_some() && state.editor.is_some();
+        let ready = state.probs().is_some() && state.editor().is_some();
         if ui
             .add_enabled(ready, egui::Button::new("Train and compare"))
             .clicked()
@@ -253,7 +252,7 @@ fn confusions(ui: &mut egui::Ui, c: &Comparison, chosen: usize) {
 }
 
 fn changed_rows(ui: &mut egui::Ui, state: &AppState, c: &Comparison, chosen: usize) {
-    let Some(data) = &state.data else { return };
+    let Some(data) = state.data() else { return };
     let before = &c.predictions[0];
     let after = &c.predictions[chosen];
     let changed: Vec<usize> = (0..before.len())

@@ -18,25 +18,25 @@ use crate::workflow::review::{ReviewSummary, SliceResult};
 
 /// Draws the view.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
-    let Some(data) = &state.data else {
+    let Some(data) = state.data() else {
         ui.label("Load a data table first (Data view).");
         return;
     };
     controls(ui, state, &data.classes, out);
-    let Some(ranking) = &state.ranking else {
+    let Some(ranking) = state.ranking() else {
         ui.horizontal(|ui| {
             ui.spinner();
             ui.label("ranking…");
         });
         return;
     };
-    let stale = state.jobs.running(JobKind::Rank).is_some() || !ranking.is_complete();
+    let stale = state.jobs().running(JobKind::Rank).is_some() || !ranking.is_complete();
     ui.horizontal(|ui| {
         ui.label(format!(
             "{} of {} rows pass the filters; the worklist takes the first {}",
-            state.visible.len(),
+            state.visible().len(),
             ranking.rows,
-            state.visible.len().min(state.settings().budget)
+            state.visible().len().min(state.settings().budget)
         ));
         if let Some(e) = ranking.expected_errors {
             ui.label(format!("· expected mislabelled rows: {e:.0}"));
@@ -121,7 +121,7 @@ fn score_help(k: ScoreKind) -> &'static str {
 }
 
 fn histogram(ui: &mut egui::Ui, state: &AppState) {
-    let Some(r) = &state.ranking else { return };
+    let Some(r) = state.ranking() else { return };
     let h = &r.histogram;
     let w = h.bin_width();
     let bars: Vec<Bar> = h
@@ -138,7 +138,7 @@ fn histogram(ui: &mut egui::Ui, state: &AppState) {
 }
 
 fn table(ui: &mut egui::Ui, state: &AppState) {
-    let (Some(data), Some(r)) = (&state.data, &state.ranking) else {
+    let (Some(data), Some(r)) = (state.data(), state.ranking()) else {
         return;
     };
     let classes = &data.classes;
@@ -165,8 +165,8 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
         })
         .body(|body| {
             // Only the rows in view are laid out, so a million rows scroll smoothly.
-            body.rows(18.0, state.visible.len(), |mut row| {
-                let position = state.visible[row.index()] as usize;
+            body.rows(18.0, state.visible().len(), |mut row| {
+                let position = state.visible()[row.index()] as usize;
                 let s = &r.ranked[position];
                 let cells = [
                     (position + 1).to_string(),
@@ -212,7 +212,7 @@ fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: 
     ) {
         out.push(Command::ImportReview(path));
     }
-    if let Some(r) = &state.review {
+    if let Some(r) = state.review() {
         ui.label(format!(
             "{}: {} confirm, {} change the label, {} left blank",
             r.path

@@ -144,7 +144,7 @@ pub fn job_progress(
     kind: crate::gui::jobs::JobKind,
     out: &mut Vec<crate::gui::command::Command>,
 ) {
-    let Some(running) = state.jobs.running(kind) else {
+    let Some(running) = state.jobs().running(kind) else {
         return;
     };
     ui.add(

@@ -1,0 +1,163 @@
+//! The flip matrix: estimating it, editing it (with undo), importing, exporting and
+//! bootstrapping it.
+
+use super::*;
+use crate::io::session::MatrixOrigin;
+use crate::noise::matrix::{load_matrix_csv, write_matrix_csv};
+use crate::noise::EstimatorSettings;
+use crate::workflow;
+
+impl AppState {
+    /// The estimator the settings pick.
+    pub fn method(&self) -> Method {
+        let s = &self.session.settings;
+        s.estimator.with(&EstimatorSettings {
+            quantile: s.quantile,
+            fallback: s.fallback,
+            volume_weight: None,
+        })
+    }
+
+    pub(super) fn start_estimate(&mut self) {
+        let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
+            return;
+        };
+        let method = self.method();
+        self.spawn_on_data(JobKind::Estimate, move |_| {
+            let e = workflow::estimate_on_all_rows(&data, &probs, &method).map_err(fail)?;
+            let info = EstimateInfo {
+                source: workflow::MatrixSource::Estimate(method.clone()).describe(),
+                notes: e.notes,
+                method: Some(method),
+                clean: e.clean.map(Arc::new),
+            };
+            Ok(JobOutput::Estimated(e.matrix, info))
+        });
+    }
+
+    pub(super) fn estimated(&mut self, matrix: Array2<f64>, info: EstimateInfo) {
+        for note in &info.notes {
+            self.say(Level::Warning, note.clone());
+        }
+        let classes = self
+            .data
+            .as_ref()
+            .map(|d| d.classes.clone())
+            .unwrap_or_default();
+        let restored = self
+            .pending_matrix
+            .take()
+            .filter(|m| m.classes == classes)
+            .map(|m| {
+                let k = m.classes.len();
+                let flat: Vec<f64> = m.values.into_iter().flatten().collect();
+                (Array2::from_shape_vec((k, k), flat), m.origin)
+            });
+        match (restored, &mut self.editor) {
+            (Some((Ok(saved), origin)), _) => {
+                let mut editor = MatrixEditor::new(matrix, MatrixOrigin::Estimated);
+                if origin == MatrixOrigin::Imported {
+                    editor.replace(saved, MatrixOrigin::Imported);
+                } else {
+                    // Restored edits are measured against the fresh estimate.
+                    editor.replace_current(saved, origin);
+                }
+                self.editor = Some(editor);
+            }
+            (_, Some(editor)) => editor.replace(matrix, MatrixOrigin::Estimated),
+            (_, None) => self.editor = Some(MatrixEditor::new(matrix, MatrixOrigin::Estimated)),
+        }
+        self.estimate = Some(info);
+        self.intervals = None;
+        self.matrix_changed();
+    }
+
+    pub(super) fn edit(&mut self, change: fn(&mut MatrixEditor) -> bool) {
+        if let Some(e) = &mut self.editor {
+            if change(e) {
+                self.matrix_changed();
+            }
+        }
+    }
+
+    /// The matrix changed: re-rank first (the table is what the user watches while
+    /// editing), and diagnose once the ranking is done, so the two do not share the
+    /// cores.
+    pub(super) fn matrix_changed(&mut self) {
+        self.start_rank();
+        self.diagnose_pending = true;
+        if self.jobs.running(JobKind::Rank).is_none() {
+            self.start_diagnose();
+        }
+    }
+
+    pub(super) fn import_matrix(&mut self, path: &Path) {
+        let Some(data) = &self.data else {
+            return self.say(Level::Error, "load a data table first");
+        };
+        match load_matrix_csv(path, &data.classes, false) {
+            Ok((matrix, notes)) => {
+                for n in notes {
+                    self.say(Level::Warning, n);
+                }
+                let k = matrix.nrows();
+                let editor = self.editor.get_or_insert_with(|| {
+                    MatrixEditor::new(Array2::eye(k), MatrixOrigin::Imported)
+                });
+                editor.replace(matrix, MatrixOrigin::Imported);
+                self.estimate = Some(EstimateInfo {
+                    source: format!("file {}", path.display()),
+                    notes: Vec::new(),
+                    method: None,
+                    clean: None,
+                });
+                self.intervals = None;
+                self.say(Level::Info, format!("imported {}", path.display()));
+                self.matrix_changed();
+            }
+            Err(e) => self.say(Level::Error, e.to_string()),
+        }
+    }
+
+    pub(super) fn export_matrix(&mut self, path: PathBuf) {
+        let (Some(data), Some(editor)) = (&self.data, &self.editor) else {
+            return self.say(Level::Error, "there is no matrix to export yet");
+        };
+        let matrix = editor.matrix().clone();
+        let classes = data.classes.clone();
+        let inputs = self.input_paths();
+        self.save_job(path, inputs, move |w| {
+            write_matrix_csv(w, &matrix, &classes)
+        });
+    }
+
+    pub(super) fn start_bootstrap(&mut self) {
+        let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
+            return self.say(Level::Error, "the bootstrap needs data and probabilities");
+        };
+        let Some(method) = self.estimate.as_ref().and_then(|e| e.method.clone()) else {
+            return self.say(
+                Level::Error,
+                "an imported matrix has no estimator to resample",
+            );
+        };
+        let s = &self.session.settings;
+        let (resamples, seed) = (s.resamples.max(2), s.seed);
+        self.spawn_on_data(JobKind::Bootstrap, move |_| {
+            let i = workflow::matrix_intervals(&data, &probs, &method, resamples, seed)
+                .map_err(fail)?;
+            Ok(JobOutput::Intervals(i))
+        });
+    }
+
+    /// How the status bar and model files name the current matrix.
+    pub fn matrix_description(&self) -> String {
+        match (&self.editor, &self.estimate) {
+            (Some(e), Some(info)) if e.origin() == MatrixOrigin::Edited => {
+                format!("{} (edited by hand)", info.source)
+            }
+            (Some(_), Some(info)) => info.source.clone(),
+            _ => "none yet".into(),
+        }
+    }
+}

@@ -1,0 +1,463 @@
+//! The desktop app's state and every rule of how it changes, with no drawing: views
+//! read it through its accessors and push [`Command`]s; [`AppState::apply`] carries them
+//! out and starts background jobs; [`AppState::poll`] takes the jobs' results in, through
+//! the one stamp check in [`AppState::accept`]. Split by concern: [`messages`], data and
+//! probabilities (`data`), the flip matrix and its edits (`matrix`), ranking and
+//! diagnosis (`ranking`), worklists and reviews (`review`), training and comparing
+//! (`compare`), sessions and saving (`session`). Unit tests (`tests`) drive it without a
+//! window.
+
+mod compare;
+mod data;
+mod matrix;
+pub mod messages;
+mod ranking;
+mod review;
+mod session;
+#[cfg(test)]
+mod tests;
+
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use ndarray::Array2;
+
+pub use self::data::table_options;
+use self::messages::Messages;
+pub use self::messages::{Level, Message};
+use super::command::Command;
+use super::jobs::{Finished, JobControl, JobFailure, JobKind, Jobs};
+use super::matrix_edit::MatrixEditor;
+use crate::data::Dataset;
+use crate::error::Error;
+use crate::io::review::Review;
+use crate::io::session::{Roles, Session, SessionMatrix, Settings};
+use crate::noise::bootstrap::Interval;
+use crate::noise::{Diagnostics, Method};
+use crate::workflow::compare::Comparison;
+use crate::workflow::ranking::Ranking;
+use crate::workflow::review::ReviewSummary;
+use crate::workflow::RowProbabilities;
+
+/// The estimate a matrix was started from.
+#[derive(Debug, Clone)]
+pub struct EstimateInfo {
+    /// How it was made (`quantile (q = 0.97)`, `file m.csv`, …).
+    pub source: String,
+    /// Notes from estimation.
+    pub notes: Vec<String>,
+    /// The method, for the bootstrap (none for imported matrices).
+    pub method: Option<Method>,
+    /// Every row's clean posterior from a joint fit: the scores read it under the
+    /// (possibly edited) matrix instead of inverting the matrix.
+    pub clean: Option<Arc<Array2<f32>>>,
+}
+
+/// A comparison and the matrix version it was trained with.
+#[derive(Debug, Clone)]
+pub struct Retrained {
+    /// The results.
+    pub comparison: Arc<Comparison>,
+    /// Matrix version used.
+    pub matrix_version: u64,
+}
+
+/// A reviewed worklist that was read, waiting to be merged.
+#[derive(Debug, Clone)]
+pub struct ReviewRead {
+    /// The worklist file.
+    pub path: PathBuf,
+    /// Its verdicts.
+    pub review: Arc<Review>,
+    /// What the review measured (verdicts that confirm or change the label among it).
+    pub summary: ReviewSummary,
+}
+
+/// What a finished job hands back ([`Stamped`] with the data generation it read; a
+/// diagnosis also carries the matrix version it is for).
+#[derive(Debug)]
+pub enum JobOutput {
+    /// A table was read.
+    Loaded(Box<Dataset>, Roles),
+    /// Probabilities.
+    Probabilities(Box<RowProbabilities>),
+    /// An estimate.
+    Estimated(Array2<f64>, EstimateInfo),
+    /// Bootstrap intervals.
+    Intervals(Interval),
+    /// A ranking (perhaps only its head in order).
+    Ranked(Box<Ranking>),
+    /// The complete ranking of a head ranking,.
+    RankedRest(Box<Ranking>),
+    /// Diagnostics for matrix version `.1`.
+    Diagnosed(Box<Diagnostics>, u64),
+    /// A comparison.
+    Compared(Retrained),
+    /// A reviewed worklist.
+    Reviewed(ReviewRead),
+    /// A file was written; the message says which.
+    Saved(String),
+    /// A merged copy was written; load it next.
+    Merged(PathBuf),
+    /// A test job's text.
+    Text(String),
+}
+
+impl JobOutput {
+    /// True for results computed from the loaded data (dropped when it is replaced);
+    /// loads, saves and test jobs do not read it.
+    fn reads_data(&self) -> bool {
+        !matches!(
+            self,
+            JobOutput::Loaded(..) | JobOutput::Saved(_) | JobOutput::Merged(_) | JobOutput::Text(_)
+        )
+    }
+}
+
+/// A job's result with the data generation its inputs came from.
+#[derive(Debug)]
+pub struct Stamped {
+    generation: u64,
+    output: JobOutput,
+}
+
+/// The whole app state.
+pub struct AppState {
+    /// Paths, roles, matrix and settings as a session file stores them.
+    session: Session,
+    /// The session file, once saved or opened.
+    session_path: Option<PathBuf>,
+    /// The loaded table.
+    data: Option<Arc<Dataset>>,
+    /// Observed and trusted rows per class of `data`, counted once at load (the Data view
+    /// shows them every frame).
+    class_counts: (Vec<usize>, Vec<usize>),
+    /// Bumped on every successful load; results from older data are discarded.
+    data_generation: u64,
+    /// Probabilities of the current data.
+    probs: Option<Arc<RowProbabilities>>,
+    /// The matrix being edited.
+    editor: Option<MatrixEditor>,
+    /// How the editor's reference matrix was made.
+    estimate: Option<EstimateInfo>,
+    /// Bootstrap intervals of the estimate.
+    intervals: Option<Interval>,
+    /// Diagnostics of the current matrix (and the version they are for).
+    diagnostics: Option<(Diagnostics, u64)>,
+    /// Ranked suspects of the current (or, while re-ranking, the previous) matrix.
+    ranking: Option<Arc<Ranking>>,
+    /// Positions in the ranking that pass the filters.
+    visible: Vec<u32>,
+    /// The last comparison.
+    retrained: Option<Retrained>,
+    /// The last reviewed worklist read.
+    review: Option<ReviewRead>,
+    /// Messages not yet dismissed, oldest first.
+    messages: Messages,
+    /// Background work.
+    jobs: Jobs<Stamped>,
+    /// A matrix from a session, applied once its data's estimate arrives.
+    pending_matrix: Option<SessionMatrix>,
+    /// The matrix changed while a ranking (or diagnosis) was running: run again when it
+    /// ends. At most one of each runs, so a drag over a cell never piles up stale work.
+    rank_pending: bool,
+    diagnose_pending: bool,
+    /// Saves started so far (each save is its own job).
+    saves: u64,
+}
+
+impl AppState {
+    /// An empty state; `wake` is called from workers when a job ends.
+    pub fn new(wake: Arc<dyn Fn() + Send + Sync>) -> Self {
+        AppState {
+            session: Session::new(),
+            session_path: None,
+            data: None,
+            class_counts: (Vec::new(), Vec::new()),
+            data_generation: 0,
+            probs: None,
+            editor: None,
+            estimate: None,
+            intervals: None,
+            diagnostics: None,
+            ranking: None,
+            visible: Vec::new(),
+            retrained: None,
+            review: None,
+            messages: Messages::default(),
+            jobs: Jobs::new(wake),
+            pending_matrix: None,
+            rank_pending: false,
+            saves: 0,
+            diagnose_pending: false,
+        }
+    }
+
+    /// The settings in force.
+    pub fn settings(&self) -> &Settings {
+        &self.session.settings
+    }
+
+    /// Paths, roles, matrix and settings as a session file stores them.
+    pub fn session(&self) -> &Session {
+        &self.session
+    }
+
+    /// The session file, once saved or opened.
+    pub fn session_path(&self) -> Option<&Path> {
+        self.session_path.as_deref()
+    }
+
+    /// The loaded table.
+    pub fn data(&self) -> Option<&Arc<Dataset>> {
+        self.data.as_ref()
+    }
+
+    /// Observed and trusted rows per class of the data, counted once at load.
+    pub fn class_counts(&self) -> (&[usize], &[usize]) {
+        (&self.class_counts.0, &self.class_counts.1)
+    }
+
+    /// Probabilities of the current data.
+    pub fn probs(&self) -> Option<&Arc<RowProbabilities>> {
+        self.probs.as_ref()
+    }
+
+    /// The matrix being edited.
+    pub fn editor(&self) -> Option<&MatrixEditor> {
+        self.editor.as_ref()
+    }
+
+    /// How the editor's reference matrix was made.
+    pub fn estimate(&self) -> Option<&EstimateInfo> {
+        self.estimate.as_ref()
+    }
+
+    /// Bootstrap intervals of the estimate.
+    pub fn intervals(&self) -> Option<&Interval> {
+        self.intervals.as_ref()
+    }
+
+    /// Diagnostics of the current matrix and the matrix version they are for.
+    pub fn diagnostics(&self) -> Option<&(Diagnostics, u64)> {
+        self.diagnostics.as_ref()
+    }
+
+    /// Ranked suspects of the current (or, while re-ranking, the previous) matrix.
+    pub fn ranking(&self) -> Option<&Arc<Ranking>> {
+        self.ranking.as_ref()
+    }
+
+    /// Positions in the ranking that pass the filters, in rank order.
+    pub fn visible(&self) -> &[u32] {
+        &self.visible
+    }
+
+    /// The last comparison.
+    pub fn retrained(&self) -> Option<&Retrained> {
+        self.retrained.as_ref()
+    }
+
+    /// The last reviewed worklist read.
+    pub fn review(&self) -> Option<&ReviewRead> {
+        self.review.as_ref()
+    }
+
+    /// Messages not yet dismissed, oldest first.
+    pub fn messages(&self) -> &[Message] {
+        self.messages.lines()
+    }
+
+    /// Background work (progress and what runs).
+    pub fn jobs(&self) -> &Jobs<Stamped> {
+        &self.jobs
+    }
+
+    /// Adds a message.
+    pub fn say(&mut self, level: Level, text: impl Into<String>) {
+        self.messages.say(level, text);
+    }
+
+    /// The most recent error message, if any is shown.
+    pub fn last_error(&self) -> Option<&str> {
+        self.messages.last_error()
+    }
+
+    /// Carries out one command.
+    pub fn apply(&mut self, command: Command) {
+        match command {
+            Command::LoadData(path, roles) => self.load_data(path, roles),
+            Command::LoadProbabilities(path) => self.load_probabilities(Some(path)),
+            Command::ComputeProbabilities => self.load_probabilities(None),
+            Command::Settings(settings) => self.change_settings(settings),
+            Command::Estimate => self.start_estimate(),
+            Command::SetCell { row, col, value } => {
+                let keep = self.session.settings.keep_diagonal;
+                if let Some(e) = &mut self.editor {
+                    if e.set_cell(row, col, value, keep) {
+                        self.matrix_changed();
+                    }
+                }
+            }
+            Command::EndGesture => {
+                if let Some(e) = &mut self.editor {
+                    e.end_gesture();
+                }
+            }
+            Command::Undo => self.edit(MatrixEditor::undo),
+            Command::Redo => self.edit(MatrixEditor::redo),
+            Command::ResetMatrix => self.edit(MatrixEditor::reset),
+            Command::ImportMatrix(path) => self.import_matrix(&path),
+            Command::ExportMatrix(path) => self.export_matrix(path),
+            Command::Bootstrap => self.start_bootstrap(),
+            Command::ExportWorklist(path) => self.export_worklist(path),
+            Command::ImportReview(path) => self.import_review(path),
+            Command::SaveMerged(path) => self.save_merged(path),
+            Command::Retrain => self.start_retrain(),
+            Command::SaveModel(index, path) => self.save_model(index, path),
+            Command::SaveSession(path) => self.save_session(path),
+            Command::OpenSession(path) => self.open_session(&path),
+            Command::Cancel(kind) => self.jobs.cancel(kind),
+            Command::Dismiss(i) => self.messages.dismiss(i),
+            Command::UseProbabilitiesFile(path) => self.session.probs = Some(path),
+        }
+    }
+
+    /// Takes in finished jobs; returns true when anything changed.
+    pub fn poll(&mut self) -> bool {
+        let finished = self.jobs.poll();
+        let changed = !finished.is_empty();
+        for done in finished {
+            self.receive(done);
+        }
+        changed
+    }
+
+    /// Waits for every job (and the jobs they start) to finish; for tests and scripts.
+    pub fn settle(&mut self, timeout_secs: f64) {
+        let deadline = std::time::Instant::now() + std::time::Duration::from_secs_f64(timeout_secs);
+        loop {
+            for done in self.jobs.wait_all(timeout_secs) {
+                self.receive(done);
+            }
+            if !self.jobs.busy() || std::time::Instant::now() > deadline {
+                break;
+            }
+        }
+    }
+
+    fn receive(&mut self, done: Finished<Stamped>) {
+        let kind = done.ticket.kind;
+        match done.outcome {
+            Ok(stamped) => self.accept(stamped),
+            Err(JobFailure::Cancelled) => {
+                self.say(Level::Info, format!("{}: cancelled", kind.label()))
+            }
+            Err(failure) => self.say(Level::Error, failure.to_string()),
+        }
+        if kind == JobKind::Rank && std::mem::take(&mut self.rank_pending) {
+            self.start_rank();
+        }
+        let ranking_idle = self.jobs.running(JobKind::Rank).is_none();
+        if ranking_idle && std::mem::take(&mut self.diagnose_pending) {
+            self.start_diagnose();
+        }
+    }
+
+    /// The one place a result's stamp is checked: one computed from data that has since
+    /// been replaced is dropped unseen (as is a ranking for another score, or the rest of
+    /// a ranking whose head is no longer shown).
+    fn accept(&mut self, stamped: Stamped) {
+        if stamped.output.reads_data() && stamped.generation != self.data_generation {
+            return;
+        }
+        match stamped.output {
+            JobOutput::Loaded(data, roles) => self.data_loaded(*data, roles),
+            JobOutput::Probabilities(p) => {
+                for notice in &p.notices {
+                    self.say(Level::Warning, notice.clone());
+                }
+                self.probs = Some(Arc::from(p));
+                self.start_estimate();
+            }
+            JobOutput::Estimated(matrix, info) => self.estimated(matrix, info),
+            JobOutput::Intervals(interval) => self.intervals = Some(interval),
+            // A ranking of a slightly older matrix is still shown while the newer one is
+            // computed (the view says it is updating); one of another score is not.
+            JobOutput::Ranked(ranking) if ranking.kind == self.session.settings.score => {
+                let ranking: Arc<Ranking> = Arc::from(ranking);
+                if !ranking.is_complete() {
+                    self.start_rank_rest(ranking.clone());
+                }
+                self.ranking = Some(ranking);
+                self.refilter();
+            }
+            JobOutput::RankedRest(full)
+                if self.ranking.as_ref().is_some_and(|r| {
+                    r.matrix_version == full.matrix_version && r.kind == full.kind
+                }) =>
+            {
+                self.ranking = Some(Arc::from(full));
+                self.refilter();
+            }
+            JobOutput::Diagnosed(d, version) => self.diagnostics = Some((*d, version)),
+            JobOutput::Compared(r) => {
+                let warnings = r.comparison.report.warnings.clone();
+                self.retrained = Some(r);
+                for w in warnings {
+                    self.say(Level::Warning, w);
+                }
+            }
+            JobOutput::Reviewed(r) => {
+                self.say(
+                    Level::Info,
+                    format!(
+                        "{}: {} verdicts ({} confirm, {} change the label)",
+                        r.path.display(),
+                        r.summary.reviewed,
+                        r.summary.confirmed,
+                        r.summary.changed
+                    ),
+                );
+                self.review = Some(r);
+            }
+            JobOutput::Saved(text) | JobOutput::Text(text) => self.say(Level::Info, text),
+            JobOutput::Merged(path) => {
+                self.say(Level::Info, format!("wrote {}; loading it", path.display()));
+                let roles = self.session.roles.clone();
+                self.load_data(path, roles);
+            }
+            // A ranking of another score, or the rest of a ranking no longer shown.
+            _ => {}
+        }
+    }
+
+    /// Runs `work` as a job of `kind` (tests use it to prove a panicking worker is
+    /// reported and the app goes on).
+    pub fn spawn_job<F>(&mut self, kind: JobKind, work: F)
+    where
+        F: FnOnce(&JobControl) -> Result<JobOutput, JobFailure> + Send + 'static,
+    {
+        self.spawn_on_data(kind, work);
+    }
+
+    /// Runs `work` as a job of `kind`, its result stamped with the data generation it
+    /// started from ([`AppState::accept`] checks the stamp).
+    fn spawn_on_data<F>(&mut self, kind: JobKind, work: F)
+    where
+        F: FnOnce(&JobControl) -> Result<JobOutput, JobFailure> + Send + 'static,
+    {
+        let generation = self.data_generation;
+        self.jobs.spawn(kind, move |control| {
+            work(control).map(|output| Stamped { generation, output })
+        });
+    }
+}
+
+/// Library errors become job failures (cancellation stays cancellation).
+fn fail(e: Error) -> JobFailure {
+    match e {
+        Error::Cancelled => JobFailure::Cancelled,
+        e => JobFailure::Error(e.to_string()),
+    }
+}

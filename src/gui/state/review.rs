@@ -1,0 +1,131 @@
+//! Exporting the worklist (with its control rows and key), reading a reviewed one, and
+//! writing the data with the reviewed labels.
+
+use super::*;
+use crate::io::review::{load_key, load_review, write_merged};
+use crate::io::worklist::{key_beside, key_path, write_worklist_files, Item};
+use crate::io::{check_not_input, write_atomic};
+use crate::noise::scores::RowScore;
+use crate::workflow::ranking::Filter;
+use crate::workflow::review::summarise;
+use crate::workflow::worklist::{split_budget, with_control};
+
+impl AppState {
+    pub(super) fn export_worklist(&mut self, path: PathBuf) {
+        let Some(data) = self.data.clone() else {
+            return self.say(Level::Error, "load a data table first");
+        };
+        if !self.ranking.as_ref().is_some_and(|r| r.is_complete()) {
+            return self.say(
+                Level::Error,
+                "the suspects are still being ranked; export again in a moment",
+            );
+        }
+        let Some(ranking) = self.ranking.clone() else {
+            return;
+        };
+        let filter = self.filter();
+        let settings = &self.session.settings;
+        let (suspects, control) = split_budget(settings.budget, settings.control);
+        let listed: Vec<(RowScore, usize)> = self
+            .visible
+            .iter()
+            .take(suspects)
+            .map(|&i| (ranking.ranked[i as usize], i as usize + 1))
+            .collect();
+        let inputs = self.input_paths();
+        let (kind, seed) = (settings.score, settings.seed);
+        let job = self.next_save();
+        self.spawn_on_data(job, move |_| {
+            let items = ranked_with_control(&ranking, &data, &listed, control, seed, &filter);
+            let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+            for target in [&path, &key_path(&path)] {
+                check_not_input(target, &refs).map_err(fail)?;
+            }
+            let key = write_worklist_files(&path, &data, kind, &items, false).map_err(fail)?;
+            let drawn = items.len() - listed.len();
+            Ok(JobOutput::Saved(match key {
+                None => format!(
+                    "wrote {} ({} suspects, ranked)",
+                    path.display(),
+                    listed.len()
+                ),
+                Some(key) => format!(
+                    "wrote {} ({} suspects and {drawn} control rows, shuffled) and its key {}: \
+                     keep the key from the reviewers",
+                    path.display(),
+                    listed.len(),
+                    key.display()
+                ),
+            }))
+        });
+    }
+
+    pub(super) fn import_review(&mut self, path: PathBuf) {
+        let Some(data) = self.data.clone() else {
+            return self.say(Level::Error, "load a data table first");
+        };
+        self.spawn_on_data(JobKind::Review, move |_| {
+            let mut review = load_review(&path, &data).map_err(fail)?;
+            let key = key_beside(&path)
+                .map(|key| load_key(&key, &data))
+                .transpose()
+                .map_err(fail)?;
+            let summary = summarise(&data, &mut review, key.as_ref());
+            let read = ReviewRead {
+                path,
+                review: Arc::new(review),
+                summary,
+            };
+            Ok(JobOutput::Reviewed(read))
+        });
+    }
+
+    pub(super) fn save_merged(&mut self, path: PathBuf) {
+        let (Some(data), Some(review)) = (self.data.clone(), self.review.clone()) else {
+            return self.say(Level::Error, "read a reviewed worklist first");
+        };
+        let inputs = self.input_paths();
+        let mut all_inputs = inputs;
+        all_inputs.push(review.path.clone());
+        let delimiter = table_options(&self.session.roles)
+            .map(|o| o.delimiter_for(&data.path))
+            .unwrap_or(b',');
+        let target = path.clone();
+        let kind = self.next_save();
+        self.spawn_on_data(kind, move |_| {
+            let inputs: Vec<&Path> = all_inputs.iter().map(PathBuf::as_path).collect();
+            check_not_input(&target, &inputs).map_err(fail)?;
+            write_atomic(&target, |w| {
+                write_merged(w, &data, delimiter, &review.review)
+            })
+            .map_err(fail)?;
+            Ok(JobOutput::Merged(target))
+        });
+    }
+}
+
+/// The listed rows of the app's worklist plus `control` control rows drawn from the rows
+/// the filter's class choices allow, with their verdicts and ranks from the ranking.
+fn ranked_with_control(
+    ranking: &Ranking,
+    data: &Dataset,
+    listed: &[(RowScore, usize)],
+    control: usize,
+    seed: u64,
+    filter: &Filter,
+) -> Vec<Item> {
+    let mut position = vec![0usize; ranking.ranked.len()];
+    for (i, s) in ranking.ranked.iter().enumerate() {
+        position[s.row] = i;
+    }
+    with_control(
+        listed,
+        data.rows(),
+        control,
+        seed,
+        |r| filter.observed.is_none_or(|c| data.labels[r] == c),
+        |rows| rows.iter().map(|&r| ranking.ranked[position[r]]).collect(),
+        |rows| rows.iter().map(|&r| position[r] + 1).collect(),
+    )
+}

@@ -1,0 +1,94 @@
+//! Sessions (saving and opening) and saving files: every save its own job, never over
+//! an input.
+
+use super::*;
+use crate::io::session::{read_session, write_session};
+use crate::io::{check_not_input, write_atomic};
+
+impl AppState {
+    /// The session as it would be saved now.
+    pub fn snapshot_session(&self) -> Session {
+        let mut s = self.session.clone();
+        s.matrix = match (&self.data, &self.editor) {
+            (Some(d), Some(e)) => Some(SessionMatrix {
+                classes: d.classes.clone(),
+                values: e.matrix().rows().into_iter().map(|r| r.to_vec()).collect(),
+                origin: e.origin(),
+            }),
+            _ => None,
+        };
+        s
+    }
+
+    pub(super) fn save_session(&mut self, path: Option<PathBuf>) {
+        let Some(path) = path.or_else(|| self.session_path.clone()) else {
+            return self.say(Level::Error, "choose a file to save the session to");
+        };
+        let session = self.snapshot_session();
+        let inputs = self.input_paths();
+        let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+        // Sessions are small: written here, so a failure is reported before the next frame.
+        let outcome = check_not_input(&path, &refs)
+            .and_then(|()| write_atomic(&path, |w| write_session(w, &session)));
+        match outcome {
+            Ok(()) => {
+                self.say(Level::Info, format!("session saved to {}", path.display()));
+                self.session_path = Some(path);
+            }
+            Err(e) => self.say(Level::Error, format!("the session was not saved: {e}")),
+        }
+    }
+
+    pub(super) fn open_session(&mut self, path: &Path) {
+        let read = std::fs::File::open(path)
+            .map_err(|source| Error::Read {
+                path: path.to_path_buf(),
+                source,
+            })
+            .and_then(|f| read_session(f, path));
+        let session = match read {
+            Ok(s) => s,
+            Err(e) => return self.say(Level::Error, e.to_string()),
+        };
+        self.session_path = Some(path.to_path_buf());
+        self.pending_matrix = session.matrix.clone();
+        let data = session.data.clone();
+        let roles = session.roles.clone();
+        self.session = session;
+        self.session.matrix = None;
+        match data {
+            Some(data) => self.load_data(data, roles),
+            None => self.say(Level::Info, format!("opened session {}", path.display())),
+        }
+    }
+
+    /// Files the app has read, which no output may replace.
+    pub(super) fn input_paths(&self) -> Vec<PathBuf> {
+        let mut inputs: Vec<PathBuf> = Vec::new();
+        inputs.extend(self.session.data.clone());
+        inputs.extend(self.session.probs.clone());
+        inputs.extend(self.session.settings.test.clone());
+        inputs.extend(self.session_path.clone());
+        inputs
+    }
+
+    /// A new job kind for one save.
+    pub(super) fn next_save(&mut self) -> JobKind {
+        self.saves += 1;
+        JobKind::Save(self.saves)
+    }
+
+    /// Writes a file on a worker, atomically, never over an input.
+    pub(super) fn save_job<F>(&mut self, path: PathBuf, inputs: Vec<PathBuf>, write: F)
+    where
+        F: FnOnce(&mut dyn std::io::Write) -> std::io::Result<()> + Send + 'static,
+    {
+        let kind = self.next_save();
+        self.spawn_on_data(kind, move |_| {
+            let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+            check_not_input(&path, &refs).map_err(fail)?;
+            write_atomic(&path, write).map_err(fail)?;
+            Ok(JobOutput::Saved(format!("wrote {}", path.display())))
+        });
+    }
+}
