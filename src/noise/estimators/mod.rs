@@ -1,0 +1,284 @@
+//! Flip-matrix estimators. Each returns a validated row-stochastic K×K matrix with rows =
+//! true class: T[i][j] = P(observed j | true i).
+//!
+//! All work from out-of-sample probabilities p(observed | x) of the noisy labels; the
+//! rows to use come as an index list so that bootstrap resamples need no copies.
+
+use ndarray::{Array2, ArrayView2};
+use serde::{Deserialize, Serialize};
+
+use super::joint::{fit_joint, JointFit, JointParams, DEFAULT_VOLUME_SCALE};
+use super::matrix::{normalize_rows, validate};
+use crate::data::origin::Origin;
+use crate::error::{Error, Result};
+
+mod anchors;
+mod counting;
+#[cfg(test)]
+mod tests;
+mod trusted;
+
+use self::anchors::{anchor, quantile};
+pub use self::anchors::{column_quantiles, quantile_higher};
+use self::counting::counting;
+use self::trusted::trusted;
+
+/// The quantile the quantile estimator uses unless told otherwise (command line and app).
+pub const DEFAULT_QUANTILE: f64 = 0.97;
+
+/// Rows per parallel work item in the row passes.
+const CHUNK_ROWS: usize = 16_384;
+
+/// The estimator a user picks: the command line's `--method`, a session's `estimator` and
+/// the app's picker all list these values. [`Method`] is the same choice with its settings.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, clap::ValueEnum, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Estimator {
+    /// T and a clean classifier fitted together (maximum likelihood, minimum volume),
+    /// started from counting.
+    #[default]
+    Joint,
+    /// Anchor rows just below the q-quantile of each class's probability.
+    Quantile,
+    /// The highest-probability row of each class.
+    Anchor,
+    /// Mean probabilities of the rows with a randomly audited trusted label.
+    Trusted,
+    /// Confident counting with per-class thresholds.
+    Counting,
+}
+
+/// What the trusted estimator does for classes without randomly audited rows.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, clap::ValueEnum, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum TrustedFallback {
+    /// Stop with an error naming the classes.
+    #[default]
+    None,
+    /// Estimate those classes with the quantile estimator (and say so in a note).
+    Quantile,
+}
+
+/// The settings an [`Estimator`] may read; each ignores the ones it does not use.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct EstimatorSettings {
+    /// Quantile of the quantile estimator and of the trusted estimator's fallback.
+    pub quantile: f64,
+    /// The trusted estimator's fallback.
+    pub fallback: TrustedFallback,
+    /// λ of the joint fit; `None` for its default.
+    pub volume_weight: Option<f64>,
+}
+
+impl Default for EstimatorSettings {
+    fn default() -> Self {
+        EstimatorSettings {
+            quantile: DEFAULT_QUANTILE,
+            fallback: TrustedFallback::None,
+            volume_weight: None,
+        }
+    }
+}
+
+impl Estimator {
+    /// The name used on the command line, in files and in the app.
+    pub fn name(self) -> &'static str {
+        match self {
+            Estimator::Anchor => "anchor",
+            Estimator::Quantile => "quantile",
+            Estimator::Trusted => "trusted",
+            Estimator::Counting => "counting",
+            Estimator::Joint => "joint",
+        }
+    }
+
+    /// Every estimator, in the order pickers list them.
+    pub fn all() -> &'static [Estimator] {
+        <Estimator as clap::ValueEnum>::value_variants()
+    }
+
+    /// True when `quantile` matters to this estimator.
+    pub fn uses_quantile(self) -> bool {
+        matches!(self, Estimator::Quantile | Estimator::Trusted)
+    }
+
+    /// The estimator with its settings.
+    pub fn with(self, settings: &EstimatorSettings) -> Method {
+        match self {
+            Estimator::Quantile => Method::Quantile {
+                q: settings.quantile,
+            },
+            Estimator::Anchor => Method::Anchor,
+            Estimator::Trusted => Method::Trusted {
+                fallback_quantile: (settings.fallback == TrustedFallback::Quantile)
+                    .then_some(settings.quantile),
+            },
+            Estimator::Counting => Method::Counting,
+            Estimator::Joint => Method::Joint {
+                volume_weight: settings.volume_weight,
+            },
+        }
+    }
+}
+
+/// An estimator with its settings, as the library runs it.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Method {
+    /// Patrini et al. (CVPR 2017): the row with the highest p(observed = i | x) is taken
+    /// as an anchor point of class i, and its probability vector becomes T[i].
+    Anchor,
+    /// The same, but the anchor of class i is the row with the largest p(observed = i | x)
+    /// strictly below that column's q-quantile (numpy's "higher" interpolation), the
+    /// robust choice used in Patrini et al.'s experiments.
+    Quantile {
+        /// The quantile, in (0, 1]. Default 0.97.
+        q: f64,
+    },
+    /// Hendrycks et al. (NeurIPS 2018): T[i] = mean probability vector over the rows
+    /// whose trusted label is i.
+    Trusted {
+        /// Estimate classes without trusted rows by `Quantile { q }` instead of failing.
+        fallback_quantile: Option<f64>,
+    },
+    /// Northcutt et al. (JAIR 2021), confident counting: per-class thresholds, the
+    /// confident joint, calibration to the observed class counts, then conditioned on
+    /// the true class.
+    Counting,
+    /// Maximum likelihood of T and a clean classifier together under the forward model,
+    /// with a minimum-volume penalty (Li et al., ICML 2021), started from the counting
+    /// estimate ([`super::joint`]). Audited rows add their known clean class.
+    Joint {
+        /// λ, the weight of ln det T; `None` for [`DEFAULT_VOLUME_SCALE`] / K.
+        volume_weight: Option<f64>,
+    },
+}
+
+impl Method {
+    /// Which estimator this is.
+    pub fn estimator(&self) -> Estimator {
+        match self {
+            Method::Anchor => Estimator::Anchor,
+            Method::Quantile { .. } => Estimator::Quantile,
+            Method::Trusted { .. } => Estimator::Trusted,
+            Method::Counting => Estimator::Counting,
+            Method::Joint { .. } => Estimator::Joint,
+        }
+    }
+
+    /// The name used on the command line and in JSON.
+    pub fn name(&self) -> &'static str {
+        self.estimator().name()
+    }
+
+    /// Refuses a quantile outside (0, 1] and joint-fit settings that cannot work.
+    pub fn check(&self) -> Result<()> {
+        match self {
+            Method::Quantile { q }
+            | Method::Trusted {
+                fallback_quantile: Some(q),
+            } if !(*q > 0.0 && *q <= 1.0) => Err(Error::Usage(format!(
+                "the quantile must lie in (0, 1], not {q}"
+            ))),
+            Method::Joint {
+                volume_weight: Some(volume_weight),
+            } => JointParams {
+                volume_weight: *volume_weight,
+                ..JointParams::default()
+            }
+            .check(),
+            _ => Ok(()),
+        }
+    }
+}
+
+/// The rows an estimator sees.
+#[derive(Debug, Clone, Copy)]
+pub struct Sample<'a> {
+    /// `rows × classes` out-of-sample probabilities of the observed label.
+    pub probs: ArrayView2<'a, f32>,
+    /// Observed label of every row.
+    pub labels: &'a [usize],
+    /// Trusted label of every row, where audited.
+    pub trusted: Option<&'a [Option<usize>]>,
+    /// How each trusted label was obtained (`None`: every one by a random audit). The
+    /// trusted estimator averages only random audits; the joint fit uses every one.
+    pub origins: Option<&'a [Origin]>,
+    /// Which rows to use (repeats allowed, as in a bootstrap resample).
+    pub rows: &'a [usize],
+}
+
+impl Sample<'_> {
+    /// True when row `r`'s trusted label (if any) came from a random audit.
+    pub fn at_random(&self, r: usize) -> bool {
+        self.origins.is_none_or(|o| o[r].is_random_sample())
+    }
+}
+
+/// An estimated matrix and what the user should know about it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Estimate {
+    /// The row-stochastic flip matrix.
+    pub matrix: Array2<f64>,
+    /// The clean posterior q(x) of every row, for estimators that fit one (joint): the
+    /// scores then use it instead of inverting T.
+    pub clean: Option<Array2<f32>>,
+    /// Notes such as fallbacks taken.
+    pub notes: Vec<String>,
+}
+
+/// Runs `method` on `sample`; `classes` names the classes in messages.
+pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<Estimate> {
+    method.check()?;
+    if sample.rows.is_empty() {
+        return Err(Error::Usage(
+            "no rows to estimate the flip matrix from".into(),
+        ));
+    }
+    let mut notes = Vec::new();
+    let mut clean = None;
+    let mut matrix = match method {
+        Method::Anchor => anchor(sample),
+        Method::Quantile { q } => quantile(sample, *q, classes, &mut notes),
+        Method::Trusted { fallback_quantile } => {
+            trusted(sample, *fallback_quantile, classes, &mut notes)?
+        }
+        Method::Counting => counting(sample, classes, &mut notes),
+        Method::Joint { volume_weight } => {
+            let fit = joint(sample, *volume_weight, classes, &mut notes)?;
+            clean = Some(fit.clean);
+            fit.matrix
+        }
+    };
+    normalize_rows(&mut matrix);
+    validate(&matrix).map_err(|e| Error::Internal(format!("{} estimator: {e}", method.name())))?;
+    Ok(Estimate {
+        matrix,
+        clean,
+        notes,
+    })
+}
+
+/// The joint fit started from the counting estimate, with λ = its default over K unless
+/// given.
+fn joint(
+    sample: &Sample,
+    volume_weight: Option<f64>,
+    classes: &[String],
+    notes: &mut Vec<String>,
+) -> Result<JointFit> {
+    let volume_weight =
+        volume_weight.unwrap_or(DEFAULT_VOLUME_SCALE / sample.probs.ncols().max(1) as f64);
+    let start = counting(sample, classes, notes);
+    let params = JointParams {
+        volume_weight,
+        ..JointParams::default()
+    };
+    let fit = fit_joint(sample, &start, &params, &mut |_| true)?;
+    if !fit.converged {
+        notes.push(format!(
+            "the joint fit stopped at its iteration limit ({} iterations)",
+            fit.iterations
+        ));
+    }
+    Ok(fit)
+}
