@@ -192,7 +192,6 @@ fn render(
     let (estimate, interval) = (&found.estimate, found.interval.as_ref());
     let mut t = String::new();
     let d = &estimate.diagnostics;
-    let k = data.classes.len();
     let _ = writeln!(
         t,
         "flip matrix: {}; probabilities: {}",
@@ -215,6 +214,39 @@ fn render(
              control rows (joint uses all; trusted uses random audits only)"
         );
     }
+    matrix_table(&mut t, data, &estimate.matrix);
+    class_table(&mut t, data, d, interval);
+    let _ = writeln!(
+        t,
+        "\nexpected mislabelled rows: {:.1} of {} ({:.1}%)",
+        d.expected_mislabeled,
+        data.rows(),
+        100.0 * d.expected_mislabeled_share
+    );
+    let _ = writeln!(
+        t,
+        "condition number of T (1-norm): {:.3}",
+        d.condition_number
+    );
+    let _ = writeln!(
+        t,
+        "calibration error against observed labels (ECE, 15 bins): {:.4}",
+        d.calibration_error
+    );
+    for w in &found.warnings {
+        let _ = writeln!(t, "warning: {w}");
+    }
+    let _ = writeln!(
+        t,
+        "\nThese figures are estimates for qualified human review, not corrections; where labels concern health, \
+         safety or people, follow your local rules and licensed practice."
+    );
+    t
+}
+
+/// T as a table, rows = true class.
+fn matrix_table(t: &mut String, data: &Dataset, matrix: &ndarray::Array2<f64>) {
+    let k = data.classes.len();
     let _ = writeln!(
         t,
         "rows = true class, columns = observed label, T[i][j] = P(observed j | true i)\n"
@@ -232,10 +264,24 @@ fn render(
     for i in 0..k {
         let _ = write!(t, "{:<name_width$}", data.classes[i]);
         for j in 0..k {
-            let _ = write!(t, "  {:>cell$.3}", estimate.matrix[[i, j]]);
+            let _ = write!(t, "  {:>cell$.3}", matrix[[i, j]]);
         }
         let _ = writeln!(t);
     }
+}
+
+/// Noise rate, observed and clean share of each class, with the noise interval.
+fn class_table(
+    t: &mut String,
+    data: &Dataset,
+    d: &crate::noise::Diagnostics,
+    interval: Option<&crate::noise::bootstrap::Interval>,
+) {
+    let k = data.classes.len();
+    let name_width = super::name_width(
+        data.classes.iter().map(String::as_str),
+        "true \\ observed".len(),
+    );
     let _ = writeln!(
         t,
         "\n{:<name_width$}  {:>7}  {:>9}  {:>7}{}",
@@ -266,30 +312,4 @@ fn render(
             100.0 * d.clean_prior[i]
         );
     }
-    let _ = writeln!(
-        t,
-        "\nexpected mislabelled rows: {:.1} of {} ({:.1}%)",
-        d.expected_mislabeled,
-        data.rows(),
-        100.0 * d.expected_mislabeled_share
-    );
-    let _ = writeln!(
-        t,
-        "condition number of T (1-norm): {:.3}",
-        d.condition_number
-    );
-    let _ = writeln!(
-        t,
-        "calibration error against observed labels (ECE, 15 bins): {:.4}",
-        d.calibration_error
-    );
-    for w in &found.warnings {
-        let _ = writeln!(t, "warning: {w}");
-    }
-    let _ = writeln!(
-        t,
-        "\nThese figures are estimates for qualified human review, not corrections; where labels concern health, \
-         safety or people, follow your local rules and licensed practice."
-    );
-    t
 }

@@ -318,6 +318,32 @@ fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScor
         }
     }
     let width = super::name_width(data.classes.iter().map(String::as_str), "observed".len());
+    per_class_table(&mut t, r, width);
+    head_of_list(&mut t, kind, data, listed, width);
+    if let Some(truth) = &r.truth {
+        let auc = truth.auroc.map_or("n/a".into(), |a| format!("{a:.4}"));
+        let precision = truth
+            .precision_at_n
+            .map_or("n/a".into(), |p| format!("{p:.4}"));
+        let _ = writeln!(
+            t,
+            "\nagainst '{}' ({} flipped rows): AUROC {auc}, precision at {} {precision}",
+            truth.truth_column, truth.flipped_rows, truth.n
+        );
+    }
+    for w in &r.warnings {
+        let _ = writeln!(t, "warning: {w}");
+    }
+    let _ = writeln!(
+        t,
+        "\nThese are estimates to guide qualified human review, not automatic corrections: send the rows to \
+         reviewers, and where labels concern health, safety or people follow your local rules and licensed practice."
+    );
+    t
+}
+
+/// Listed rows and expected errors per observed class.
+fn per_class_table(t: &mut String, r: &SuspectsReport, width: usize) {
     let _ = writeln!(
         t,
         "\n{:<width$}  {:>7}  {:>15}",
@@ -329,6 +355,16 @@ fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScor
             .map_or("-".to_string(), |e| format!("{e:.1}"));
         let _ = writeln!(t, "{:<width$}  {:>7}  {:>15}", c.class, c.listed, e);
     }
+}
+
+/// The first ten listed rows.
+fn head_of_list(
+    t: &mut String,
+    kind: ScoreKind,
+    data: &Dataset,
+    listed: &[RowScore],
+    width: usize,
+) {
     if !listed.is_empty() {
         let _ = writeln!(
             t,
@@ -360,24 +396,4 @@ fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScor
             let _ = writeln!(t, "  … {} more (see --out)", listed.len() - 10);
         }
     }
-    if let Some(truth) = &r.truth {
-        let auc = truth.auroc.map_or("n/a".into(), |a| format!("{a:.4}"));
-        let precision = truth
-            .precision_at_n
-            .map_or("n/a".into(), |p| format!("{p:.4}"));
-        let _ = writeln!(
-            t,
-            "\nagainst '{}' ({} flipped rows): AUROC {auc}, precision at {} {precision}",
-            truth.truth_column, truth.flipped_rows, truth.n
-        );
-    }
-    for w in &r.warnings {
-        let _ = writeln!(t, "warning: {w}");
-    }
-    let _ = writeln!(
-        t,
-        "\nThese are estimates to guide qualified human review, not automatic corrections: send the rows to \
-         reviewers, and where labels concern health, safety or people follow your local rules and licensed practice."
-    );
-    t
 }

@@ -18,7 +18,7 @@ use crate::learn::metrics::{
     accuracy, accuracy_interval, confusion, estimated_clean_accuracy, paired_gain, recall,
 };
 use crate::learn::train::{predict_classes, train, Correction, TrainInputs};
-use crate::learn::{out_of_fold, OofParams, SoftmaxModel};
+use crate::learn::{out_of_fold, OofParams, SoftmaxModel, SoftmaxParams};
 use crate::noise::{estimate, Method, Sample};
 use crate::timing::Stages;
 
@@ -137,6 +137,19 @@ pub struct CompareSettings {
     pub corrections: Vec<Correction>,
 }
 
+impl CompareSettings {
+    /// Refuses a holdout share that leaves no rows on one side.
+    pub fn check(&self) -> Result<()> {
+        if !(self.holdout > 0.0 && self.holdout < 1.0) {
+            return Err(Error::Usage(format!(
+                "the holdout share must lie strictly between 0 and 1, not {}",
+                self.holdout
+            )));
+        }
+        Ok(())
+    }
+}
+
 /// Runs the comparison. `progress` hears (step, steps) before each fit and may return
 /// false to stop; `cancel` also stops a fit in the middle.
 pub fn compare(
@@ -145,92 +158,150 @@ pub fn compare(
     cancel: Option<&AtomicBool>,
     progress: &mut dyn FnMut(usize, usize) -> bool,
 ) -> Result<Comparison> {
-    if !(settings.holdout > 0.0 && settings.holdout < 1.0) {
-        return Err(Error::Usage(format!(
-            "the holdout share must lie strictly between 0 and 1, not {}",
-            settings.holdout
-        )));
-    }
+    settings.check()?;
     let mut stages = Stages::start();
     let data = inputs.data;
     let k = data.classes.len();
     let corrections = corrections_none_first(&settings.corrections);
-    let needs_oof = inputs.probs.is_none();
-    let steps = corrections.len() + if needs_oof { settings.fit.folds } else { 0 };
+    let folds_steps = if inputs.probs.is_none() {
+        settings.fit.folds
+    } else {
+        0
+    };
+    let steps = corrections.len() + folds_steps;
     let (train_rows, holdout_rows) =
         stratified_holdout(&data.labels, k, settings.holdout, settings.fit.seed);
     let part = Part::new(data, &train_rows);
     stages.end("split");
-    let probs = match inputs.probs {
-        Some(p) => p.values.select(Axis(0), &train_rows),
-        None => {
-            out_of_fold(
-                part.x.view(),
-                &part.labels,
-                k,
-                &settings.fit,
-                &mut |f, _| progress(f, steps) && !cancelled(cancel),
-            )?
-            .0
-        }
-    };
+    let probs = training_probabilities(&inputs, &part, &train_rows, settings, &mut |f| {
+        progress(f, steps) && !cancelled(cancel)
+    })?;
     stages.end("probabilities");
     let (matrix, matrix_warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
     let mut warnings = data.warnings.clone();
     warnings.extend(inputs.probs.iter().flat_map(|p| p.notices.iter().cloned()));
     warnings.extend(matrix_warnings);
     stages.end("matrix");
-    let x_hold = data.features.select(Axis(0), &holdout_rows);
-    let observed_hold: Vec<usize> = holdout_rows.iter().map(|&r| data.labels[r]).collect();
-    let trusted_hold = trusted_pairs(data, &holdout_rows);
-    let all_rows: Vec<usize> = (0..part.labels.len()).collect();
+    let trainer = Trainer {
+        part: &part,
+        probs: &probs,
+        matrix: &matrix,
+        x_hold: data.features.select(Axis(0), &holdout_rows),
+        test: inputs.test.map(|(x, _)| x),
+        model: &settings.fit.model,
+        cancel,
+    };
     let mut fits: Vec<Fit> = Vec::new();
     for (i, &correction) in corrections.iter().enumerate() {
-        let first = if needs_oof { settings.fit.folds } else { 0 };
-        if !progress(first + i, steps) || cancelled(cancel) {
+        if !progress(folds_steps + i, steps) || cancelled(cancel) {
             return Err(Error::Cancelled);
         }
-        let start = warm_start(&fits, correction);
-        let trained = train(
+        let (fit, fit_warnings) = trainer.fit(correction, warm_start(&fits, correction))?;
+        stages.end(format!("fit_{}", correction.name()));
+        warnings.extend(fit_warnings);
+        fits.push(fit);
+    }
+    progress(steps, steps);
+    let split = (train_rows, holdout_rows);
+    Ok(evaluate(&inputs, split, &matrix, fits, warnings, stages))
+}
+
+/// The out-of-sample probabilities of the training rows: the given ones, or computed by
+/// cross-validation on those rows alone (`fold_done` hears each fold and may stop).
+fn training_probabilities(
+    inputs: &CompareInputs,
+    part: &Part,
+    train_rows: &[usize],
+    settings: &CompareSettings,
+    fold_done: &mut dyn FnMut(usize) -> bool,
+) -> Result<Array2<f32>> {
+    match inputs.probs {
+        Some(p) => Ok(p.values.select(Axis(0), train_rows)),
+        None => Ok(out_of_fold(
             part.x.view(),
-            &all_rows,
             &part.labels,
-            k,
+            inputs.data.classes.len(),
+            &settings.fit,
+            &mut |f, _| fold_done(f),
+        )?
+        .0),
+    }
+}
+
+/// What every correction's fit shares.
+struct Trainer<'a> {
+    part: &'a Part,
+    probs: &'a Array2<f32>,
+    matrix: &'a Array2<f64>,
+    x_hold: Array2<f64>,
+    test: Option<&'a Array2<f64>>,
+    model: &'a SoftmaxParams,
+    cancel: Option<&'a AtomicBool>,
+}
+
+impl Trainer<'_> {
+    /// Trains `correction` on every training row (from `start` when given) and predicts
+    /// the holdout and the test table; the fit's warnings come named by the correction.
+    fn fit(
+        &self,
+        correction: Correction,
+        start: Option<&SoftmaxModel>,
+    ) -> Result<(Fit, Vec<String>)> {
+        let all_rows: Vec<usize> = (0..self.part.labels.len()).collect();
+        let trained = train(
+            self.part.x.view(),
+            &all_rows,
+            &self.part.labels,
+            self.matrix.nrows(),
             correction,
             TrainInputs {
-                matrix: Some(&matrix),
-                probs: Some(probs.view()),
+                matrix: Some(self.matrix),
+                probs: Some(self.probs.view()),
                 start,
-                cancel,
+                cancel: self.cancel,
             },
-            &settings.fit.model,
+            self.model,
         )?;
         let name = correction.name();
-        stages.end(format!("fit_{name}"));
-        warnings.extend(trained.warnings.iter().map(|w| format!("{name}: {w}")));
-        let hold = predict_classes(&trained.model.predict_proba(x_hold.view(), None));
-        let test = inputs
-            .test
-            .map(|(x, _)| predict_classes(&trained.model.predict_proba(x.view(), None)));
-        fits.push(Fit {
+        let warnings = trained
+            .warnings
+            .iter()
+            .map(|w| format!("{name}: {w}"))
+            .collect();
+        let predict =
+            |x: &Array2<f64>| predict_classes(&trained.model.predict_proba(x.view(), None));
+        let fit = Fit {
             correction,
-            model: trained.model,
+            hold: predict(&self.x_hold),
+            test: self.test.map(predict),
             summary: FitSummary {
                 objective: trained.report.objective,
                 iterations: trained.report.iterations,
                 converged: trained.report.converged,
                 dropped_rows: trained.dropped.len(),
             },
-            hold,
-            test,
-        });
-        stages.end("predict");
+            model: trained.model,
+        };
+        Ok((fit, warnings))
     }
-    progress(steps, steps);
+}
+
+/// Every fit measured against the holdout (and the test table), and the comparison.
+fn evaluate(
+    inputs: &CompareInputs,
+    (train_rows, holdout_rows): (Vec<usize>, Vec<usize>),
+    matrix: &Array2<f64>,
+    fits: Vec<Fit>,
+    mut warnings: Vec<String>,
+    mut stages: Stages,
+) -> Comparison {
+    let data = inputs.data;
+    let observed_hold: Vec<usize> = holdout_rows.iter().map(|&r| data.labels[r]).collect();
+    let trusted_hold = trusted_pairs(data, &holdout_rows);
     let reference = Reference::choose(inputs.test, &trusted_hold, &observed_hold);
     if fits
         .iter()
-        .any(|f| estimated_clean_accuracy(&f.hold, &observed_hold, &matrix).is_none())
+        .any(|f| estimated_clean_accuracy(&f.hold, &observed_hold, matrix).is_none())
     {
         warnings.push(
             "the estimated clean accuracy is missing where trace(N·T⁻¹) fell outside [0, 1]: the flip matrix does not \
@@ -244,10 +315,10 @@ pub fn compare(
         trusted: &trusted_hold,
         test: inputs.test.map(|(_, l)| l),
         reference: &reference,
-        matrix: &matrix,
+        matrix,
         none: &fits[0].hold,
         none_test: fits[0].test.as_deref(),
-        classes: k,
+        classes: data.classes.len(),
     };
     let reports = fits.iter().map(|f| eval.report(f)).collect();
     stages.end("evaluate");
@@ -260,7 +331,7 @@ pub fn compare(
         holdout_rows: holdout_rows.len(),
         warnings,
     };
-    Ok(Comparison {
+    Comparison {
         report,
         predictions: fits.iter().map(|f| f.hold.clone()).collect(),
         fits: fits.iter().map(|f| f.summary).collect(),
@@ -268,7 +339,7 @@ pub fn compare(
         models: fits.into_iter().map(|f| (f.correction, f.model)).collect(),
         holdout: holdout_rows,
         stages,
-    })
+    }
 }
 
 /// Where a fit starts: the corrected fits from a model already trained on the same rows

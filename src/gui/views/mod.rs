@@ -49,59 +49,8 @@ fn menu_bar(
     out: &mut Vec<Command>,
 ) {
     egui::MenuBar::new().ui(ui, |ui| {
-        ui.menu_button("File", |ui| {
-            if ui.button("Open data…  (Ctrl+O)").clicked() {
-                view.dialog_requests.push(Purpose::OpenData);
-            }
-            if ui.button("Open session…").clicked() {
-                view.dialog_requests.push(Purpose::OpenSession);
-            }
-            let save = ui.add_enabled(
-                state.session_path().is_some(),
-                egui::Button::new("Save session  (Ctrl+S)"),
-            );
-            if save.clicked() {
-                out.push(Command::SaveSession(None));
-            }
-            if ui.button("Save session as…").clicked() {
-                view.dialog_requests.push(Purpose::SaveSession);
-            }
-            ui.menu_button("Recent", |ui| {
-                if persisted.recent.is_empty() {
-                    ui.label("nothing yet");
-                }
-                for path in &persisted.recent {
-                    if ui.button(path.display().to_string()).clicked() {
-                        out.push(Command::open(path));
-                    }
-                }
-            });
-            ui.separator();
-            if ui.button("Quit").clicked() {
-                ui.ctx().send_viewport_cmd(egui::ViewportCommand::Close);
-            }
-        });
-        ui.menu_button("Edit", |ui| {
-            let editor = state.editor();
-            if ui
-                .add_enabled(
-                    editor.is_some_and(|e| e.can_undo()),
-                    egui::Button::new("Undo  (Ctrl+Z)"),
-                )
-                .clicked()
-            {
-                out.push(Command::Undo);
-            }
-            if ui
-                .add_enabled(
-                    editor.is_some_and(|e| e.can_redo()),
-                    egui::Button::new("Redo  (Ctrl+Shift+Z)"),
-                )
-                .clicked()
-            {
-                out.push(Command::Redo);
-            }
-        });
+        ui.menu_button("File", |ui| file_menu(ui, state, view, persisted, out));
+        ui.menu_button("Edit", |ui| edit_menu(ui, state, out));
         ui.separator();
         for v in View::ALL {
             if ui.selectable_label(view.view() == v, v.title()).clicked() {
@@ -123,6 +72,69 @@ fn menu_bar(
             }
         });
     });
+}
+
+/// Opening and saving data and sessions, the recent files, quitting.
+fn file_menu(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    view: &mut UiState,
+    persisted: &Persisted,
+    out: &mut Vec<Command>,
+) {
+    if ui.button("Open data…  (Ctrl+O)").clicked() {
+        view.dialog_requests.push(Purpose::OpenData);
+    }
+    if ui.button("Open session…").clicked() {
+        view.dialog_requests.push(Purpose::OpenSession);
+    }
+    let save = ui.add_enabled(
+        state.session_path().is_some(),
+        egui::Button::new("Save session  (Ctrl+S)"),
+    );
+    if save.clicked() {
+        out.push(Command::SaveSession(None));
+    }
+    if ui.button("Save session as…").clicked() {
+        view.dialog_requests.push(Purpose::SaveSession);
+    }
+    ui.menu_button("Recent", |ui| {
+        if persisted.recent.is_empty() {
+            ui.label("nothing yet");
+        }
+        for path in &persisted.recent {
+            if ui.button(path.display().to_string()).clicked() {
+                out.push(Command::open(path));
+            }
+        }
+    });
+    ui.separator();
+    if ui.button("Quit").clicked() {
+        ui.ctx().send_viewport_cmd(egui::ViewportCommand::Close);
+    }
+}
+
+/// Undo and redo of matrix edits.
+fn edit_menu(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
+    let editor = state.editor();
+    if ui
+        .add_enabled(
+            editor.is_some_and(|e| e.can_undo()),
+            egui::Button::new("Undo  (Ctrl+Z)"),
+        )
+        .clicked()
+    {
+        out.push(Command::Undo);
+    }
+    if ui
+        .add_enabled(
+            editor.is_some_and(|e| e.can_redo()),
+            egui::Button::new("Redo  (Ctrl+Shift+Z)"),
+        )
+        .clicked()
+    {
+        out.push(Command::Redo);
+    }
 }
 
 fn messages(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
