@@ -4,6 +4,7 @@
 use rustc_hash::FxHashMap as HashMap;
 
 use crate::error::{shorten, Problem};
+use crate::io::csv_source::CsvFormat;
 
 use super::origin::Origin;
 use super::roles::ColumnPlan;
@@ -112,11 +113,7 @@ fn parse_plain(block: &[u8], delimiter: u8, parser: &mut BlockParser) -> Result<
 }
 
 fn parse_quoted(block: &[u8], delimiter: u8, parser: &mut BlockParser) -> Result<(), Fatal> {
-    let mut reader = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .delimiter(delimiter)
-        .from_reader(block);
+    let mut reader = CsvFormat { delimiter }.slice_reader(block);
     let mut record = csv::ByteRecord::new();
     let mut lines = LineCounter::default();
     loop {

@@ -16,6 +16,7 @@ use rayon::prelude::*;
 use super::npy::{self, Dtype};
 use super::table::Dataset;
 use crate::error::{shorten, Error, Location, Problem, Result};
+use crate::io::csv_source::CsvFormat;
 
 /// Largest allowed distance of a row sum from 1 before the row is refused (or rescaled).
 pub const ROW_SUM_TOLERANCE: f64 = 1e-3;
@@ -450,18 +451,7 @@ fn read_csv<'a, R: Read>(
     data: &Dataset,
     options: &ProbOptions,
 ) -> Result<Loaded<'a>> {
-    let delimiter = options
-        .delimiter
-        .unwrap_or(if path.extension().is_some_and(|e| e == "tsv") {
-            b'\t'
-        } else {
-            b','
-        });
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .delimiter(delimiter)
-        .from_reader(reader);
+    let mut rdr = CsvFormat::for_path(path, options.delimiter).reader(reader);
     let mut record = csv::ByteRecord::new();
     let syntax = crate::error::csv_syntax(path);
     if !rdr.read_byte_record(&mut record).map_err(syntax)? {
@@ -469,12 +459,7 @@ fn read_csv<'a, R: Read>(
     }
     let header: Vec<String> = record
         .iter()
-        .map(|c| {
-            String::from_utf8_lossy(c)
-                .trim()
-                .trim_start_matches('\u{feff}')
-                .to_string()
-        })
+        .map(|c| String::from_utf8_lossy(c).trim().to_string())
         .collect();
     let columns = csv_columns(path, &header, data)?;
     let ids = columns.id_field.map(|_| id_index(data));

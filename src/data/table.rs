@@ -16,6 +16,7 @@ use super::natural::natural_cmp;
 use super::origin::Origin;
 use super::roles::{ColumnPlan, TableOptions};
 use crate::error::{Error, Location, Problem, Result};
+use crate::io::csv_source::{strip_bom, CsvFormat};
 
 /// Target size of one parsed block. Large enough to amortise thread hand-off, small
 /// enough that a batch of blocks is a few tens of MiB at most.
@@ -345,12 +346,11 @@ impl<'a> Loader<'a> {
 
     /// Reads the header from the first block and returns the plan and the rest of it.
     fn header(&mut self, first: &[u8]) -> Result<(ColumnPlan, Vec<u8>)> {
-        let first = first.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(first);
-        let mut reader = csv::ReaderBuilder::new()
-            .has_headers(false)
-            .flexible(true)
-            .delimiter(self.delimiter)
-            .from_reader(first);
+        let first = strip_bom(first);
+        let mut reader = CsvFormat {
+            delimiter: self.delimiter,
+        }
+        .slice_reader(first);
         let mut record = csv::ByteRecord::new();
         match reader.read_byte_record(&mut record) {
             Ok(true) => {}

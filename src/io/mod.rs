@@ -1,6 +1,8 @@
-//! Writing outputs safely (atomically, and never over one of the command's inputs), and
-//! the worklist files exchanged with annotators.
+//! Writing outputs safely (atomically, and never over one of the command's inputs), the
+//! file formats flipmend reads and writes, and the worklist files exchanged with
+//! annotators.
 
+pub mod csv_source;
 pub mod model;
 pub mod review;
 pub mod session;

@@ -7,6 +7,7 @@ use std::path::Path;
 use ndarray::Array2;
 
 use crate::error::{shorten, Error, Location, Problem, Result};
+use crate::io::csv_source::CsvFormat;
 
 /// Row sums of a matrix file may differ from 1 by at most this.
 pub const MATRIX_ROW_TOLERANCE: f64 = 1e-6;
@@ -54,11 +55,8 @@ pub fn load_matrix_csv(
     classes: &[String],
     renormalize: bool,
 ) -> Result<(Array2<f64>, Vec<String>)> {
-    let file = std::fs::File::open(path).map_err(|source| Error::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
-    read_matrix_csv(std::io::BufReader::new(file), path, classes, renormalize)
+    let file = crate::io::csv_source::open(path)?;
+    read_matrix_csv(file, path, classes, renormalize)
 }
 
 /// Reads a matrix CSV for the classes `classes` (rows and columns may come in any
@@ -69,10 +67,7 @@ pub fn read_matrix_csv<R: Read>(
     classes: &[String],
     renormalize: bool,
 ) -> Result<(Array2<f64>, Vec<String>)> {
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .from_reader(reader);
+    let mut rdr = CsvFormat::COMMA.reader(reader);
     let mut records = rdr.records();
     let syntax = crate::error::csv_syntax(path);
     let header = match records.next() {
