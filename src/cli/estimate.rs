@@ -11,10 +11,10 @@ use serde::Serialize;
 use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
+use crate::io::matrix_csv::write_matrix_csv;
 use crate::io::{check_not_input, write_atomic, write_json};
 use crate::noise::bootstrap::Interval;
 use crate::noise::diagnostics::ReliabilityBin;
-use crate::noise::matrix::write_matrix_csv;
 use crate::noise::Method;
 use crate::workflow::{self, FlipEstimate, MatrixSource, RowProbabilities};
 

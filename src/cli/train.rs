@@ -10,10 +10,10 @@ use ndarray::Array2;
 use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
+use crate::io::matrix_csv::load_matrix_csv;
 use crate::io::model::{write_model, FitSummary, ModelFile, Provenance, TrainingSettings};
 use crate::io::{check_not_input, write_atomic};
 use crate::learn::train::{train, Correction, TrainInputs, Trained};
-use crate::noise::matrix::load_matrix_csv;
 use crate::workflow::{self, MatrixSource};
 
 /// Flags of `flipmend train`.

@@ -13,10 +13,10 @@ use ndarray::Array2;
 
 use rayon::prelude::*;
 
-use super::npy::{self, Dtype};
 use super::table::Dataset;
 use crate::error::{shorten, Error, Location, Problem, Result};
 use crate::io::csv_source::CsvFormat;
+use crate::io::npy::{self, Dtype};
 
 /// Largest allowed distance of a row sum from 1 before the row is refused (or rescaled).
 pub const ROW_SUM_TOLERANCE: f64 = 1e-3;

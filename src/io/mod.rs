@@ -3,9 +3,12 @@
 //! annotators.
 
 pub mod csv_source;
+pub mod matrix_csv;
 pub mod model;
+pub mod npy;
 pub mod review;
 pub mod session;
+pub mod text_column;
 pub mod worklist;
 
 use std::fs::{self, File, OpenOptions};
