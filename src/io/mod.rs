@@ -6,6 +6,8 @@ pub mod csv_source;
 pub mod matrix_csv;
 pub mod model;
 pub mod npy;
+pub mod probs_csv;
+pub mod probs_npy;
 pub mod review;
 pub mod session;
 pub mod text_column;
