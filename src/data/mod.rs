@@ -1,7 +1,6 @@
 //! Tables, column roles, probabilities and their validation.
 
-mod blocks;
-mod chunk;
+mod assemble;
 pub mod natural;
 pub mod origin;
 pub mod probs;

@@ -2,14 +2,18 @@
 //! file formats flipmend reads and writes, and the worklist files exchanged with
 //! annotators.
 
+pub(crate) mod csv_blocks;
 pub mod csv_source;
 pub mod matrix_csv;
 pub mod model;
 pub mod npy;
+pub(crate) mod number;
 pub mod probs_csv;
 pub mod probs_npy;
 pub mod review;
 pub mod session;
+pub(crate) mod table_chunk;
+pub(crate) mod table_csv;
 pub mod text_column;
 pub mod worklist;
 
