@@ -10,8 +10,8 @@
 use std::io::Write;
 use std::path::Path;
 
-use flipmend::data::npy;
 use flipmend::data::{Dataset, ProbOptions, Probabilities, TableOptions};
+use flipmend::io::npy;
 
 mod common;
 

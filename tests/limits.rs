@@ -53,7 +53,7 @@ fn a_probability_file_of_the_right_size_with_the_wrong_content() {
     std::fs::write(&data, "x,label\n1,a\n2,b\n3,a\n").unwrap();
     // Right size for 3 × 2 float64, but the header says int64 and the data is text.
     let mut bytes = Vec::new();
-    flipmend::data::npy::write_2d(&mut bytes, 3, 2, &[0.5f64; 6]).unwrap();
+    flipmend::io::npy::write_2d(&mut bytes, 3, 2, &[0.5f64; 6]).unwrap();
     let at = bytes.windows(3).position(|w| w == b"<f8").unwrap();
     bytes[at..at + 3].copy_from_slice(b"<i8");
     let npy = dir.path("p.npy");
@@ -68,7 +68,7 @@ fn a_probability_file_of_the_right_size_with_the_wrong_content() {
     .assert_bad_input(&["holds '<i8'"]);
     // Right header, garbage values (NaN bit patterns).
     let mut nan = Vec::new();
-    flipmend::data::npy::write_2d(&mut nan, 3, 2, &[f64::NAN; 6]).unwrap();
+    flipmend::io::npy::write_2d(&mut nan, 3, 2, &[f64::NAN; 6]).unwrap();
     std::fs::write(&npy, &nan).unwrap();
     flipmend(&[
         "inspect",
@@ -203,7 +203,7 @@ fn a_probability_stream_shorter_than_its_header_says_is_refused() {
     )
     .unwrap();
     let mut npy = Vec::new();
-    flipmend::data::npy::write_2d(&mut npy, 3, 2, &[0.5f32, 0.5, 0.2, 0.8, 0.9, 0.1]).unwrap();
+    flipmend::io::npy::write_2d(&mut npy, 3, 2, &[0.5f32, 0.5, 0.2, 0.8, 0.9, 0.1]).unwrap();
     npy.truncate(npy.len() - 6);
     let error = flipmend::data::Probabilities::from_npy_reader(
         &npy[..],

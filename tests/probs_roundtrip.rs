@@ -2,8 +2,8 @@
 
 use std::path::Path;
 
-use flipmend::data::npy;
 use flipmend::data::{Dataset, ProbOptions, Probabilities, TableOptions};
+use flipmend::io::npy;
 
 #[test]
 fn csv_and_npy_round_trip_to_the_same_array() {

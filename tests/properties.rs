@@ -5,12 +5,13 @@
 use std::path::Path;
 
 use flipmend::data::{Dataset, ProbOptions, Probabilities, TableOptions};
+use flipmend::io::matrix_csv::{read_matrix_csv, write_matrix_csv};
 use flipmend::io::model::read_model;
 use flipmend::learn::loss::{Backward, Forward, DEFAULT_BACKWARD_CAP};
 use flipmend::learn::{CrossEntropy, RowLoss};
 use flipmend::noise::diagnostics::clean_prior;
 use flipmend::noise::linalg::inverse;
-use flipmend::noise::matrix::{read_matrix_csv, validate, write_matrix_csv};
+use flipmend::noise::matrix::validate;
 use flipmend::noise::posterior::Flip;
 use flipmend::noise::scores::{rank, score_rows, ScoreKind};
 use flipmend::noise::{estimate, Method, Sample};
@@ -192,7 +193,7 @@ proptest! {
         table.extend_from_slice(text.as_bytes());
         let _ = Dataset::from_reader(&table[..], Path::new("t.csv"), None, &TableOptions::default());
         let mut npy = Vec::new();
-        flipmend::data::npy::write_2d(&mut npy, 2, 2, &[0.5f32, 0.5, 0.5, 0.5]).unwrap();
+        flipmend::io::npy::write_2d(&mut npy, 2, 2, &[0.5f32, 0.5, 0.5, 0.5]).unwrap();
         let cut = bytes.len().min(npy.len());
         npy[..cut].copy_from_slice(&bytes[..cut]);
         let _ = Probabilities::from_npy_reader(&npy[..], Path::new("p.npy"), &good, &ProbOptions::default());

@@ -6,5 +6,5 @@ mod common;
 
 fuzz_target!(|data: &[u8]| {
     let d = common::dataset();
-    let _ = flipmend::noise::matrix::read_matrix_csv(data, Path::new("m.csv"), &d.classes, true);
+    let _ = flipmend::io::matrix_csv::read_matrix_csv(data, Path::new("m.csv"), &d.classes, true);
 });

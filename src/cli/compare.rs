@@ -10,8 +10,8 @@ use clap::Args;
 use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
+use crate::io::matrix_csv::load_matrix_csv;
 use crate::io::{check_not_input, write_json};
-use crate::noise::matrix::load_matrix_csv;
 use crate::timing::Stages;
 use crate::workflow::compare::{
     compare, load_test, CompareInputs, CompareReport, CompareSettings, MatrixChoice,

@@ -11,9 +11,10 @@ use serde::Serialize;
 use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
+use crate::io::matrix_csv::write_matrix_csv;
+use crate::io::probs_csv::write_probs_csv;
 use crate::io::{check_not_input, write_atomic, write_json};
 use crate::noise::diagnostics::ReliabilityBin;
-use crate::noise::matrix::write_matrix_csv;
 use crate::noise::Method;
 use crate::workflow::estimate::{estimate, EstimateParams, Estimated};
 use crate::workflow::{self, MatrixSource, RowProbabilities};
@@ -161,26 +162,6 @@ fn write_outputs(
         write_json(path, &report)?;
     }
     Ok(())
-}
-
-/// Probabilities as CSV: `id`, then one column per class (shortest round-trip text).
-pub fn write_probs_csv(
-    w: &mut dyn Write,
-    data: &Dataset,
-    probs: &Array2<f32>,
-) -> std::io::Result<()> {
-    let mut writer = csv::Writer::from_writer(w);
-    let mut header = vec!["id".to_string()];
-    header.extend(data.classes.iter().cloned());
-    writer.write_record(&header)?;
-    let mut record = Vec::with_capacity(header.len());
-    for (row, p) in probs.rows().into_iter().enumerate() {
-        record.clear();
-        record.push(data.id(row).into_owned());
-        record.extend(p.iter().map(|v| v.to_string()));
-        writer.write_record(&record)?;
-    }
-    writer.flush()
 }
 
 fn render(

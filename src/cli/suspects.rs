@@ -8,9 +8,9 @@ use clap::Args;
 use serde::Serialize;
 
 use super::args::PipelineArgs;
-use crate::data::text_column::read_text_column;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
+use crate::io::text_column::read_text_column;
 use crate::io::worklist::{key_path, write_worklist_files};
 use crate::io::{check_not_input, write_json};
 use crate::noise::scores::{auroc, RowScore, ScoreKind};

@@ -37,17 +37,7 @@ pub struct TableOptions {
 impl TableOptions {
     /// The delimiter for `path`: the explicit one, else tab for `.tsv`, else comma.
     pub fn delimiter_for(&self, path: &Path) -> u8 {
-        self.delimiter.unwrap_or_else(|| {
-            let tsv = path
-                .extension()
-                .and_then(|e| e.to_str())
-                .is_some_and(|e| e.eq_ignore_ascii_case("tsv"));
-            if tsv {
-                b'\t'
-            } else {
-                b','
-            }
-        })
+        crate::io::csv_source::delimiter_for(path, self.delimiter)
     }
 }
 

@@ -1,27 +1,19 @@
-//! The labelled table: features, observed labels, optional ids and trusted labels.
+//! The labelled table: features, observed labels, optional ids and trusted labels. Its
+//! CSV is read by [`crate::io::table_csv`] and checked into a [`Dataset`] by
+//! `data::assemble`.
 
-use rustc_hash::FxHashMap as HashMap;
 use std::borrow::Cow;
 use std::fs::File;
 use std::io::Read;
 use std::path::{Path, PathBuf};
-use std::sync::mpsc::{Receiver, Sender};
 
 use ndarray::Array2;
-use rayon::prelude::*;
 
-use super::blocks::{BlockError, Blocks};
-use super::chunk::{parse_block, ChunkOut, SlotStats, NONE};
-use super::natural::natural_cmp;
+use super::assemble::Assembly;
 use super::origin::Origin;
-use super::roles::{ColumnPlan, TableOptions};
-use crate::error::{Error, Location, Problem, Result};
-
-/// Target size of one parsed block. Large enough to amortise thread hand-off, small
-/// enough that a batch of blocks is a few tens of MiB at most.
-const BLOCK_BYTES: usize = 4 << 20;
-/// A single record larger than this is refused instead of growing memory without bound.
-const MAX_RECORD_BYTES: usize = 64 << 20;
+use super::roles::TableOptions;
+use crate::error::{Error, Result};
+use crate::io::table_csv::{read_table, BLOCK_BYTES};
 
 /// Strings stored back to back, so a million ids cost one allocation, not a million.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
@@ -47,7 +39,7 @@ impl StringColumn {
         self.ends.is_empty()
     }
 
-    fn append(&mut self, text: &str, ends: &[usize]) {
+    pub(crate) fn append(&mut self, text: &str, ends: &[usize]) {
         let base = self.text.len();
         self.text.push_str(text);
         self.ends.extend(ends.iter().map(|e| e + base));
@@ -131,7 +123,7 @@ impl Dataset {
         size_hint: Option<u64>,
         options: &TableOptions,
     ) -> Result<Self> {
-        Loader::new(path, options, size_hint, BLOCK_BYTES).run(reader)
+        read_in_blocks(reader, path, size_hint, options, BLOCK_BYTES)
     }
 
     /// Number of rows.
@@ -198,557 +190,16 @@ impl Dataset {
     }
 }
 
-/// Accumulates parsed blocks in file order.
-struct Loader<'a> {
-    path: &'a Path,
-    options: &'a TableOptions,
-    delimiter: u8,
+/// Reads the table in blocks of about `block_bytes` and makes the dataset of its cells.
+fn read_in_blocks<R: Read + Send>(
+    reader: R,
+    path: &Path,
     size_hint: Option<u64>,
+    options: &TableOptions,
     block_bytes: usize,
-    lines_done: u64,
-    rows: usize,
-    values: Vec<f64>,
-    labels: Vec<u32>,
-    trusted: Vec<u32>,
-    origins: Vec<Origin>,
-    names: Vec<String>,
-    codes: HashMap<String, u32>,
-    ids: StringColumn,
-    row_lines: Vec<u64>,
-    slots: Vec<SlotStats>,
-}
-
-impl<'a> Loader<'a> {
-    fn new(
-        path: &'a Path,
-        options: &'a TableOptions,
-        size_hint: Option<u64>,
-        block_bytes: usize,
-    ) -> Self {
-        Loader {
-            block_bytes,
-            path,
-            options,
-            delimiter: options.delimiter_for(path),
-            size_hint,
-            lines_done: 0,
-            rows: 0,
-            values: Vec::new(),
-            labels: Vec::new(),
-            trusted: Vec::new(),
-            origins: Vec::new(),
-            names: Vec::new(),
-            codes: HashMap::default(),
-            ids: StringColumn::default(),
-            row_lines: Vec::new(),
-            slots: Vec::new(),
-        }
-    }
-
-    /// Reads blocks on a helper thread while the blocks already read are parsed on the
-    /// rayon pool, and merges each batch while the next one parses: three stages that
-    /// overlap, so the one pass over the file keeps both cores busy.
-    fn run<R: Read + Send>(mut self, reader: R) -> Result<Dataset> {
-        let mut blocks = Blocks::new(reader, self.delimiter, self.block_bytes, MAX_RECORD_BYTES);
-        let Some(first) = self.next_block(&mut blocks)? else {
-            return Err(self.whole_file(Problem::Empty));
-        };
-        let (plan, first_data) = self.header(&first)?;
-        drop(first);
-        self.slots = vec![SlotStats::default(); plan.numeric.len()];
-        let per_batch = 2 * rayon::current_num_threads().max(1);
-        let (sender, receiver) = std::sync::mpsc::sync_channel(per_batch);
-        let (spare_sender, spares) = std::sync::mpsc::channel::<Vec<u8>>();
-        std::thread::scope(|scope| {
-            scope.spawn(move || {
-                while let Some(block) = blocks.next_block().transpose() {
-                    let stop = block.is_err();
-                    if sender.send(block).is_err() || stop {
-                        break;
-                    }
-                    spares.try_iter().for_each(|spare| blocks.recycle(spare));
-                }
-            });
-            self.parse_batches(&plan, first_data, &receiver, &spare_sender)
-        })?;
-        self.finish(plan)
-    }
-
-    fn parse_batches(
-        &mut self,
-        plan: &ColumnPlan,
-        first_data: Vec<u8>,
-        receiver: &Receiver<Result<Vec<u8>, BlockError>>,
-        spares: &Sender<Vec<u8>>,
-    ) -> Result<()> {
-        let per_batch = 2 * rayon::current_num_threads().max(1);
-        let delimiter = self.delimiter;
-        let mut batch = vec![first_data];
-        let mut parsed: Vec<ChunkOut> = Vec::new();
-        loop {
-            let mut ended = None;
-            while batch.len() < per_batch {
-                match receiver.recv() {
-                    Ok(Ok(block)) => batch.push(block),
-                    Ok(Err(e)) => {
-                        ended = Some(e);
-                        break;
-                    }
-                    Err(_) => break,
-                }
-            }
-            if batch.is_empty() && parsed.is_empty() {
-                return ended.map_or(Ok(()), |e| Err(self.block_error(e)));
-            }
-            let (outs, merged) = rayon::join(
-                || {
-                    batch
-                        .par_iter()
-                        .map(|b| parse_block(b, delimiter, plan))
-                        .collect::<Vec<_>>()
-                },
-                || parsed.drain(..).try_for_each(|out| self.absorb(out, plan)),
-            );
-            merged?;
-            for block in batch.drain(..) {
-                let _ = spares.send(block); // The reader may have finished; then the block is freed.
-            }
-            parsed = outs;
-            if let Some(e) = ended {
-                parsed
-                    .drain(..)
-                    .try_for_each(|out| self.absorb(out, plan))?;
-                return Err(self.block_error(e));
-            }
-        }
-    }
-
-    fn next_block<R: Read>(&self, blocks: &mut Blocks<R>) -> Result<Option<Vec<u8>>> {
-        blocks.next_block().map_err(|e| self.block_error(e))
-    }
-
-    fn block_error(&self, error: BlockError) -> Error {
-        match error {
-            BlockError::Io(source) => Error::Read {
-                path: self.path.to_path_buf(),
-                source,
-            },
-            BlockError::RecordTooLarge(limit) => {
-                let detail = format!(
-                    "a single row is longer than {} MiB (a quote that never closes?)",
-                    limit >> 20
-                );
-                self.at_line(self.lines_done + 1, Problem::Syntax { detail })
-            }
-        }
-    }
-
-    /// Reads the header from the first block and returns the plan and the rest of it.
-    fn header(&mut self, first: &[u8]) -> Result<(ColumnPlan, Vec<u8>)> {
-        let first = first.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(first);
-        let mut reader = csv::ReaderBuilder::new()
-            .has_headers(false)
-            .flexible(true)
-            .delimiter(self.delimiter)
-            .from_reader(first);
-        let mut record = csv::ByteRecord::new();
-        match reader.read_byte_record(&mut record) {
-            Ok(true) => {}
-            Ok(false) => return Err(self.whole_file(Problem::Empty)),
-            Err(e) => {
-                return Err(self.at_line(
-                    1,
-                    Problem::Syntax {
-                        detail: e.to_string(),
-                    },
-                ))
-            }
-        }
-        let mut header = Vec::with_capacity(record.len());
-        for (i, cell) in record.iter().enumerate() {
-            let name = std::str::from_utf8(cell).map_err(|_| {
-                Error::input(
-                    Location::line(self.path, 1).at_column(i, &format!("#{}", i + 1)),
-                    Problem::InvalidUtf8,
-                )
-            })?;
-            header.push(name.trim().to_string());
-        }
-        let plan = ColumnPlan::resolve(self.path, &header, self.options)?;
-        let next = reader.position().clone();
-        self.lines_done = next.line() - 1;
-        let rest = first[next.byte() as usize..].to_vec();
-        Ok((plan, rest))
-    }
-
-    fn absorb(&mut self, out: ChunkOut, plan: &ColumnPlan) -> Result<()> {
-        let base = self.lines_done;
-        if let Some((line, field, problem)) = out.fatal {
-            let mut location = Location::line(self.path, base + line);
-            if let Some(field) = field {
-                location = location.at_column(field, &plan.header[field]);
-            }
-            return Err(Error::input(location, problem));
-        }
-        if self.values.capacity() == 0 {
-            self.reserve(&out, plan);
-        }
-        let remap: Vec<u32> = out
-            .names
-            .into_iter()
-            .map(|name| self.global_code(name))
-            .collect();
-        self.labels
-            .extend(out.labels.iter().map(|&c| remap[c as usize]));
-        self.trusted.extend(out.trusted.iter().map(|&c| {
-            if c == NONE {
-                NONE
-            } else {
-                remap[c as usize]
-            }
-        }));
-        self.origins.extend_from_slice(&out.origins);
-        self.ids.append(&out.ids, &out.id_ends);
-        self.row_lines
-            .extend(out.row_lines.iter().map(|l| l + base));
-        self.values.extend_from_slice(&out.values);
-        for (mine, theirs) in self.slots.iter_mut().zip(&out.slots) {
-            mine.absorb(theirs, base);
-        }
-        self.rows += out.rows;
-        self.lines_done += out.newlines;
-        Ok(())
-    }
-
-    /// Reserves the value buffer from the first block's density and the file size, so the
-    /// big array grows once instead of doubling (which would briefly need 1.5–2× memory).
-    /// The size is only a hint (the file may change while it is read, a stream may not
-    /// know its length): when the reservation fails the buffer just grows as it fills.
-    fn reserve(&mut self, out: &ChunkOut, plan: &ColumnPlan) {
-        let (Some(size), true) = (self.size_hint, out.rows > 0) else {
-            return;
-        };
-        let bytes_per_row = (out.bytes as f64 / out.rows as f64).max(2.0);
-        let est_rows = (size as f64 / bytes_per_row * 1.02) as usize + 16;
-        let _ = self
-            .values
-            .try_reserve_exact(est_rows.saturating_mul(plan.numeric.len()));
-    }
-
-    fn global_code(&mut self, name: String) -> u32 {
-        if let Some(&code) = self.codes.get(&name) {
-            return code;
-        }
-        let code = self.names.len() as u32;
-        self.codes.insert(name.clone(), code);
-        self.names.push(name);
-        code
-    }
-
-    fn finish(mut self, plan: ColumnPlan) -> Result<Dataset> {
-        if self.rows == 0 {
-            return Err(self.whole_file(Problem::HeaderOnly));
-        }
-        let (kept, ignored) = self.choose_features(&plan)?;
-        let mut warnings = Vec::new();
-        let missing = self.missing_counts(&plan, &kept);
-        let values = compact(
-            std::mem::take(&mut self.values),
-            self.rows,
-            plan.numeric.len(),
-            &kept,
-        );
-        let features = Array2::from_shape_vec((self.rows, kept.len()), values)
-            .map_err(|e| Error::Internal(format!("feature array shape: {e}")))?;
-        let (classes, order) = self.class_order();
-        let labels: Vec<usize> = self.labels.iter().map(|&c| order[c as usize]).collect();
-        let trusted = plan.trusted.map(|_| {
-            self.trusted
-                .iter()
-                .map(|&c| (c != NONE).then(|| order[c as usize]))
-                .collect::<Vec<_>>()
-        });
-        let trusted_origins = plan
-            .origin
-            .filter(|_| trusted.is_some())
-            .map(|_| std::mem::take(&mut self.origins));
-        let plan_labeled = plan.label.is_some();
-        let ids = plan.id.map(|_| std::mem::take(&mut self.ids));
-        if let Some(ids) = &ids {
-            self.check_unique_ids(ids, &plan)?;
-        }
-        let dataset = Dataset {
-            path: self.path.to_path_buf(),
-            label_column: plan.label.map(|l| plan.header[l].clone()),
-            id_column: plan.id.map(|i| plan.header[i].clone()),
-            trusted_column: plan.trusted.map(|i| plan.header[i].clone()),
-            origin_column: plan.origin.map(|i| plan.header[i].clone()),
-            feature_names: kept
-                .iter()
-                .map(|&s| plan.header[plan.numeric[s]].clone())
-                .collect(),
-            header: plan.header,
-            features,
-            classes,
-            labels,
-            trusted,
-            trusted_origins,
-            ids,
-            ignored,
-            missing,
-            warnings: Vec::new(),
-        };
-        if plan_labeled {
-            check_classes(self.path, &dataset, &mut warnings)?;
-        }
-        Ok(Dataset {
-            warnings,
-            ..dataset
-        })
-    }
-
-    /// Decides which numeric slots are features, and reports the others.
-    fn choose_features(&self, plan: &ColumnPlan) -> Result<(Vec<usize>, Vec<IgnoredColumn>)> {
-        let mut kept = Vec::new();
-        let mut ignored = Vec::new();
-        for (slot, stats) in self.slots.iter().enumerate() {
-            let name = &plan.header[plan.numeric[slot]];
-            if plan.explicit {
-                kept.push(slot);
-            } else if let Some((line, text)) = &stats.first_bad {
-                let reason = format!("not numeric ('{text}' on line {line})");
-                ignored.push(IgnoredColumn {
-                    name: name.clone(),
-                    reason,
-                });
-            } else if stats.values == 0 {
-                ignored.push(IgnoredColumn {
-                    name: name.clone(),
-                    reason: "no values".into(),
-                });
-            } else {
-                kept.push(slot);
-            }
-        }
-        if plan.explicit {
-            let mut numeric = vec![false; plan.header.len()];
-            plan.numeric.iter().for_each(|&i| numeric[i] = true);
-            for (i, name) in plan.header.iter().enumerate() {
-                let used = numeric[i]
-                    || Some(i) == plan.label
-                    || Some(i) == plan.id
-                    || Some(i) == plan.trusted;
-                if !used {
-                    ignored.push(IgnoredColumn {
-                        name: name.clone(),
-                        reason: "not in --features".into(),
-                    });
-                }
-            }
-        }
-        self.check_feature_cells(plan, &kept)?;
-        if kept.is_empty() {
-            let detail = if ignored.is_empty() {
-                "; the table has only role columns".to_string()
-            } else {
-                format!(
-                    "; ignored: {}",
-                    ignored
-                        .iter()
-                        .map(|c| format!("{} ({})", c.name, c.reason))
-                        .collect::<Vec<_>>()
-                        .join(", ")
-                )
-            };
-            return Err(self.whole_file(Problem::NoFeatures { detail }));
-        }
-        Ok((kept, ignored))
-    }
-
-    /// The earliest bad cell among the features, if any, as an error.
-    fn check_feature_cells(&self, plan: &ColumnPlan, kept: &[usize]) -> Result<()> {
-        let mut worst: Option<(u64, usize, Problem)> = None;
-        for &slot in kept {
-            let stats = &self.slots[slot];
-            let candidates = [
-                stats
-                    .first_bad
-                    .clone()
-                    .map(|(l, value)| (l, Problem::NotNumber { value })),
-                stats
-                    .first_nonfinite
-                    .clone()
-                    .map(|(l, value)| (l, Problem::NotFinite { value })),
-                stats.first_missing.map(|l| {
-                    (
-                        l,
-                        Problem::MissingValues {
-                            count: stats.missing,
-                        },
-                    )
-                }),
-            ];
-            for (line, problem) in candidates.into_iter().flatten() {
-                if worst.as_ref().is_none_or(|(l, _, _)| line < *l) {
-                    worst = Some((line, slot, problem));
-                }
-            }
-        }
-        match worst {
-            None => Ok(()),
-            Some((line, slot, problem)) => {
-                let field = plan.numeric[slot];
-                Err(Error::input(
-                    Location::line(self.path, line).at_column(field, &plan.header[field]),
-                    problem,
-                ))
-            }
-        }
-    }
-
-    fn missing_counts(&self, plan: &ColumnPlan, kept: &[usize]) -> Vec<MissingCount> {
-        let mut missing = Vec::new();
-        if let Some(field) = plan.trusted {
-            let count = self.trusted.iter().filter(|&&c| c == NONE).count();
-            missing.push(MissingCount {
-                column: plan.header[field].clone(),
-                count,
-            });
-        }
-        let mut is_kept = vec![false; self.slots.len()];
-        kept.iter().for_each(|&s| is_kept[s] = true);
-        for (slot, stats) in self.slots.iter().enumerate() {
-            if !is_kept[slot] && stats.missing > 0 {
-                missing.push(MissingCount {
-                    column: plan.header[plan.numeric[slot]].clone(),
-                    count: stats.missing,
-                });
-            }
-        }
-        missing.retain(|m| m.count > 0);
-        missing
-    }
-
-    /// Natural-sorted class names and the map from load order to sorted position.
-    fn class_order(&self) -> (Vec<String>, Vec<usize>) {
-        let mut sorted: Vec<usize> = (0..self.names.len()).collect();
-        sorted.sort_by(|&a, &b| natural_cmp(&self.names[a], &self.names[b]));
-        let mut order = vec![0; self.names.len()];
-        for (position, &code) in sorted.iter().enumerate() {
-            order[code] = position;
-        }
-        (
-            sorted.iter().map(|&c| self.names[c].clone()).collect(),
-            order,
-        )
-    }
-
-    fn check_unique_ids(&self, ids: &StringColumn, plan: &ColumnPlan) -> Result<()> {
-        let Some((row, first)) = first_duplicate(ids) else {
-            return Ok(());
-        };
-        let field = plan.id.unwrap_or(0);
-        let location =
-            Location::line(self.path, self.row_lines[row]).at_column(field, &plan.header[field]);
-        let problem = Problem::DuplicateId {
-            id: crate::error::shorten(ids.get(row)),
-            first_line: self.row_lines[first],
-        };
-        Err(Error::input(location, problem))
-    }
-
-    fn whole_file(&self, problem: Problem) -> Error {
-        Error::input(Location::file(self.path), problem)
-    }
-
-    fn at_line(&self, line: u64, problem: Problem) -> Error {
-        Error::input(Location::line(self.path, line), problem)
-    }
-}
-
-/// Shards of the duplicate-id check: ids are split by hash, so equal ids meet in one
-/// shard, and the shards are checked on every core with tables small enough for cache.
-const ID_SHARDS: usize = 16;
-
-/// The first row (in file order) whose id appeared before, with that earlier row: the
-/// row a serial scan with one hash table would report. Each shard finds its own first
-/// repeat; equal ids share a shard, so the smallest of those is the first overall.
-fn first_duplicate(ids: &StringColumn) -> Option<(usize, usize)> {
-    use std::hash::BuildHasher;
-    let hasher = rustc_hash::FxBuildHasher;
-    let shard_of: Vec<u8> = (0..ids.len())
-        .into_par_iter()
-        .with_min_len(4096)
-        .map(|row| (hasher.hash_one(ids.get(row)) % ID_SHARDS as u64) as u8)
-        .collect();
-    (0..ID_SHARDS)
-        .into_par_iter()
-        .filter_map(|shard| {
-            let mut seen: HashMap<&str, usize> =
-                HashMap::with_capacity_and_hasher(ids.len() / ID_SHARDS + 16, Default::default());
-            for (row, &s) in shard_of.iter().enumerate() {
-                if s as usize == shard {
-                    if let Some(first) = seen.insert(ids.get(row), row) {
-                        return Some((row, first));
-                    }
-                }
-            }
-            None
-        })
-        .min()
-}
-
-/// Keeps the columns `kept` (sorted slot indices) of a row-major `rows × width` buffer,
-/// in place: every kept value moves to an index no larger than its old one.
-fn compact(mut values: Vec<f64>, rows: usize, width: usize, kept: &[usize]) -> Vec<f64> {
-    if kept.len() == width {
-        return values;
-    }
-    let new_width = kept.len();
-    for row in 0..rows {
-        for (k, &slot) in kept.iter().enumerate() {
-            values[row * new_width + k] = values[row * width + slot];
-        }
-    }
-    values.truncate(rows * new_width);
-    values.shrink_to_fit();
-    values
-}
-
-fn check_classes(path: &Path, data: &Dataset, warnings: &mut Vec<String>) -> Result<()> {
-    let counts = data.class_counts();
-    let observed: Vec<&str> = data
-        .classes
-        .iter()
-        .zip(&counts)
-        .filter(|(_, &n)| n > 0)
-        .map(|(c, _)| c.as_str())
-        .collect();
-    if data.classes.len() < 2 {
-        let problem = Problem::TooFewClasses {
-            found: data.classes.len(),
-            names: data.classes.join(", "),
-        };
-        return Err(Error::input(Location::file(path), problem));
-    }
-    for (class, &count) in data.classes.iter().zip(&counts) {
-        match count {
-            0 => warnings.push(format!(
-                "class '{class}' occurs only as a trusted label, never as an observed one"
-            )),
-            1 => warnings.push(format!(
-                "class '{class}' has a single row; estimates for it will be unreliable"
-            )),
-            _ => {}
-        }
-    }
-    if observed.len() < 2 {
-        warnings.push(format!(
-            "only one observed class ({}); the flip matrix cannot be estimated",
-            observed.join(", ")
-        ));
-    }
-    Ok(())
+) -> Result<Dataset> {
+    let (plan, cells) = read_table(reader, path, options, size_hint, block_bytes)?;
+    Assembly { path, cells }.finish(plan)
 }
 
 #[cfg(test)]
@@ -908,13 +359,13 @@ mod tests {
         let block_bytes = 64 << 10;
         assert!(text.len() > 20 * block_bytes);
         let options = TableOptions::default();
-        let d = Loader::new(
+        let d = read_in_blocks(
+            text.as_bytes(),
             Path::new("t.csv"),
-            &options,
             Some(text.len() as u64),
+            &options,
             block_bytes,
         )
-        .run(text.as_bytes())
         .unwrap();
         assert_eq!(d.rows(), rows);
         assert_eq!(d.features[[rows - 1, 0]], ((rows - 1) % 97) as f64);
@@ -925,12 +376,6 @@ mod tests {
             format!("c{}", (rows - 1) % 11)
         );
         assert_eq!(d.classes.len(), 11);
-    }
-
-    #[test]
-    fn compact_keeps_selected_columns_in_place() {
-        let v = vec![1.0, 2.0, 3.0, 4.0, 5.0, 6.0];
-        assert_eq!(compact(v, 2, 3, &[0, 2]), vec![1.0, 3.0, 4.0, 6.0]);
     }
 
     #[test]

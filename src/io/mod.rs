@@ -1,9 +1,20 @@
-//! Writing outputs safely (atomically, and never over one of the command's inputs), and
-//! the worklist files exchanged with annotators.
+//! Writing outputs safely (atomically, and never over one of the command's inputs), the
+//! file formats flipmend reads and writes, and the worklist files exchanged with
+//! annotators.
 
+pub(crate) mod csv_blocks;
+pub mod csv_source;
+pub mod matrix_csv;
 pub mod model;
+pub mod npy;
+pub(crate) mod number;
+pub mod probs_csv;
+pub mod probs_npy;
 pub mod review;
 pub mod session;
+pub(crate) mod table_chunk;
+pub(crate) mod table_csv;
+pub mod text_column;
 pub mod worklist;
 
 use std::fs::{self, File, OpenOptions};

@@ -11,6 +11,7 @@ use rustc_hash::FxHashMap as HashMap;
 use crate::data::origin::{origin_column, Origin};
 use crate::data::Dataset;
 use crate::error::{shorten, Error, Location, Problem, Result};
+use crate::io::csv_source::{open, CsvFormat, SkipBom};
 use crate::io::worklist::Slice;
 
 /// The review word that confirms the observed label.
@@ -184,11 +185,7 @@ pub fn write_merged(
     review: &Review,
 ) -> std::io::Result<()> {
     let file = std::fs::File::open(&data.path)?;
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .delimiter(delimiter)
-        .from_reader(file);
+    let mut rdr = CsvFormat { delimiter }.reader(file);
     let mut w = csv::WriterBuilder::new()
         .delimiter(delimiter)
         .from_writer(out);
@@ -256,13 +253,6 @@ pub fn load_key(path: &Path, data: &Dataset) -> Result<Key> {
     read_key(open(path)?, path, data)
 }
 
-fn open(path: &Path) -> Result<std::fs::File> {
-    std::fs::File::open(path).map_err(|source| Error::Read {
-        path: path.to_path_buf(),
-        source,
-    })
-}
-
 /// Reads a worklist's key for `data`: the `row` and `slice` columns are required; `id`,
 /// when present, must agree with the data, and `p_wrong` is read when it has a value.
 pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> {
@@ -300,17 +290,13 @@ pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> 
 fn open_edited<R: Read>(
     reader: R,
     path: &Path,
-) -> Result<(csv::StringRecordsIntoIter<R>, Vec<String>)> {
-    let mut records = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .from_reader(reader)
-        .into_records();
+) -> Result<(csv::StringRecordsIntoIter<SkipBom<R>>, Vec<String>)> {
+    let mut records = CsvFormat::COMMA.reader(reader).into_records();
     let header = match records.next() {
         Some(r) => r
             .map_err(crate::error::csv_syntax(path))?
             .iter()
-            .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
+            .map(|h| h.trim().to_string())
             .collect(),
         None => return Err(Error::input(Location::file(path), Problem::Empty)),
     };

@@ -15,11 +15,11 @@ use ndarray::Array2;
 
 use crate::data::{Dataset, ProbOptions, Probabilities};
 use crate::error::Result;
+use crate::io::matrix_csv::load_matrix_csv;
 use crate::learn::{out_of_fold, OofParams};
 use crate::noise::bootstrap::{bootstrap, Interval};
 use crate::noise::diagnostics::diagnose_with_expected;
 use crate::noise::fit_check::audit_disagreements;
-use crate::noise::matrix::load_matrix_csv;
 use crate::noise::posterior::{Flip, Posterior};
 use crate::noise::scores::ScoreKind;
 use crate::noise::{estimate, Diagnostics, Estimate, Method, Sample};

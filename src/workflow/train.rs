@@ -7,10 +7,10 @@ use ndarray::Array2;
 use super::{flip_matrix, MatrixSource, RowProbabilities};
 use crate::data::Dataset;
 use crate::error::Result;
+use crate::io::matrix_csv::load_matrix_csv;
 use crate::io::model::{FitSummary, ModelFile, Provenance, TrainingSettings};
 use crate::learn::train::{train, Correction, TrainInputs, Trained};
 use crate::learn::OofParams;
-use crate::noise::matrix::load_matrix_csv;
 
 /// What the train job fits.
 #[derive(Debug, Clone, PartialEq)]

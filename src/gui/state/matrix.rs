@@ -2,8 +2,8 @@
 //! bootstrapping it.
 
 use super::*;
+use crate::io::matrix_csv::{load_matrix_csv, write_matrix_csv};
 use crate::io::session::MatrixOrigin;
-use crate::noise::matrix::{load_matrix_csv, write_matrix_csv};
 use crate::noise::EstimatorSettings;
 use crate::workflow;
 

@@ -222,6 +222,19 @@ impl Lexer<'_> {
     }
 }
 
+/// Fills `buf` as far as the stream allows (a short read is not the end); returns how
+/// many bytes were read.
+pub(crate) fn read_up_to<R: Read>(reader: &mut R, buf: &mut [u8]) -> std::io::Result<usize> {
+    let mut n = 0;
+    while n < buf.len() {
+        match reader.read(&mut buf[n..])? {
+            0 => break,
+            k => n += k,
+        }
+    }
+    Ok(n)
+}
+
 /// Writes a row-major `rows × cols` float array as a version 1.0 `.npy` file.
 pub fn write_2d<W: Write, T: NpyFloat>(
     writer: &mut W,

@@ -5,30 +5,20 @@
 use std::path::Path;
 
 use crate::error::{Error, Location, Problem, Result};
+use crate::io::csv_source::CsvFormat;
 
 /// The cells of column `name` in data-row order.
 pub fn read_text_column(path: &Path, delimiter: u8, name: &str) -> Result<Vec<String>> {
-    let file = std::fs::File::open(path).map_err(|source| Error::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
-    let mut rdr = csv::ReaderBuilder::new()
-        .delimiter(delimiter)
-        .flexible(true)
-        .from_reader(file);
+    let mut rdr = CsvFormat { delimiter }.open(path)?;
     let syntax = crate::error::csv_syntax(path);
-    let headers = rdr.byte_headers().map_err(syntax)?.clone();
-    let column = headers
+    let mut record = csv::ByteRecord::new();
+    // An empty file has an empty header, which has no column of any name.
+    rdr.read_byte_record(&mut record).map_err(syntax)?;
+    let column = record
         .iter()
-        .position(|h| {
-            String::from_utf8_lossy(h)
-                .trim()
-                .trim_start_matches('\u{feff}')
-                == name
-        })
+        .position(|h| String::from_utf8_lossy(h).trim() == name)
         .ok_or_else(|| Error::Usage(format!("{}: no column named '{name}'", path.display())))?;
     let mut cells = Vec::new();
-    let mut record = csv::ByteRecord::new();
     while rdr.read_byte_record(&mut record).map_err(syntax)? {
         let line = record.position().map_or(0, |p| p.line());
         let cell = record.get(column).unwrap_or(b"");
