@@ -166,9 +166,9 @@ proptest! {
         let k = t.nrows();
         let mut bytes = Vec::new();
         write_matrix_csv(&mut bytes, &t, &names(k)).unwrap();
-        let (back, notes) = read_matrix_csv(&bytes[..], Path::new("m.csv"), &names(k), false).unwrap();
+        let (back, warnings) = read_matrix_csv(&bytes[..], Path::new("m.csv"), &names(k), false).unwrap();
         prop_assert_eq!(back, t);
-        prop_assert!(notes.is_empty());
+        prop_assert!(warnings.is_empty());
     }
 }
 

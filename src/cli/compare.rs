@@ -96,8 +96,8 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
     let comparison = compare(inputs, &settings, None, &mut |_, _| true)?;
     stages.absorb(&comparison.stages);
     let mut report = comparison.report;
-    if let Some((_, notes)) = given {
-        report.warnings.splice(0..0, notes);
+    if let Some((_, warnings)) = given {
+        report.warnings.splice(0..0, warnings);
     }
     if let Some(json) = &args.json {
         write_json(json, &report)?;

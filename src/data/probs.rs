@@ -38,7 +38,7 @@ pub struct Probabilities {
     /// Row `i` is p(class | row `i` of the dataset); columns in the dataset's class order.
     pub values: Array2<f32>,
     /// Things done to the input (e.g. rows renormalised).
-    pub notices: Vec<String>,
+    pub warnings: Vec<String>,
 }
 
 impl Probabilities {
@@ -72,7 +72,7 @@ impl Probabilities {
         Ok(Probabilities {
             path: path.to_path_buf(),
             values: loaded.values,
-            notices: loaded.notices,
+            warnings: loaded.warnings,
         })
     }
 
@@ -88,7 +88,7 @@ impl Probabilities {
         Ok(Probabilities {
             path: path.to_path_buf(),
             values: loaded.values,
-            notices: loaded.notices,
+            warnings: loaded.warnings,
         })
     }
 
@@ -104,7 +104,7 @@ impl Probabilities {
         Ok(Probabilities {
             path: path.to_path_buf(),
             values: loaded.values,
-            notices: loaded.notices,
+            warnings: loaded.warnings,
         })
     }
 
@@ -150,7 +150,7 @@ pub(crate) struct Loaded<'a> {
     pub(crate) values: Array2<f32>,
     /// File line of each row (CSV), for messages.
     pub(crate) lines: Option<Vec<u64>>,
-    pub(crate) notices: Vec<String>,
+    pub(crate) warnings: Vec<String>,
 }
 
 impl Loaded<'_> {
@@ -186,7 +186,7 @@ impl Loaded<'_> {
             fixed += 1;
         }
         if fixed > 0 {
-            self.notices.push(format!(
+            self.warnings.push(format!(
                 "{fixed} probability row(s) did not sum to 1 within {ROW_SUM_TOLERANCE} and were rescaled (--renormalize)"
             ));
         }

@@ -131,23 +131,10 @@ impl ColumnPlan {
         }
         let is_role = |i: usize| roles.iter().any(|(_, r)| *r == Some(i)) || excluded.contains(&i);
         let (numeric, explicit) = match &options.features {
-            Some(names) => {
-                let mut fields = Vec::with_capacity(names.len());
-                let mut chosen = vec![false; header.len()];
-                for name in names {
-                    let i = lookup("--features", name)?;
-                    if let Some((role, _)) = roles.iter().find(|(_, r)| *r == Some(i)) {
-                        return Err(clash(path, name, role, "a feature"));
-                    }
-                    if excluded.contains(&i) {
-                        return Err(clash(path, name, "excluded column", "a feature"));
-                    }
-                    if !std::mem::replace(&mut chosen[i], true) {
-                        fields.push(i);
-                    }
-                }
-                (fields, true)
-            }
+            Some(names) => (
+                chosen_features(path, names, &roles, &excluded, &lookup)?,
+                true,
+            ),
             None => ((0..header.len()).filter(|&i| !is_role(i)).collect(), false),
         };
         Ok(ColumnPlan {
@@ -160,6 +147,32 @@ impl ColumnPlan {
             explicit,
         })
     }
+}
+
+/// The fields `--features` names, in its order without repeats; a name that is another
+/// role's column or an excluded one is an error.
+fn chosen_features(
+    path: &Path,
+    names: &[String],
+    roles: &[(&str, Option<usize>)],
+    excluded: &[usize],
+    lookup: &dyn Fn(&str, &str) -> Result<usize>,
+) -> Result<Vec<usize>> {
+    let mut fields = Vec::with_capacity(names.len());
+    let mut chosen = rustc_hash::FxHashSet::default();
+    for name in names {
+        let i = lookup("--features", name)?;
+        if let Some((role, _)) = roles.iter().find(|(_, r)| *r == Some(i)) {
+            return Err(clash(path, name, role, "a feature"));
+        }
+        if excluded.contains(&i) {
+            return Err(clash(path, name, "excluded column", "a feature"));
+        }
+        if chosen.insert(i) {
+            fields.push(i);
+        }
+    }
+    Ok(fields)
 }
 
 fn check_unique(path: &Path, header: &[String]) -> Result<()> {

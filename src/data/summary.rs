@@ -81,7 +81,7 @@ impl TableSummary {
             .collect();
         let mut warnings = data.warnings.clone();
         let probabilities = probs.map(|p| {
-            warnings.extend(p.notices.iter().cloned());
+            warnings.extend(p.warnings.iter().cloned());
             let summary = ProbSummary {
                 file: p.path.display().to_string(),
                 mean_max_probability: p.mean_max(),

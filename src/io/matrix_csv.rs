@@ -21,7 +21,7 @@ pub fn load_matrix_csv(
 }
 
 /// Reads a matrix CSV for the classes `classes` (rows and columns may come in any
-/// order). Returns the matrix in class order and any notices.
+/// order). Returns the matrix in class order and any warnings.
 pub fn read_matrix_csv<R: Read>(
     reader: R,
     path: &Path,
@@ -96,8 +96,8 @@ pub fn read_matrix_csv<R: Read>(
             },
         ));
     }
-    let notices = check_row_sums(&mut t, path, classes, renormalize)?;
-    Ok((t, notices))
+    let warnings = check_row_sums(&mut t, path, classes, renormalize)?;
+    Ok((t, warnings))
 }
 
 fn class_positions<'a>(
@@ -160,7 +160,7 @@ fn check_row_sums(
             fixed.push(classes[i].clone());
         }
     }
-    let notices = if fixed.is_empty() {
+    let warnings = if fixed.is_empty() {
         Vec::new()
     } else {
         vec![format!(
@@ -168,7 +168,7 @@ fn check_row_sums(
             fixed.join(", ")
         )]
     };
-    Ok(notices)
+    Ok(warnings)
 }
 
 /// Writes the matrix CSV. Values use the shortest text that reads back to the same f64.
@@ -204,8 +204,9 @@ mod tests {
 
     #[test]
     fn round_trip_in_any_order() {
-        let (t, notes) = read("class,c,a,b\nb,0,0.1,0.9\na,0,0.8,0.2\nc,1,0,0\n", false).unwrap();
-        assert!(notes.is_empty());
+        let (t, warnings) =
+            read("class,c,a,b\nb,0,0.1,0.9\na,0,0.8,0.2\nc,1,0,0\n", false).unwrap();
+        assert!(warnings.is_empty());
         assert_eq!(t.row(0).to_vec(), vec![0.8, 0.2, 0.0]);
         assert_eq!(t.row(2).to_vec(), vec![0.0, 0.0, 1.0]);
         let mut bytes = Vec::new();
@@ -231,9 +232,9 @@ mod tests {
 
     #[test]
     fn renormalize_with_a_notice() {
-        let (t, notes) = read("class,a,b,c\na,0.5,0.4,0.1\nb,0,2,0\nc,0,0,1\n", true).unwrap();
+        let (t, warnings) = read("class,a,b,c\na,0.5,0.4,0.1\nb,0,2,0\nc,0,0,1\n", true).unwrap();
         assert_eq!(t.row(1).to_vec(), vec![0.0, 1.0, 0.0]);
-        assert!(notes[0].contains("b"));
+        assert!(warnings[0].contains("b"));
         assert!(validate(&t).is_ok());
     }
 }

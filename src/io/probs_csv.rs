@@ -68,7 +68,7 @@ pub(crate) fn read_probs_csv<'a, R: Read>(
         path,
         values: rows.values,
         lines: Some(rows.lines),
-        notices: Vec::new(),
+        warnings: Vec::new(),
     })
 }
 
@@ -369,7 +369,7 @@ mod tests {
         .unwrap();
         assert!((p.values[[0, 0]] - 0.625).abs() < 1e-6);
         assert!((p.values[[3, 3]] - 1.0).abs() < 1e-6);
-        assert!(p.notices[0].starts_with("2 probability row(s)"));
+        assert!(p.warnings[0].starts_with("2 probability row(s)"));
         let zero = csv("a,b,c2,c10\n0,0,0,0\n1,0,0,0\n1,0,0,0\n1,0,0,0\n", &d, true).unwrap_err();
         assert!(zero.to_string().contains("all zero"));
     }

@@ -98,7 +98,7 @@ pub(crate) fn read_probs_npy<'a, R: Read>(
         path,
         values,
         lines: None,
-        notices: Vec::new(),
+        warnings: Vec::new(),
     })
 }
 

@@ -116,7 +116,7 @@ pub enum MatrixChoice<'a> {
 pub struct CompareInputs<'a> {
     /// The labelled table.
     pub data: &'a Dataset,
-    /// Out-of-sample probabilities of every data row (their loading notices join the
+    /// Out-of-sample probabilities of every data row (their loading warnings join the
     /// report's warnings); without them they are computed by cross-validation on the
     /// training rows alone.
     pub probs: Option<&'a RowProbabilities>,
@@ -179,7 +179,7 @@ pub fn compare(
     stages.end("probabilities");
     let (matrix, matrix_warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
     let mut warnings = data.warnings.clone();
-    warnings.extend(inputs.probs.iter().flat_map(|p| p.notices.iter().cloned()));
+    warnings.extend(inputs.probs.iter().flat_map(|p| p.warnings.iter().cloned()));
     warnings.extend(matrix_warnings);
     stages.end("matrix");
     let trainer = Trainer {
@@ -486,7 +486,7 @@ impl Part {
                     rows: &rows,
                 };
                 let e = estimate(method, &sample, classes)?;
-                Ok((e.matrix, e.notes))
+                Ok((e.matrix, e.warnings))
             }
         }
     }

@@ -47,7 +47,7 @@ pub struct Estimated {
     /// 90 % intervals of every cell, when resamples were asked for.
     pub interval: Option<Interval>,
     /// Everything the user should know: the table's warnings, the probabilities'
-    /// notices, the estimator's notes and the diagnostics' warnings, in that order.
+    /// warnings, the estimator's warnings and the diagnostics' warnings, in that order.
     pub warnings: Vec<String>,
 }
 
@@ -70,7 +70,7 @@ pub fn estimate(
         _ => None,
     };
     let mut warnings = data.warnings.clone();
-    warnings.extend(estimate.notes.iter().cloned());
+    warnings.extend(estimate.warnings.iter().cloned());
     warnings.extend(estimate.diagnostics.warnings.iter().cloned());
     Ok(Estimated {
         estimate,

@@ -57,8 +57,8 @@ pub struct RowProbabilities {
     pub values: Array2<f32>,
     /// Where they came from.
     pub source: ProbSource,
-    /// Notices from loading (e.g. rows renormalised).
-    pub notices: Vec<String>,
+    /// Warnings from loading (e.g. rows renormalised).
+    pub warnings: Vec<String>,
 }
 
 /// Loads `path`, or computes out-of-fold probabilities when there is none. `progress`
@@ -86,7 +86,7 @@ pub fn probabilities(
                     folds: oof.folds,
                     seed: oof.seed,
                 },
-                notices: Vec::new(),
+                warnings: Vec::new(),
             })
         }
     }
@@ -102,7 +102,7 @@ pub fn load_probabilities(
     Ok(RowProbabilities {
         values: loaded.values,
         source: ProbSource::File(path.to_path_buf()),
-        notices: loaded.notices,
+        warnings: loaded.warnings,
     })
 }
 
@@ -140,8 +140,8 @@ pub struct FlipEstimate {
     pub clean: Option<Array2<f32>>,
     /// What it says about the data.
     pub diagnostics: Diagnostics,
-    /// Notes from estimation or reading.
-    pub notes: Vec<String>,
+    /// Warnings from estimation or reading.
+    pub warnings: Vec<String>,
 }
 
 /// The data's rows as an estimator sample.
@@ -156,7 +156,7 @@ pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) 
 }
 
 /// Runs `method` on every row: the matrix, the clean posteriors (joint) and the
-/// estimator's notes.
+/// estimator's warnings.
 pub fn estimate_on_all_rows(
     data: &Dataset,
     probs: &RowProbabilities,
@@ -242,7 +242,7 @@ fn audit_warnings(data: &Dataset, matrix: &Array2<f64>) -> Vec<String> {
 }
 
 /// Estimates (or reads) the flip matrix, without diagnosing it: the matrix, the clean
-/// posteriors of a joint fit, and the notes from estimation, reading and loading the
+/// posteriors of a joint fit, and the warnings from estimation, reading and loading the
 /// probabilities.
 pub fn matrix_only(
     data: &Dataset,
@@ -252,15 +252,15 @@ pub fn matrix_only(
     let mut estimate = match source {
         MatrixSource::Estimate(method) => estimate_on_all_rows(data, probs, method)?,
         MatrixSource::File { path, renormalize } => {
-            let (matrix, notes) = load_matrix_csv(path, &data.classes, *renormalize)?;
+            let (matrix, warnings) = load_matrix_csv(path, &data.classes, *renormalize)?;
             Estimate {
                 matrix,
                 clean: None,
-                notes,
+                warnings,
             }
         }
     };
-    estimate.notes.extend(probs.notices.iter().cloned());
+    estimate.warnings.extend(probs.warnings.iter().cloned());
     Ok(estimate)
 }
 
@@ -273,14 +273,14 @@ pub fn flip_matrix(
     let Estimate {
         matrix,
         clean,
-        notes,
+        warnings,
     } = matrix_only(data, probs, source)?;
     let diagnostics = diagnose_matrix(data, probs, &matrix, clean.as_ref());
     Ok(FlipEstimate {
         matrix,
         clean,
         diagnostics,
-        notes,
+        warnings,
     })
 }
 

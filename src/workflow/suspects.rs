@@ -77,7 +77,7 @@ impl SuspectsParams {
 pub struct UsedMatrix {
     /// How reports name it (`joint`, `file m.csv`, …).
     pub description: String,
-    /// The matrix, the clean posteriors of a joint fit and the estimator's notes.
+    /// The matrix, the clean posteriors of a joint fit and the estimator's warnings.
     pub estimate: Estimate,
 }
 
@@ -122,7 +122,7 @@ pub fn suspects(
 ) -> Result<Suspects> {
     params.check()?;
     let mut warnings = data.warnings.clone();
-    warnings.extend(probs.notices.iter().cloned());
+    warnings.extend(probs.warnings.iter().cloned());
     let matrix = used_matrix(data, probs, params)?;
     stages.end("matrix");
     let (t, clean) = match &matrix {
@@ -138,7 +138,7 @@ pub fn suspects(
         // The posterior scores' sum is the expected number of mislabelled rows, so the
         // diagnosis does not compute every posterior again.
         let diagnostics = diagnose_matrix_given(data, probs, &m.estimate.matrix, expected_errors);
-        warnings.extend(m.estimate.notes.iter().cloned());
+        warnings.extend(m.estimate.warnings.iter().cloned());
         warnings.extend(diagnostics.warnings);
     }
     stages.end("diagnose");

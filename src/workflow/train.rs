@@ -31,17 +31,17 @@ pub struct TrainedModel {
     pub trained: Trained,
     /// The model file to write.
     pub file: ModelFile,
-    /// Everything the user should know: the table's warnings, the matrix's notes and
+    /// Everything the user should know: the table's warnings, the matrix's warnings and
     /// diagnostics, and the fit's warnings.
     pub warnings: Vec<String>,
 }
 
-/// The matrix a correction uses, what names it, and the notes from getting it.
+/// The matrix a correction uses, what names it, and the warnings from getting it.
 struct UsedMatrix {
     matrix: Option<Array2<f64>>,
     probs: Option<Array2<f32>>,
     description: Option<String>,
-    notes: Vec<String>,
+    warnings: Vec<String>,
 }
 
 /// Trains `params.correction` on every row. `probabilities` is called only when they are
@@ -69,7 +69,7 @@ pub fn train_model(
         &params.fit.model,
     )?;
     let mut warnings = data.warnings.clone();
-    warnings.extend(used.notes.iter().cloned());
+    warnings.extend(used.warnings.iter().cloned());
     warnings.extend(trained.warnings.iter().cloned());
     let file = model_file(data, params, &trained, &used, &rows);
     Ok(TrainedModel {
@@ -92,30 +92,30 @@ fn used_matrix(
             matrix: None,
             probs: None,
             description: None,
-            notes: Vec::new(),
+            warnings: Vec::new(),
         });
     }
     let source = &params.matrix;
     if let (MatrixSource::File { path, renormalize }, false) =
         (source, correction == Correction::Prune)
     {
-        let (t, notes) = load_matrix_csv(path, &data.classes, *renormalize)?;
+        let (t, warnings) = load_matrix_csv(path, &data.classes, *renormalize)?;
         return Ok(UsedMatrix {
             matrix: Some(t),
             probs: None,
             description: Some(source.describe()),
-            notes,
+            warnings,
         });
     }
     let probs = probabilities()?;
     let estimate = flip_matrix(data, &probs, source)?;
-    let mut notes = estimate.notes;
-    notes.extend(estimate.diagnostics.warnings);
+    let mut warnings = estimate.warnings;
+    warnings.extend(estimate.diagnostics.warnings);
     Ok(UsedMatrix {
         matrix: Some(estimate.matrix),
         probs: Some(probs.values),
         description: Some(source.describe()),
-        notes,
+        warnings,
     })
 }
 

@@ -27,7 +27,7 @@ impl AppState {
             let e = workflow::estimate_on_all_rows(&data, &probs, &method).map_err(fail)?;
             let info = EstimateInfo {
                 source: workflow::MatrixSource::Estimate(method.clone()).describe(),
-                notes: e.notes,
+                warnings: e.warnings,
                 method: Some(method),
                 clean: e.clean.map(Arc::new),
             };
@@ -36,8 +36,8 @@ impl AppState {
     }
 
     pub(super) fn estimated(&mut self, matrix: Array2<f64>, info: EstimateInfo) {
-        for note in &info.notes {
-            self.say(Level::Warning, note.clone());
+        for warning in &info.warnings {
+            self.say(Level::Warning, warning.clone());
         }
         let classes = self
             .data
@@ -96,8 +96,8 @@ impl AppState {
             return self.say(Level::Error, "load a data table first");
         };
         match load_matrix_csv(path, &data.classes, false) {
-            Ok((matrix, notes)) => {
-                for n in notes {
+            Ok((matrix, warnings)) => {
+                for n in warnings {
                     self.say(Level::Warning, n);
                 }
                 let k = matrix.nrows();
@@ -107,7 +107,7 @@ impl AppState {
                 editor.replace(matrix, MatrixOrigin::Imported);
                 self.estimate = Some(EstimateInfo {
                     source: format!("file {}", path.display()),
-                    notes: Vec::new(),
+                    warnings: Vec::new(),
                     method: None,
                     clean: None,
                 });

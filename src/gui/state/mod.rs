@@ -44,8 +44,8 @@ use crate::workflow::RowProbabilities;
 pub struct EstimateInfo {
     /// How it was made (`quantile (q = 0.97)`, `file m.csv`, …).
     pub source: String,
-    /// Notes from estimation.
-    pub notes: Vec<String>,
+    /// Warnings from estimation.
+    pub warnings: Vec<String>,
     /// The method, for the bootstrap (none for imported matrices).
     pub method: Option<Method>,
     /// Every row's clean posterior from a joint fit: the scores read it under the
@@ -374,8 +374,8 @@ impl AppState {
         match stamped.output {
             JobOutput::Loaded(data, roles) => self.data_loaded(*data, roles),
             JobOutput::Probabilities(p) => {
-                for notice in &p.notices {
-                    self.say(Level::Warning, notice.clone());
+                for warning in &p.warnings {
+                    self.say(Level::Warning, warning.clone());
                 }
                 self.probs = Some(Arc::from(p));
                 self.start_estimate();

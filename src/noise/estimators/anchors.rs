@@ -169,7 +169,7 @@ pub(super) fn quantile(
     sample: &Sample,
     q: f64,
     classes: &[String],
-    notes: &mut Vec<String>,
+    warnings: &mut Vec<String>,
 ) -> Array2<f64> {
     let k = sample.probs.ncols();
     let thresholds = column_quantiles(sample.probs, sample.rows, q);
@@ -182,7 +182,7 @@ pub(super) fn quantile(
         match row {
             Some(row) => set_row(&mut t, class, sample.probs, row),
             None => {
-                notes.push(format!(
+                warnings.push(format!(
                     "class '{}': no row lies strictly below the {q} quantile; its highest-probability row was used",
                     classes[class]
                 ));

@@ -9,7 +9,7 @@ use super::{Sample, CHUNK_ROWS};
 pub(super) fn counting(
     sample: &Sample,
     classes: &[String],
-    notes: &mut Vec<String>,
+    warnings: &mut Vec<String>,
 ) -> Array2<f64> {
     let k = sample.probs.ncols();
     // Thresholds t_j: mean self-confidence p_j over the rows observed as j.
@@ -77,7 +77,7 @@ pub(super) fn counting(
             }
         } else {
             t[[j, j]] = 1.0;
-            notes.push(format!(
+            warnings.push(format!(
                 "class '{}': no row is confidently of this class; its row was set to no flips",
                 classes[j]
             ));

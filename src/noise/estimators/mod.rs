@@ -55,7 +55,7 @@ pub enum TrustedFallback {
     /// Stop with an error naming the classes.
     #[default]
     None,
-    /// Estimate those classes with the quantile estimator (and say so in a note).
+    /// Estimate those classes with the quantile estimator (and say so in a warning).
     Quantile,
 }
 
@@ -222,8 +222,8 @@ pub struct Estimate {
     /// The clean posterior q(x) of every row, for estimators that fit one (joint): the
     /// scores then use it instead of inverting T.
     pub clean: Option<Array2<f32>>,
-    /// Notes such as fallbacks taken.
-    pub notes: Vec<String>,
+    /// Warnings such as fallbacks taken.
+    pub warnings: Vec<String>,
 }
 
 /// Runs `method` on `sample`; `classes` names the classes in messages.
@@ -234,17 +234,17 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
             "no rows to estimate the flip matrix from".into(),
         ));
     }
-    let mut notes = Vec::new();
+    let mut warnings = Vec::new();
     let mut clean = None;
     let mut matrix = match method {
         Method::Anchor => anchor(sample),
-        Method::Quantile { q } => quantile(sample, *q, classes, &mut notes),
+        Method::Quantile { q } => quantile(sample, *q, classes, &mut warnings),
         Method::Trusted { fallback_quantile } => {
-            trusted(sample, *fallback_quantile, classes, &mut notes)?
+            trusted(sample, *fallback_quantile, classes, &mut warnings)?
         }
-        Method::Counting => counting(sample, classes, &mut notes),
+        Method::Counting => counting(sample, classes, &mut warnings),
         Method::Joint { volume_weight } => {
-            let fit = joint(sample, *volume_weight, classes, &mut notes)?;
+            let fit = joint(sample, *volume_weight, classes, &mut warnings)?;
             clean = Some(fit.clean);
             fit.matrix
         }
@@ -254,7 +254,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
     Ok(Estimate {
         matrix,
         clean,
-        notes,
+        warnings,
     })
 }
 
@@ -264,18 +264,18 @@ fn joint(
     sample: &Sample,
     volume_weight: Option<f64>,
     classes: &[String],
-    notes: &mut Vec<String>,
+    warnings: &mut Vec<String>,
 ) -> Result<JointFit> {
     let volume_weight =
         volume_weight.unwrap_or(DEFAULT_VOLUME_SCALE / sample.probs.ncols().max(1) as f64);
-    let start = counting(sample, classes, notes);
+    let start = counting(sample, classes, warnings);
     let params = JointParams {
         volume_weight,
         ..JointParams::default()
     };
     let fit = fit_joint(sample, &start, &params, &mut |_| true)?;
     if !fit.converged {
-        notes.push(format!(
+        warnings.push(format!(
             "the joint fit stopped at its iteration limit ({} iterations)",
             fit.iterations
         ));

@@ -116,7 +116,7 @@ fn trusted_averages_only_the_rows_audited_at_random() {
         &e.matrix,
         &[[0.75, 0.175, 0.075], [0.10, 0.80, 0.10], [0.20, 0.30, 0.50]],
     );
-    assert!(e.notes[0].starts_with("2 trusted label(s) from reviews left out"));
+    assert!(e.warnings[0].starts_with("2 trusted label(s) from reviews left out"));
 }
 
 #[test]
@@ -179,7 +179,7 @@ fn trusted_averages_the_audited_rows() {
             .all(|(a, b)| (a - b).abs() < 1e-6),
         "{row_b:?}"
     );
-    assert!(fallback.notes[0].contains("'b' has no trusted rows"));
+    assert!(fallback.warnings[0].contains("'b' has no trusted rows"));
 }
 
 #[test]

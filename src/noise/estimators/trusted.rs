@@ -13,7 +13,7 @@ pub(super) fn trusted(
     sample: &Sample,
     fallback: Option<f64>,
     classes: &[String],
-    notes: &mut Vec<String>,
+    warnings: &mut Vec<String>,
 ) -> Result<Array2<f64>> {
     let k = sample.probs.ncols();
     let trusted = sample.trusted.ok_or_else(|| {
@@ -51,7 +51,7 @@ pub(super) fn trusted(
         .filter(|&&r| trusted[r].is_some() && !sample.at_random(r))
         .count();
     if chosen > 0 {
-        notes.push(format!(
+        warnings.push(format!(
             "{chosen} trusted label(s) from reviews left out of the trusted estimate: those rows \
              were chosen, not drawn at random, so their average would be biased"
         ));
@@ -72,10 +72,10 @@ pub(super) fn trusted(
         }
     }
     if let Some(q) = fallback.filter(|_| !missing.is_empty()) {
-        let by_quantile = quantile(sample, q, classes, notes);
+        let by_quantile = quantile(sample, q, classes, warnings);
         for &c in &missing {
             t.row_mut(c).assign(&by_quantile.row(c));
-            notes.push(format!(
+            warnings.push(format!(
                 "class '{}' has no trusted rows from a random audit; its row comes from the {q} \
                  quantile estimator",
                 classes[c]
