@@ -117,19 +117,13 @@ impl TableSummary {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::data::{ProbOptions, TableOptions};
+    use crate::data::ProbOptions;
     use std::path::Path;
 
     #[test]
     fn counts_shares_and_in_sample_warning() {
         let text = "x,label,trusted\n1,a,a\n2,a,\n3,b,a\n4,b,b\n";
-        let d = Dataset::from_reader(
-            text.as_bytes(),
-            Path::new("d.csv"),
-            None,
-            &TableOptions::default(),
-        )
-        .unwrap();
+        let d = Dataset::from_csv_text(text);
         let p = Probabilities::from_csv_reader(
             "a,b\n1,0\n1,0\n0,1\n0,1\n".as_bytes(),
             Path::new("p.csv"),

@@ -126,6 +126,19 @@ impl Dataset {
         read_in_blocks(reader, path, size_hint, options, BLOCK_BYTES)
     }
 
+    /// A table from CSV text named `d.csv`, with the default roles: the unit tests'
+    /// fixture.
+    #[cfg(test)]
+    pub(crate) fn from_csv_text(text: &str) -> Self {
+        Self::from_reader(
+            text.as_bytes(),
+            Path::new("d.csv"),
+            None,
+            &TableOptions::default(),
+        )
+        .unwrap()
+    }
+
     /// Number of rows.
     pub fn rows(&self) -> usize {
         self.features.nrows()

@@ -300,17 +300,10 @@ fn check_coverage(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::data::roles::TableOptions;
     use crate::data::{ProbOptions, Probabilities};
 
     fn data(text: &str) -> Dataset {
-        Dataset::from_reader(
-            text.as_bytes(),
-            Path::new("d.csv"),
-            None,
-            &TableOptions::default(),
-        )
-        .unwrap()
+        Dataset::from_csv_text(text)
     }
 
     fn csv(text: &str, d: &Dataset, renormalize: bool) -> Result<Probabilities> {

@@ -194,17 +194,10 @@ fn read_body<R: Read>(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::data::roles::TableOptions;
     use crate::data::{ProbOptions, Probabilities};
 
     fn data(text: &str) -> Dataset {
-        Dataset::from_reader(
-            text.as_bytes(),
-            Path::new("d.csv"),
-            None,
-            &TableOptions::default(),
-        )
-        .unwrap()
+        Dataset::from_csv_text(text)
     }
 
     /// Replaces the first occurrence of `from` with `to` (same length) in a header.

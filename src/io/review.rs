@@ -363,17 +363,10 @@ fn same_id(cell: &str, row: usize, data: &Dataset) -> std::result::Result<(), St
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::data::TableOptions;
 
     fn data() -> Dataset {
         let text = "id,x,label\nr0,1,cat\nr1,2,dog\nr2,3,cat\n";
-        Dataset::from_reader(
-            text.as_bytes(),
-            Path::new("d.csv"),
-            None,
-            &TableOptions::default(),
-        )
-        .unwrap()
+        Dataset::from_csv_text(text)
     }
 
     fn read(text: &str) -> Result<Review> {

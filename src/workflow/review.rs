@@ -139,7 +139,6 @@ fn replaced(data: &Dataset, review: &Review) -> usize {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::data::TableOptions;
     use crate::io::review::{read_key, read_review};
     use std::path::Path;
 
@@ -151,13 +150,7 @@ mod tests {
                 if r % 2 == 0 { "cat" } else { "dog" }
             ));
         }
-        Dataset::from_reader(
-            text.as_bytes(),
-            Path::new("d.csv"),
-            None,
-            &TableOptions::default(),
-        )
-        .unwrap()
+        Dataset::from_csv_text(&text)
     }
 
     #[test]
