@@ -127,7 +127,7 @@ pub fn fit_settings(ui: &mut egui::Ui, s: &mut crate::io::session::Settings) {
         egui::DragValue::new(&mut s.l2)
             .speed(1e-4)
             .range(0.0..=10.0)
-            .prefix("L2 "),
+            .prefix("l2 "),
     );
     ui.add(
         egui::DragValue::new(&mut s.max_iter)
