@@ -331,6 +331,15 @@ pub enum Error {
     /// A flag or combination of flags that cannot work.
     #[error("{0}")]
     Usage(String),
+    /// A setting that cannot work, named by its word in the glossary (`l2`, `max iter`,
+    /// `folds`, …); the command line shows its flag instead ([`crate::cli::describe`]).
+    #[error("{setting} {problem}")]
+    Setting {
+        /// The setting's name.
+        setting: &'static str,
+        /// What is wrong with its value, as the rest of the sentence.
+        problem: String,
+    },
     /// An output would replace one of the command's input files.
     #[error("{path}: refusing to write here because it is one of this command's input files", path = path.display())]
     WouldOverwriteInput {
@@ -363,7 +372,7 @@ impl Error {
     /// failures inside flipmend or its environment (exit code 1).
     pub fn is_bad_input(&self) -> bool {
         match self {
-            Error::Read { .. } | Error::Input(_) | Error::Usage(_) => true,
+            Error::Read { .. } | Error::Input(_) | Error::Usage(_) | Error::Setting { .. } => true,
             Error::WouldOverwriteInput { .. } => true,
             Error::Write { .. } | Error::Internal(_) | Error::Cancelled => false,
         }
@@ -410,6 +419,12 @@ mod tests {
         let input = Error::input(Location::file(Path::new("x")), Problem::Empty);
         assert!(input.is_bad_input());
         assert!(Error::Usage("u".into()).is_bad_input());
+        let setting = Error::Setting {
+            setting: "max iter",
+            problem: "must be at least 1".into(),
+        };
+        assert!(setting.is_bad_input());
+        assert_eq!(setting.to_string(), "max iter must be at least 1");
         assert!(!Error::Internal("bug".into()).is_bad_input());
         let write = Error::Write {
             path: "o".into(),

@@ -12,7 +12,7 @@ fn main() -> ExitCode {
     match outcome {
         Ok(Ok(())) => ExitCode::SUCCESS,
         Ok(Err(error)) => {
-            eprintln!("flipmend: error: {error}");
+            eprintln!("flipmend: error: {}", flipmend::cli::describe(&error));
             ExitCode::from(if error.is_bad_input() { 2 } else { 1 })
         }
         Err(_) => {

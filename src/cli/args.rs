@@ -171,10 +171,10 @@ impl PipelineArgs {
     /// Refuses a `--quantile` outside (0, 1] whichever estimator is chosen (it also
     /// serves `--fallback quantile`), before any file is read.
     pub fn check(&self) -> crate::error::Result<()> {
-        let q = self.matrix.quantile;
-        Method::Quantile { q }.check().map_err(|_| {
-            crate::error::Error::Usage(format!("--quantile must lie in (0, 1], not {q}"))
-        })
+        Method::Quantile {
+            q: self.matrix.quantile,
+        }
+        .check()
     }
 
     /// The files the command reads (outputs must not be any of them).

@@ -22,7 +22,7 @@ pub use review::ReviewArgs;
 pub use suspects::SuspectsArgs;
 pub use train::TrainArgs;
 
-use crate::error::Result;
+use crate::error::{Error, Result};
 
 /// flipmend: measure how labels flip between classes, find the rows most likely
 /// mislabelled, and train models that account for the noise.
@@ -140,5 +140,47 @@ pub(crate) fn emit(out: &mut dyn Write, text: &str) -> Result<()> {
             source: e,
         }),
         _ => Ok(()),
+    }
+}
+
+/// The flag of each setting a library error may name ([`Error::Setting`]).
+const SETTING_FLAGS: [(&str, &str); 6] = [
+    ("l2", "--l2"),
+    ("max iter", "--max-iter"),
+    ("folds", "--folds"),
+    ("volume weight", "--volume-weight"),
+    ("quantile", "--quantile"),
+    ("estimator", "--method"),
+];
+
+/// An error as the command line says it: a setting is named by its flag.
+pub fn describe(error: &Error) -> String {
+    match error {
+        Error::Setting { setting, problem } => {
+            let flag = SETTING_FLAGS
+                .iter()
+                .find(|(name, _)| name == setting)
+                .map_or(*setting, |(_, flag)| flag);
+            format!("{flag} {problem}")
+        }
+        other => other.to_string(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_setting_is_named_by_its_flag_and_other_errors_as_they_are() {
+        let setting = |setting| Error::Setting {
+            setting,
+            problem: "is wrong".into(),
+        };
+        for (name, flag) in SETTING_FLAGS {
+            assert_eq!(describe(&setting(name)), format!("{flag} is wrong"));
+        }
+        assert_eq!(describe(&setting("colour")), "colour is wrong");
+        assert_eq!(describe(&Error::Usage("as is".into())), "as is");
     }
 }

@@ -40,11 +40,14 @@ pub fn out_of_fold(
 ) -> Result<(Array2<f32>, Vec<FitReport>)> {
     params.model.check()?;
     if params.folds < 2 || params.folds > labels.len() {
-        return Err(Error::Usage(format!(
-            "--folds must be between 2 and the number of rows ({}), not {}",
-            labels.len(),
-            params.folds
-        )));
+        return Err(Error::Setting {
+            setting: "folds",
+            problem: format!(
+                "must be between 2 and the number of rows ({}), not {}",
+                labels.len(),
+                params.folds
+            ),
+        });
     }
     let fold_of = stratified_folds(labels, classes, params.folds, params.seed);
     let mut probs = Array2::<f32>::zeros((labels.len(), classes));

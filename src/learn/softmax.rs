@@ -75,13 +75,16 @@ impl SoftmaxParams {
     /// Refuses settings that cannot work.
     pub fn check(&self) -> Result<()> {
         if !(self.l2.is_finite() && self.l2 >= 0.0) {
-            return Err(Error::Usage(format!(
-                "--l2 must be a finite number of at least 0, not {}",
-                self.l2
-            )));
+            return Err(Error::Setting {
+                setting: "l2",
+                problem: format!("must be a finite number of at least 0, not {}", self.l2),
+            });
         }
         if self.max_iter == 0 {
-            return Err(Error::Usage("--max-iter must be at least 1".into()));
+            return Err(Error::Setting {
+                setting: "max iter",
+                problem: "must be at least 1".into(),
+            });
         }
         if !(self.min_rel_decrease.is_finite() && self.min_rel_decrease >= 0.0) {
             return Err(Error::Usage(format!(

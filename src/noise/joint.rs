@@ -77,10 +77,13 @@ impl JointParams {
     /// Refuses settings that cannot work.
     pub fn check(&self) -> Result<()> {
         if !(self.volume_weight.is_finite() && self.volume_weight >= 0.0) {
-            return Err(Error::Usage(format!(
-                "--volume-weight must be a finite number of at least 0, not {}",
-                self.volume_weight
-            )));
+            return Err(Error::Setting {
+                setting: "volume weight",
+                problem: format!(
+                    "must be a finite number of at least 0, not {}",
+                    self.volume_weight
+                ),
+            });
         }
         if !(self.l2.is_finite() && self.l2 >= 0.0) {
             return Err(Error::Usage(format!(

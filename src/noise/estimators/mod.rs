@@ -176,9 +176,10 @@ impl Method {
             Method::Quantile { q }
             | Method::Trusted {
                 fallback_quantile: Some(q),
-            } if !(*q > 0.0 && *q <= 1.0) => Err(Error::Usage(format!(
-                "the quantile must lie in (0, 1], not {q}"
-            ))),
+            } if !(*q > 0.0 && *q <= 1.0) => Err(Error::Setting {
+                setting: "quantile",
+                problem: format!("must lie in (0, 1], not {q}"),
+            }),
             Method::Joint {
                 volume_weight: Some(volume_weight),
             } => JointParams {

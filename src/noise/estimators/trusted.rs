@@ -16,8 +16,11 @@ pub(super) fn trusted(
     warnings: &mut Vec<String>,
 ) -> Result<Array2<f64>> {
     let k = sample.probs.ncols();
-    let trusted = sample.trusted.ok_or_else(|| {
-        Error::Usage("--method trusted needs a trusted-label column (--trusted COL, or a column named 'trusted')".into())
+    let trusted = sample.trusted.ok_or_else(|| Error::Setting {
+        setting: "estimator",
+        problem: "trusted needs a trusted-label column (choose one as the trusted role, or \
+                      name a column 'trusted')"
+            .into(),
     })?;
     let (sums, counts) = sample
         .rows
