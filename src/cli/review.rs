@@ -10,10 +10,9 @@ use clap::Args;
 use super::args::TableArgs;
 use crate::data::Dataset;
 use crate::error::Result;
-use crate::io::review::{load_key, load_review, write_merged, Key};
-use crate::io::worklist::key_beside;
+use crate::io::review::{write_merged, Key};
 use crate::io::{check_not_input, write_atomic, write_json};
-use crate::workflow::review::{summarise, ReviewSummary, SliceResult};
+use crate::workflow::review::{key_file_for, read_reviewed, ReviewSummary, SliceResult};
 
 /// Flags of `flipmend review`.
 #[derive(Debug, Clone, Args)]
@@ -41,27 +40,30 @@ pub struct ReviewArgs {
 
 /// Runs `review`.
 pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
-    let key_file = args.key.clone().or_else(|| key_beside(&args.worklist));
+    let key_file = key_file_for(&args.worklist, args.key.as_deref());
     let mut inputs = vec![args.table.data.as_path(), args.worklist.as_path()];
     inputs.extend(key_file.as_deref());
     for output in [Some(&args.out), args.json.as_ref()].into_iter().flatten() {
         check_not_input(output, &inputs)?;
     }
     let data = Dataset::load(&args.table.data, &args.table.options())?;
-    let mut review = load_review(&args.worklist, &data)?;
-    let key = key_file
-        .as_deref()
-        .map(|path| load_key(path, &data))
-        .transpose()?;
-    let summary = summarise(&data, &mut review, key.as_ref());
+    let read = read_reviewed(&data, &args.worklist, args.key.as_deref())?;
     let delimiter = args.table.options().delimiter_for(&args.table.data);
-    write_atomic(&args.out, |w| write_merged(w, &data, delimiter, &review))?;
+    write_atomic(&args.out, |w| {
+        write_merged(w, &data, delimiter, &read.review)
+    })?;
     if let Some(path) = &args.json {
-        write_json(path, &summary)?;
+        write_json(path, &read.summary)?;
     }
     super::emit(
         out,
-        &render(args, &data, &summary, key_file.as_deref(), key.as_ref()),
+        &render(
+            args,
+            &data,
+            &read.summary,
+            read.key_file.as_deref(),
+            read.key.as_ref(),
+        ),
     )
 }
 

@@ -1,13 +1,57 @@
 //! What a review round measured: the precision of the listed suspects, the error rate
 //! among the rows the list left out (from the control rows), and how both compare with
-//! what flipmend expected. Both front ends summarise a review here.
+//! what flipmend expected. The review job ([`read_reviewed`]) reads a reviewed worklist
+//! with its key and summarises it, for the `review` command and the app's import.
+
+use std::path::{Path, PathBuf};
 
 use serde::Serialize;
 
 use crate::data::origin::Origin;
 use crate::data::Dataset;
-use crate::io::review::{Key, Review};
+use crate::error::Result;
+use crate::io::review::{load_key, load_review, Key, Review};
+use crate::io::worklist::key_beside;
 use crate::learn::metrics::Proportion;
+
+/// A reviewed worklist read back: its verdicts (with their origins), the key it was
+/// read with, and what it measured.
+#[derive(Debug, Clone)]
+pub struct Reviewed {
+    /// The verdicts, each with the origin the key gives it.
+    pub review: Review,
+    /// The key file used: the one given, else `NAME.key.csv` beside the worklist if
+    /// there is one.
+    pub key_file: Option<PathBuf>,
+    /// The key read from it.
+    pub key: Option<Key>,
+    /// What the review measured.
+    pub summary: ReviewSummary,
+}
+
+/// The key file a review uses: `key` when given, else the one beside `worklist`.
+pub fn key_file_for(worklist: &Path, key: Option<&Path>) -> Option<PathBuf> {
+    key.map(Path::to_path_buf).or_else(|| key_beside(worklist))
+}
+
+/// Reads the reviewed `worklist` for `data` with its key ([`key_file_for`]) and
+/// summarises it. Every cell is checked against the data (row, id, observed label,
+/// class names), with the file, line and column of the first problem.
+pub fn read_reviewed(data: &Dataset, worklist: &Path, key: Option<&Path>) -> Result<Reviewed> {
+    let key_file = key_file_for(worklist, key);
+    let mut review = load_review(worklist, data)?;
+    let key = key_file
+        .as_deref()
+        .map(|path| load_key(path, data))
+        .transpose()?;
+    let summary = summarise(data, &mut review, key.as_ref());
+    Ok(Reviewed {
+        review,
+        key_file,
+        key,
+        summary,
+    })
+}
 
 /// One slice of a review: how many of its reviewed rows had a wrong label.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]

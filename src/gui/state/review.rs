@@ -2,12 +2,12 @@
 //! writing the data with the reviewed labels.
 
 use super::*;
-use crate::io::review::{load_key, load_review, write_merged};
-use crate::io::worklist::{key_beside, key_path, write_worklist_files, Item};
+use crate::io::review::write_merged;
+use crate::io::worklist::{key_path, write_worklist_files, Item};
 use crate::io::{check_not_input, write_atomic};
 use crate::noise::scores::RowScore;
 use crate::workflow::ranking::Filter;
-use crate::workflow::review::summarise;
+use crate::workflow::review::read_reviewed;
 use crate::workflow::worklist::{split_budget, with_control};
 
 impl AppState {
@@ -66,16 +66,11 @@ impl AppState {
             return self.say(Level::Error, "load a data table first");
         };
         self.spawn_on_data(JobKind::Review, move |_| {
-            let mut review = load_review(&path, &data).map_err(fail)?;
-            let key = key_beside(&path)
-                .map(|key| load_key(&key, &data))
-                .transpose()
-                .map_err(fail)?;
-            let summary = summarise(&data, &mut review, key.as_ref());
+            let read = read_reviewed(&data, &path, None).map_err(fail)?;
             let read = ReviewRead {
                 path,
-                review: Arc::new(review),
-                summary,
+                review: Arc::new(read.review),
+                summary: read.summary,
             };
             Ok(JobOutput::Reviewed(read))
         });
