@@ -31,6 +31,7 @@ fn main() {
         });
         return;
     }
+    cell_parsers();
     let dir = tempfile::tempdir().expect("temp dir");
     let (rows, features, classes) = (200_000, 32, 10);
     let data_path = dir.path().join("data.csv");
@@ -57,6 +58,47 @@ fn main() {
         bench(name, size, || {
             Probabilities::load(path, &data, &options).map(|p| p.values.nrows())
         });
+    }
+}
+
+/// Our cell parser (short-decimal fast path, then fast-float2) against fast-float2's own
+/// partial parser alone, on the cells the table writer below produces (`{:.6}`), side by
+/// side in one run. `io::number` keeps its fast path only while the first line is faster.
+fn cell_parsers() {
+    let mut rng = Rng(0x5EED_F11B_3E4D_0003);
+    let cells: Vec<String> = (0..1_000_000)
+        .map(|_| format!("{:.6}", (rng.unit() - 0.5) * 8.0))
+        .collect();
+    let ours = || {
+        cells
+            .iter()
+            .map(|c| flipmend::io::number::parse_f64(c.as_bytes()).unwrap_or(0.0))
+            .sum::<f64>()
+    };
+    let library = || {
+        cells
+            .iter()
+            .map(
+                |c| match fast_float2::parse_partial::<f64, _>(c.as_bytes()) {
+                    Ok((v, used)) if used == c.len() => v,
+                    _ => 0.0,
+                },
+            )
+            .sum::<f64>()
+    };
+    assert_eq!(ours().to_bits(), library().to_bits(), "both parse alike");
+    for (name, parse) in [
+        (
+            "cell parser: ours (fast path + fast-float2)",
+            &ours as &dyn Fn() -> f64,
+        ),
+        ("cell parser: fast-float2 parse_partial", &library),
+    ] {
+        let (median, _) = common::time(RUNS, || {
+            std::hint::black_box(parse());
+        });
+        let ns_per_cell = median.as_secs_f64() * 1e9 / cells.len() as f64;
+        println!("{name:<44} median {ns_per_cell:>6.2} ns per cell");
     }
 }
 

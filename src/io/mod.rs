@@ -7,7 +7,7 @@ pub mod csv_source;
 pub mod matrix_csv;
 pub mod model;
 pub mod npy;
-pub(crate) mod number;
+pub mod number;
 pub mod probs_csv;
 pub mod probs_npy;
 pub mod review;

@@ -2,12 +2,13 @@
 //! fast path of our own; everything else by fast-float2. Both round exactly like the
 //! standard library. The fast path stays because it was measured faster on typical cells
 //! (`{:.6}` decimals: 13.5 against 16 ns per cell, 2026-12) and the plain-row parser
-//! reads numbers with it straight from the line.
+//! reads numbers with it straight from the line. `cargo bench --bench load` repeats the
+//! comparison side by side ("cell parser" lines): keep the fast path only while it wins.
 
 /// Parses a whole cell as a decimal number (`1.5`, `-2e-3`, `+7`, `inf`, `NaN`, …).
 /// fast-float2 implements the Eisel–Lemire algorithm straight from bytes, skipping the
 /// UTF-8 check that `str::parse` needs; it rounds exactly like the standard library.
-pub(crate) fn parse_f64(text: &[u8]) -> Option<f64> {
+pub fn parse_f64(text: &[u8]) -> Option<f64> {
     if let Some(value) = parse_short_decimal(text) {
         return Some(value);
     }
