@@ -1,6 +1,7 @@
 //! Label noise: flip-matrix estimators, their diagnostics and uncertainty, and per-row
 //! posteriors under a matrix.
 
+pub mod annotators;
 pub mod bootstrap;
 pub mod diagnostics;
 pub mod estimators;
