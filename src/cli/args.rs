@@ -31,6 +31,11 @@ pub struct TableArgs {
     /// Feature columns, comma-separated [default: every other column whose values are all numbers]
     #[arg(long, value_name = "A,B,..", value_delimiter = ',')]
     pub features: Option<Vec<String>>,
+    /// Column saying where each label came from (annotator, station, vendor, rule): one
+    /// flip matrix is then estimated per source, and suspects are scored with their own
+    /// source's matrix
+    #[arg(long, value_name = "COL")]
+    pub source: Option<String>,
 }
 
 impl TableArgs {
@@ -42,6 +47,7 @@ impl TableArgs {
             id: self.id.clone(),
             trusted: self.trusted.clone(),
             features: self.features.clone(),
+            source: self.source.clone(),
             exclude: Vec::new(),
             unlabeled: false,
         }

@@ -61,6 +61,13 @@ struct EstimateReport<'a> {
     matrix_low: Option<Vec<Vec<f64>>>,
     #[serde(skip_serializing_if = "Option::is_none")]
     matrix_high: Option<Vec<Vec<f64>>>,
+    /// The label-source column, when one was named.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    source_column: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    sources: Option<Vec<super::sources::SourceReport>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    sources_test: Option<super::sources::TestReport>,
 }
 
 /// Runs `estimate`.
@@ -142,6 +149,14 @@ fn write_outputs(
     }
     if let Some(path) = &args.json {
         let d = &estimate.diagnostics;
+        let (sources, sources_test) = match &estimate.by_source {
+            Some(by_source) => {
+                let (sources, test) =
+                    super::sources::report(data, by_source, found.source_intervals.as_ref());
+                (Some(sources), test)
+            }
+            None => (None, None),
+        };
         let report = EstimateReport {
             classes: &data.classes,
             method: source.describe(),
@@ -158,6 +173,9 @@ fn write_outputs(
             warnings: found.warnings.clone(),
             matrix_low: interval.map(|i| rows_of(&i.low)),
             matrix_high: interval.map(|i| rows_of(&i.high)),
+            source_column: data.sources.as_ref().map(|s| s.column.as_str()),
+            sources,
+            sources_test,
         };
         write_json(path, &report)?;
     }
@@ -197,6 +215,9 @@ fn render(
     }
     matrix_table(&mut t, data, &estimate.matrix);
     class_table(&mut t, data, d, interval);
+    if let Some(by_source) = &estimate.by_source {
+        super::sources::render(&mut t, data, by_source, found.source_intervals.as_ref());
+    }
     let _ = writeln!(
         t,
         "\nexpected mislabelled rows: {:.1} of {} ({:.1}%)",

@@ -6,6 +6,7 @@ mod estimate;
 mod inspect;
 mod predict;
 mod review;
+mod sources;
 mod suspects;
 mod train;
 

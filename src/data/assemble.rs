@@ -9,6 +9,7 @@ use rayon::prelude::*;
 
 use super::natural::natural_cmp;
 use super::roles::ColumnPlan;
+use super::sources::LabelSources;
 use super::table::{Dataset, IgnoredColumn, MissingCount, StringColumn};
 use crate::error::{Error, Location, Problem, Result};
 use crate::io::table_chunk::NONE;
@@ -54,6 +55,15 @@ impl Assembly<'_> {
             .origin
             .filter(|_| trusted.is_some())
             .map(|_| std::mem::take(&mut self.cells.origins));
+        let sources = plan.source.map(|field| {
+            let (sources, blank) = LabelSources::from_codes(
+                plan.header[field].clone(),
+                std::mem::take(&mut self.cells.source_names),
+                &self.cells.sources,
+            );
+            warnings.extend(blank);
+            sources
+        });
         let plan_labeled = plan.label.is_some();
         let ids = plan.id.map(|_| std::mem::take(&mut self.cells.ids));
         if let Some(ids) = &ids {
@@ -75,6 +85,7 @@ impl Assembly<'_> {
             labels,
             trusted,
             trusted_origins,
+            sources,
             ids,
             ignored,
             missing,
@@ -119,7 +130,8 @@ impl Assembly<'_> {
                 let used = numeric[i]
                     || Some(i) == plan.label
                     || Some(i) == plan.id
-                    || Some(i) == plan.trusted;
+                    || Some(i) == plan.trusted
+                    || Some(i) == plan.source;
                 if !used {
                     ignored.push(IgnoredColumn {
                         name: name.clone(),

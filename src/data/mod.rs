@@ -5,6 +5,7 @@ pub mod natural;
 pub mod origin;
 pub mod probs;
 pub mod roles;
+pub mod sources;
 pub mod summary;
 pub mod table;
 

@@ -27,6 +27,9 @@ pub struct TableOptions {
     pub trusted: Option<String>,
     /// Feature columns in the order given; default every other all-numeric column.
     pub features: Option<Vec<String>>,
+    /// Column that says where each row's label came from (annotator, station, vendor,
+    /// rule); no default, since a per-source estimate changes every figure.
+    pub source: Option<String>,
     /// Columns that must never become features (e.g. the `--truth` column of a synthetic
     /// benchmark), each with the flag that named it.
     pub exclude: Vec<(String, String)>,
@@ -70,6 +73,8 @@ pub struct ColumnPlan {
     /// Field index of the trusted labels' origin (the trusted column's name + `_origin`),
     /// if any.
     pub origin: Option<usize>,
+    /// Field index of the label-source column, if any.
+    pub source: Option<usize>,
     /// Field indices parsed as numbers: the features when `explicit`, else candidates.
     pub numeric: Vec<usize>,
     /// True when `--features` fixed the feature list.
@@ -114,11 +119,16 @@ impl ColumnPlan {
         let origin = trusted
             .and_then(|t| find(&origin_column(&header[t])))
             .filter(|&i| Some(i) != label && Some(i) != id);
+        let source = match &options.source {
+            Some(name) => Some(lookup("--source", name)?),
+            None => None,
+        };
         let roles = [
             ("label", label),
             ("id column", id),
             ("trusted label", trusted),
             ("trusted origin", origin),
+            ("label source", source),
         ];
         check_clashes(path, header, &roles)?;
         let mut excluded = Vec::with_capacity(options.exclude.len());
@@ -143,6 +153,7 @@ impl ColumnPlan {
             id,
             trusted,
             origin,
+            source,
             numeric,
             explicit,
         })

@@ -58,6 +58,8 @@ pub struct Roles {
     pub trusted: Option<String>,
     /// Feature columns.
     pub features: Option<Vec<String>>,
+    /// Label-source column (one flip matrix per source).
+    pub source: Option<String>,
 }
 
 /// Every setting a session restores.

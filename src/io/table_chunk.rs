@@ -66,6 +66,10 @@ pub(crate) struct ChunkOut {
     pub origins: Vec<Origin>,
     /// The block's label strings, in order of first appearance.
     pub names: Vec<String>,
+    /// Label source per row, as a code into `source_names` (only with a source column).
+    pub sources: Vec<u32>,
+    /// The block's source strings, in order of first appearance.
+    pub source_names: Vec<String>,
     /// Concatenated ids.
     pub ids: String,
     /// End offset in `ids` of each row's id.
@@ -196,6 +200,7 @@ enum Kind {
     Label,
     Trusted,
     Origin,
+    Source,
     Id,
     Numeric(usize),
     Unused,
@@ -211,6 +216,9 @@ fn kinds(plan: &ColumnPlan) -> Vec<Kind> {
     }
     if let Some(o) = plan.origin {
         kinds[o] = Kind::Origin;
+    }
+    if let Some(s) = plan.source {
+        kinds[s] = Kind::Source;
     }
     if let Some(i) = plan.id {
         kinds[i] = Kind::Id;
@@ -236,6 +244,7 @@ struct BlockParser<'a> {
     plan: &'a ColumnPlan,
     kinds: Vec<Kind>,
     codes: HashMap<Vec<u8>, u32>,
+    source_codes: HashMap<Vec<u8>, u32>,
     out: ChunkOut,
 }
 
@@ -254,6 +263,7 @@ impl<'a> BlockParser<'a> {
             plan,
             kinds: kinds(plan),
             codes: HashMap::default(),
+            source_codes: HashMap::default(),
             out,
         }
     }
@@ -295,6 +305,7 @@ impl<'a> BlockParser<'a> {
                 Kind::Label => self.label(cell, line_no, f)?,
                 Kind::Trusted => self.trusted(cell, line_no, f)?,
                 Kind::Origin => self.origin(cell, line_no, f)?,
+                Kind::Source => self.source(cell, line_no, f)?,
                 Kind::Id => self.id(cell, line_no, f)?,
                 Kind::Unused => {}
             }
@@ -342,6 +353,24 @@ impl<'a> BlockParser<'a> {
         Ok(())
     }
 
+    /// A source cell as a code; an empty cell is the source named "" (the table's
+    /// assembly names it and warns).
+    fn source(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
+        let code = match self.source_codes.get(cell) {
+            Some(&code) => code,
+            None => {
+                let name = std::str::from_utf8(cell)
+                    .map_err(|_| (line, Some(field), Problem::InvalidUtf8))?;
+                let code = self.out.source_names.len() as u32;
+                self.out.source_names.push(name.trim().to_string());
+                self.source_codes.insert(cell.to_vec(), code);
+                code
+            }
+        };
+        self.out.sources.push(code);
+        Ok(())
+    }
+
     fn id(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
         let id =
             std::str::from_utf8(cell).map_err(|_| (line, Some(field), Problem::InvalidUtf8))?;
@@ -364,6 +393,9 @@ impl<'a> BlockParser<'a> {
         }
         if let Some(field) = self.plan.origin {
             self.origin(record.field(field), line, field)?;
+        }
+        if let Some(field) = self.plan.source {
+            self.source(record.field(field), line, field)?;
         }
         if let Some(field) = self.plan.id {
             self.id(record.field(field), line, field)?;

@@ -40,6 +40,10 @@ pub(crate) struct Merged {
     pub(crate) origins: Vec<Origin>,
     /// Label strings in order of first appearance.
     pub(crate) names: Vec<String>,
+    /// Label source per row as a code into `source_names` (only with a source column).
+    pub(crate) sources: Vec<u32>,
+    /// Source strings in order of first appearance.
+    pub(crate) source_names: Vec<String>,
     /// Ids, when the plan has an id column.
     pub(crate) ids: StringColumn,
     /// File line of each row (only kept when there is an id column).
@@ -71,6 +75,8 @@ struct TableReader<'a> {
     lines_done: u64,
     /// Label name → its code in `cells.names`.
     codes: HashMap<String, u32>,
+    /// Source name → its code in `cells.source_names`.
+    source_codes: HashMap<String, u32>,
     cells: Merged,
 }
 
@@ -89,6 +95,7 @@ impl<'a> TableReader<'a> {
             size_hint,
             lines_done: 0,
             codes: HashMap::default(),
+            source_codes: HashMap::default(),
             cells: Merged::default(),
         }
     }
@@ -256,6 +263,14 @@ impl<'a> TableReader<'a> {
             }
         }));
         self.cells.origins.extend_from_slice(&out.origins);
+        let source_remap: Vec<u32> = out
+            .source_names
+            .into_iter()
+            .map(|name| self.global_source_code(name))
+            .collect();
+        self.cells
+            .sources
+            .extend(out.sources.iter().map(|&c| source_remap[c as usize]));
         self.cells.ids.append(&out.ids, &out.id_ends);
         self.cells
             .row_lines
@@ -292,6 +307,16 @@ impl<'a> TableReader<'a> {
         let code = self.cells.names.len() as u32;
         self.codes.insert(name.clone(), code);
         self.cells.names.push(name);
+        code
+    }
+
+    fn global_source_code(&mut self, name: String) -> u32 {
+        if let Some(&code) = self.source_codes.get(&name) {
+            return code;
+        }
+        let code = self.cells.source_names.len() as u32;
+        self.source_codes.insert(name.clone(), code);
+        self.cells.source_names.push(name);
         code
     }
 

@@ -133,13 +133,21 @@ pub fn key_beside(worklist: &Path) -> Option<PathBuf> {
     key.exists().then_some(key)
 }
 
-/// The header: `own` columns, then with `with_features` the feature names (a feature
-/// whose name is one of `own` gets the prefix `data_`).
+/// The column that carries each row's label source, when the table has one.
+pub const SOURCE_COLUMN: &str = "source";
+
+/// The header: `own` columns, [`SOURCE_COLUMN`] when the table names a source column,
+/// then with `with_features` the feature names (a feature whose name is one of those
+/// gets the prefix `data_`).
 fn header(own: &[&str], data: &Dataset, with_features: bool) -> Vec<String> {
     let mut header: Vec<String> = own.iter().map(|c| c.to_string()).collect();
+    if data.sources.is_some() {
+        header.push(SOURCE_COLUMN.to_string());
+    }
     if with_features {
         for name in &data.feature_names {
-            let clash = own.contains(&name.as_str());
+            let clash =
+                own.contains(&name.as_str()) || (data.sources.is_some() && name == SOURCE_COLUMN);
             header.push(if clash {
                 format!("data_{name}")
             } else {
@@ -169,12 +177,20 @@ pub fn write_worklist(
         record.push(data.classes[data.labels[s.row]].clone());
         push_verdict(&mut record, data, kind, s);
         record.push(String::new());
+        push_source(&mut record, data, s.row);
         if with_features {
             record.extend(data.features.row(s.row).iter().map(|v| v.to_string()));
         }
         w.write_record(&record)?;
     }
     w.flush()
+}
+
+/// The row's source name, when the table has a source column.
+fn push_source(record: &mut Vec<String>, data: &Dataset, row: usize) {
+    if let Some(sources) = &data.sources {
+        record.push(sources.names[sources.of_row[row] as usize].clone());
+    }
 }
 
 /// suggested, score, p_wrong, second_choice, second_choice_prob.
@@ -205,6 +221,7 @@ pub fn write_blind(
         start_item(&mut record, data, i, row);
         record.push(data.classes[data.labels[row]].clone());
         record.push(String::new());
+        push_source(&mut record, data, row);
         if with_features {
             record.extend(data.features.row(row).iter().map(|v| v.to_string()));
         }

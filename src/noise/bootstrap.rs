@@ -12,6 +12,7 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
 use super::estimators::{estimate, Method, Sample};
+use super::sources::{estimate_by_source, BySource, SourceSample, Testing};
 use crate::error::Result;
 use crate::learn::metrics::Z_90;
 
@@ -63,6 +64,100 @@ pub fn bootstrap(
         })
         .collect::<Result<_>>()?;
     Ok(interval_around(&point, &matrices))
+}
+
+/// Intervals of a per-source estimate: the sources' mix, every source's matrix and
+/// every source's noise rate.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SourceIntervals {
+    /// The mix (the overall matrix reported beside the sources).
+    pub overall: Interval,
+    /// One per source, in the order of the names.
+    pub matrices: Vec<Interval>,
+    /// 90 % interval of each source's noise rate.
+    pub noise_rates: Vec<[f64; 2]>,
+}
+
+/// [`bootstrap`] for one matrix per source: rows are resampled within each source (so
+/// every resample has each source's row count), and the overall estimate and the
+/// per-source estimate are both refitted on each resample.
+pub fn bootstrap_by_source(
+    method: &Method,
+    base: &SourceSample,
+    classes: &[String],
+    resamples: usize,
+    seed: u64,
+) -> Result<SourceIntervals> {
+    let fit = |sample: &Sample| -> Result<BySource> {
+        let overall = estimate(method, sample, classes)?;
+        let data = SourceSample {
+            sample: Sample {
+                probs: sample.probs.reborrow(),
+                ..*sample
+            },
+            of_row: base.of_row,
+            names: base.names,
+        };
+        estimate_by_source(method, &data, classes, &overall, Testing::Skip)
+    };
+    let point = fit(&base.sample)?;
+    let mut strata = vec![Vec::new(); base.names.len()];
+    base.sample
+        .rows
+        .iter()
+        .for_each(|&r| strata[base.of_row[r] as usize].push(r));
+    let fits: Vec<BySource> = (0..resamples)
+        .into_par_iter()
+        .map(|b| {
+            let mut rng = ChaCha8Rng::seed_from_u64(seed);
+            rng.set_stream(b as u64);
+            let rows: Vec<usize> = strata
+                .iter()
+                .flat_map(|s| {
+                    (0..s.len())
+                        .map(|_| s[rng.random_range(0..s.len())])
+                        .collect::<Vec<_>>()
+                })
+                .collect();
+            let sample = Sample {
+                probs: base.sample.probs.reborrow(),
+                labels: base.sample.labels,
+                trusted: base.sample.trusted,
+                origins: base.sample.origins,
+                rows: &rows[..],
+            };
+            fit(&sample)
+        })
+        .collect::<Result<_>>()?;
+    let mixes: Vec<Array2<f64>> = fits.iter().map(|f| f.overall.clone()).collect();
+    let per_source = (0..point.sources.len()).map(|s| {
+        let resampled: Vec<Array2<f64>> =
+            fits.iter().map(|f| f.sources[s].matrix.clone()).collect();
+        interval_around(&point.sources[s].matrix, &resampled)
+    });
+    let noise_rates = (0..point.sources.len())
+        .map(|s| {
+            let rates: Vec<f64> = fits.iter().map(|f| f.sources[s].noise_rate).collect();
+            rate_interval(point.sources[s].noise_rate, &rates)
+        })
+        .collect();
+    Ok(SourceIntervals {
+        overall: interval_around(&point.overall, &mixes),
+        matrices: per_source.collect(),
+        noise_rates,
+    })
+}
+
+/// point ± z₀.₉₅ · [`WIDENING`] · the standard deviation of `resampled`, clipped to [0, 1].
+fn rate_interval(point: f64, resampled: &[f64]) -> [f64; 2] {
+    let b = resampled.len() as f64;
+    let mean = resampled.iter().sum::<f64>() / b;
+    let variance = resampled.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (b - 1.0).max(1.0);
+    let half = Z_90 * WIDENING * variance.sqrt();
+    [
+        (point - half).clamp(0.0, 1.0),
+        (point + half).clamp(0.0, 1.0),
+    ]
 }
 
 /// point ± z₀.₉₅ · [`WIDENING`] · the standard deviation of `resampled`, cell by cell,

@@ -120,12 +120,83 @@ pub fn fit_joint(
     params: &JointParams,
     keep_going: &mut dyn FnMut(usize) -> bool,
 ) -> Result<JointFit> {
+    let groups = Groups::one(data.rows.len());
+    let fit = fit_grouped(data, &groups, start, params, keep_going)?;
+    let GroupedFit {
+        mut matrices,
+        clean,
+        iterations,
+        converged,
+    } = fit;
+    Ok(JointFit {
+        matrix: matrices.swap_remove(0),
+        clean,
+        iterations,
+        converged,
+    })
+}
+
+/// Rows in groups (label sources), each with its own flip matrix and one shared clean
+/// classifier: p(observed | x, g) = T_gᵀ q(x).
+#[derive(Debug, Clone, Copy)]
+pub struct Groups<'a> {
+    /// The group of every row of the probabilities (empty: every row in group 0).
+    pub of_row: &'a [u32],
+    /// Number of groups.
+    pub count: usize,
+    /// Shrinkage toward a common matrix: a Dirichlet prior on each row of every T_g
+    /// centred on the matrix's row, worth the given number of rows per class.
+    pub prior: Option<(&'a Array2<f64>, f64)>,
+}
+
+impl Groups<'_> {
+    /// One group (the plain joint fit). `_rows` documents the call site's size only.
+    fn one(_rows: usize) -> Groups<'static> {
+        Groups {
+            of_row: &[],
+            count: 1,
+            prior: None,
+        }
+    }
+
+    fn of(&self, row: usize) -> usize {
+        self.of_row.get(row).map_or(0, |&g| g as usize)
+    }
+}
+
+/// The grouped fit's result.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupedFit {
+    /// One row-stochastic flip matrix per group.
+    pub matrices: Vec<Array2<f64>>,
+    /// Clean posterior q(x) of every row of the probabilities.
+    pub clean: Array2<f32>,
+    /// L-BFGS iterations.
+    pub iterations: usize,
+    /// False when the iteration limit stopped the fit.
+    pub converged: bool,
+}
+
+/// Fits one flip matrix per group and the shared clean classifier, every group started
+/// from `start`. Each group's volume penalty is weighted by its share of the rows, so a
+/// group is penalised as it would be alone.
+pub fn fit_grouped(
+    data: &Sample,
+    groups: &Groups,
+    start: &Array2<f64>,
+    params: &JointParams,
+    keep_going: &mut dyn FnMut(usize) -> bool,
+) -> Result<GroupedFit> {
     params.check()?;
     let k = data.probs.ncols();
     if data.rows.is_empty() {
         return Err(Error::Usage("no rows for the joint fit".into()));
     }
     let (inputs, mean, scale) = log_inputs(data.probs, data.rows);
+    let mut share = vec![0.0; groups.count];
+    for &r in data.rows {
+        share[groups.of(r)] += 1.0 / data.rows.len() as f64;
+    }
     let problem = Problem {
         inputs: inputs.view(),
         labels: data.labels,
@@ -134,8 +205,14 @@ pub fn fit_joint(
         k,
         params,
         scale: &scale,
+        groups,
+        share: &share,
     };
-    let theta0 = initial_parameters(start, &mean, &scale);
+    let mut theta0 = initial_parameters(start, &mean, &scale);
+    let first_u = theta0[k * k + k..].to_vec();
+    for _ in 1..groups.count {
+        theta0.extend_from_slice(&first_u);
+    }
     let options = LbfgsOptions {
         max_iter: params.max_iter,
         grad_tol: 1e-5,
@@ -151,10 +228,12 @@ pub fn fit_joint(
     if outcome.stop == Stop::Cancelled {
         return Err(Error::Cancelled);
     }
-    let matrix = flip_of(&outcome.x, k);
+    let matrices = (0..groups.count)
+        .map(|g| flip_of(&outcome.x, k, g))
+        .collect();
     let clean = problem.clean_posteriors(&outcome.x);
-    Ok(JointFit {
-        matrix,
+    Ok(GroupedFit {
+        matrices,
         clean,
         iterations: outcome.iterations,
         converged: outcome.stop != Stop::MaxIter,
@@ -216,10 +295,10 @@ fn initial_parameters(start: &Array2<f64>, mean: &[f64], scale: &[f64]) -> Vec<f
     theta
 }
 
-/// T from the parameter vector: each row the softmax of its row of U.
-fn flip_of(theta: &[f64], k: usize) -> Array2<f64> {
+/// Group `g`'s T from the parameter vector: each row the softmax of its row of U_g.
+fn flip_of(theta: &[f64], k: usize, g: usize) -> Array2<f64> {
     let mut t = Array2::zeros((k, k));
-    let u = &theta[k * k + k..];
+    let u = &theta[k * k + k + g * k * k..k * k + k + (g + 1) * k * k];
     for i in 0..k {
         let mut row = u[i * k..(i + 1) * k].to_vec();
         softmax(&mut row);
@@ -239,6 +318,9 @@ struct Problem<'a> {
     params: &'a JointParams,
     /// The starting map's diagonal, toward which A is shrunk.
     scale: &'a [f64],
+    groups: &'a Groups<'a>,
+    /// Each group's share of `rows`.
+    share: &'a [f64],
 }
 
 /// One block's sums: loss, ∂/∂A (k×k), ∂/∂b, ∂/∂T (k×k).
@@ -249,49 +331,84 @@ struct Partial {
 
 impl Problem<'_> {
     fn theta_len(&self) -> usize {
-        2 * self.k * self.k + self.k
+        (1 + self.groups.count) * self.k * self.k + self.k
     }
 
-    /// Objective and gradient: mean negative log-likelihood + λ ln det T + (l2/2)‖A − I‖².
+    /// Objective and gradient: mean negative log-likelihood + Σ_g share_g·λ ln det T_g +
+    /// (l2/2)‖A − I‖² (+ the groups' shrinkage prior).
     fn evaluate(&self, theta: &[f64], grad: &mut [f64]) -> f64 {
         let k = self.k;
-        let t = flip_of(theta, k);
-        let Some((t_inv, log_det)) = inverse_and_ln_det(&t).filter(|(_, d)| *d >= MIN_DET.ln())
-        else {
-            return f64::INFINITY;
-        };
-        let nll = self.nll_and_grad(theta, &t, grad);
-        // grad currently holds ∂/∂A, ∂/∂b and ∂/∂T (in U's place); add the penalties.
-        let lambda = self.params.volume_weight;
+        let flips: Vec<Array2<f64>> = (0..self.groups.count)
+            .map(|g| flip_of(theta, k, g))
+            .collect();
+        let nll = self.nll_and_grad(theta, &flips, grad);
+        // grad currently holds ∂/∂A, ∂/∂b and ∂/∂T_g (in U_g's place); add the penalties.
         let (ga, rest) = grad.split_at_mut(k * k);
-        let gt = &mut rest[k..];
         let mut ridge = 0.0;
         for i in 0..k {
             for j in 0..k {
                 let a = theta[i * k + j] - if i == j { self.scale[i] } else { 0.0 };
                 ridge += a * a;
                 ga[i * k + j] += self.params.l2 * a;
+            }
+        }
+        let mut penalty = 0.5 * self.params.l2 * ridge;
+        for (g, t) in flips.iter().enumerate() {
+            let gt = &mut rest[k + g * k * k..k + (g + 1) * k * k];
+            match self.matrix_penalty(t, self.share[g], gt) {
+                Some(value) => penalty += value,
+                None => return f64::INFINITY,
+            }
+            // Through the row softmax: ∂/∂U[i][j] = T[i][j]·(g[i][j] − Σ_l T[i][l]·g[i][l]).
+            for i in 0..k {
+                let row = &mut gt[i * k..(i + 1) * k];
+                let mean: f64 = (0..k).map(|l| t[[i, l]] * row[l]).sum();
+                for (j, g) in row.iter_mut().enumerate() {
+                    *g = t[[i, j]] * (*g - mean);
+                }
+            }
+        }
+        nll + penalty
+    }
+
+    /// One group's penalties on its T: share·λ·ln det T, and the shrinkage prior
+    /// −(m/N)·Σ T̄[i][j]·ln T[i][j] (m rows per class, in the mean likelihood's units).
+    /// Adds their gradient to `gt`; `None` when T is too close to singular.
+    fn matrix_penalty(&self, t: &Array2<f64>, share: f64, gt: &mut [f64]) -> Option<f64> {
+        let k = self.k;
+        let (t_inv, log_det) = inverse_and_ln_det(t).filter(|(_, d)| *d >= MIN_DET.ln())?;
+        let lambda = self.params.volume_weight * share;
+        let mut value = lambda * log_det;
+        for i in 0..k {
+            for j in 0..k {
                 // ∂ ln det T / ∂T[i][j] = (T⁻¹)[j][i].
                 gt[i * k + j] += lambda * t_inv[[j, i]];
             }
         }
-        // Through the row softmax: ∂/∂U[i][j] = T[i][j]·(g[i][j] − Σ_l T[i][l]·g[i][l]).
-        for i in 0..k {
-            let row = &mut gt[i * k..(i + 1) * k];
-            let mean: f64 = (0..k).map(|l| t[[i, l]] * row[l]).sum();
-            for (j, g) in row.iter_mut().enumerate() {
-                *g = t[[i, j]] * (*g - mean);
+        if let Some((centre, rows_per_class)) = self.groups.prior {
+            let weight = rows_per_class / self.rows.len() as f64;
+            for i in 0..k {
+                for j in 0..k {
+                    let c = centre[[i, j]];
+                    if c > 0.0 {
+                        value -= weight * c * t[[i, j]].ln();
+                        gt[i * k + j] -= weight * c / t[[i, j]];
+                    }
+                }
             }
         }
-        nll + lambda * log_det + 0.5 * self.params.l2 * ridge
+        Some(value)
     }
 
     /// Mean negative log-likelihood; `grad` receives its gradient with respect to A, b
-    /// and T (T's in U's place, before the chain through the row softmax).
-    fn nll_and_grad(&self, theta: &[f64], t: &Array2<f64>, grad: &mut [f64]) -> f64 {
+    /// and each T_g (in U_g's place, before the chain through the row softmax).
+    fn nll_and_grad(&self, theta: &[f64], flips: &[Array2<f64>], grad: &mut [f64]) -> f64 {
         let n = self.rows.len();
-        // T's columns, one after another: the observed class's column is one slice.
-        let t_cols: Vec<f64> = t.t().iter().copied().collect();
+        // Each T's columns, one after another: the observed class's column is one slice.
+        let t_cols: Vec<f64> = flips
+            .iter()
+            .flat_map(|t| t.t().iter().copied().collect::<Vec<_>>())
+            .collect();
         let parts: Vec<Partial> = self
             .rows
             .par_chunks(BLOCK_ROWS)
@@ -322,7 +439,9 @@ impl Problem<'_> {
         for (mut q, &r) in g.rows_mut().into_iter().zip(rows) {
             let q = q.as_slice_mut().expect("standard layout");
             let observed = self.labels[r];
-            let column = &t_cols[observed * k..(observed + 1) * k];
+            let base = self.groups.of(r) * k * k;
+            let column = &t_cols[base + observed * k..base + (observed + 1) * k];
+            let gt = &mut gt[base..base + k * k];
             match self.trusted.and_then(|t| t[r]) {
                 Some(clean) => {
                     let tc = column[clean];
@@ -412,7 +531,24 @@ mod tests {
     #[test]
     fn gradient_matches_finite_differences() {
         // Central differences of the whole objective (likelihood, audited rows, volume
-        // penalty, ridge) at an arbitrary point.
+        // penalty, ridge) at an arbitrary point: one group, then two groups (label
+        // sources) with the shrinkage prior.
+        let centre = array![[0.7, 0.2, 0.1], [0.1, 0.8, 0.1], [0.1, 0.1, 0.8]];
+        let of_row = [0u32, 1, 1, 0, 1];
+        let cases = [
+            Groups::one(5),
+            Groups {
+                of_row: &of_row,
+                count: 2,
+                prior: Some((&centre, 3.0)),
+            },
+        ];
+        for groups in &cases {
+            check_gradient(groups);
+        }
+    }
+
+    fn check_gradient(groups: &Groups) {
         let (probs, labels, trusted) = toy();
         let rows: Vec<usize> = (0..5).chain([2, 4]).collect();
         let (inputs, mean, scale) = log_inputs(probs.view(), &rows);
@@ -421,6 +557,7 @@ mod tests {
             l2: 0.01,
             max_iter: 10,
         };
+        let share = [4.0 / 7.0, 3.0 / 7.0];
         let problem = Problem {
             inputs: inputs.view(),
             labels: &labels,
@@ -429,12 +566,18 @@ mod tests {
             k: 3,
             params: &params,
             scale: &scale,
+            groups,
+            share: &share[..groups.count],
         };
         let mut theta = initial_parameters(
             &array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]],
             &mean,
             &scale,
         );
+        let first_u = theta[12..].to_vec();
+        for _ in 1..groups.count {
+            theta.extend_from_slice(&first_u);
+        }
         for (i, v) in theta.iter_mut().enumerate() {
             *v += 0.03 * ((i * 7 % 5) as f64 - 2.0);
         }
@@ -453,7 +596,8 @@ mod tests {
                 / (2.0 * h);
             assert!(
                 (numeric - grad[i]).abs() < 1e-6 * (1.0 + numeric.abs()),
-                "parameter {i}: analytic {} vs numeric {numeric}",
+                "{} groups, parameter {i}: analytic {} vs numeric {numeric}",
+                groups.count,
                 grad[i]
             );
         }

@@ -11,6 +11,7 @@ pub mod linalg;
 pub mod matrix;
 pub mod posterior;
 pub mod scores;
+pub mod sources;
 
 pub use diagnostics::{diagnose, Diagnostics};
 pub use estimators::{

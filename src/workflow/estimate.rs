@@ -4,10 +4,11 @@
 //! [`super::matrix_intervals`]) as separate jobs, because it diagnoses again after every
 //! edit and computes intervals only when asked.
 
-use super::{flip_matrix, matrix_intervals, FlipEstimate, MatrixSource, RowProbabilities};
+use super::{flip_matrix, matrix_intervals, source_intervals};
+use super::{FlipEstimate, MatrixSource, RowProbabilities};
 use crate::data::Dataset;
 use crate::error::{Error, Result};
-use crate::noise::bootstrap::Interval;
+use crate::noise::bootstrap::{Interval, SourceIntervals};
 
 /// What the estimate job computes.
 #[derive(Debug, Clone, PartialEq)]
@@ -46,6 +47,9 @@ pub struct Estimated {
     pub estimate: FlipEstimate,
     /// 90 % intervals of every cell, when resamples were asked for.
     pub interval: Option<Interval>,
+    /// 90 % intervals of every source's matrix and noise rate, when resamples were asked
+    /// for and the table names a source column.
+    pub source_intervals: Option<SourceIntervals>,
     /// Everything the user should know: the table's warnings, the probabilities'
     /// warnings, the estimator's warnings and the diagnostics' warnings, in that order.
     pub warnings: Vec<String>,
@@ -59,15 +63,17 @@ pub fn estimate(
 ) -> Result<Estimated> {
     params.check()?;
     let estimate = flip_matrix(data, probs, &params.matrix)?;
-    let interval = match &params.matrix {
-        MatrixSource::Estimate(method) if params.resamples > 0 => Some(matrix_intervals(
-            data,
-            probs,
-            method,
-            params.resamples,
-            params.seed,
-        )?),
-        _ => None,
+    let (interval, source_intervals) = match (&params.matrix, &data.sources) {
+        (MatrixSource::Estimate(method), Some(sources)) if params.resamples > 0 => {
+            let by_source =
+                source_intervals(data, sources, probs, method, params.resamples, params.seed)?;
+            (Some(by_source.overall.clone()), Some(by_source))
+        }
+        (MatrixSource::Estimate(method), None) if params.resamples > 0 => {
+            let interval = matrix_intervals(data, probs, method, params.resamples, params.seed)?;
+            (Some(interval), None)
+        }
+        _ => (None, None),
     };
     let mut warnings = data.warnings.clone();
     warnings.extend(estimate.warnings.iter().cloned());
@@ -75,6 +81,7 @@ pub fn estimate(
     Ok(Estimated {
         estimate,
         interval,
+        source_intervals,
         warnings,
     })
 }

@@ -13,15 +13,17 @@ use std::path::{Path, PathBuf};
 
 use ndarray::Array2;
 
+use crate::data::sources::LabelSources;
 use crate::data::{Dataset, ProbOptions, Probabilities};
 use crate::error::Result;
 use crate::io::matrix_csv::load_matrix_csv;
 use crate::learn::{out_of_fold, OofParams};
-use crate::noise::bootstrap::{bootstrap, Interval};
+use crate::noise::bootstrap::{bootstrap, bootstrap_by_source, Interval, SourceIntervals};
 use crate::noise::diagnostics::diagnose_with_expected;
 use crate::noise::fit_check::audit_disagreements;
 use crate::noise::posterior::{Flip, Posterior};
 use crate::noise::scores::ScoreKind;
+use crate::noise::sources::{estimate_by_source, SourceSample, Testing};
 use crate::noise::{estimate, Diagnostics, Estimate, Method, Sample};
 
 /// Where the probabilities came from.
@@ -142,6 +144,8 @@ pub struct FlipEstimate {
     pub diagnostics: Diagnostics,
     /// Warnings from estimation or reading.
     pub warnings: Vec<String>,
+    /// One matrix per label source (see [`crate::noise::Estimate::by_source`]).
+    pub by_source: Option<crate::noise::sources::BySource>,
 }
 
 /// The data's rows as an estimator sample.
@@ -163,7 +167,37 @@ pub fn estimate_on_all_rows(
     method: &Method,
 ) -> Result<Estimate> {
     let rows: Vec<usize> = (0..data.rows()).collect();
-    estimate(method, &sample(data, &probs.values, &rows), &data.classes)
+    let sample = sample(data, &probs.values, &rows);
+    let overall = estimate(method, &sample, &data.classes)?;
+    match &data.sources {
+        Some(sources) => with_sources(method, sample, sources, &data.classes, overall),
+        None => Ok(overall),
+    }
+}
+
+/// `overall` with one matrix per source: its matrix and clean posteriors become the
+/// sources' mix and their shared clean posterior.
+pub fn with_sources<'a>(
+    method: &Method,
+    sample: Sample<'a>,
+    sources: &'a LabelSources,
+    classes: &[String],
+    overall: Estimate,
+) -> Result<Estimate> {
+    let data = SourceSample {
+        sample,
+        of_row: &sources.of_row,
+        names: &sources.names,
+    };
+    let by_source = estimate_by_source(method, &data, classes, &overall, Testing::Run)?;
+    let mut warnings = overall.warnings;
+    warnings.extend(by_source.warnings.iter().cloned());
+    Ok(Estimate {
+        matrix: by_source.overall.clone(),
+        clean: Some(by_source.clean.clone()),
+        warnings,
+        by_source: Some(by_source),
+    })
 }
 
 /// What the posterior score reads and how: a joint fit's clean posteriors under
@@ -252,11 +286,17 @@ pub fn matrix_only(
     let mut estimate = match source {
         MatrixSource::Estimate(method) => estimate_on_all_rows(data, probs, method)?,
         MatrixSource::File { path, renormalize } => {
-            let (matrix, warnings) = load_matrix_csv(path, &data.classes, *renormalize)?;
+            let (matrix, mut warnings) = load_matrix_csv(path, &data.classes, *renormalize)?;
+            if data.sources.is_some() {
+                warnings.push(
+                    "a matrix file holds one matrix: the source column is not used for it".into(),
+                );
+            }
             Estimate {
                 matrix,
                 clean: None,
                 warnings,
+                by_source: None,
             }
         }
     };
@@ -274,6 +314,7 @@ pub fn flip_matrix(
         matrix,
         clean,
         warnings,
+        by_source,
     } = matrix_only(data, probs, source)?;
     let diagnostics = diagnose_matrix(data, probs, &matrix, clean.as_ref());
     Ok(FlipEstimate {
@@ -281,7 +322,26 @@ pub fn flip_matrix(
         clean,
         diagnostics,
         warnings,
+        by_source,
     })
+}
+
+/// Bootstrap intervals of `method` on all rows, one matrix per source.
+pub fn source_intervals(
+    data: &Dataset,
+    sources: &LabelSources,
+    probs: &RowProbabilities,
+    method: &Method,
+    resamples: usize,
+    seed: u64,
+) -> Result<SourceIntervals> {
+    let rows: Vec<usize> = (0..data.rows()).collect();
+    let base = SourceSample {
+        sample: sample(data, &probs.values, &rows),
+        of_row: &sources.of_row,
+        names: &sources.names,
+    };
+    bootstrap_by_source(method, &base, &data.classes, resamples, seed)
 }
 
 /// Bootstrap intervals of `method` on all rows.

@@ -12,7 +12,7 @@ use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::worklist::Item;
 use crate::noise::posterior::Flip;
-use crate::noise::scores::{rank_values, score_selected, score_values, select_rows, RowScore};
+use crate::noise::scores::{rank_values, select_rows, RowFlips, RowScore};
 use crate::noise::scores::{ScoreKind, Selection};
 use crate::noise::Estimate;
 use crate::timing::Stages;
@@ -130,8 +130,16 @@ pub fn suspects(
         None => (None, None),
     };
     let (score_probs, flip) = score_inputs(params.score, probs, clean, t);
+    let by_source = matrix.as_ref().and_then(|m| m.estimate.by_source.as_ref());
+    let flips = match (flip, by_source, &data.sources) {
+        (Some(_), Some(by_source), Some(sources)) => RowFlips::BySource {
+            flips: by_source.matrices().into_iter().map(Flip::clean).collect(),
+            of_row: &sources.of_row,
+        },
+        _ => RowFlips::One(flip),
+    };
     // Scores alone for every row; the full verdict only for the rows listed.
-    let scores = score_values(params.score, score_probs, &data.labels, flip);
+    let scores = flips.values(params.score, score_probs, &data.labels);
     let (histogram, expected_errors) = score_summaries(&scores, params.score);
     stages.end("scores");
     if let Some(m) = &matrix {
@@ -148,7 +156,7 @@ pub fn suspects(
         params,
         order: &order,
         score_probs,
-        flip,
+        flips: &flips,
     };
     let (listed, items) = lists.choose(&scores);
     stages.end("rank");
@@ -186,7 +194,7 @@ struct Lists<'a> {
     params: &'a SuspectsParams,
     order: &'a [usize],
     score_probs: ArrayView2<'a, f32>,
-    flip: Option<Flip<'a>>,
+    flips: &'a RowFlips<'a>,
 }
 
 impl Lists<'_> {
@@ -215,13 +223,8 @@ impl Lists<'_> {
     }
 
     fn verdicts(&self, rows: &[usize]) -> Vec<RowScore> {
-        score_selected(
-            self.params.score,
-            self.score_probs,
-            &self.data.labels,
-            self.flip,
-            rows,
-        )
+        self.flips
+            .selected(self.params.score, self.score_probs, &self.data.labels, rows)
     }
 
     fn ranks(&self, rows: &[usize]) -> Vec<usize> {

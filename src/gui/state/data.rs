@@ -125,6 +125,7 @@ pub fn table_options(roles: &Roles) -> Result<TableOptions, String> {
         id: roles.id.clone(),
         trusted: roles.trusted.clone(),
         features: roles.features.clone(),
+        source: roles.source.clone(),
         exclude: Vec::new(),
         unlabeled: false,
     })

@@ -225,6 +225,9 @@ pub struct Estimate {
     pub clean: Option<Array2<f32>>,
     /// Warnings such as fallbacks taken.
     pub warnings: Vec<String>,
+    /// One matrix per label source, when the table names a source column; `matrix` and
+    /// `clean` are then the sources' mix and their shared clean posterior.
+    pub by_source: Option<crate::noise::sources::BySource>,
 }
 
 /// Runs `method` on `sample`; `classes` names the classes in messages.
@@ -256,6 +259,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
         matrix,
         clean,
         warnings,
+        by_source: None,
     })
 }
 

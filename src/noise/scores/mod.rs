@@ -7,10 +7,12 @@ use serde::Serialize;
 
 use super::posterior::{odds, odds_of, wrong_probability, Flip, Posterior, Workspace, BLOCK_ROWS};
 
+mod by_source;
 mod selection;
 #[cfg(test)]
 mod tests;
 
+pub use self::by_source::RowFlips;
 pub use self::selection::{auroc, rank, rank_values, select_rows, Selection};
 
 /// Which score ranks the rows.
