@@ -164,6 +164,12 @@ pub enum Problem {
         /// How many empty cells the column has.
         count: usize,
     },
+    /// A row that none of the annotator columns labels.
+    #[error("no annotator labelled this row (columns {columns} are all empty); every row needs at least one label")]
+    NoAnnotation {
+        /// The annotator columns, comma-separated.
+        columns: String,
+    },
     /// An empty label cell.
     #[error("the label cell is empty; every row needs an observed label")]
     EmptyLabel,

@@ -8,6 +8,7 @@ use crate::data::roles::parse_delimiter;
 use crate::data::{ProbOptions, TableOptions};
 use crate::learn::{OofParams, SoftmaxParams};
 use crate::noise::{Estimator, EstimatorSettings, Method, TrustedFallback};
+use crate::workflow::consensus::ConsensusPrior;
 use crate::workflow::MatrixSource;
 
 /// Which file to read and which column plays which role.
@@ -31,6 +32,20 @@ pub struct TableArgs {
     /// Feature columns, comma-separated [default: every other column whose values are all numbers]
     #[arg(long, value_name = "A,B,..", value_delimiter = ',')]
     pub features: Option<Vec<String>>,
+    /// Several label columns, one per annotator, comma-separated (an empty cell: that
+    /// annotator did not label the row); each annotator's confusion matrix and each row's
+    /// consensus are estimated (Dawid & Skene), and the consensus is the observed label
+    #[arg(
+        long,
+        value_name = "A,B,..",
+        value_delimiter = ',',
+        conflicts_with = "label"
+    )]
+    pub labels: Option<Vec<String>>,
+    /// With --labels: each row's prior on its true class in the consensus: the
+    /// classifier's out-of-sample probabilities, or one class prior shared by all rows
+    #[arg(long, value_enum, default_value_t = ConsensusPrior::Classifier, requires = "labels")]
+    pub consensus_prior: ConsensusPrior,
     /// Column saying where each label came from (annotator, station, vendor, rule): one
     /// flip matrix is then estimated per source, and suspects are scored with their own
     /// source's matrix
@@ -48,6 +63,7 @@ impl TableArgs {
             trusted: self.trusted.clone(),
             features: self.features.clone(),
             source: self.source.clone(),
+            annotators: self.labels.clone(),
             exclude: Vec::new(),
             unlabeled: false,
         }

@@ -16,6 +16,7 @@ use crate::io::probs_csv::write_probs_csv;
 use crate::io::{check_not_input, write_atomic, write_json};
 use crate::noise::diagnostics::ReliabilityBin;
 use crate::noise::Method;
+use crate::workflow::consensus::Consensual;
 use crate::workflow::estimate::{estimate, EstimateParams, Estimated};
 use crate::workflow::{self, MatrixSource, RowProbabilities};
 
@@ -38,6 +39,10 @@ pub struct EstimateArgs {
     /// Write the report as JSON
     #[arg(long, value_name = "FILE")]
     pub json: Option<PathBuf>,
+    /// With --labels: write each row's consensus (CSV: id, consensus, consensus_prob,
+    /// majority)
+    #[arg(long, value_name = "FILE", requires = "labels")]
+    pub consensus_out: Option<PathBuf>,
 }
 
 /// The JSON report; its keys are stable (other tools parse them).
@@ -68,6 +73,9 @@ struct EstimateReport<'a> {
     sources: Option<Vec<super::sources::SourceReport>>,
     #[serde(skip_serializing_if = "Option::is_none")]
     sources_test: Option<super::sources::TestReport>,
+    /// With several annotators' columns: each annotator.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    annotators: Option<Vec<super::annotators::AnnotatorJson>>,
 }
 
 /// Runs `estimate`.
@@ -92,19 +100,34 @@ pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
         &args.pipeline.fit.oof(),
         &mut progress_line,
     )?;
+    let prior = args.pipeline.table.consensus_prior;
+    let (data, consensus) =
+        super::annotators::relabel(data, &probs, prior, args.bootstrap, args.pipeline.fit.seed)?;
     let params = EstimateParams {
         matrix: args.pipeline.matrix.source(args.pipeline.probs.renormalize),
         resamples: args.bootstrap,
         seed: args.pipeline.fit.seed,
     };
     let found = estimate(&data, &probs, &params)?;
-    write_outputs(args, &data, &probs, &found, &params.matrix)?;
-    super::emit(out, &render(&data, &probs, &found, &params.matrix))
+    write_outputs(
+        args,
+        &data,
+        &probs,
+        &found,
+        &params.matrix,
+        consensus.as_ref(),
+    )?;
+    let mut text = String::new();
+    if let Some(consensus) = &consensus {
+        super::annotators::render(&mut text, consensus, prior);
+    }
+    text.push_str(&render(&data, &probs, &found, &params.matrix));
+    super::emit(out, &text)
 }
 
 fn check_outputs(args: &EstimateArgs) -> Result<()> {
     let inputs = args.pipeline.inputs();
-    for output in [&args.out, &args.probs_out, &args.json]
+    for output in [&args.out, &args.probs_out, &args.json, &args.consensus_out]
         .into_iter()
         .flatten()
     {
@@ -137,8 +160,12 @@ fn write_outputs(
     probs: &RowProbabilities,
     found: &Estimated,
     source: &MatrixSource,
+    consensus: Option<&Consensual>,
 ) -> Result<()> {
     let (estimate, interval) = (&found.estimate, found.interval.as_ref());
+    if let (Some(path), Some(consensus)) = (&args.consensus_out, consensus) {
+        write_atomic(path, |w| super::annotators::write_rows(w, data, consensus))?;
+    }
     if let Some(path) = &args.out {
         write_atomic(path, |w| {
             write_matrix_csv(w, &estimate.matrix, &data.classes)
@@ -176,6 +203,7 @@ fn write_outputs(
             source_column: data.sources.as_ref().map(|s| s.column.as_str()),
             sources,
             sources_test,
+            annotators: consensus.map(super::annotators::report),
         };
         write_json(path, &report)?;
     }

@@ -1,5 +1,6 @@
 //! The command line: flags parsed into plain data, then turned into library calls.
 
+mod annotators;
 mod args;
 mod compare;
 mod estimate;

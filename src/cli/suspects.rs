@@ -122,6 +122,13 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         &mut |_, _| true,
     )?;
     stages.end("probabilities");
+    let (data, _) = super::annotators::relabel(
+        data,
+        &probs,
+        args.pipeline.table.consensus_prior,
+        0,
+        args.pipeline.fit.seed,
+    )?;
     let found = suspects(&data, &probs, &params, &mut stages)?;
     let key = match &args.out {
         Some(path) => {

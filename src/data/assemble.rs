@@ -7,6 +7,7 @@ use std::path::Path;
 use ndarray::Array2;
 use rayon::prelude::*;
 
+use super::annotations::Annotations;
 use super::natural::natural_cmp;
 use super::roles::ColumnPlan;
 use super::sources::LabelSources;
@@ -38,12 +39,28 @@ impl Assembly<'_> {
         let features = Array2::from_shape_vec((self.cells.rows, kept.len()), values)
             .map_err(|e| Error::Internal(format!("feature array shape: {e}")))?;
         let (classes, order) = self.class_order();
-        let labels: Vec<usize> = self
-            .cells
-            .labels
-            .iter()
-            .map(|&c| order[c as usize])
-            .collect();
+        let annotations = (!plan.annotators.is_empty()).then(|| {
+            let columns = plan
+                .annotators
+                .iter()
+                .map(|&f| plan.header[f].clone())
+                .collect();
+            Annotations::from_codes(columns, &self.cells.annotations, &order)
+        });
+        let labels: Vec<usize> = match &annotations {
+            // Every row has a label from some annotator (the reader checked).
+            Some(a) => a
+                .majority(classes.len())
+                .into_iter()
+                .map(|l| l.unwrap_or(0))
+                .collect(),
+            None => self
+                .cells
+                .labels
+                .iter()
+                .map(|&c| order[c as usize])
+                .collect(),
+        };
         let trusted = plan.trusted.map(|_| {
             self.cells
                 .trusted
@@ -64,7 +81,7 @@ impl Assembly<'_> {
             warnings.extend(blank);
             sources
         });
-        let plan_labeled = plan.label.is_some();
+        let plan_labeled = plan.label.is_some() || annotations.is_some();
         let ids = plan.id.map(|_| std::mem::take(&mut self.cells.ids));
         if let Some(ids) = &ids {
             self.check_unique_ids(ids, &plan)?;
@@ -86,6 +103,7 @@ impl Assembly<'_> {
             trusted,
             trusted_origins,
             sources,
+            annotations,
             ids,
             ignored,
             missing,
@@ -131,7 +149,8 @@ impl Assembly<'_> {
                     || Some(i) == plan.label
                     || Some(i) == plan.id
                     || Some(i) == plan.trusted
-                    || Some(i) == plan.source;
+                    || Some(i) == plan.source
+                    || plan.annotators.contains(&i);
                 if !used {
                     ignored.push(IgnoredColumn {
                         name: name.clone(),

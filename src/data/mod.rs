@@ -1,5 +1,6 @@
 //! Tables, column roles, probabilities and their validation.
 
+pub mod annotations;
 mod assemble;
 pub mod natural;
 pub mod origin;

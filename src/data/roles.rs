@@ -27,6 +27,9 @@ pub struct TableOptions {
     pub trusted: Option<String>,
     /// Feature columns in the order given; default every other all-numeric column.
     pub features: Option<Vec<String>>,
+    /// Several label columns, one per annotator (an empty cell: that annotator did not
+    /// label the row); the observed label is then their consensus. Replaces `label`.
+    pub annotators: Option<Vec<String>>,
     /// Column that says where each row's label came from (annotator, station, vendor,
     /// rule); no default, since a per-source estimate changes every figure.
     pub source: Option<String>,
@@ -75,6 +78,8 @@ pub struct ColumnPlan {
     pub origin: Option<usize>,
     /// Field index of the label-source column, if any.
     pub source: Option<usize>,
+    /// Field indices of the annotators' label columns (empty without `--labels`).
+    pub annotators: Vec<usize>,
     /// Field indices parsed as numbers: the features when `explicit`, else candidates.
     pub numeric: Vec<usize>,
     /// True when `--features` fixed the feature list.
@@ -103,8 +108,15 @@ impl ColumnPlan {
                 )
             })
         };
+        let annotators = annotator_fields(path, options, &lookup)?;
         let label = match &options.label {
+            Some(_) if !annotators.is_empty() => {
+                return Err(Error::Usage(
+                    "give either one label column (--label) or several (--labels), not both".into(),
+                ))
+            }
             Some(name) => Some(lookup("--label", name)?),
+            None if !annotators.is_empty() => None,
             None if options.unlabeled => find(DEFAULT_LABEL),
             None => Some(find(DEFAULT_LABEL).ok_or_else(|| no_label(path, header))?),
         };
@@ -131,6 +143,11 @@ impl ColumnPlan {
             ("label source", source),
         ];
         check_clashes(path, header, &roles)?;
+        for &a in &annotators {
+            if let Some((role, _)) = roles.iter().find(|(_, r)| *r == Some(a)) {
+                return Err(clash(path, &header[a], role, "an annotator's labels"));
+            }
+        }
         let mut excluded = Vec::with_capacity(options.exclude.len());
         for (flag, name) in &options.exclude {
             let i = lookup(flag, name)?;
@@ -139,6 +156,7 @@ impl ColumnPlan {
             }
             excluded.push(i);
         }
+        excluded.extend_from_slice(&annotators);
         let is_role = |i: usize| roles.iter().any(|(_, r)| *r == Some(i)) || excluded.contains(&i);
         let (numeric, explicit) = match &options.features {
             Some(names) => (
@@ -154,10 +172,40 @@ impl ColumnPlan {
             trusted,
             origin,
             source,
+            annotators,
             numeric,
             explicit,
         })
     }
+}
+
+/// The fields `--labels` names, in its order; fewer than two, or one named twice, is an
+/// error (one column is `--label`'s job).
+fn annotator_fields(
+    path: &Path,
+    options: &TableOptions,
+    lookup: &dyn Fn(&str, &str) -> Result<usize>,
+) -> Result<Vec<usize>> {
+    let Some(names) = &options.annotators else {
+        return Ok(Vec::new());
+    };
+    let mut fields = Vec::with_capacity(names.len());
+    for name in names {
+        let i = lookup("--labels", name)?;
+        if fields.contains(&i) {
+            return Err(Error::Usage(format!(
+                "--labels names the column '{name}' twice ({})",
+                path.display()
+            )));
+        }
+        fields.push(i);
+    }
+    if fields.len() < 2 {
+        return Err(Error::Usage(
+            "--labels needs at least two annotators' columns; one label column is --label".into(),
+        ));
+    }
+    Ok(fields)
 }
 
 /// The fields `--features` names, in its order without repeats; a name that is another

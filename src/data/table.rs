@@ -95,6 +95,9 @@ pub struct Dataset {
     /// How each row's trusted label was obtained; `None` when the table has no origin
     /// column (every trusted label then counts as a random audit).
     pub trusted_origins: Option<Vec<Origin>>,
+    /// Several annotators' labels per row, when `--labels` named their columns; `labels`
+    /// then holds their majority until a consensus replaces it.
+    pub annotations: Option<super::annotations::Annotations>,
     /// The label-source column, when one was named.
     pub sources: Option<super::sources::LabelSources>,
     /// Ids from the id column; rows are identified by 0-based row number when absent.

@@ -66,6 +66,9 @@ pub(crate) struct ChunkOut {
     pub origins: Vec<Origin>,
     /// The block's label strings, in order of first appearance.
     pub names: Vec<String>,
+    /// Rows × annotators label codes (into `names`) or [`NONE`], row-major (only with
+    /// annotator columns).
+    pub annotations: Vec<u32>,
     /// Label source per row, as a code into `source_names` (only with a source column).
     pub sources: Vec<u32>,
     /// The block's source strings, in order of first appearance.
@@ -201,6 +204,7 @@ enum Kind {
     Trusted,
     Origin,
     Source,
+    Annotator(usize),
     Id,
     Numeric(usize),
     Unused,
@@ -219,6 +223,9 @@ fn kinds(plan: &ColumnPlan) -> Vec<Kind> {
     }
     if let Some(s) = plan.source {
         kinds[s] = Kind::Source;
+    }
+    for (a, &field) in plan.annotators.iter().enumerate() {
+        kinds[field] = Kind::Annotator(a);
     }
     if let Some(i) = plan.id {
         kinds[i] = Kind::Id;
@@ -277,6 +284,10 @@ impl<'a> BlockParser<'a> {
         self.out
             .values
             .resize(base + self.plan.numeric.len(), f64::NAN);
+        let annotation_base = self.out.annotations.len();
+        self.out
+            .annotations
+            .resize(annotation_base + self.plan.annotators.len(), NONE);
         for f in 0..fields {
             if pos > line.len() {
                 self.out.values.truncate(base);
@@ -306,6 +317,9 @@ impl<'a> BlockParser<'a> {
                 Kind::Trusted => self.trusted(cell, line_no, f)?,
                 Kind::Origin => self.origin(cell, line_no, f)?,
                 Kind::Source => self.source(cell, line_no, f)?,
+                Kind::Annotator(a) => {
+                    self.out.annotations[annotation_base + a] = self.annotation(cell, line_no, f)?
+                }
                 Kind::Id => self.id(cell, line_no, f)?,
                 Kind::Unused => {}
             }
@@ -314,8 +328,35 @@ impl<'a> BlockParser<'a> {
             let extra = line[pos..].iter().filter(|&&b| b == delimiter).count() + 1;
             return Err((line_no, None, ragged(fields, fields + extra)));
         }
+        self.check_annotated(annotation_base, line_no)?;
         self.out.rows += 1;
         Ok(())
+    }
+
+    /// An annotator's cell: a label code, or [`NONE`] when empty.
+    fn annotation(&mut self, cell: &[u8], line: u64, field: usize) -> Result<u32, Fatal> {
+        if cell.is_empty() {
+            return Ok(NONE);
+        }
+        self.code(cell).map_err(|p| (line, Some(field), p))
+    }
+
+    /// Refuses a row whose annotator cells (from `base`) are all empty.
+    fn check_annotated(&self, base: usize, line: u64) -> Result<(), Fatal> {
+        let cells = &self.out.annotations[base..];
+        if self.plan.annotators.is_empty() || cells.iter().any(|&c| c != NONE) {
+            return Ok(());
+        }
+        let columns: Vec<&str> = self
+            .plan
+            .annotators
+            .iter()
+            .map(|&f| self.plan.header[f].as_str())
+            .collect();
+        let problem = Problem::NoAnnotation {
+            columns: columns.join(", "),
+        };
+        Err((line, None, problem))
     }
 
     fn label(&mut self, cell: &[u8], line: u64, field: usize) -> Result<(), Fatal> {
@@ -397,6 +438,12 @@ impl<'a> BlockParser<'a> {
         if let Some(field) = self.plan.source {
             self.source(record.field(field), line, field)?;
         }
+        let annotation_base = self.out.annotations.len();
+        for &field in &self.plan.annotators {
+            let code = self.annotation(record.field(field), line, field)?;
+            self.out.annotations.push(code);
+        }
+        self.check_annotated(annotation_base, line)?;
         if let Some(field) = self.plan.id {
             self.id(record.field(field), line, field)?;
         }

@@ -40,6 +40,8 @@ pub(crate) struct Merged {
     pub(crate) origins: Vec<Origin>,
     /// Label strings in order of first appearance.
     pub(crate) names: Vec<String>,
+    /// Rows × annotators label codes into `names` or [`NONE`] (only with annotators).
+    pub(crate) annotations: Vec<u32>,
     /// Label source per row as a code into `source_names` (only with a source column).
     pub(crate) sources: Vec<u32>,
     /// Source strings in order of first appearance.
@@ -262,6 +264,17 @@ impl<'a> TableReader<'a> {
                 remap[c as usize]
             }
         }));
+        self.cells
+            .annotations
+            .extend(out.annotations.iter().map(
+                |&c| {
+                    if c == NONE {
+                        NONE
+                    } else {
+                        remap[c as usize]
+                    }
+                },
+            ));
         self.cells.origins.extend_from_slice(&out.origins);
         let source_remap: Vec<u32> = out
             .source_names

@@ -2,6 +2,7 @@
 //! probabilities, then a flip matrix, then its diagnostics.
 
 pub mod compare;
+pub mod consensus;
 pub mod estimate;
 pub mod ranking;
 pub mod review;

@@ -126,6 +126,7 @@ pub fn table_options(roles: &Roles) -> Result<TableOptions, String> {
         trusted: roles.trusted.clone(),
         features: roles.features.clone(),
         source: roles.source.clone(),
+        annotators: None,
         exclude: Vec::new(),
         unlabeled: false,
     })

@@ -68,7 +68,15 @@ pub(super) fn check_annotators(p: &Problem) -> Result<()> {
     }
     let why = "so their confusion matrices cannot be estimated on a common scale";
     let fix = "add shared items or fit the groups apart";
-    let head = format!("annotators {outside:?} never label an item together with {inside:?}");
+    let list = |group: &[usize]| {
+        let named: Vec<String> = group.iter().map(|a| format!("annotator {a}")).collect();
+        named.join(", ")
+    };
+    let head = format!(
+        "{} never label an item together with {}",
+        list(&outside),
+        list(&inside)
+    );
     usage(format!("{head}, {why}; {fix}"))
 }
 

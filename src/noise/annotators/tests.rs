@@ -342,7 +342,9 @@ fn disconnected_annotators_are_refused() {
     ];
     let message = usage_message(fit_labels(&labels, 2));
     assert!(
-        message.contains("annotators [2, 3] never label an item together with [0, 1]"),
+        message.contains(
+            "annotator 2, annotator 3 never label an item together with annotator 0, annotator 1"
+        ),
         "{message}"
     );
 }
