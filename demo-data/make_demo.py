@@ -6,7 +6,9 @@ INVENTED SCENARIO: no real plant, camera or operator is behind these numbers.
 A sorting plant photographs each item on the belt; a vision model embeds the picture into
 12 numbers (emb0..emb11). Operators at four sorting stations type the material. They mix
 up some pairs more than others (PET vs HDPE, cardboard vs paper, aluminium vs steel), so
-the flip pattern is asymmetric. A supervisor audited a few hundred items (column
+the flip pattern is asymmetric. The stations differ: S1's operator is the most
+experienced (half the base confusion), S2 and S3 type at the base rates, and S4 is
+staffed by a new operator who confuses every pair twice as often (STATION_SCALE). A supervisor audited a few hundred items (column
 `trusted`). The true material of every item is in recycling_truth.csv, for checking the
 tool only.
 
@@ -34,13 +36,15 @@ FLIPS = {
 # Materials that look alike sit closer together in the embedding.
 NEIGHBOURS = [("pet_bottle", "hdpe_jug"), ("alu_can", "steel_can"), ("cardboard", "paper"), ("film", "hdpe_jug")]
 STATIONS = ["S1", "S2", "S3", "S4"]
+# Each station's confusion: the base flip probabilities times this factor.
+STATION_SCALE = {"S1": 0.5, "S2": 1.0, "S3": 1.0, "S4": 2.0}
 DIMS = 12
 
 
-def flip_matrix():
+def flip_matrix(scale=1.0):
     rows = []
     for true in CLASSES:
-        row = [FLIPS[true].get(typed, 0.0) for typed in CLASSES]
+        row = [scale * FLIPS[true].get(typed, 0.0) for typed in CLASSES]
         row[CLASSES.index(true)] = 1.0 - sum(row)
         rows.append(row)
     return rows
@@ -73,7 +77,7 @@ def main():
     means = class_means(rng)
     scale = [round(rng.uniform(0.5, 4.0), 2) for _ in range(DIMS)]
     offset = [round(rng.uniform(-5, 5), 2) for _ in range(DIMS)]
-    t = flip_matrix()
+    t = {s: flip_matrix(STATION_SCALE[s]) for s in STATIONS}
     audited = set(rng.sample(range(args.rows), args.audited))
     data_path = os.path.join(args.out, "recycling.csv")
     truth_path = os.path.join(args.out, "recycling_truth.csv")
@@ -83,14 +87,15 @@ def main():
         truth.writerow(["id", "true_label"])
         for row in range(args.rows):
             true = draw(rng, SHARES)
-            typed = draw(rng, t[true])
+            station = STATIONS[rng.randrange(4)]
+            typed = draw(rng, t[station][true])
             emb = [offset[d] + scale[d] * (means[CLASSES[true]][d] + rng.gauss(0, 1.0)) for d in range(DIMS)]
             item = f"B{1 + row % 3}-{row:05d}"
             trusted = CLASSES[true] if row in audited else ""
-            data.writerow([item, STATIONS[rng.randrange(4)]] + [f"{v:.4f}" for v in emb] + [CLASSES[typed], trusted])
+            data.writerow([item, station] + [f"{v:.4f}" for v in emb] + [CLASSES[typed], trusted])
             truth.writerow([item, CLASSES[true]])
     print(f"wrote {data_path} and {truth_path} (seed {args.seed})")
-    assert all(math.isclose(sum(r), 1.0) for r in t)
+    assert all(math.isclose(sum(r), 1.0) for m in t.values() for r in m)
 
 
 if __name__ == "__main__":

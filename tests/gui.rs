@@ -387,3 +387,38 @@ fn set_path(h: &mut Harness<'_, FlipmendApp>, purpose: Purpose, path: &Path) {
     *h.state_mut().ui.path(purpose) = text.display().to_string();
     h.run_steps(1);
 }
+
+#[test]
+fn a_source_column_gives_each_station_its_matrix_in_the_flip_matrix_view() {
+    // The invented demo's stations differ by design (demo-data/README.md): S4's operator
+    // confuses every pair twice as often as the base rates, S1's half as often.
+    let dir = TempDir::new();
+    let demo = flipmend::gui::demo_file(&dir.path("")).unwrap();
+    let mut h = Harness::builder()
+        .with_size([1400.0, 900.0])
+        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
+    let roles = Roles {
+        source: Some("station".into()),
+        ..Roles::default()
+    };
+    h.state_mut().push(Command::LoadData(demo, roles));
+    h.run_steps(1);
+    settle(&mut h);
+    let by_source = state(&h)
+        .estimate()
+        .and_then(|e| e.by_source.clone())
+        .expect("one matrix per station");
+    let rate = |name: &str| {
+        by_source
+            .sources
+            .iter()
+            .find(|s| s.name == name)
+            .unwrap()
+            .noise_rate
+    };
+    assert!(rate("S4") > rate("S2") && rate("S2") > rate("S1"));
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    h.get_by_label("Label sources");
+    h.get_by_label("S4");
+}

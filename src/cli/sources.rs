@@ -185,8 +185,10 @@ pub(super) fn render(
     }
     match by_source.test {
         Some(test) => {
-            let verdict = if test.p_value < 0.01 {
+            let verdict = if test.p_value <= 0.01 {
                 "the sources' matrices differ"
+            } else if test.p_value <= 0.05 {
+                "some evidence that the sources' matrices differ"
             } else {
                 "no evidence that the sources' matrices differ"
             };

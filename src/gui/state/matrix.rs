@@ -30,6 +30,7 @@ impl AppState {
                 warnings: e.warnings,
                 method: Some(method),
                 clean: e.clean.map(Arc::new),
+                by_source: e.by_source.map(Arc::new),
             };
             Ok(JobOutput::Estimated(e.matrix, info))
         });
@@ -110,6 +111,7 @@ impl AppState {
                     warnings: Vec::new(),
                     method: None,
                     clean: None,
+                    by_source: None,
                 });
                 self.intervals = None;
                 self.say(Level::Info, format!("imported {}", path.display()));

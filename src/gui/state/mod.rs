@@ -51,6 +51,8 @@ pub struct EstimateInfo {
     /// Every row's clean posterior from a joint fit: the scores read it under the
     /// (possibly edited) matrix instead of inverting the matrix.
     pub clean: Option<Arc<Array2<f32>>>,
+    /// One matrix per label source, when the roles name a source column.
+    pub by_source: Option<Arc<crate::noise::sources::BySource>>,
 }
 
 /// A comparison and the matrix version it was trained with.

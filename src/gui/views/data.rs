@@ -79,6 +79,10 @@ fn roles(
             data.trusted_column.as_deref(),
         );
         ui.end_row();
+        ui.label("label source")
+            .on_hover_text("the column saying who or what gave each label (annotator, station, vendor, rule): one flip matrix per source");
+        source_picker(ui, &data.header, &mut draft.source);
+        ui.end_row();
         ui.label("delimiter");
         let mut text = draft.delimiter.clone().unwrap_or_default();
         ui.add(
@@ -139,6 +143,19 @@ fn column_picker(
         .selected_text(shown)
         .show_ui(ui, |ui| {
             ui.selectable_value(choice, None, "automatic");
+            for h in header {
+                ui.selectable_value(choice, Some(h.clone()), h);
+            }
+        });
+}
+
+/// The label-source column: none unless chosen (a per-source estimate changes every
+/// figure, so it is never picked automatically).
+fn source_picker(ui: &mut egui::Ui, header: &[String], choice: &mut Option<String>) {
+    egui::ComboBox::from_id_salt("source")
+        .selected_text(choice.clone().unwrap_or_else(|| "none".into()))
+        .show_ui(ui, |ui| {
+            ui.selectable_value(choice, None, "none");
             for h in header {
                 ui.selectable_value(choice, Some(h.clone()), h);
             }

@@ -10,6 +10,7 @@ use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
 use crate::gui::matrix_edit::MatrixEditor;
 use crate::gui::state::AppState;
+use crate::noise::sources::{BySource, SourceMatrix};
 use crate::noise::{Estimator, TrustedFallback};
 
 /// Above this many classes the grid scrolls and the largest flips are listed beside it.
@@ -376,6 +377,67 @@ fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
         });
     for w in &d.warnings {
         ui.colored_label(ui.visuals().warn_fg_color, format!("warning: {}", plain(w)));
+    }
+    if let Some(by_source) = state.estimate().and_then(|e| e.by_source.as_deref()) {
+        ui.separator();
+        sources(ui, &data.classes, by_source);
+    }
+}
+
+/// The label sources from the noisiest: rows, noise rate, largest flip, and the test.
+fn sources(ui: &mut egui::Ui, classes: &[String], by_source: &BySource) {
+    ui.heading("Label sources");
+    ui.label("one flip matrix per source, one clean classifier for all; the grid shows their mix");
+    let mut order: Vec<usize> = (0..by_source.sources.len()).collect();
+    order.sort_by(|&a, &b| {
+        let rate = |s: usize| by_source.sources[s].noise_rate;
+        rate(b).total_cmp(&rate(a)).then(a.cmp(&b))
+    });
+    egui::Grid::new("sources").striped(true).show(ui, |ui| {
+        for head in ["source", "rows", "noise", "largest flip"] {
+            ui.strong(head);
+        }
+        ui.end_row();
+        for s in order {
+            let source = &by_source.sources[s];
+            ui.label(&source.name);
+            ui.label(source.rows.to_string());
+            ui.label(format!("{:.1}%", 100.0 * source.noise_rate));
+            ui.label(largest_flip(classes, source));
+            ui.end_row();
+        }
+    });
+    if let Some(test) = by_source.test {
+        let verdict = if test.p_value <= 0.01 {
+            "the sources differ"
+        } else {
+            "no clear difference between the sources"
+        };
+        ui.label(format!(
+            "test of equal matrices: p {} {:.2} ({verdict})",
+            if test.p_value <= 0.01 { "≤" } else { "=" },
+            test.p_value
+        ));
+    }
+}
+
+/// A source's largest off-diagonal flip by share of its rows, in words.
+fn largest_flip(classes: &[String], source: &SourceMatrix) -> String {
+    let k = classes.len();
+    let best = (0..k)
+        .flat_map(|i| (0..k).filter(move |&j| j != i).map(move |j| (i, j)))
+        .max_by(|&(a, b), &(c, d)| {
+            let share = |i: usize, j: usize| source.clean_share[i] * source.matrix[[i, j]];
+            share(a, b).total_cmp(&share(c, d))
+        });
+    match best {
+        Some((i, j)) => format!(
+            "{} typed as {}: {:.0}%",
+            classes[i],
+            classes[j],
+            100.0 * source.matrix[[i, j]]
+        ),
+        None => String::new(),
     }
 }
 
