@@ -64,6 +64,7 @@ fn main() {
                     probs: None,
                     start: None,
                     cancel: None,
+                    by_source: None,
                 },
                 &params,
             )

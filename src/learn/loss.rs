@@ -8,6 +8,13 @@ use ndarray::Array2;
 pub trait RowLoss: Sync {
     /// Returns the row's loss and overwrites `logits` with ∂loss/∂z.
     fn loss_and_grad(&self, logits: &mut [f64], label: usize) -> f64;
+
+    /// The same for the fit's row `index` (0-based among the rows fitted), for losses
+    /// that differ by row; the others ignore it.
+    fn loss_and_grad_at(&self, logits: &mut [f64], label: usize, index: usize) -> f64 {
+        let _ = index;
+        self.loss_and_grad(logits, label)
+    }
 }
 
 /// Softmax cross-entropy on the observed label: −log softmax(z)[label].
@@ -56,6 +63,40 @@ impl RowLoss for Forward {
             *q *= 1.0 - self.t[[j, label]] / noisy;
         }
         -noisy.ln()
+    }
+}
+
+/// Forward correction with one flip matrix per label source: row i is scored against
+/// T_{s(i)}ᵀq, the forward model of `noise::sources`.
+#[derive(Debug, Clone)]
+pub struct ForwardBySource {
+    /// One forward loss per source.
+    sources: Vec<Forward>,
+    /// The source of every fitted row, in fit order.
+    of_fit_row: Vec<u32>,
+    /// Used when no row index is given: the sources' mix.
+    overall: Forward,
+}
+
+impl ForwardBySource {
+    /// `matrices[s]` for the rows whose `of_fit_row` is s; `overall` without a row index.
+    pub fn new(matrices: &[Array2<f64>], of_fit_row: Vec<u32>, overall: Array2<f64>) -> Self {
+        ForwardBySource {
+            sources: matrices.iter().cloned().map(Forward::new).collect(),
+            of_fit_row,
+            overall: Forward::new(overall),
+        }
+    }
+}
+
+impl RowLoss for ForwardBySource {
+    fn loss_and_grad(&self, logits: &mut [f64], label: usize) -> f64 {
+        self.overall.loss_and_grad(logits, label)
+    }
+
+    fn loss_and_grad_at(&self, logits: &mut [f64], label: usize, index: usize) -> f64 {
+        let source = self.of_fit_row[index] as usize;
+        self.sources[source].loss_and_grad(logits, label)
     }
 }
 
@@ -239,6 +280,26 @@ mod tests {
 
     fn t3() -> Array2<f64> {
         ndarray::array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.0, 0.3, 0.7]]
+    }
+
+    #[test]
+    fn forward_by_source_scores_each_row_under_its_sources_matrix() {
+        // Row 0 from source 1 (T = t3), row 1 from source 0 (identity: plain
+        // cross-entropy); without an index, the overall matrix.
+        let eye = Array2::eye(3);
+        let loss = ForwardBySource::new(&[eye.clone(), t3()], vec![1, 0], eye);
+        let z = [1.0, 2.0, 3.0];
+        let under = |l: &dyn RowLoss, index: Option<usize>| {
+            let mut g = z;
+            match index {
+                Some(i) => l.loss_and_grad_at(&mut g, 1, i),
+                None => l.loss_and_grad(&mut g, 1),
+            }
+        };
+        let forward = under(&Forward::new(t3()), None);
+        assert_eq!(under(&loss, Some(0)), forward);
+        assert_eq!(under(&loss, Some(1)), under(&CrossEntropy, None));
+        assert_eq!(under(&loss, None), under(&CrossEntropy, None));
     }
 
     #[test]

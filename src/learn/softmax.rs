@@ -193,7 +193,9 @@ impl Problem<'_> {
                 continue;
             };
             logits.iter_mut().zip(bias).for_each(|(v, b)| *v += b);
-            loss += self.loss.loss_and_grad(logits, self.labels[start + r]);
+            loss += self
+                .loss
+                .loss_and_grad_at(logits, self.labels[start + r], start + r);
             grad_b
                 .iter_mut()
                 .zip(logits.iter())

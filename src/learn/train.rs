@@ -6,11 +6,13 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use ndarray::{Array2, ArrayView2};
 use serde::{Deserialize, Serialize};
 
-use super::loss::{Backward, CrossEntropy, Forward, RowLoss, DEFAULT_BACKWARD_CAP};
+use super::loss::DEFAULT_BACKWARD_CAP;
+use super::loss::{Backward, CrossEntropy, Forward, ForwardBySource, RowLoss};
 use super::softmax::{fit_from, FitReport, SoftmaxModel, SoftmaxParams};
 use crate::error::{Error, Result};
 use crate::noise::diagnostics::ILL_CONDITIONED;
 use crate::noise::linalg::{condition_number, inverse};
+use crate::noise::posterior::expected_from_scores;
 use crate::noise::posterior::Flip;
 use crate::noise::scores::{rank, score_rows, ScoreKind};
 
@@ -89,6 +91,18 @@ pub struct TrainInputs<'a> {
     pub start: Option<&'a SoftmaxModel>,
     /// Set from another thread to stop the fit (it then returns [`Error::Cancelled`]).
     pub cancel: Option<&'a AtomicBool>,
+    /// One flip matrix per label source: the forward correction then scores each row
+    /// against its own source's matrix (`matrix` is their mix).
+    pub by_source: Option<SourceFlips<'a>>,
+}
+
+/// One flip matrix per label source and the source of every data row.
+#[derive(Debug, Clone, Copy)]
+pub struct SourceFlips<'a> {
+    /// Row-stochastic, one per source.
+    pub matrices: &'a [Array2<f64>],
+    /// The source of every data row (indexed like the labels).
+    pub of_row: &'a [u32],
 }
 
 /// Trains on the rows `rows` of `x` (labels indexed by data row).
@@ -113,9 +127,17 @@ pub fn train(
     };
     let loss: Box<dyn RowLoss> = match correction {
         Correction::None | Correction::Prune => Box::new(CrossEntropy),
-        Correction::Forward => Box::new(Forward::new(
-            matrix.cloned().unwrap_or_else(|| Array2::eye(classes)),
-        )),
+        Correction::Forward => {
+            let overall = matrix.cloned().unwrap_or_else(|| Array2::eye(classes));
+            match inputs.by_source {
+                Some(flips) => Box::new(ForwardBySource::new(
+                    flips.matrices,
+                    rows.iter().map(|&r| flips.of_row[r]).collect(),
+                    overall,
+                )),
+                None => Box::new(Forward::new(overall)),
+            }
+        }
         Correction::Backward | Correction::BackwardUnbounded => {
             let guarded = correction == Correction::Backward;
             let t = matrix.cloned().unwrap_or_else(|| Array2::eye(classes));
@@ -167,7 +189,8 @@ pub fn train(
     })
 }
 
-/// Keeps all but the round(E) most suspect rows, E = Σ posterior scores of the rows.
+/// Keeps all but the round(E) most suspect rows, E = Σ P(wrong) of the rows (the
+/// posterior scores are odds: summing them as they are dropped nearly every row).
 fn prune(
     rows: &[usize],
     labels: &[usize],
@@ -185,7 +208,8 @@ fn prune(
         &sub_labels,
         matrix.map(Flip::noisy),
     );
-    let expected: f64 = scores.iter().map(|s| s.score).sum();
+    let odds: Vec<f64> = scores.iter().map(|s| s.score).collect();
+    let expected = expected_from_scores(&odds);
     rank(&mut scores);
     let drop_count = (expected.round() as usize).min(rows.len().saturating_sub(1));
     let mut dropped: Vec<usize> = scores[..drop_count].iter().map(|s| rows[s.row]).collect();

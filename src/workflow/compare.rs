@@ -17,8 +17,9 @@ use crate::learn::folds::stratified_holdout;
 use crate::learn::metrics::{
     accuracy, accuracy_interval, confusion, estimated_clean_accuracy, paired_gain, recall,
 };
-use crate::learn::train::{predict_classes, train, Correction, TrainInputs};
+use crate::learn::train::{predict_classes, train, Correction, SourceFlips, TrainInputs};
 use crate::learn::{out_of_fold, OofParams, SoftmaxModel, SoftmaxParams};
+use crate::noise::sources::{estimate_by_source, SourceSample, Testing};
 use crate::noise::{estimate, Method, Sample};
 use crate::timing::Stages;
 
@@ -177,7 +178,7 @@ pub fn compare(
         progress(f, steps) && !cancelled(cancel)
     })?;
     stages.end("probabilities");
-    let (matrix, matrix_warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
+    let (matrix, by_source, matrix_warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
     let mut warnings = data.warnings.clone();
     warnings.extend(inputs.probs.iter().flat_map(|p| p.warnings.iter().cloned()));
     warnings.extend(matrix_warnings);
@@ -186,6 +187,7 @@ pub fn compare(
         part: &part,
         probs: &probs,
         matrix: &matrix,
+        by_source: by_source.as_deref(),
         x_hold: data.features.select(Axis(0), &holdout_rows),
         test: inputs.test.map(|(x, _)| x),
         model: &settings.fit.model,
@@ -233,6 +235,8 @@ struct Trainer<'a> {
     part: &'a Part,
     probs: &'a Array2<f32>,
     matrix: &'a Array2<f64>,
+    /// Every label source's matrix (the part's rows know their source).
+    by_source: Option<&'a [Array2<f64>]>,
     x_hold: Array2<f64>,
     test: Option<&'a Array2<f64>>,
     model: &'a SoftmaxParams,
@@ -259,6 +263,10 @@ impl Trainer<'_> {
                 probs: Some(self.probs.view()),
                 start,
                 cancel: self.cancel,
+                by_source: self
+                    .by_source
+                    .zip(self.part.sources.as_ref())
+                    .map(|(matrices, (of_row, _))| SourceFlips { matrices, of_row }),
             },
             self.model,
         )?;
@@ -450,6 +458,8 @@ struct Part {
     labels: Vec<usize>,
     trusted: Option<Vec<Option<usize>>>,
     origins: Option<Vec<Origin>>,
+    /// Each training row's label source, and the source names.
+    sources: Option<(Vec<u32>, Vec<String>)>,
 }
 
 impl Part {
@@ -465,32 +475,53 @@ impl Part {
                 .trusted_origins
                 .as_ref()
                 .map(|o| rows.iter().map(|&r| o[r]).collect()),
+            sources: data.sources.as_ref().map(|s| {
+                let of_row = rows.iter().map(|&r| s.of_row[r]).collect();
+                (of_row, s.names.clone())
+            }),
         }
     }
 
+    /// The matrix for the corrections, estimated on the training rows (with a source
+    /// column: the sources' mix, and every source's matrix beside it).
     fn matrix(
         &self,
         choice: MatrixChoice,
         probs: &Array2<f32>,
         classes: &[String],
-    ) -> Result<(Array2<f64>, Vec<String>)> {
-        match choice {
-            MatrixChoice::Given(m) => Ok((m.clone(), Vec::new())),
-            MatrixChoice::Estimate(method) => {
-                let rows: Vec<usize> = (0..self.labels.len()).collect();
-                let sample = Sample {
-                    probs: probs.view(),
-                    labels: &self.labels,
-                    trusted: self.trusted.as_deref(),
-                    origins: self.origins.as_deref(),
-                    rows: &rows,
-                };
-                let e = estimate(method, &sample, classes)?;
-                Ok((e.matrix, e.warnings))
-            }
-        }
+    ) -> Result<PartMatrix> {
+        let method = match choice {
+            MatrixChoice::Given(m) => return Ok((m.clone(), None, Vec::new())),
+            MatrixChoice::Estimate(method) => method,
+        };
+        let rows: Vec<usize> = (0..self.labels.len()).collect();
+        let sample = Sample {
+            probs: probs.view(),
+            labels: &self.labels,
+            trusted: self.trusted.as_deref(),
+            origins: self.origins.as_deref(),
+            rows: &rows,
+        };
+        let overall = estimate(method, &sample, classes)?;
+        let Some((of_row, names)) = &self.sources else {
+            return Ok((overall.matrix, None, overall.warnings));
+        };
+        let data = SourceSample {
+            sample,
+            of_row,
+            names,
+        };
+        let by_source = estimate_by_source(method, &data, classes, &overall, Testing::Skip)?;
+        let mut warnings = overall.warnings;
+        warnings.extend(by_source.warnings.iter().cloned());
+        let matrices = by_source.sources.into_iter().map(|s| s.matrix).collect();
+        Ok((by_source.overall, Some(matrices), warnings))
     }
 }
+
+/// The matrix for the corrections, every source's matrix (with a source column) and
+/// the estimator's warnings.
+type PartMatrix = (Array2<f64>, Option<Vec<Array2<f64>>>, Vec<String>);
 
 /// What per-class recall and the confusion matrix are measured against.
 enum Reference {

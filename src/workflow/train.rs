@@ -9,7 +9,7 @@ use crate::data::Dataset;
 use crate::error::Result;
 use crate::io::matrix_csv::load_matrix_csv;
 use crate::io::model::{FitSummary, ModelFile, Provenance, TrainingSettings};
-use crate::learn::train::{train, Correction, TrainInputs, Trained};
+use crate::learn::train::{train, Correction, SourceFlips, TrainInputs, Trained};
 use crate::learn::OofParams;
 
 /// What the train job fits.
@@ -39,6 +39,8 @@ pub struct TrainedModel {
 /// The matrix a correction uses, what names it, and the warnings from getting it.
 struct UsedMatrix {
     matrix: Option<Array2<f64>>,
+    /// One matrix per label source, when the table names a source column.
+    by_source: Option<Vec<Array2<f64>>>,
     probs: Option<Array2<f32>>,
     description: Option<String>,
     warnings: Vec<String>,
@@ -65,6 +67,13 @@ pub fn train_model(
             probs: used.probs.as_ref().map(|p| p.view()),
             start: None,
             cancel: None,
+            by_source: match (&used.by_source, &data.sources) {
+                (Some(matrices), Some(sources)) => Some(SourceFlips {
+                    matrices,
+                    of_row: &sources.of_row,
+                }),
+                _ => None,
+            },
         },
         &params.fit.model,
     )?;
@@ -90,6 +99,7 @@ fn used_matrix(
     if !correction.needs_matrix() {
         return Ok(UsedMatrix {
             matrix: None,
+            by_source: None,
             probs: None,
             description: None,
             warnings: Vec::new(),
@@ -102,6 +112,7 @@ fn used_matrix(
         let (t, warnings) = load_matrix_csv(path, &data.classes, *renormalize)?;
         return Ok(UsedMatrix {
             matrix: Some(t),
+            by_source: None,
             probs: None,
             description: Some(source.describe()),
             warnings,
@@ -111,8 +122,12 @@ fn used_matrix(
     let estimate = flip_matrix(data, &probs, source)?;
     let mut warnings = estimate.warnings;
     warnings.extend(estimate.diagnostics.warnings);
+    let by_source = estimate
+        .by_source
+        .map(|b| b.sources.into_iter().map(|s| s.matrix).collect());
     Ok(UsedMatrix {
         matrix: Some(estimate.matrix),
+        by_source,
         probs: Some(probs.values),
         description: Some(source.describe()),
         warnings,
