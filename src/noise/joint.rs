@@ -193,10 +193,16 @@ pub fn fit_grouped(
         return Err(Error::Usage("no rows for the joint fit".into()));
     }
     let (inputs, mean, scale) = log_inputs(data.probs, data.rows);
-    let mut share = vec![0.0; groups.count];
+    // Counted, then divided once: one group's share is exactly 1, so the plain fit is
+    // the one-group fit bit for bit.
+    let mut count = vec![0usize; groups.count];
     for &r in data.rows {
-        share[groups.of(r)] += 1.0 / data.rows.len() as f64;
+        count[groups.of(r)] += 1;
     }
+    let share: Vec<f64> = count
+        .iter()
+        .map(|&c| c as f64 / data.rows.len() as f64)
+        .collect();
     let problem = Problem {
         inputs: inputs.view(),
         labels: data.labels,
