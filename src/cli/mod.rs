@@ -85,6 +85,9 @@ pub struct GuiArgs {
     /// Observed-label column of DATA (default: label)
     #[arg(long, value_name = "COLUMN")]
     pub label: Option<String>,
+    /// Label-source column of DATA (one flip matrix per source)
+    #[arg(long, value_name = "COLUMN")]
+    pub source: Option<String>,
 }
 
 /// Runs a parsed command line, writing its report to `out`.
@@ -104,6 +107,7 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
             session: args.session,
             roles: crate::io::session::Roles {
                 label: args.label,
+                source: args.source,
                 ..Default::default()
             },
         }),
