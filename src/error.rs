@@ -7,6 +7,31 @@
 use std::fmt;
 use std::path::{Path, PathBuf};
 
+/// Two labels from one annotator for one row.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Conflict {
+    /// The row's id.
+    pub id: String,
+    /// The annotator.
+    pub annotator: String,
+    /// The earlier label.
+    pub first: String,
+    /// Its line.
+    pub first_line: u64,
+    /// The later label.
+    pub second: String,
+}
+
+impl fmt::Display for Conflict {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "row '{}' has the label '{}' from annotator '{}', who gave it '{}' on line {}; keep one",
+            self.id, self.second, self.annotator, self.first, self.first_line
+        )
+    }
+}
+
 /// Shorthand for results whose error is [`Error`].
 pub type Result<T, E = Error> = std::result::Result<T, E>;
 
@@ -169,6 +194,16 @@ pub enum Problem {
     NoAnnotation {
         /// The annotator columns, comma-separated.
         columns: String,
+    },
+    /// The same row and annotator with two different labels in a long annotations file
+    /// (boxed: it would double the size of every `Problem`).
+    #[error("{0}")]
+    ConflictingAnnotation(Box<Conflict>),
+    /// A table row that no line of a long annotations file labels.
+    #[error("no line labels the table's row '{id}'; every row needs at least one label")]
+    RowWithoutAnnotation {
+        /// The row's id.
+        id: String,
     },
     /// An empty label cell.
     #[error("the label cell is empty; every row needs an observed label")]

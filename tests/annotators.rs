@@ -158,3 +158,83 @@ fn annotator_problems_are_clear_and_write_nothing() {
     run("a1,a2,a3", split_path.to_str().unwrap()).assert_bad_input(&["'a3'"]);
     assert!(!std::path::Path::new(out).exists(), "nothing written");
 }
+
+/// The wide table as a table of features and a long file of (id, annotator, label).
+fn long_form(wide: &str) -> (String, String) {
+    let mut table = String::from("id,x0,x1\n");
+    let mut long = String::from("id,annotator,label\n");
+    for line in wide.lines().skip(1) {
+        let cells: Vec<&str> = line.split(',').collect();
+        let _ = writeln!(table, "{},{},{}", cells[0], cells[1], cells[2]);
+        for (who, label) in ["a1", "a2", "a3"].iter().zip(&cells[3..]) {
+            if !label.is_empty() {
+                let _ = writeln!(long, "{},{who},{label}", cells[0]);
+            }
+        }
+    }
+    (table, long)
+}
+
+#[test]
+fn a_long_file_gives_the_same_consensus_as_the_columns() {
+    let (wide, _) = table(1_200, 13);
+    let (features, long) = long_form(&wide);
+    let dir = TempDir::new();
+    let write = |name: &str, text: &str| {
+        let path = dir.path(name);
+        std::fs::write(&path, text).unwrap();
+        path.to_string_lossy().into_owned()
+    };
+    let (wide_path, table_path) = (write("wide.csv", &wide), write("t.csv", &features));
+    let long_path = write("long.csv", &long);
+    let (from_columns, from_long) = (dir.path("c.csv"), dir.path("l.csv"));
+    flipmend(&[
+        "estimate",
+        "--data",
+        &wide_path,
+        "--labels",
+        "a1,a2,a3",
+        "--consensus-out",
+        from_columns.to_str().unwrap(),
+    ])
+    .assert_ok();
+    flipmend(&[
+        "estimate",
+        "--data",
+        &table_path,
+        "--annotations",
+        &long_path,
+        "--consensus-out",
+        from_long.to_str().unwrap(),
+    ])
+    .assert_ok();
+    assert_eq!(
+        std::fs::read_to_string(&from_columns).unwrap(),
+        std::fs::read_to_string(&from_long).unwrap()
+    );
+    // The same row and annotator with two labels: both lines named, nothing written.
+    let conflicting = format!("{long}r0,a1,c2\nr0,a1,c0\n");
+    let bad = write("bad.csv", &conflicting);
+    let out = dir.path("never.csv");
+    flipmend(&[
+        "estimate",
+        "--data",
+        &table_path,
+        "--annotations",
+        &bad,
+        "--consensus-out",
+        out.to_str().unwrap(),
+    ])
+    .assert_bad_input(&["bad.csv", "line", "'a1'"]);
+    // An id the table lacks.
+    let stranger = write("stranger.csv", &format!("{long}nobody,a1,c0\n"));
+    flipmend(&[
+        "estimate",
+        "--data",
+        &table_path,
+        "--annotations",
+        &stranger,
+    ])
+    .assert_bad_input(&["stranger.csv", "nobody"]);
+    assert!(!out.exists(), "nothing written");
+}

@@ -4,8 +4,12 @@ use std::path::{Path, PathBuf};
 
 use clap::Args;
 
+use crate::data::annotations::attach_long;
 use crate::data::roles::parse_delimiter;
+use crate::data::Dataset;
 use crate::data::{ProbOptions, TableOptions};
+use crate::error::Result;
+use crate::io::annotations_long::read_long;
 use crate::learn::{OofParams, SoftmaxParams};
 use crate::noise::{Estimator, EstimatorSettings, Method, TrustedFallback};
 use crate::workflow::consensus::ConsensusPrior;
@@ -42,9 +46,14 @@ pub struct TableArgs {
         conflicts_with = "label"
     )]
     pub labels: Option<Vec<String>>,
-    /// With --labels: each row's prior on its true class in the consensus: the
-    /// classifier's out-of-sample probabilities, or one class prior shared by all rows
-    #[arg(long, value_enum, default_value_t = ConsensusPrior::Classifier, requires = "labels")]
+    /// Several annotators' labels as a long CSV with the columns id, annotator, label
+    /// (one line per label), joined to the table by id; like --labels otherwise
+    #[arg(long, value_name = "FILE", conflicts_with_all = ["label", "labels"])]
+    pub annotations: Option<PathBuf>,
+    /// With --labels or --annotations: each row's prior on its true class in the
+    /// consensus: the classifier's out-of-sample probabilities, or one class prior shared
+    /// by all rows
+    #[arg(long, value_enum, default_value_t = ConsensusPrior::Classifier)]
     pub consensus_prior: ConsensusPrior,
     /// Column saying where each label came from (annotator, station, vendor, rule): one
     /// flip matrix is then estimated per source, and suspects are scored with their own
@@ -54,6 +63,27 @@ pub struct TableArgs {
 }
 
 impl TableArgs {
+    /// Loads the table, and joins `--annotations` to it.
+    pub fn load(&self) -> Result<Dataset> {
+        self.load_with(&self.options())
+    }
+
+    /// [`TableArgs::load`] with role settings the command adjusted.
+    pub fn load_with(&self, options: &TableOptions) -> Result<Dataset> {
+        let Some(path) = &self.annotations else {
+            return Dataset::load(&self.data, options);
+        };
+        let mut options = options.clone();
+        options.unlabeled = true;
+        let mut data = Dataset::load(&self.data, &options)?;
+        let long = read_long(
+            path,
+            crate::io::csv_source::delimiter_for(path, self.delimiter),
+        )?;
+        attach_long(&mut data, &long, path)?;
+        Ok(data)
+    }
+
     /// The role flags as plain data for the library.
     pub fn options(&self) -> TableOptions {
         TableOptions {

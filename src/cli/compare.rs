@@ -8,7 +8,7 @@ use std::path::PathBuf;
 use clap::Args;
 
 use super::args::PipelineArgs;
-use crate::data::Dataset;
+
 use crate::error::{Error, Result};
 use crate::io::matrix_csv::load_matrix_csv;
 use crate::io::{check_not_input, write_json};
@@ -51,7 +51,7 @@ pub fn run(args: &CompareArgs, out: &mut dyn Write) -> Result<()> {
         )));
     }
     let mut stages = Stages::start();
-    let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
+    let data = args.pipeline.table.load()?;
     stages.end("load_table");
     let test = args
         .test

@@ -41,7 +41,7 @@ pub struct EstimateArgs {
     pub json: Option<PathBuf>,
     /// With --labels: write each row's consensus (CSV: id, consensus, consensus_prob,
     /// majority)
-    #[arg(long, value_name = "FILE", requires = "labels")]
+    #[arg(long, value_name = "FILE")]
     pub consensus_out: Option<PathBuf>,
 }
 
@@ -92,7 +92,14 @@ pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
             "--bootstrap re-estimates the matrix, so it cannot be used with --matrix".into(),
         ));
     }
-    let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
+    let data = args.pipeline.table.load()?;
+    if args.consensus_out.is_some() && data.annotations.is_none() {
+        return Err(Error::Usage(
+            "--consensus-out writes each row's consensus of several annotators: give --labels \
+             or --annotations"
+                .into(),
+        ));
+    }
     let probs = workflow::probabilities(
         &data,
         args.pipeline.probs.probs.as_deref(),

@@ -8,7 +8,7 @@ use clap::Args;
 
 use super::args::{ProbArgs, TableArgs};
 use crate::data::summary::TableSummary;
-use crate::data::{Dataset, Probabilities};
+use crate::data::Probabilities;
 use crate::error::Result;
 use crate::io::{check_not_input, write_json};
 
@@ -33,7 +33,7 @@ pub fn run(args: &InspectArgs, out: &mut dyn Write) -> Result<()> {
     if let Some(json) = &args.json {
         check_not_input(json, &inputs)?;
     }
-    let data = Dataset::load(&args.table.data, &args.table.options())?;
+    let data = args.table.load()?;
     let probs = match &args.probs.probs {
         Some(path) => Some(Probabilities::load(
             path,

@@ -46,7 +46,7 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
     for output in [Some(&args.out), args.json.as_ref()].into_iter().flatten() {
         check_not_input(output, &inputs)?;
     }
-    let data = Dataset::load(&args.table.data, &args.table.options())?;
+    let data = args.table.load()?;
     let read = read_reviewed(&data, &args.worklist, args.key.as_deref())?;
     let delimiter = args.table.options().delimiter_for(&args.table.data);
     write_atomic(&args.out, |w| {

@@ -111,7 +111,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         options.exclude.push(("--truth".into(), truth.clone()));
     }
     let mut stages = Stages::start();
-    let data = Dataset::load(&args.pipeline.table.data, &options)?;
+    let data = args.pipeline.table.load_with(&options)?;
     stages.end("load_table");
     let params = params(args, &data)?;
     let probs = workflow::probabilities(

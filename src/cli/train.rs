@@ -57,7 +57,7 @@ pub fn run(args: &TrainArgs, out: &mut dyn Write) -> Result<()> {
     let inputs = args.pipeline.inputs();
     check_not_input(&args.out, &inputs)?;
     let correction = args.correction()?;
-    let data = Dataset::load(&args.pipeline.table.data, &args.pipeline.table.options())?;
+    let data = args.pipeline.table.load()?;
     let params = TrainParams {
         correction,
         matrix: args.pipeline.matrix.source(args.pipeline.probs.renormalize),

@@ -2,6 +2,7 @@
 //! file formats flipmend reads and writes, and the worklist files exchanged with
 //! annotators.
 
+pub mod annotations_long;
 pub(crate) mod csv_blocks;
 pub mod csv_source;
 pub mod matrix_csv;
