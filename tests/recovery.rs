@@ -6,23 +6,11 @@
 
 mod common;
 
-use common::{flipped_and_probabilities, gaussian_classes, iris_x10};
+use common::{flipped_and_probabilities, gaussian_classes, iris_x10, pair_flip};
 use flipmend::noise::{estimate, Method, Sample};
 use ndarray::Array2;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-
-fn pair_flip(k: usize, r: f64) -> Array2<f64> {
-    Array2::from_shape_fn((k, k), |(i, j)| {
-        if i == j {
-            1.0 - r
-        } else if j == (i + 1) % k {
-            r
-        } else {
-            0.0
-        }
-    })
-}
 
 fn symmetric(k: usize, r: f64) -> Array2<f64> {
     Array2::from_shape_fn(

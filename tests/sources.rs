@@ -5,22 +5,10 @@
 
 mod common;
 
-use common::{flip, flipmend, gaussian_classes, TempDir};
+use common::{flip, flipmend, gaussian_classes, pair_flip, TempDir};
 use ndarray::Array2;
 use serde_json::Value;
 use std::fmt::Write as _;
-
-fn pair_flip(k: usize, r: f64) -> Array2<f64> {
-    Array2::from_shape_fn((k, k), |(i, j)| {
-        if i == j {
-            1.0 - r
-        } else if j == (i + 1) % k {
-            r
-        } else {
-            0.0
-        }
-    })
-}
 
 /// A table whose rows cycle through the sources, each source's labels flipped by its
 /// matrix; returns the CSV text and, per source, the rows' (true, observed) pairs.

@@ -257,24 +257,13 @@ impl<'a> TableReader<'a> {
         self.cells
             .labels
             .extend(out.labels.iter().map(|&c| remap[c as usize]));
-        self.cells.trusted.extend(out.trusted.iter().map(|&c| {
-            if c == NONE {
-                NONE
-            } else {
-                remap[c as usize]
-            }
-        }));
+        let optional = |c: u32| if c == NONE { NONE } else { remap[c as usize] };
+        self.cells
+            .trusted
+            .extend(out.trusted.iter().map(|&c| optional(c)));
         self.cells
             .annotations
-            .extend(out.annotations.iter().map(
-                |&c| {
-                    if c == NONE {
-                        NONE
-                    } else {
-                        remap[c as usize]
-                    }
-                },
-            ));
+            .extend(out.annotations.iter().map(|&c| optional(c)));
         self.cells.origins.extend_from_slice(&out.origins);
         let source_remap: Vec<u32> = out
             .source_names

@@ -170,3 +170,16 @@ pub fn gaussian_classes(n: usize, sep: f64, seed: u64) -> (Array2<f64>, Vec<usiz
     }
     (x, truth)
 }
+
+/// Pair noise (Han et al., NeurIPS 2018): T[i][i] = 1 − r, T[i][i+1 mod K] = r.
+pub fn pair_flip(k: usize, r: f64) -> Array2<f64> {
+    Array2::from_shape_fn((k, k), |(i, j)| {
+        if i == j {
+            1.0 - r
+        } else if j == (i + 1) % k {
+            r
+        } else {
+            0.0
+        }
+    })
+}

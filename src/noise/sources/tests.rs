@@ -99,15 +99,20 @@ fn oracle(world: &World, source: u32, k: usize) -> Array2<f64> {
     counts
 }
 
-fn by_source(world: &World, method: &Method) -> BySource {
-    let rows: Vec<usize> = (0..world.labels.len()).collect();
-    let sample = Sample {
+/// Every row of the world, without audits.
+fn sample_of<'a>(world: &'a World, rows: &'a [usize]) -> Sample<'a> {
+    Sample {
         probs: world.probs.view(),
         labels: &world.labels,
         trusted: None,
         origins: None,
-        rows: &rows,
-    };
+        rows,
+    }
+}
+
+fn by_source(world: &World, method: &Method) -> BySource {
+    let rows: Vec<usize> = (0..world.labels.len()).collect();
+    let sample = sample_of(world, &rows);
     let k = world.probs.ncols();
     let overall = estimate(method, &sample, &classes(k)).unwrap();
     let data = SourceSample {
@@ -233,13 +238,7 @@ fn small_sources_take_the_overall_matrix_and_say_so() {
 fn anchor_estimators_are_refused_per_source() {
     let world = draw(&[pair_noise(3, 0.1), pair_noise(3, 0.2)], 600, 3);
     let rows: Vec<usize> = (0..600).collect();
-    let sample = Sample {
-        probs: world.probs.view(),
-        labels: &world.labels,
-        trusted: None,
-        origins: None,
-        rows: &rows,
-    };
+    let sample = sample_of(&world, &rows);
     let overall = estimate(&Method::Anchor, &sample, &classes(3)).unwrap();
     let data = SourceSample {
         sample,
