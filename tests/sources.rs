@@ -176,3 +176,33 @@ fn source_problems_are_clear() {
     );
     assert_eq!(dir.files(), ["d.csv", "lonely.csv"], "nothing else written");
 }
+
+#[test]
+fn inspect_counts_the_rows_of_each_source() {
+    let (text, _) = table(900, &[0.1, 0.2, 0.3], 5);
+    let dir = TempDir::new();
+    let data = dir.path("d.csv");
+    std::fs::write(&data, text).unwrap();
+    let json = dir.path("i.json");
+    let run = flipmend(&[
+        "inspect",
+        "--data",
+        data.to_str().unwrap(),
+        "--source",
+        "station",
+        "--json",
+        json.to_str().unwrap(),
+    ]);
+    run.assert_ok();
+    // Rows cycle through the sources three at a time: 300 each.
+    assert!(
+        run.stdout
+            .contains("label source: station (st0 300, st1 300, st2 300)"),
+        "{}",
+        run.stdout
+    );
+    let report: Value = serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    assert_eq!(report["label_sources"]["column"], "station");
+    assert_eq!(report["label_sources"]["sources"][2]["name"], "st2");
+    assert_eq!(report["label_sources"]["sources"][2]["rows"], 300);
+}

@@ -7,7 +7,7 @@ use std::path::PathBuf;
 use clap::Args;
 
 use super::args::{ProbArgs, TableArgs};
-use crate::data::summary::TableSummary;
+use crate::data::summary::{RowCount, TableSummary};
 use crate::data::Probabilities;
 use crate::error::Result;
 use crate::io::{check_not_input, write_json};
@@ -50,6 +50,15 @@ pub fn run(args: &InspectArgs, out: &mut dyn Write) -> Result<()> {
 }
 
 /// The report as aligned text.
+/// `name rows, name rows, …`.
+fn counts(list: &[RowCount]) -> String {
+    let parts: Vec<String> = list
+        .iter()
+        .map(|c| format!("{} {}", c.name, c.rows))
+        .collect();
+    parts.join(", ")
+}
+
 pub fn render(s: &TableSummary) -> String {
     let mut t = String::new();
     let _ = writeln!(
@@ -74,6 +83,21 @@ pub fn render(s: &TableSummary) -> String {
     };
     let _ = writeln!(t, "trusted:      {trusted}");
     let _ = writeln!(t, "features:     {}", s.features.join(", "));
+    if let Some(sources) = &s.label_sources {
+        let _ = writeln!(
+            t,
+            "label source: {} ({})",
+            sources.column,
+            counts(&sources.sources)
+        );
+    }
+    if let Some(annotators) = &s.annotators {
+        let _ = writeln!(
+            t,
+            "annotators:   {} (rows labelled; the label below is their majority)",
+            counts(annotators)
+        );
+    }
     let _ = writeln!(t);
     let width = super::name_width(s.classes.iter().map(|c| c.name.as_str()), 5);
     let _ = writeln!(

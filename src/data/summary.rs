@@ -22,6 +22,24 @@ pub struct ClassSummary {
     pub trusted: usize,
 }
 
+/// Rows per label source, or per annotator (rows it labelled).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct RowCount {
+    /// The source's or annotator's name.
+    pub name: String,
+    /// Its rows.
+    pub rows: usize,
+}
+
+/// The label-source column and the rows of each source.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SourceSummary {
+    /// The column's name.
+    pub column: String,
+    /// Rows per source, sources in natural order.
+    pub sources: Vec<RowCount>,
+}
+
 /// Summary of a probability file against the observed labels.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ProbSummary {
@@ -56,6 +74,13 @@ pub struct TableSummary {
     pub ignored_columns: Vec<IgnoredColumn>,
     /// Empty cells where they are allowed (trusted and ignored columns).
     pub missing_values: Vec<MissingCount>,
+    /// The label-source column and the rows of each source, when one was named.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub label_sources: Option<SourceSummary>,
+    /// The rows each annotator labelled, with several annotators per row (the observed
+    /// label is then their majority).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub annotators: Option<Vec<RowCount>>,
     /// The probability file, when one was given.
     pub probabilities: Option<ProbSummary>,
     /// Things to know that did not stop the work.
@@ -108,6 +133,28 @@ impl TableSummary {
             trusted_rows: trusted.iter().sum(),
             ignored_columns: data.ignored.clone(),
             missing_values: data.missing.clone(),
+            label_sources: data.sources.as_ref().map(|s| SourceSummary {
+                column: s.column.clone(),
+                sources: s
+                    .names
+                    .iter()
+                    .zip(s.counts())
+                    .map(|(n, rows)| RowCount {
+                        name: n.clone(),
+                        rows,
+                    })
+                    .collect(),
+            }),
+            annotators: data.annotations.as_ref().map(|a| {
+                a.columns
+                    .iter()
+                    .zip(a.counts())
+                    .map(|(name, rows)| RowCount {
+                        name: name.clone(),
+                        rows,
+                    })
+                    .collect()
+            }),
             probabilities,
             warnings,
         }
