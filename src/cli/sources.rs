@@ -58,30 +58,12 @@ fn rows_of(t: &Array2<f64>) -> Vec<Vec<f64>> {
     t.rows().into_iter().map(|r| r.to_vec()).collect()
 }
 
-/// Source indices from the noisiest to the cleanest (ties by name order).
-fn noise_order(by_source: &BySource) -> Vec<usize> {
-    let mut order: Vec<usize> = (0..by_source.sources.len()).collect();
-    order.sort_by(|&a, &b| {
-        by_source.sources[b]
-            .noise_rate
-            .total_cmp(&by_source.sources[a].noise_rate)
-            .then(a.cmp(&b))
-    });
-    order
-}
-
 /// The largest off-diagonal cells of a source by share of its rows.
 fn largest_flips(source: &SourceMatrix, classes: &[String]) -> Vec<FlipReport> {
-    let k = classes.len();
-    let mut cells: Vec<(usize, usize, f64)> = (0..k)
-        .flat_map(|i| (0..k).filter(move |&j| j != i).map(move |j| (i, j)))
-        .map(|(i, j)| (i, j, source.clean_share[i] * source.matrix[[i, j]]))
-        .collect();
-    cells.sort_by(|a, b| b.2.total_cmp(&a.2).then((a.0, a.1).cmp(&(b.0, b.1))));
-    cells
+    source
+        .largest_flips()
         .into_iter()
         .take(FLIPS_SHOWN)
-        .filter(|c| c.2 > 0.0)
         .map(|(i, j, share)| FlipReport {
             true_class: classes[i].clone(),
             observed: classes[j].clone(),
@@ -97,7 +79,7 @@ pub(super) fn report(
     by_source: &BySource,
     intervals: Option<&SourceIntervals>,
 ) -> (Vec<SourceReport>, Option<TestReport>) {
-    let order = noise_order(by_source);
+    let order = by_source.noisiest_first();
     let sources = by_source
         .sources
         .iter()
@@ -150,7 +132,7 @@ pub(super) fn render(
         "{:<width$}  {:>7}  {:>7}  {:>6}  {:>13}  largest flips (share of the source's rows)",
         "source", "rows", "audited", "noise", "90% interval"
     );
-    for s in noise_order(by_source) {
+    for s in by_source.noisiest_first() {
         let source = &by_source.sources[s];
         let band = intervals.map_or(String::from("-"), |i| {
             let [low, high] = i.noise_rates[s];

@@ -98,7 +98,7 @@ pub fn bootstrap_by_source(
             of_row: base.of_row,
             names: base.names,
         };
-        estimate_by_source(method, &data, classes, &overall, Testing::Skip)
+        estimate_by_source(method, &data, classes, &overall, Testing::Skip).map(|(b, _)| b)
     };
     let point = fit(&base.sample)?;
     let mut strata = vec![Vec::new(); base.names.len()];
@@ -138,7 +138,7 @@ pub fn bootstrap_by_source(
     let noise_rates = (0..point.sources.len())
         .map(|s| {
             let rates: Vec<f64> = fits.iter().map(|f| f.sources[s].noise_rate).collect();
-            rate_interval(point.sources[s].noise_rate, &rates)
+            spread_around(point.sources[s].noise_rate, &rates)
         })
         .collect();
     Ok(SourceIntervals {
@@ -148,8 +148,9 @@ pub fn bootstrap_by_source(
     })
 }
 
-/// point ± z₀.₉₅ · [`WIDENING`] · the standard deviation of `resampled`, clipped to [0, 1].
-fn rate_interval(point: f64, resampled: &[f64]) -> [f64; 2] {
+/// point ± z₀.₉₅ · [`WIDENING`] · the standard deviation of `resampled`, clipped to [0, 1]:
+/// one number's interval (a noise rate, or one cell of a matrix).
+fn spread_around(point: f64, resampled: &[f64]) -> [f64; 2] {
     let b = resampled.len() as f64;
     let mean = resampled.iter().sum::<f64>() / b;
     let variance = resampled.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (b - 1.0).max(1.0);
@@ -163,18 +164,15 @@ fn rate_interval(point: f64, resampled: &[f64]) -> [f64; 2] {
 /// point ± z₀.₉₅ · [`WIDENING`] · the standard deviation of `resampled`, cell by cell,
 /// clipped to [0, 1].
 fn interval_around(point: &Array2<f64>, resampled: &[Array2<f64>]) -> Interval {
-    let b = resampled.len() as f64;
-    let mut mean = Array2::<f64>::zeros(point.raw_dim());
-    resampled.iter().for_each(|m| mean += m);
-    mean /= b;
-    let mut variance = Array2::<f64>::zeros(point.raw_dim());
-    for m in resampled {
-        variance.zip_mut_with(&(m - &mean), |v, d| *v += d * d);
-    }
-    let half = variance.mapv(|v| Z_90 * WIDENING * (v / (b - 1.0).max(1.0)).sqrt());
+    let cells = point.indexed_iter().map(|(cell, &p)| {
+        let values: Vec<f64> = resampled.iter().map(|m| m[cell]).collect();
+        spread_around(p, &values)
+    });
+    let (low, high): (Vec<f64>, Vec<f64>) = cells.map(|[l, h]| (l, h)).unzip();
+    let shape = point.raw_dim();
     Interval {
-        low: (point - &half).mapv(|v| v.clamp(0.0, 1.0)),
-        high: (point + &half).mapv(|v| v.clamp(0.0, 1.0)),
+        low: Array2::from_shape_vec(shape, low).expect("one value per cell"),
+        high: Array2::from_shape_vec(shape, high).expect("one value per cell"),
     }
 }
 

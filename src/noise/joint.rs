@@ -120,7 +120,7 @@ pub fn fit_joint(
     params: &JointParams,
     keep_going: &mut dyn FnMut(usize) -> bool,
 ) -> Result<JointFit> {
-    let groups = Groups::one(data.rows.len());
+    let groups = Groups::one();
     let fit = fit_grouped(data, &groups, start, params, keep_going)?;
     let GroupedFit {
         mut matrices,
@@ -150,8 +150,8 @@ pub struct Groups<'a> {
 }
 
 impl Groups<'_> {
-    /// One group (the plain joint fit). `_rows` documents the call site's size only.
-    fn one(_rows: usize) -> Groups<'static> {
+    /// One group (the plain joint fit).
+    fn one() -> Groups<'static> {
         Groups {
             of_row: &[],
             count: 1,
@@ -542,7 +542,7 @@ mod tests {
         let centre = array![[0.7, 0.2, 0.1], [0.1, 0.8, 0.1], [0.1, 0.1, 0.8]];
         let of_row = [0u32, 1, 1, 0, 1];
         let cases = [
-            Groups::one(5),
+            Groups::one(),
             Groups {
                 of_row: &of_row,
                 count: 2,

@@ -190,12 +190,12 @@ pub fn with_sources<'a>(
         of_row: &sources.of_row,
         names: &sources.names,
     };
-    let by_source = estimate_by_source(method, &data, classes, &overall, Testing::Run)?;
+    let (by_source, clean) = estimate_by_source(method, &data, classes, &overall, Testing::Run)?;
     let mut warnings = overall.warnings;
     warnings.extend(by_source.warnings.iter().cloned());
     Ok(Estimate {
         matrix: by_source.overall.clone(),
-        clean: Some(by_source.clean.clone()),
+        clean: Some(clean),
         warnings,
         by_source: Some(by_source),
     })

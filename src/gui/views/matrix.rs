@@ -388,11 +388,7 @@ fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
 fn sources(ui: &mut egui::Ui, classes: &[String], by_source: &BySource) {
     ui.heading("Label sources");
     ui.label("one flip matrix per source, one clean classifier for all; the grid shows their mix");
-    let mut order: Vec<usize> = (0..by_source.sources.len()).collect();
-    order.sort_by(|&a, &b| {
-        let rate = |s: usize| by_source.sources[s].noise_rate;
-        rate(b).total_cmp(&rate(a)).then(a.cmp(&b))
-    });
+    let order = by_source.noisiest_first();
     egui::Grid::new("sources").striped(true).show(ui, |ui| {
         for head in ["source", "rows", "noise", "largest flip"] {
             ui.strong(head);
@@ -423,15 +419,8 @@ fn sources(ui: &mut egui::Ui, classes: &[String], by_source: &BySource) {
 
 /// A source's largest off-diagonal flip by share of its rows, in words.
 fn largest_flip(classes: &[String], source: &SourceMatrix) -> String {
-    let k = classes.len();
-    let best = (0..k)
-        .flat_map(|i| (0..k).filter(move |&j| j != i).map(move |j| (i, j)))
-        .max_by(|&(a, b), &(c, d)| {
-            let share = |i: usize, j: usize| source.clean_share[i] * source.matrix[[i, j]];
-            share(a, b).total_cmp(&share(c, d))
-        });
-    match best {
-        Some((i, j)) => format!(
+    match source.largest_flips().first() {
+        Some(&(i, j, _)) => format!(
             "{} typed as {}: {:.0}%",
             classes[i],
             classes[j],

@@ -77,8 +77,6 @@ pub struct BySource {
     /// The sources' mix: row i is Σ_s w_si·T_s[i], w_si the share of true class i's rows
     /// that source s holds.
     pub overall: Array2<f64>,
-    /// The shared clean posterior q(x) of every row of the probabilities.
-    pub clean: Array2<f32>,
     /// The test of equal matrices (`None` with fewer than two sources of their own).
     pub test: Option<SourceTest>,
     /// Sources pooled, estimates that fell back, and so on.
@@ -89,6 +87,29 @@ impl BySource {
     /// The matrix of every source, in order.
     pub fn matrices(&self) -> Vec<&Array2<f64>> {
         self.sources.iter().map(|s| &s.matrix).collect()
+    }
+
+    /// Source indices from the noisiest to the cleanest (ties in name order).
+    pub fn noisiest_first(&self) -> Vec<usize> {
+        let rate = |s: usize| self.sources[s].noise_rate;
+        let mut order: Vec<usize> = (0..self.sources.len()).collect();
+        order.sort_by(|&a, &b| rate(b).total_cmp(&rate(a)).then(a.cmp(&b)));
+        order
+    }
+}
+
+impl SourceMatrix {
+    /// The off-diagonal cells (true, observed, share of the source's rows) with a
+    /// share above zero, largest first (ties in class order).
+    pub fn largest_flips(&self) -> Vec<(usize, usize, f64)> {
+        let k = self.clean_share.len();
+        let mut cells: Vec<(usize, usize, f64)> = (0..k)
+            .flat_map(|i| (0..k).filter(move |&j| j != i).map(move |j| (i, j)))
+            .map(|(i, j)| (i, j, self.clean_share[i] * self.matrix[[i, j]]))
+            .filter(|c| c.2 > 0.0)
+            .collect();
+        cells.sort_by(|a, b| b.2.total_cmp(&a.2).then((a.0, a.1).cmp(&(b.0, b.1))));
+        cells
     }
 }
 
@@ -104,14 +125,15 @@ pub enum Testing {
 
 /// Estimates one matrix per source with `method`; `overall` is the same method's
 /// estimate on all the rows (the start, the shrinkage target and the pooled sources'
-/// matrix).
+/// matrix). Returns the sources and the clean posterior q(x) they share, for every row
+/// of the probabilities (kept apart so the one copy can move into the estimate).
 pub fn estimate_by_source(
     method: &Method,
     data: &SourceSample,
     classes: &[String],
     overall: &Estimate,
     testing: Testing,
-) -> Result<BySource> {
+) -> Result<(BySource, Array2<f32>)> {
     let k = classes.len();
     let rows = rows_by_source(data);
     let pooled: Vec<bool> = rows.iter().map(|r| r.len() < MIN_SOURCE_ROWS).collect();
@@ -143,13 +165,13 @@ pub fn estimate_by_source(
     let fitted: Vec<usize> = (0..sources.len()).filter(|&s| !pooled[s]).collect();
     let test = (fitted.len() >= 2 && testing == Testing::Run)
         .then(|| test::equal_matrices(data, &rows, &fitted, &clean, k));
-    Ok(BySource {
+    let by_source = BySource {
         overall: mix(&sources, k),
         sources,
-        clean,
         test,
         warnings,
-    })
+    };
+    Ok((by_source, clean))
 }
 
 /// The sample's rows of every source, in sample order (repeats kept).
@@ -207,12 +229,8 @@ fn shared_clean(sample: Sample, overall: &Estimate) -> Array2<f32> {
     let mut clean = Array2::<f32>::zeros(sample.probs.raw_dim());
     let mut row = vec![0.0; k];
     for (noisy, mut out) in sample.probs.rows().into_iter().zip(clean.rows_mut()) {
-        let noisy = noisy.to_vec();
-        posterior.clean(&noisy, &mut row);
-        let total: f64 = row.iter().sum();
-        out.iter_mut()
-            .zip(&row)
-            .for_each(|(o, &v)| *o = (v / total.max(f64::MIN_POSITIVE)) as f32);
+        posterior.clean(&noisy.to_vec(), &mut row);
+        out.iter_mut().zip(&row).for_each(|(o, &v)| *o = v as f32);
     }
     clean
 }

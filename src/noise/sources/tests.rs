@@ -120,7 +120,9 @@ fn by_source(world: &World, method: &Method) -> BySource {
         of_row: &world.of_row,
         names: &world.names,
     };
-    estimate_by_source(method, &data, &classes(k), &overall, Testing::Run).unwrap()
+    estimate_by_source(method, &data, &classes(k), &overall, Testing::Run)
+        .unwrap()
+        .0
 }
 
 #[test]
