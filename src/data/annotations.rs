@@ -5,7 +5,7 @@
 
 use std::path::Path;
 
-use ndarray::{Array2, ArrayView2};
+use ndarray::Array2;
 use rustc_hash::FxHashMap as HashMap;
 
 use super::natural::natural_cmp;
@@ -13,6 +13,7 @@ use super::Dataset;
 use crate::error::{Error, Location, Problem, Result};
 use crate::io::annotations_long::LongAnnotations;
 use crate::io::table_chunk::NONE;
+use crate::noise::annotators::{majority_vote, AnnotatorLabels};
 
 /// The annotators' labels of every row.
 #[derive(Debug, Clone, PartialEq)]
@@ -39,7 +40,10 @@ impl Annotations {
     /// The majority label of every row, ties to the lowest class index; `None` for a row
     /// nobody labelled.
     pub fn majority(&self, classes: usize) -> Vec<Option<usize>> {
-        majority_of(self.labels.view(), classes)
+        majority_vote(&AnnotatorLabels {
+            classes,
+            labels: self.labels.view(),
+        })
     }
 
     /// Rows each annotator labelled.
@@ -135,23 +139,6 @@ fn renumber_trusted(data: &mut Dataset, class_of: &HashMap<&str, u32>) {
             *t = class_of[old[*t].as_str()] as usize;
         }
     }
-}
-
-/// Plurality vote per row, ties to the lowest class index.
-fn majority_of(labels: ArrayView2<Option<u32>>, classes: usize) -> Vec<Option<usize>> {
-    let mut counts = vec![0usize; classes];
-    labels
-        .rows()
-        .into_iter()
-        .map(|row| {
-            counts.iter_mut().for_each(|c| *c = 0);
-            for &class in row.iter().flatten() {
-                counts[class as usize] += 1;
-            }
-            let best = (0..classes).fold(0, |b, c| if counts[c] > counts[b] { c } else { b });
-            (counts[best] > 0).then_some(best)
-        })
-        .collect()
 }
 
 #[cfg(test)]
