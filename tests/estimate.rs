@@ -77,6 +77,24 @@ fn report_keys_matrix_file_and_reuse_of_probabilities() {
     // The out-of-fold probabilities read back give the same matrix.
     let again = estimate_json(&dir, "b.json", &["--data", &data, "--probs", &probs]);
     assert_eq!(again["matrix"], report["matrix"]);
+    // The demo's 400 random audits do not favour another λ (noise::estimators::volume):
+    // the default, 0.01 / 8 classes, and given as such it is the same fit.
+    assert_eq!(report["volume_weight_chosen_by"], "default");
+    assert_eq!(report["volume_weight"], 0.01 / 8.0);
+    let given_weight = estimate_json(
+        &dir,
+        "g.json",
+        &[
+            "--data",
+            &data,
+            "--probs",
+            &probs,
+            "--volume-weight",
+            "0.00125",
+        ],
+    );
+    assert_eq!(given_weight["volume_weight_chosen_by"], "given");
+    assert_eq!(given_weight["matrix"], report["matrix"]);
     // The matrix file read back gives the same matrix. Its diagnostics invert it on the
     // noisy probabilities (a file brings no clean posteriors), as a matrix estimated by
     // counting does, so the two agree exactly.

@@ -50,6 +50,11 @@ pub struct EstimateArgs {
 struct EstimateReport<'a> {
     classes: &'a [String],
     method: String,
+    /// The joint fit's λ and why: `given`, `default` or `random audits`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    volume_weight: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    volume_weight_chosen_by: Option<&'static str>,
     probabilities: String,
     matrix: Vec<Vec<f64>>,
     observed_prior: &'a [f64],
@@ -194,6 +199,8 @@ fn write_outputs(
         let report = EstimateReport {
             classes: &data.classes,
             method: source.describe(),
+            volume_weight: estimate.volume.map(|v| v.weight),
+            volume_weight_chosen_by: estimate.volume.map(|v| v.chosen_by.name()),
             probabilities: probs.source.describe(),
             matrix: rows_of(&estimate.matrix),
             observed_prior: &d.observed_prior,
@@ -239,6 +246,9 @@ fn render(
              minimum-volume penalty (the default: the closest to the truth on simulated tables \
              with a known matrix; README, 'How close the estimates are to the truth')"
         );
+    }
+    if let Some(volume) = &estimate.volume {
+        let _ = writeln!(t, "{}", volume.describe(data.classes.len()));
     }
     let [audit, review, control] = data.trusted_by_origin();
     if audit + review + control > 0 {

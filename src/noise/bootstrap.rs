@@ -5,6 +5,10 @@
 //! deviation, clipped to [0, 1]. A standard deviation, unlike the 5th and 95th
 //! percentiles of 30 resamples, does not shrink with few resamples; the widening covers
 //! the estimator's bias, which resampling does not see (see [`WIDENING`]).
+//!
+//! Choices the point estimate made from the data (the joint fit's λ, chosen on the random
+//! audits) are kept fixed in the resamples: the interval is conditional on them, and
+//! choosing again would cost the candidates' fits in every resample.
 
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
@@ -45,7 +49,10 @@ pub fn bootstrap(
     resamples: usize,
     seed: u64,
 ) -> Result<Interval> {
-    let point = estimate(method, base, classes)?.matrix;
+    let point = estimate(method, base, classes)?;
+    // Resamples repeat the choices the point estimate made (the joint fit's λ).
+    let method = &point.pinned(method);
+    let point = point.matrix;
     let n = base.rows.len();
     let matrices: Vec<Array2<f64>> = (0..resamples)
         .into_par_iter()
@@ -88,6 +95,7 @@ pub fn bootstrap_by_source(
     resamples: usize,
     seed: u64,
 ) -> Result<SourceIntervals> {
+    let method = &estimate(method, &base.sample, classes)?.pinned(method);
     let fit = |sample: &Sample| -> Result<BySource> {
         let overall = estimate(method, sample, classes)?;
         let data = SourceSample {

@@ -111,12 +111,34 @@ pub struct JointFit {
     pub iterations: usize,
     /// False when the iteration limit stopped the fit.
     pub converged: bool,
+    /// The fitted parameters, to start a related fit from ([`Start::Parameters`]).
+    pub parameters: Vec<f64>,
+}
+
+/// Where a fit starts.
+#[derive(Debug, Clone, Copy)]
+pub enum Start<'a> {
+    /// The classifier that gives q = p̃, and this flip matrix (for every group).
+    Matrix(&'a Array2<f64>),
+    /// The parameters of an earlier fit on the same rows and groups (a warm start: a fit
+    /// with another λ, or with more audited rows, converges in fewer iterations).
+    Parameters(&'a [f64]),
 }
 
 /// Fits T and the clean classifier, starting from the flip matrix `start`.
 pub fn fit_joint(
     data: &Sample,
     start: &Array2<f64>,
+    params: &JointParams,
+    keep_going: &mut dyn FnMut(usize) -> bool,
+) -> Result<JointFit> {
+    fit_joint_from(data, Start::Matrix(start), params, keep_going)
+}
+
+/// [`fit_joint`] from any [`Start`].
+pub fn fit_joint_from(
+    data: &Sample,
+    start: Start,
     params: &JointParams,
     keep_going: &mut dyn FnMut(usize) -> bool,
 ) -> Result<JointFit> {
@@ -127,12 +149,14 @@ pub fn fit_joint(
         clean,
         iterations,
         converged,
+        parameters,
     } = fit;
     Ok(JointFit {
         matrix: matrices.swap_remove(0),
         clean,
         iterations,
         converged,
+        parameters,
     })
 }
 
@@ -175,6 +199,8 @@ pub struct GroupedFit {
     pub iterations: usize,
     /// False when the iteration limit stopped the fit.
     pub converged: bool,
+    /// The fitted parameters (A, b, then each group's U).
+    pub parameters: Vec<f64>,
 }
 
 /// Fits one flip matrix per group and the shared clean classifier, every group started
@@ -183,7 +209,7 @@ pub struct GroupedFit {
 pub fn fit_grouped(
     data: &Sample,
     groups: &Groups,
-    start: &Array2<f64>,
+    start: Start,
     params: &JointParams,
     keep_going: &mut dyn FnMut(usize) -> bool,
 ) -> Result<GroupedFit> {
@@ -214,11 +240,24 @@ pub fn fit_grouped(
         groups,
         share: &share,
     };
-    let mut theta0 = initial_parameters(start, &mean, &scale);
-    let first_u = theta0[k * k + k..].to_vec();
-    for _ in 1..groups.count {
-        theta0.extend_from_slice(&first_u);
-    }
+    let theta0 = match start {
+        Start::Matrix(matrix) => {
+            let mut theta = initial_parameters(matrix, &mean, &scale);
+            let first_u = theta[k * k + k..].to_vec();
+            for _ in 1..groups.count {
+                theta.extend_from_slice(&first_u);
+            }
+            theta
+        }
+        Start::Parameters(theta) if theta.len() == problem.theta_len() => theta.to_vec(),
+        Start::Parameters(theta) => {
+            return Err(Error::Internal(format!(
+                "a joint fit of {} parameters cannot start from {}",
+                problem.theta_len(),
+                theta.len()
+            )))
+        }
+    };
     let options = LbfgsOptions {
         max_iter: params.max_iter,
         grad_tol: 1e-5,
@@ -243,6 +282,7 @@ pub fn fit_grouped(
         clean,
         iterations: outcome.iterations,
         converged: outcome.stop != Stop::MaxIter,
+        parameters: outcome.x,
     })
 }
 

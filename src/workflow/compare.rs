@@ -511,7 +511,8 @@ impl Part {
             of_row,
             names,
         };
-        let (by_source, _) = estimate_by_source(method, &data, classes, &overall, Testing::Skip)?;
+        let method = overall.pinned(method);
+        let (by_source, _) = estimate_by_source(&method, &data, classes, &overall, Testing::Skip)?;
         let mut warnings = overall.warnings;
         warnings.extend(by_source.warnings.iter().cloned());
         let matrices = by_source.sources.into_iter().map(|s| s.matrix).collect();

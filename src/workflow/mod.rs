@@ -147,6 +147,8 @@ pub struct FlipEstimate {
     pub warnings: Vec<String>,
     /// One matrix per label source (see [`crate::noise::Estimate::by_source`]).
     pub by_source: Option<crate::noise::sources::BySource>,
+    /// The joint fit's volume weight and why it was used.
+    pub volume: Option<crate::noise::estimators::volume::VolumeChoice>,
 }
 
 /// The data's rows as an estimator sample.
@@ -190,7 +192,8 @@ pub fn with_sources<'a>(
         of_row: &sources.of_row,
         names: &sources.names,
     };
-    let (by_source, clean) = estimate_by_source(method, &data, classes, &overall, Testing::Run)?;
+    let method = overall.pinned(method);
+    let (by_source, clean) = estimate_by_source(&method, &data, classes, &overall, Testing::Run)?;
     let mut warnings = overall.warnings;
     warnings.extend(by_source.warnings.iter().cloned());
     Ok(Estimate {
@@ -198,6 +201,7 @@ pub fn with_sources<'a>(
         clean: Some(clean),
         warnings,
         by_source: Some(by_source),
+        volume: overall.volume,
     })
 }
 
@@ -298,6 +302,7 @@ pub fn matrix_only(
                 clean: None,
                 warnings,
                 by_source: None,
+                volume: None,
             }
         }
     };
@@ -316,6 +321,7 @@ pub fn flip_matrix(
         clean,
         warnings,
         by_source,
+        volume,
     } = matrix_only(data, probs, source)?;
     let diagnostics = diagnose_matrix(data, probs, &matrix, clean.as_ref());
     Ok(FlipEstimate {
@@ -324,6 +330,7 @@ pub fn flip_matrix(
         diagnostics,
         warnings,
         by_source,
+        volume,
     })
 }
 

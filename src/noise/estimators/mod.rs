@@ -7,7 +7,7 @@
 use ndarray::{Array2, ArrayView2};
 use serde::{Deserialize, Serialize};
 
-use super::joint::{fit_joint, JointFit, JointParams, DEFAULT_VOLUME_SCALE};
+use super::joint::{fit_joint_from, JointFit, JointParams, Start};
 use super::matrix::{normalize_rows, validate};
 use crate::data::origin::Origin;
 use crate::error::{Error, Result};
@@ -17,11 +17,13 @@ mod counting;
 #[cfg(test)]
 mod tests;
 mod trusted;
+pub mod volume;
 
 use self::anchors::{anchor, quantile};
 pub use self::anchors::{column_quantiles, quantile_higher};
 use self::counting::counting;
 use self::trusted::trusted;
+use self::volume::{choose_volume_weight, ChosenBy, VolumeChoice};
 
 /// The quantile the quantile estimator uses unless told otherwise (command line and app).
 pub const DEFAULT_QUANTILE: f64 = 0.97;
@@ -148,7 +150,9 @@ pub enum Method {
     /// with a minimum-volume penalty (Li et al., ICML 2021), started from the counting
     /// estimate ([`super::joint`]). Audited rows add their known clean class.
     Joint {
-        /// λ, the weight of ln det T; `None` for [`DEFAULT_VOLUME_SCALE`] / K.
+        /// λ, the weight of ln det T; `None`: chosen from the random audits
+        /// ([`volume`]), [`super::joint::DEFAULT_VOLUME_SCALE`] / K unless they clearly
+        /// prefer another value.
         volume_weight: Option<f64>,
     },
 }
@@ -228,6 +232,22 @@ pub struct Estimate {
     /// One matrix per label source, when the table names a source column; `matrix` and
     /// `clean` are then the sources' mix and their shared clean posterior.
     pub by_source: Option<crate::noise::sources::BySource>,
+    /// The joint fit's volume weight and why it was used.
+    pub volume: Option<VolumeChoice>,
+}
+
+impl Estimate {
+    /// `method` with every choice this estimate made from the data fixed (the joint fit's
+    /// λ), so that bootstrap resamples and per-source fits repeat the same estimator
+    /// instead of choosing again.
+    pub fn pinned(&self, method: &Method) -> Method {
+        match (method, self.volume) {
+            (Method::Joint { .. }, Some(volume)) => Method::Joint {
+                volume_weight: Some(volume.weight),
+            },
+            _ => method.clone(),
+        }
+    }
 }
 
 /// Runs `method` on `sample`; `classes` names the classes in messages.
@@ -240,6 +260,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
     }
     let mut warnings = Vec::new();
     let mut clean = None;
+    let mut volume = None;
     let mut matrix = match method {
         Method::Anchor => anchor(sample),
         Method::Quantile { q } => quantile(sample, *q, classes, &mut warnings),
@@ -248,8 +269,9 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
         }
         Method::Counting => counting(sample, classes, &mut warnings),
         Method::Joint { volume_weight } => {
-            let fit = joint(sample, *volume_weight, classes, &mut warnings)?;
+            let (fit, choice) = joint(sample, *volume_weight, classes, &mut warnings)?;
             clean = Some(fit.clean);
+            volume = Some(choice);
             fit.matrix
         }
     };
@@ -260,30 +282,39 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
         clean,
         warnings,
         by_source: None,
+        volume,
     })
 }
 
-/// The joint fit started from the counting estimate, with λ = its default over K unless
-/// given.
+/// The joint fit started from the counting estimate, with λ as given, else chosen from
+/// the random audits ([`volume`]).
 fn joint(
     sample: &Sample,
     volume_weight: Option<f64>,
     classes: &[String],
     warnings: &mut Vec<String>,
-) -> Result<JointFit> {
-    let volume_weight =
-        volume_weight.unwrap_or(DEFAULT_VOLUME_SCALE / sample.probs.ncols().max(1) as f64);
+) -> Result<(JointFit, VolumeChoice)> {
     let start = counting(sample, classes, warnings);
+    let (choice, warm) = match volume_weight {
+        Some(weight) => {
+            let chosen_by = ChosenBy::Given;
+            (VolumeChoice { weight, chosen_by }, None)
+        }
+        None => choose_volume_weight(sample, &start, &JointParams::default())?,
+    };
     let params = JointParams {
-        volume_weight,
+        volume_weight: choice.weight,
         ..JointParams::default()
     };
-    let fit = fit_joint(sample, &start, &params, &mut |_| true)?;
+    let from = warm
+        .as_deref()
+        .map_or(Start::Matrix(&start), Start::Parameters);
+    let fit = fit_joint_from(sample, from, &params, &mut |_| true)?;
     if !fit.converged {
         warnings.push(format!(
             "the joint fit stopped at its iteration limit ({} iterations)",
             fit.iterations
         ));
     }
-    Ok(fit)
+    Ok((fit, choice))
 }

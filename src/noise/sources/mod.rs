@@ -15,7 +15,7 @@
 use ndarray::Array2;
 
 use super::estimators::{estimate, Estimate, Method, Sample};
-use super::joint::{fit_grouped, GroupedFit, Groups, JointParams, DEFAULT_VOLUME_SCALE};
+use super::joint::{fit_grouped, GroupedFit, Groups, JointParams, Start, DEFAULT_VOLUME_SCALE};
 use super::matrix::normalize_rows;
 use super::posterior::Posterior;
 use crate::error::{Error, Result};
@@ -215,7 +215,13 @@ fn joint_by_source(
         count: data.names.len(),
         prior: Some((overall, PRIOR_ROWS)),
     };
-    fit_grouped(&data.sample, &groups, overall, &params, &mut |_| true)
+    fit_grouped(
+        &data.sample,
+        &groups,
+        Start::Matrix(overall),
+        &params,
+        &mut |_| true,
+    )
 }
 
 /// The clean posterior every source shares: the overall fit's when it has one, else the
