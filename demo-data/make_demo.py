@@ -12,7 +12,12 @@ staffed by a new operator who confuses every pair twice as often (STATION_SCALE)
 `trusted`). The true material of every item is in recycling_truth.csv, for checking the
 tool only.
 
-Usage: python3 make_demo.py [--seed 20261201] [--rows 8000] [--audited 400]
+A quality panel (recycling_panel.csv, also invented) had four graders re-type 1,500 of the
+items from their photographs, two or three graders an item, independently: grader_a is
+meticulous, grader_d hurried (GRADER_SCALE). It is drawn after the main table from its own
+random stream (seed + 1), so the main table does not depend on it.
+
+Usage: python3 make_demo.py [--seed 20261201] [--rows 8000] [--audited 400] [--panel 1500]
 """
 import argparse
 import csv
@@ -39,6 +44,8 @@ STATIONS = ["S1", "S2", "S3", "S4"]
 # Each station's confusion: the base flip probabilities times this factor.
 STATION_SCALE = {"S1": 0.5, "S2": 1.0, "S3": 1.0, "S4": 2.0}
 DIMS = 12
+# Each panel grader's confusion: the base flip probabilities times this factor.
+GRADER_SCALE = {"grader_a": 0.4, "grader_b": 1.0, "grader_c": 1.5, "grader_d": 2.5}
 
 
 def flip_matrix(scale=1.0):
@@ -71,6 +78,7 @@ def main():
     ap.add_argument("--seed", type=int, default=20261201)
     ap.add_argument("--rows", type=int, default=8000)
     ap.add_argument("--audited", type=int, default=400)
+    ap.add_argument("--panel", type=int, default=1500)
     ap.add_argument("--out", default=os.path.dirname(os.path.abspath(__file__)))
     args = ap.parse_args()
     rng = random.Random(args.seed)
@@ -79,6 +87,7 @@ def main():
     offset = [round(rng.uniform(-5, 5), 2) for _ in range(DIMS)]
     t = {s: flip_matrix(STATION_SCALE[s]) for s in STATIONS}
     audited = set(rng.sample(range(args.rows), args.audited))
+    items = []
     data_path = os.path.join(args.out, "recycling.csv")
     truth_path = os.path.join(args.out, "recycling_truth.csv")
     with open(data_path, "w", newline="") as fd, open(truth_path, "w", newline="") as ft:
@@ -94,8 +103,27 @@ def main():
             trusted = CLASSES[true] if row in audited else ""
             data.writerow([item, station] + [f"{v:.4f}" for v in emb] + [CLASSES[typed], trusted])
             truth.writerow([item, CLASSES[true]])
+            items.append((item, [f"{v:.4f}" for v in emb], true))
     print(f"wrote {data_path} and {truth_path} (seed {args.seed})")
     assert all(math.isclose(sum(r), 1.0) for m in t.values() for r in m)
+    write_panel(os.path.join(args.out, "recycling_panel.csv"), items, args.panel, args.seed + 1)
+
+
+def write_panel(path, items, count, seed):
+    """Two or three of the graders type each of `count` items drawn from the table."""
+    rng = random.Random(seed)
+    graders = list(GRADER_SCALE)
+    t = {g: flip_matrix(GRADER_SCALE[g]) for g in graders}
+    assert all(math.isclose(sum(r), 1.0) and min(r) >= 0 for m in t.values() for r in m)
+    with open(path, "w", newline="") as f:
+        out = csv.writer(f, lineterminator="\n")
+        out.writerow(["id"] + [f"emb{d}" for d in range(DIMS)] + graders)
+        for row in sorted(rng.sample(range(len(items)), count)):
+            item, emb, true = items[row]
+            chosen = set(rng.sample(graders, rng.choice([2, 3])))
+            typed = [CLASSES[draw(rng, t[g][true])] if g in chosen else "" for g in graders]
+            out.writerow([item] + emb + typed)
+    print(f"wrote {path} (seed {seed})")
 
 
 if __name__ == "__main__":

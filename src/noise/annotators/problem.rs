@@ -73,7 +73,7 @@ pub(super) fn check_annotators(p: &Problem) -> Result<()> {
         named.join(", ")
     };
     let head = format!(
-        "{} never label an item together with {}",
+        "{} never labelled an item that {} labelled",
         list(&outside),
         list(&inside)
     );

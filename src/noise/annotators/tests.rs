@@ -343,7 +343,7 @@ fn disconnected_annotators_are_refused() {
     let message = usage_message(fit_labels(&labels, 2));
     assert!(
         message.contains(
-            "annotator 2, annotator 3 never label an item together with annotator 0, annotator 1"
+            "annotator 2, annotator 3 never labelled an item that annotator 0, annotator 1 labelled"
         ),
         "{message}"
     );

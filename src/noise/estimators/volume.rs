@@ -84,26 +84,34 @@ impl ChosenBy {
 impl VolumeChoice {
     /// One line for reports: λ and why.
     pub fn describe(&self, classes: usize) -> String {
-        let scale = self.weight * classes as f64;
+        let weight = significant(self.weight);
+        let scale = significant(self.weight * classes as f64);
         match self.chosen_by {
-            ChosenBy::Given => format!("volume weight {:.4} (given)", self.weight),
+            ChosenBy::Given => format!("volume weight λ = {weight} (given)"),
+            ChosenBy::Default { audits: 0 } => format!(
+                "volume weight λ = {weight} ({scale}/K, the default; no random audits to choose \
+                 it from)"
+            ),
             ChosenBy::Default { audits } if audits < MIN_CHOICE_AUDITS => format!(
-                "volume weight {:.4} ({scale:.4}/K, the default; {audits} random audits, \
-                 {MIN_CHOICE_AUDITS} are needed to choose it from the data)",
-                self.weight
+                "volume weight λ = {weight} ({scale}/K, the default; {audits} random audits, \
+                 {MIN_CHOICE_AUDITS} are needed to choose it from the data)"
             ),
             ChosenBy::Default { audits } => format!(
-                "volume weight {:.4} ({scale:.4}/K, the default: no other value scored clearly \
-                 better on the {audits} random audits held out)",
-                self.weight
+                "volume weight λ = {weight} ({scale}/K, the default: no other value scored \
+                 clearly better on the {audits} random audits held out)"
             ),
             ChosenBy::Audits { audits, gain_nats } => format!(
-                "volume weight {:.4} ({scale:.4}/K, chosen on the {audits} random audits held \
-                 out: {gain_nats:.3} nats a row more likely than the default)",
-                self.weight
+                "volume weight λ = {weight} ({scale}/K, chosen on the {audits} random audits \
+                 held out: {gain_nats:.3} nats a row more likely than the default)"
             ),
         }
     }
+}
+
+/// `x` to six decimals without trailing zeros (0.00125, 0.01).
+fn significant(x: f64) -> String {
+    let text = format!("{x:.6}");
+    text.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
 /// λ for a joint fit started from `start`, and the parameters the final fit (with the
