@@ -4,6 +4,7 @@
 use std::path::PathBuf;
 
 use super::jobs::JobKind;
+use super::source_edit::MatrixTarget;
 use crate::io::session::{Roles, Settings};
 
 /// One request from the UI.
@@ -19,7 +20,12 @@ pub enum Command {
     Settings(Settings),
     /// Re-estimate the matrix with the current estimator.
     Estimate,
-    /// Set one cell of the matrix (row = true class).
+    /// Show (and edit) this matrix: the overall one or a label source's. Cell edits,
+    /// undo, redo and reset apply to the matrix shown.
+    SelectMatrix(MatrixTarget),
+    /// Show only the suspects of this label source (`None`: every source).
+    FilterSource(Option<u32>),
+    /// Set one cell of the matrix shown (row = true class).
     SetCell {
         /// True class.
         row: usize,
@@ -30,11 +36,11 @@ pub enum Command {
     },
     /// A drag on a cell ended.
     EndGesture,
-    /// Undo the last matrix change.
+    /// Undo the last change of the matrix shown.
     Undo,
-    /// Redo the last undone matrix change.
+    /// Redo the last undone change of the matrix shown.
     Redo,
-    /// Back to the estimated (or imported) matrix.
+    /// The matrix shown back to its estimate (or imported matrix).
     ResetMatrix,
     /// Read a matrix CSV.
     ImportMatrix(PathBuf),

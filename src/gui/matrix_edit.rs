@@ -149,6 +149,20 @@ impl MatrixEditor {
         self.record(before, None);
     }
 
+    /// Moves an estimated reference to `matrix` (the label sources' mix, after one of
+    /// them changed), and the current matrix with it unless that was edited by hand or
+    /// imported; no undo step. The version moves either way, because the matrices the
+    /// ranking reads changed.
+    pub fn follow(&mut self, matrix: Array2<f64>) {
+        if self.origin == MatrixOrigin::Estimated {
+            self.current = matrix.clone();
+        }
+        if self.reference_origin == MatrixOrigin::Estimated {
+            self.reference = matrix;
+        }
+        self.version += 1;
+    }
+
     /// Back to the reference matrix (one undo step).
     pub fn reset(&mut self) -> bool {
         if self.current == self.reference {
@@ -317,6 +331,27 @@ mod tests {
         assert_eq!(e.matrix(), &start);
         e.set_cell(2, 2, 0.9, false);
         assert!(!e.can_redo());
+    }
+
+    #[test]
+    fn following_moves_an_unedited_matrix_and_only_the_reference_of_an_edited_one() {
+        let mut e = editor();
+        let mix = array![[0.7, 0.2, 0.1], [0.1, 0.9, 0.0], [0.0, 0.1, 0.9]];
+        let v = e.version();
+        e.follow(mix.clone());
+        assert_eq!(e.matrix(), &mix);
+        assert!(!e.can_undo(), "no undo step");
+        assert!(e.version() > v);
+        e.set_cell(2, 2, 0.5, false);
+        let edited = e.matrix().clone();
+        e.follow(Array2::eye(3));
+        assert_eq!(e.matrix(), &edited, "a hand edit stays");
+        assert!(e.reset());
+        assert_eq!(
+            e.matrix(),
+            &Array2::<f64>::eye(3),
+            "reset goes to the newest mix"
+        );
     }
 
     #[test]

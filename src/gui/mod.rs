@@ -6,6 +6,7 @@ pub mod command;
 pub mod dialogs;
 pub mod jobs;
 pub mod matrix_edit;
+pub mod source_edit;
 pub mod state;
 mod views;
 

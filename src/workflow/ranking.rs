@@ -4,14 +4,14 @@
 //! filtering is one pass over the ranking, cheap enough for the UI thread. The suspects
 //! job ([`super::suspects`]) sums the expected count with the same [`score_summaries`].
 
+use std::sync::Arc;
+
 use ndarray::{Array2, ArrayView2};
 
 use rayon::prelude::*;
 
 use crate::noise::posterior::{sum_in_chunks, Flip};
-use crate::noise::scores::{
-    rank, rank_values, score_rows, score_selected, score_values, RowScore, ScoreKind,
-};
+use crate::noise::scores::{rank, rank_values, score_rows, RowFlips, RowScore, ScoreKind};
 
 /// Rows put in order first after a matrix edit; the table shows them while the rest is
 /// sorted (a screenful scrolled many times over).
@@ -72,7 +72,41 @@ pub fn score_summaries(scores: &[f64], kind: ScoreKind) -> (Histogram, Option<f6
     (histogram, kind.is_probability().then_some(total))
 }
 
-/// Every row scored for one matrix, most suspect first: all rows, or (right after an
+/// The matrices a ranking scored its rows under, kept so that the rest of a head ranking
+/// is scored the same way.
+#[derive(Debug, Clone)]
+pub enum Matrices {
+    /// One matrix for every row.
+    One(Array2<f64>),
+    /// Row r under `matrices[of_row[r]]`: each row under its own label source's matrix,
+    /// as the command line's suspects scores them.
+    BySource {
+        /// One per source.
+        matrices: Vec<Array2<f64>>,
+        /// The source of every row.
+        of_row: Arc<[u32]>,
+    },
+}
+
+impl Matrices {
+    /// The matrices as the scores read them (`clean_inputs`: the rows are clean
+    /// posteriors).
+    pub fn flips(&self, clean_inputs: bool) -> RowFlips<'_> {
+        let flip = |matrix| Flip {
+            matrix,
+            clean_inputs,
+        };
+        match self {
+            Matrices::One(m) => RowFlips::One(Some(flip(m))),
+            Matrices::BySource { matrices, of_row } => RowFlips::BySource {
+                flips: matrices.iter().map(flip).collect(),
+                of_row,
+            },
+        }
+    }
+}
+
+/// Every row scored for one matrix (or one per source), most suspect first: all rows, or (right after an
 /// edit) only the first rows while the rest is ranked.
 #[derive(Debug, Clone)]
 pub struct Ranking {
@@ -87,9 +121,9 @@ pub struct Ranking {
     /// Sum of the probabilities of a wrong label (expected mislabelled rows), for the
     /// probability scores.
     pub expected_errors: Option<f64>,
-    /// The matrix it was computed from, and its version.
-    pub matrix: Array2<f64>,
-    /// Version of `matrix`.
+    /// The matrices it was computed from.
+    pub matrices: Matrices,
+    /// Version of `matrices` (the app's matrix version).
     pub matrix_version: u64,
     /// True when the rows were scored from clean posteriors (a joint fit's).
     pub clean_inputs: bool,
@@ -103,21 +137,19 @@ impl Ranking {
     fn new(
         ranked: Vec<RowScore>,
         scores: &[f64],
-        kind: ScoreKind,
-        flip: Flip,
-        matrix_version: u64,
+        under: Under,
         started: std::time::Instant,
     ) -> Self {
-        let (histogram, expected_errors) = score_summaries(scores, kind);
+        let (histogram, expected_errors) = score_summaries(scores, under.kind);
         Ranking {
             ranked,
             rows: scores.len(),
-            kind,
+            kind: under.kind,
             histogram,
             expected_errors,
-            matrix: flip.matrix.clone(),
-            matrix_version,
-            clean_inputs: flip.clean_inputs,
+            matrices: under.matrices,
+            matrix_version: under.version,
+            clean_inputs: under.clean_inputs,
             duration_secs: started.elapsed().as_secs_f64(),
         }
     }
@@ -125,6 +157,31 @@ impl Ranking {
     /// True once every row is ranked.
     pub fn is_complete(&self) -> bool {
         self.ranked.len() == self.rows
+    }
+}
+
+/// What a ranking is computed under: the score, the matrices and what the rows are.
+#[derive(Debug, Clone)]
+pub struct Under {
+    /// Which score.
+    pub kind: ScoreKind,
+    /// The matrices.
+    pub matrices: Matrices,
+    /// True when the rows handed in are clean posteriors (a joint fit's).
+    pub clean_inputs: bool,
+    /// The matrices' version, carried into the ranking.
+    pub version: u64,
+}
+
+impl Under {
+    /// One matrix for every row, as `flip` says.
+    pub fn one(flip: Flip, kind: ScoreKind, version: u64) -> Self {
+        Under {
+            kind,
+            matrices: Matrices::One(flip.matrix.clone()),
+            clean_inputs: flip.clean_inputs,
+            version,
+        }
     }
 }
 
@@ -137,11 +194,24 @@ pub fn rank_rows(
     kind: ScoreKind,
     matrix_version: u64,
 ) -> Ranking {
+    rank_all(probs, labels, Under::one(flip, kind, matrix_version))
+}
+
+/// Scores and ranks every row under `under`'s matrices.
+pub fn rank_all(probs: ArrayView2<f32>, labels: &[usize], under: Under) -> Ranking {
     let started = std::time::Instant::now();
-    let mut ranked = score_rows(kind, probs, labels, Some(flip));
+    let flips = under.matrices.flips(under.clean_inputs);
+    let mut ranked = match &flips {
+        RowFlips::One(flip) => score_rows(under.kind, probs, labels, *flip),
+        RowFlips::BySource { .. } => {
+            let all: Vec<usize> = (0..labels.len()).collect();
+            flips.selected(under.kind, probs, labels, &all)
+        }
+    };
+    drop(flips);
     let scores: Vec<f64> = ranked.par_iter().map(|s| s.score).collect();
     rank(&mut ranked);
-    Ranking::new(ranked, &scores, kind, flip, matrix_version, started)
+    Ranking::new(ranked, &scores, under, started)
 }
 
 /// Ranks only the `head` most suspect rows (the same rows, in the same order, as the
@@ -156,23 +226,32 @@ pub fn rank_rows_head(
     matrix_version: u64,
     head: usize,
 ) -> Ranking {
-    if head >= labels.len() {
-        return rank_rows(probs, labels, flip, kind, matrix_version);
-    }
-    let started = std::time::Instant::now();
-    let scores = score_values(kind, probs, labels, Some(flip));
-    let rows = rank_values(&scores, head);
-    let head = score_selected(kind, probs, labels, Some(flip), &rows);
-    Ranking::new(head, &scores, kind, flip, matrix_version, started)
+    rank_head(probs, labels, Under::one(flip, kind, matrix_version), head)
 }
 
-/// The complete ranking behind a head ranking (same matrix, score and version).
+/// [`rank_rows_head`] under `under`'s matrices (one, or one per source).
+pub fn rank_head(probs: ArrayView2<f32>, labels: &[usize], under: Under, head: usize) -> Ranking {
+    if head >= labels.len() {
+        return rank_all(probs, labels, under);
+    }
+    let started = std::time::Instant::now();
+    let flips = under.matrices.flips(under.clean_inputs);
+    let scores = flips.values(under.kind, probs, labels);
+    let rows = rank_values(&scores, head);
+    let head = flips.selected(under.kind, probs, labels, &rows);
+    drop(flips);
+    Ranking::new(head, &scores, under, started)
+}
+
+/// The complete ranking behind a head ranking (same matrices, score and version).
 pub fn finish_ranking(partial: &Ranking, probs: ArrayView2<f32>, labels: &[usize]) -> Ranking {
-    let flip = Flip {
-        matrix: &partial.matrix,
+    let under = Under {
+        kind: partial.kind,
+        matrices: partial.matrices.clone(),
         clean_inputs: partial.clean_inputs,
+        version: partial.matrix_version,
     };
-    rank_rows(probs, labels, flip, partial.kind, partial.matrix_version)
+    rank_all(probs, labels, under)
 }
 
 /// What the table shows.
@@ -182,13 +261,32 @@ pub struct Filter {
     pub observed: Option<usize>,
     /// Only rows whose suggested class is this.
     pub suggested: Option<usize>,
+    /// Only rows of this label source (an index into the sources' names).
+    pub source: Option<u32>,
     /// Only rows scoring at least this, as shown ([`ScoreKind::shown`]).
     pub min_score: f64,
 }
 
+impl Filter {
+    /// True when row `row` passes the source filter (`of_row`: every row's source).
+    pub fn keeps_source(&self, of_row: Option<&[u32]>, row: usize) -> bool {
+        match (self.source, of_row) {
+            (None, _) => true,
+            (Some(s), Some(of_row)) => of_row.get(row) == Some(&s),
+            (Some(_), None) => false,
+        }
+    }
+}
+
 /// Positions in the ranking (its rows in final order) of the rows `filter` keeps, in
 /// rank order. Because the ranking is sorted by score, the threshold ends the scan.
-pub fn filter_rows(ranking: &Ranking, labels: &[usize], filter: &Filter) -> Vec<u32> {
+/// `of_row` is every row's label source; a source filter without it keeps no row.
+pub fn filter_rows(
+    ranking: &Ranking,
+    labels: &[usize],
+    of_row: Option<&[u32]>,
+    filter: &Filter,
+) -> Vec<u32> {
     // The threshold on the score's own scale, once: no logistic per row on the UI thread.
     let threshold = ranking.kind.from_shown(filter.min_score);
     let mut kept = Vec::new();
@@ -198,6 +296,7 @@ pub fn filter_rows(ranking: &Ranking, labels: &[usize], filter: &Filter) -> Vec<
         }
         if filter.observed.is_some_and(|c| labels[s.row] != c)
             || filter.suggested.is_some_and(|c| s.suggested != c)
+            || !filter.keeps_source(of_row, s.row)
         {
             continue;
         }
@@ -207,109 +306,4 @@ pub fn filter_rows(ranking: &Ranking, labels: &[usize], filter: &Filter) -> Vec<
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::noise::posterior::SUM_CHUNK_ROWS;
-    use ndarray::array;
-
-    #[test]
-    fn filters_keep_rank_order_and_stop_at_the_threshold() {
-        // Three rows scored by self-confidence, 1 − p(observed): 0.1, 0.8, 0.6 (ranked by
-        // their odds, shown and filtered as these probabilities).
-        let probs = array![[0.9f32, 0.1], [0.2, 0.8], [0.6, 0.4]];
-        let labels = [0, 0, 1];
-        let r = rank_rows(
-            probs.view(),
-            &labels,
-            Flip::noisy(&Array2::eye(2)),
-            ScoreKind::SelfConfidence,
-            3,
-        );
-        let order: Vec<usize> = r.ranked.iter().map(|s| s.row).collect();
-        assert_eq!(order, vec![1, 2, 0]);
-        assert!((r.expected_errors.unwrap() - (0.1 + 0.8 + 0.6)).abs() < 1e-6);
-        let all = filter_rows(&r, &labels, &Filter::default());
-        assert_eq!(all, vec![0, 1, 2]);
-        let observed_zero = Filter {
-            observed: Some(0),
-            ..Default::default()
-        };
-        assert_eq!(filter_rows(&r, &labels, &observed_zero), vec![0, 2]);
-        let confident = Filter {
-            min_score: 0.7,
-            ..Default::default()
-        };
-        assert_eq!(filter_rows(&r, &labels, &confident), vec![0]);
-        let suggested_zero = Filter {
-            suggested: Some(0),
-            ..Default::default()
-        };
-        assert_eq!(filter_rows(&r, &labels, &suggested_zero), vec![1, 2]);
-    }
-
-    /// `rows` rows of spread probabilities over three classes, labels in turn, and a T.
-    fn three_classes(rows: usize) -> (Array2<f32>, Vec<usize>, Array2<f64>) {
-        let probs = Array2::from_shape_fn((rows, 3), |(r, c)| {
-            ((r * 7919 + c * 104_729) % 1000) as f32 / 1000.0 + 0.01
-        });
-        let sums = probs.sum_axis(ndarray::Axis(1));
-        let probs = &probs / &sums.insert_axis(ndarray::Axis(1));
-        let labels: Vec<usize> = (0..rows).map(|r| r % 3).collect();
-        let t = array![[0.8, 0.1, 0.1], [0.2, 0.7, 0.1], [0.05, 0.15, 0.8]];
-        (probs, labels, t)
-    }
-
-    #[test]
-    fn the_expected_count_is_the_command_lines_bit_for_bit() {
-        let rows = 3 * SUM_CHUNK_ROWS + 17;
-        let (probs, labels, t) = three_classes(rows);
-        let kind = ScoreKind::Posterior;
-        let r = rank_rows(probs.view(), &labels, Flip::noisy(&t), kind, 1);
-        let scores = score_values(kind, probs.view(), &labels, Some(Flip::noisy(&t)));
-        let (_, cli) = score_summaries(&scores, kind);
-        assert_eq!(r.expected_errors.map(f64::to_bits), cli.map(f64::to_bits));
-        // The chunked sum is the plain sum up to rounding.
-        let plain: f64 = scores.iter().map(|&s| kind.shown(s)).sum();
-        assert!((cli.unwrap() - plain).abs() < 1e-6 * plain);
-    }
-
-    #[test]
-    fn the_histogram_counts_every_row_once() {
-        let probs = array![[1.0f32, 0.0], [0.5, 0.5], [0.0, 1.0], [0.25, 0.75]];
-        let labels = [0, 0, 0, 1];
-        let r = rank_rows(
-            probs.view(),
-            &labels,
-            Flip::noisy(&Array2::eye(2)),
-            ScoreKind::Margin,
-            0,
-        );
-        assert_eq!(r.histogram.counts.iter().sum::<usize>(), 4);
-        assert_eq!(r.histogram.low, -1.0);
-        // Margins: −1, 0, 1, −0.5 → bins 0, 20, 39 (the top edge), 10.
-        for bin in [0, 10, 20, HISTOGRAM_BINS - 1] {
-            assert_eq!(r.histogram.counts[bin], 1, "bin {bin}");
-        }
-        assert_eq!(r.expected_errors, None);
-    }
-
-    #[test]
-    fn a_finished_head_ranking_is_the_full_ranking() {
-        let rows = 2000;
-        let (probs, labels, t) = three_classes(rows);
-        for kind in [
-            ScoreKind::Posterior,
-            ScoreKind::SelfConfidence,
-            ScoreKind::Margin,
-        ] {
-            let full = rank_rows(probs.view(), &labels, Flip::noisy(&t), kind, 1);
-            let head = rank_rows_head(probs.view(), &labels, Flip::noisy(&t), kind, 1, 100);
-            assert!(full.is_complete() && !head.is_complete());
-            assert_eq!(head.ranked, full.ranked[..100], "{kind:?}");
-            assert_eq!(head.histogram, full.histogram);
-            assert_eq!(head.expected_errors, full.expected_errors);
-            let done = finish_ranking(&head, probs.view(), &labels);
-            assert_eq!(done.ranked, full.ranked);
-        }
-    }
-}
+mod tests;

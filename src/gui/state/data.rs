@@ -40,6 +40,11 @@ impl AppState {
             self.session.probs = None;
         }
         self.class_counts = (data.class_counts(), data.trusted_counts());
+        self.of_row = data
+            .sources
+            .as_ref()
+            .map(|s| Arc::from(s.of_row.as_slice()));
+        self.source_filter = None;
         self.data = Some(Arc::new(data));
         self.data_generation += 1;
         self.rank_pending = false;
@@ -60,6 +65,7 @@ impl AppState {
         self.editor = None;
         self.estimate = None;
         self.intervals = None;
+        self.start_sources(None);
         self.diagnostics = None;
         self.ranking = None;
         self.visible.clear();

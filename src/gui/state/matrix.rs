@@ -68,17 +68,10 @@ impl AppState {
             (_, Some(editor)) => editor.replace(matrix, MatrixOrigin::Estimated),
             (_, None) => self.editor = Some(MatrixEditor::new(matrix, MatrixOrigin::Estimated)),
         }
+        self.start_sources(info.by_source.clone());
         self.estimate = Some(info);
         self.intervals = None;
         self.matrix_changed();
-    }
-
-    pub(super) fn edit(&mut self, change: fn(&mut MatrixEditor) -> bool) {
-        if let Some(e) = &mut self.editor {
-            if change(e) {
-                self.matrix_changed();
-            }
-        }
     }
 
     /// The matrix changed: re-rank first (the table is what the user watches while
@@ -101,6 +94,15 @@ impl AppState {
                 for n in warnings {
                     self.say(Level::Warning, n);
                 }
+                if let Some(name) = self.shown_source_name() {
+                    // Into the source shown: one undo step, the other sources kept.
+                    self.edit(|e| {
+                        e.replace(matrix, MatrixOrigin::Imported);
+                        true
+                    });
+                    let text = format!("imported {} as the matrix of {name}", path.display());
+                    return self.say(Level::Info, text);
+                }
                 let k = matrix.nrows();
                 let editor = self.editor.get_or_insert_with(|| {
                     MatrixEditor::new(Array2::eye(k), MatrixOrigin::Imported)
@@ -114,6 +116,7 @@ impl AppState {
                     by_source: None,
                 });
                 self.intervals = None;
+                self.start_sources(None);
                 self.say(Level::Info, format!("imported {}", path.display()));
                 self.matrix_changed();
             }
@@ -121,8 +124,9 @@ impl AppState {
         }
     }
 
+    /// Writes the matrix shown (the overall one or a source's).
     pub(super) fn export_matrix(&mut self, path: PathBuf) {
-        let (Some(data), Some(editor)) = (&self.data, &self.editor) else {
+        let (Some(data), Some(editor)) = (&self.data, self.shown_editor()) else {
             return self.say(Level::Error, "there is no matrix to export yet");
         };
         let matrix = editor.matrix().clone();
@@ -145,18 +149,33 @@ impl AppState {
         };
         let s = &self.session.settings;
         let (resamples, seed) = (s.resamples.max(2), s.seed);
-        self.spawn_on_data(JobKind::Bootstrap, move |_| {
-            let i = workflow::matrix_intervals(&data, &probs, &method, resamples, seed)
-                .map_err(fail)?;
-            Ok(JobOutput::Intervals(i))
+        let by_source = self.sources.is_some();
+        self.spawn_on_data(JobKind::Bootstrap, move |_| match &data.sources {
+            // One matrix per source: every source's intervals and their mix's.
+            Some(sources) if by_source => {
+                workflow::source_intervals(&data, sources, &probs, &method, resamples, seed)
+                    .map(|i| JobOutput::SourceIntervals(Box::new(i)))
+                    .map_err(fail)
+            }
+            _ => workflow::matrix_intervals(&data, &probs, &method, resamples, seed)
+                .map(JobOutput::Intervals)
+                .map_err(fail),
         });
     }
 
     /// How the status bar and model files name the current matrix.
     pub fn matrix_description(&self) -> String {
+        let edited = self
+            .sources
+            .as_ref()
+            .map(|s| s.edited_names().join(", "))
+            .unwrap_or_default();
         match (&self.editor, &self.estimate) {
             (Some(e), Some(info)) if e.origin() == MatrixOrigin::Edited => {
                 format!("{} (edited by hand)", info.source)
+            }
+            (Some(_), Some(info)) if !edited.is_empty() => {
+                format!("{} (the matrices of {edited} changed by hand)", info.source)
             }
             (Some(_), Some(info)) => info.source.clone(),
             _ => "none yet".into(),

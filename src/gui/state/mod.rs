@@ -3,8 +3,9 @@
 //! out and starts background jobs; [`AppState::poll`] takes the jobs' results in, through
 //! the one stamp check in [`AppState::accept`]. Split by concern: [`messages`], data and
 //! probabilities (`data`), the flip matrix and its edits (`matrix`), ranking and
-//! diagnosis (`ranking`), worklists and reviews (`review`), training and comparing
-//! (`compare`), sessions and saving (`session`). Unit tests (`tests`) drive it without a
+//! diagnosis (`ranking`), label sources' matrices and the source filter (`sources`),
+//! worklists and reviews (`review`), training and comparing (`compare`), sessions and
+//! saving (`session`). Unit tests (`tests`) drive it without a
 //! window.
 
 mod compare;
@@ -14,8 +15,11 @@ pub mod messages;
 mod ranking;
 mod review;
 mod session;
+mod sources;
 #[cfg(test)]
 mod tests;
+#[cfg(test)]
+mod tests_sources;
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -28,11 +32,12 @@ pub use self::messages::{Level, Message};
 use super::command::Command;
 use super::jobs::{Finished, JobControl, JobFailure, JobKind, Jobs};
 use super::matrix_edit::MatrixEditor;
+use super::source_edit::{MatrixTarget, SourceEditors};
 use crate::data::Dataset;
 use crate::error::Error;
 use crate::io::review::Review;
 use crate::io::session::{Roles, Session, SessionMatrix, Settings};
-use crate::noise::bootstrap::Interval;
+use crate::noise::bootstrap::{Interval, SourceIntervals};
 use crate::noise::{Diagnostics, Method};
 use crate::workflow::compare::Comparison;
 use crate::workflow::ranking::Ranking;
@@ -87,6 +92,8 @@ pub enum JobOutput {
     Estimated(Array2<f64>, EstimateInfo),
     /// Bootstrap intervals.
     Intervals(Interval),
+    /// Bootstrap intervals of every label source's matrix and noise rate, and their mix.
+    SourceIntervals(Box<SourceIntervals>),
     /// A ranking (perhaps only its head in order).
     Ranked(Box<Ranking>),
     /// The complete ranking of a head ranking,.
@@ -144,6 +151,16 @@ pub struct AppState {
     estimate: Option<EstimateInfo>,
     /// Bootstrap intervals of the estimate.
     intervals: Option<Interval>,
+    /// Bootstrap intervals of every label source (with a source column).
+    source_intervals: Option<SourceIntervals>,
+    /// Every label source's matrix being edited (with a source column).
+    sources: Option<SourceEditors>,
+    /// The source of every row, shared with the ranking jobs (with a source column).
+    of_row: Option<Arc<[u32]>>,
+    /// The matrix the Flip matrix view shows and edits.
+    shown: MatrixTarget,
+    /// Only the suspects of this label source are shown.
+    source_filter: Option<u32>,
     /// Diagnostics of the current matrix (and the version they are for).
     diagnostics: Option<(Diagnostics, u64)>,
     /// Ranked suspects of the current (or, while re-ranking, the previous) matrix.
@@ -181,6 +198,11 @@ impl AppState {
             editor: None,
             estimate: None,
             intervals: None,
+            source_intervals: None,
+            sources: None,
+            of_row: None,
+            shown: MatrixTarget::Overall,
+            source_filter: None,
             diagnostics: None,
             ranking: None,
             visible: Vec::new(),
@@ -293,19 +315,16 @@ impl AppState {
             Command::ComputeProbabilities => self.load_probabilities(None),
             Command::Settings(settings) => self.change_settings(settings),
             Command::Estimate => self.start_estimate(),
+            Command::SelectMatrix(target) => self.select_matrix(target),
+            Command::FilterSource(source) => self.filter_source(source),
             Command::SetCell { row, col, value } => {
                 let keep = self.session.settings.keep_diagonal;
-                if let Some(e) = &mut self.editor {
-                    if e.set_cell(row, col, value, keep) {
-                        self.matrix_changed();
-                    }
-                }
+                self.edit(|e| e.set_cell(row, col, value, keep));
             }
-            Command::EndGesture => {
-                if let Some(e) = &mut self.editor {
-                    e.end_gesture();
-                }
-            }
+            Command::EndGesture => self.edit(|e| {
+                e.end_gesture();
+                false
+            }),
             Command::Undo => self.edit(MatrixEditor::undo),
             Command::Redo => self.edit(MatrixEditor::redo),
             Command::ResetMatrix => self.edit(MatrixEditor::reset),
@@ -384,6 +403,10 @@ impl AppState {
             }
             JobOutput::Estimated(matrix, info) => self.estimated(matrix, info),
             JobOutput::Intervals(interval) => self.intervals = Some(interval),
+            JobOutput::SourceIntervals(by_source) => {
+                self.intervals = Some(by_source.overall.clone());
+                self.source_intervals = Some(*by_source);
+            }
             // A ranking of a slightly older matrix is still shown while the newer one is
             // computed (the view says it is updating); one of another score is not.
             JobOutput::Ranked(ranking) if ranking.kind == self.session.settings.score => {

@@ -8,7 +8,9 @@ use crate::noise::posterior::Flip;
 use crate::noise::scores::ScoreKind;
 use crate::noise::Estimator;
 use crate::workflow;
-use crate::workflow::ranking::{filter_rows, finish_ranking, rank_rows_head, Filter, HEAD_ROWS};
+use crate::workflow::ranking::{
+    filter_rows, finish_ranking, rank_head, Filter, Matrices, Under, HEAD_ROWS,
+};
 
 impl AppState {
     pub(super) fn change_settings(&mut self, new: Settings) {
@@ -52,6 +54,7 @@ impl AppState {
             matrix: editor.matrix().clone(),
             version: editor.version(),
             clean: self.estimate.as_ref().and_then(|e| e.clean.clone()),
+            by_source: self.ranking_sources(),
         })
     }
 
@@ -63,15 +66,8 @@ impl AppState {
         // Sorting the rest of an older ranking is wasted once a newer one is on its way.
         self.jobs.cancel(JobKind::RankRest);
         self.spawn_on_data(JobKind::Rank, move |_| {
-            let (probs, flip) = inputs.scored(kind);
-            let r = rank_rows_head(
-                probs,
-                &inputs.data.labels,
-                flip,
-                kind,
-                inputs.version,
-                HEAD_ROWS,
-            );
+            let (probs, under) = inputs.scored(kind);
+            let r = rank_head(probs, &inputs.data.labels, under, HEAD_ROWS);
             Ok(JobOutput::Ranked(Box::new(r)))
         });
     }
@@ -109,6 +105,7 @@ impl AppState {
             matrix,
             version,
             clean,
+            ..
         }) = self.matrix_job_inputs(JobKind::Diagnose)
         else {
             return;
@@ -129,6 +126,7 @@ impl AppState {
         Filter {
             observed: class(&s.observed_filter),
             suggested: class(&s.suggested_filter),
+            source: self.source_filter,
             min_score: s.min_score,
         }
     }
@@ -136,7 +134,7 @@ impl AppState {
     pub(super) fn refilter(&mut self) {
         let filter = self.filter();
         self.visible = match (&self.ranking, &self.data) {
-            (Some(r), Some(d)) => filter_rows(r, &d.labels, &filter),
+            (Some(r), Some(d)) => filter_rows(r, &d.labels, self.of_row.as_deref(), &filter),
             _ => Vec::new(),
         };
     }
@@ -150,13 +148,31 @@ struct MatrixJobInputs {
     version: u64,
     /// The joint fit's clean posteriors, when the matrix came from one.
     clean: Option<Arc<Array2<f32>>>,
+    /// Every source's matrix and every row's source, when each row is ranked under its
+    /// own source's matrix.
+    by_source: Option<Matrices>,
 }
 
 impl MatrixJobInputs {
-    /// What the posterior score reads, and the matrix as it applies to it.
-    pub(super) fn scored(&self, kind: ScoreKind) -> (ArrayView2<'_, f32>, Flip<'_>) {
+    /// What the score reads, and the matrices as they apply to it: each row's own
+    /// source's matrix for the posterior score on clean posteriors (as the command line
+    /// scores them), else the one matrix.
+    pub(super) fn scored(&self, kind: ScoreKind) -> (ArrayView2<'_, f32>, Under) {
         let (view, flip) =
             workflow::score_inputs(kind, &self.probs, self.clean.as_deref(), Some(&self.matrix));
-        (view, flip.unwrap_or(Flip::noisy(&self.matrix)))
+        let under = match (flip, &self.by_source) {
+            (Some(flip), Some(matrices)) if flip.clean_inputs => Under {
+                kind,
+                matrices: matrices.clone(),
+                clean_inputs: true,
+                version: self.version,
+            },
+            (flip, _) => Under::one(
+                flip.unwrap_or(Flip::noisy(&self.matrix)),
+                kind,
+                self.version,
+            ),
+        };
+        (view, under)
     }
 }

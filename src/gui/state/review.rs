@@ -35,9 +35,16 @@ impl AppState {
             .collect();
         let inputs = self.input_paths();
         let (kind, seed) = (settings.score, settings.seed);
+        let of_row = self.of_row.clone();
         let job = self.next_save();
         self.spawn_on_data(job, move |_| {
-            let items = ranked_with_control(&ranking, &data, &listed, control, seed, &filter);
+            let pick = Pick {
+                control,
+                seed,
+                filter: &filter,
+                of_row: of_row.as_deref(),
+            };
+            let items = ranked_with_control(&ranking, &data, &listed, &pick);
             let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
             for target in [&path, &key_path(&path)] {
                 check_not_input(target, &refs).map_err(fail)?;
@@ -100,15 +107,23 @@ impl AppState {
     }
 }
 
-/// The listed rows of the app's worklist plus `control` control rows drawn from the rows
-/// the filter's class choices allow, with their verdicts and ranks from the ranking.
+/// How a worklist's control rows are drawn: how many, the seed, and the rows the
+/// filter's class and source choices allow (`of_row`: every row's source).
+struct Pick<'a> {
+    control: usize,
+    seed: u64,
+    filter: &'a Filter,
+    of_row: Option<&'a [u32]>,
+}
+
+/// The listed rows of the app's worklist plus control rows drawn from the rows the
+/// filter's class and source choices allow, with their verdicts and ranks from the
+/// ranking.
 fn ranked_with_control(
     ranking: &Ranking,
     data: &Dataset,
     listed: &[(RowScore, usize)],
-    control: usize,
-    seed: u64,
-    filter: &Filter,
+    pick: &Pick,
 ) -> Vec<Item> {
     let mut position = vec![0usize; ranking.ranked.len()];
     for (i, s) in ranking.ranked.iter().enumerate() {
@@ -117,9 +132,13 @@ fn ranked_with_control(
     with_control(
         listed,
         data.rows(),
-        control,
-        seed,
-        |r| filter.observed.is_none_or(|c| data.labels[r] == c),
+        pick.control,
+        pick.seed,
+        |r| {
+            let filter = pick.filter;
+            filter.observed.is_none_or(|c| data.labels[r] == c)
+                && filter.keeps_source(pick.of_row, r)
+        },
         |rows| rows.iter().map(|&r| ranking.ranked[position[r]]).collect(),
         |rows| rows.iter().map(|&r| position[r] + 1).collect(),
     )

@@ -33,6 +33,7 @@ impl AppState {
         match outcome {
             Ok(()) => {
                 self.say(Level::Info, format!("session saved to {}", path.display()));
+                self.warn_unsaved_source_edits();
                 self.session_path = Some(path);
             }
             Err(e) => self.say(Level::Error, format!("the session was not saved: {e}")),
@@ -59,6 +60,26 @@ impl AppState {
         match data {
             Some(data) => self.load_data(data, roles),
             None => self.say(Level::Info, format!("opened session {}", path.display())),
+        }
+    }
+
+    /// A session holds one matrix, the overall one: hand edits of the sources' matrices
+    /// are not in it, and the user is told so.
+    fn warn_unsaved_source_edits(&mut self) {
+        let edited = self
+            .sources
+            .as_ref()
+            .map(|s| s.edited_names().join(", "))
+            .unwrap_or_default();
+        if !edited.is_empty() {
+            self.say(
+                Level::Warning,
+                format!(
+                    "a session keeps one matrix, the overall one: the changed \
+                     matrices of {edited} are not in it (export each as a matrix CSV, and \
+                     import it with that source shown, to keep it)"
+                ),
+            );
         }
     }
 

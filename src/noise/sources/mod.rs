@@ -89,6 +89,28 @@ impl BySource {
         self.sources.iter().map(|s| &s.matrix).collect()
     }
 
+    /// The same sources with `matrices` in their place (one per source, in order: hand
+    /// edits in the app): each noise rate and the overall mix computed again as the
+    /// estimate computes them, the rows, class shares, test and warnings kept.
+    pub fn with_matrices(&self, matrices: Vec<Array2<f64>>) -> BySource {
+        let sources: Vec<SourceMatrix> = self
+            .sources
+            .iter()
+            .zip(matrices)
+            .map(|(source, matrix)| SourceMatrix {
+                noise_rate: noise_rate(&source.clean_share, &matrix),
+                matrix,
+                ..source.clone()
+            })
+            .collect();
+        BySource {
+            overall: mix(&sources, self.overall.nrows()),
+            sources,
+            test: self.test,
+            warnings: self.warnings.clone(),
+        }
+    }
+
     /// Source indices from the noisiest to the cleanest (ties in name order).
     pub fn noisiest_first(&self) -> Vec<usize> {
         let rate = |s: usize| self.sources[s].noise_rate;
@@ -326,9 +348,7 @@ fn summaries(
             clean_share
                 .iter_mut()
                 .for_each(|v| *v /= total.max(f64::MIN_POSITIVE));
-            let noise_rate = (0..k)
-                .map(|i| clean_share[i] * (1.0 - matrix[[i, i]]))
-                .sum();
+            let noise_rate = noise_rate(&clean_share, &matrix);
             let audited = data.sample.trusted.map_or(0, |t| {
                 source_rows.iter().filter(|&&r| t[r].is_some()).count()
             });
@@ -343,6 +363,15 @@ fn summaries(
             }
         })
         .collect()
+}
+
+/// Σ_i share_i·(1 − T[i][i]): the share of a source's rows whose label is wrong.
+fn noise_rate(clean_share: &[f64], matrix: &Array2<f64>) -> f64 {
+    clean_share
+        .iter()
+        .enumerate()
+        .map(|(i, share)| share * (1.0 - matrix[[i, i]]))
+        .sum()
 }
 
 /// The sources' mix, row i weighted by each source's estimated rows of true class i.

@@ -254,3 +254,40 @@ fn anchor_estimators_are_refused_per_source() {
         "{err}"
     );
 }
+
+#[test]
+fn edited_matrices_give_the_noise_rates_and_the_mix_again() {
+    // By hand: A (100 rows, half of each class, no flips) and B (300 rows, all class 0,
+    // which it types as 1 four times in ten). Row 0 of the mix weighs A's 50 rows against
+    // B's 300: (50·(1, 0) + 300·(0.6, 0.4)) / 350; row 1 is A's alone.
+    let source = |name: &str, rows, share: Vec<f64>| SourceMatrix {
+        name: name.into(),
+        rows,
+        audited: 0,
+        matrix: Array2::eye(2),
+        pooled: false,
+        clean_share: share,
+        noise_rate: 0.0,
+    };
+    let start = BySource {
+        sources: vec![
+            source("a", 100, vec![0.5, 0.5]),
+            source("b", 300, vec![1.0, 0.0]),
+        ],
+        overall: Array2::eye(2),
+        test: None,
+        warnings: vec!["kept".into()],
+    };
+    let edited = start.with_matrices(vec![Array2::eye(2), array![[0.6, 0.4], [0.0, 1.0]]]);
+    assert!((edited.sources[1].noise_rate - 0.4).abs() < 1e-12);
+    assert_eq!(edited.sources[0].noise_rate, 0.0);
+    let expected = array![[230.0 / 350.0, 120.0 / 350.0], [0.0, 1.0]];
+    assert!((&edited.overall - &expected)
+        .iter()
+        .all(|d| d.abs() < 1e-12));
+    assert_eq!(edited.warnings, start.warnings);
+    assert_eq!(edited.noisiest_first(), vec![1, 0]);
+    // The same matrices give back the estimate's own figures, bit for bit.
+    let again = edited.with_matrices(edited.matrices().into_iter().cloned().collect());
+    assert_eq!(again, edited);
+}
