@@ -13,8 +13,10 @@ use flipmend::gui::app::{FlipmendApp, Persisted, View};
 use flipmend::gui::command::Command;
 use flipmend::gui::dialogs::Purpose;
 use flipmend::gui::jobs::{JobFailure, JobKind};
+use flipmend::gui::source_edit::MatrixTarget;
 use flipmend::gui::state::{AppState, JobOutput};
 use flipmend::io::session::{MatrixOrigin, Roles};
+use flipmend::workflow::ranking::Matrices;
 
 use common::TempDir;
 
@@ -61,6 +63,7 @@ fn demo_opens_and_every_view_draws() {
     assert!(s.probs().is_some() && s.editor().is_some() && s.ranking().is_some());
     for (title, view) in [
         ("Flip matrix", View::Matrix),
+        ("Sources", View::Sources),
         ("Suspects", View::Suspects),
         ("Compare", View::Retrain),
         ("Data", View::Data),
@@ -388,12 +391,9 @@ fn set_path(h: &mut Harness<'_, FlipmendApp>, purpose: Purpose, path: &Path) {
     h.run_steps(1);
 }
 
-#[test]
-fn a_source_column_gives_each_station_its_matrix_in_the_flip_matrix_view() {
-    // The invented demo's stations differ by design (demo-data/README.md): S4's operator
-    // confuses every pair twice as often as the base rates, S1's half as often.
-    let dir = TempDir::new();
-    let demo = flipmend::gui::demo_file(&dir.path("")).unwrap();
+/// The demo with its `station` column as the label source.
+fn app_on_demo_with_stations(dir: &Path) -> Harness<'static, FlipmendApp> {
+    let demo = flipmend::gui::demo_file(dir).unwrap();
     let mut h = Harness::builder()
         .with_size([1400.0, 900.0])
         .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
@@ -404,6 +404,15 @@ fn a_source_column_gives_each_station_its_matrix_in_the_flip_matrix_view() {
     h.state_mut().push(Command::LoadData(demo, roles));
     h.run_steps(1);
     settle(&mut h);
+    h
+}
+
+#[test]
+fn a_source_column_gives_each_station_its_matrix_in_the_flip_matrix_view() {
+    // The invented demo's stations differ by design (demo-data/README.md): S4's operator
+    // confuses every pair twice as often as the base rates, S1's half as often.
+    let dir = TempDir::new();
+    let mut h = app_on_demo_with_stations(&dir.path(""));
     let by_source = state(&h)
         .estimate()
         .and_then(|e| e.by_source.clone())
@@ -421,4 +430,160 @@ fn a_source_column_gives_each_station_its_matrix_in_the_flip_matrix_view() {
     h.run_steps(2);
     h.get_by_label("Label sources");
     h.get_by_label("S4");
+}
+
+/// The index of the station called `name`.
+fn station(s: &AppState, name: &str) -> usize {
+    let sources = s.data().unwrap().sources.as_ref().unwrap();
+    sources.names.iter().position(|n| n == name).unwrap()
+}
+
+/// Asserts that every `step`-th ranked row's verdict is what `noise::scores` gives for
+/// that row alone under its own station's current matrix (on the estimate's clean
+/// posteriors): the command line's per-source scoring.
+fn assert_each_row_under_its_station(s: &AppState, step: usize) {
+    use flipmend::noise::posterior::Flip;
+    use flipmend::noise::scores::{score_selected, ScoreKind};
+    let editors = s.source_editors().unwrap();
+    let clean = s.estimate().unwrap().clean.clone().unwrap();
+    let data = s.data().unwrap();
+    let of_row = &data.sources.as_ref().unwrap().of_row;
+    let ranking = s.ranking().unwrap();
+    assert!(ranking.is_complete());
+    for verdict in ranking.ranked.iter().step_by(step) {
+        let own = editors
+            .editor(of_row[verdict.row] as usize)
+            .unwrap()
+            .matrix();
+        let rows = [verdict.row];
+        let alone = score_selected(
+            ScoreKind::Posterior,
+            clean.view(),
+            &data.labels,
+            Some(Flip::clean(own)),
+            &rows,
+        );
+        assert_eq!(alone[0], *verdict, "row {}", verdict.row);
+    }
+}
+
+#[test]
+fn a_stations_matrix_is_edited_and_its_rows_are_ranked_under_it() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo_with_stations(&dir.path(""));
+    assert!(state(&h).ranks_by_source());
+    assert_each_row_under_its_station(state(&h), 97);
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    h.get_by_label_contains("each row is ranked under its own source's matrix");
+    h.get_by_label("S4").click();
+    h.run_steps(2);
+    let s4 = station(state(&h), "S4");
+    assert_eq!(state(&h).shown_matrix(), MatrixTarget::Source(s4));
+    let estimated = state(&h).source_editors().unwrap().estimated().clone();
+    assert_eq!(
+        state(&h).shown_editor().unwrap().matrix(),
+        &estimated.sources[s4].matrix,
+        "the grid shows S4's matrix"
+    );
+    let ranking_before = order(state(&h));
+    h.get_by_label("T pet_bottle → hdpe_jug")
+        .set_value_accesskit(0.4);
+    h.run_steps(2);
+    settle(&mut h);
+    let s = state(&h);
+    let classes = &s.data().unwrap().classes;
+    let (i, j) = (
+        classes.iter().position(|c| c == "pet_bottle").unwrap(),
+        classes.iter().position(|c| c == "hdpe_jug").unwrap(),
+    );
+    let editors = s.source_editors().unwrap();
+    assert!((editors.editor(s4).unwrap().matrix()[[i, j]] - 0.4).abs() < 1e-9);
+    let s1 = station(s, "S1");
+    assert_eq!(
+        editors.editor(s1).unwrap().matrix(),
+        &estimated.sources[s1].matrix
+    );
+    // The overall matrix is the library's mix of the stations' matrices as they now are.
+    let mix = estimated.with_matrices(editors.matrices()).overall;
+    assert_eq!(s.editor().unwrap().matrix(), &mix);
+    assert_eq!(
+        s.ranking().unwrap().matrix_version,
+        s.editor().unwrap().version()
+    );
+    assert_ne!(order(s), ranking_before, "S4's rows moved");
+    assert_each_row_under_its_station(s, 97);
+    h.get_by_label("Undo").click();
+    h.run_steps(2);
+    settle(&mut h);
+    assert_eq!(state(&h).editor().unwrap().matrix(), &estimated.overall);
+    assert_eq!(order(state(&h)), ranking_before);
+}
+
+#[test]
+fn editing_the_overall_matrix_with_stations_ranks_every_row_under_it() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo_with_stations(&dir.path(""));
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    h.get_by_label("overall").click();
+    h.run_steps(2);
+    h.get_by_label("T pet_bottle → hdpe_jug")
+        .set_value_accesskit(0.3);
+    h.run_steps(2);
+    settle(&mut h);
+    let s = state(&h);
+    assert!(!s.ranks_by_source());
+    let overall = s.editor().unwrap().matrix().clone();
+    match &s.ranking().unwrap().matrices {
+        Matrices::One(m) => assert_eq!(m, &overall),
+        Matrices::BySource { .. } => panic!("still ranked by station"),
+    }
+    h.run_steps(2);
+    h.get_by_label_contains("every row is ranked under the overall matrix");
+    h.get_by_label("Reset to estimate").click();
+    h.run_steps(2);
+    settle(&mut h);
+    assert!(
+        state(&h).ranks_by_source(),
+        "the stations' matrices are back"
+    );
+    assert_each_row_under_its_station(state(&h), 97);
+}
+
+#[test]
+fn a_station_in_the_sources_view_opens_its_suspects_and_its_matrix() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo_with_stations(&dir.path(""));
+    h.get_by_label("Sources").click();
+    h.run_steps(2);
+    h.get_by_label("rank");
+    h.get_by_label("S4 heatmap");
+    h.get_by_label("S2").click();
+    h.run_steps(2);
+    assert_eq!(h.state().ui.view(), View::Suspects);
+    let s2 = station(state(&h), "S2");
+    assert_eq!(state(&h).source_filter(), Some(s2 as u32));
+    let s = state(&h);
+    let of_row = &s.data().unwrap().sources.as_ref().unwrap().of_row;
+    let ranking = s.ranking().unwrap();
+    let station_rows = of_row.iter().filter(|&&o| o as usize == s2).count();
+    assert_eq!(
+        s.visible().len(),
+        station_rows,
+        "every S2 row, and only those"
+    );
+    assert!(s
+        .visible()
+        .iter()
+        .all(|&p| of_row[ranking.ranked[p as usize].row] as usize == s2));
+    h.get_by_label_contains("showing only the rows labelled by S2");
+    // A heatmap opens that station's matrix in the Flip matrix view.
+    h.get_by_label("Sources").click();
+    h.run_steps(2);
+    h.get_by_label("S1 heatmap").click();
+    h.run_steps(2);
+    assert_eq!(h.state().ui.view(), View::Matrix);
+    let s1 = station(state(&h), "S1");
+    assert_eq!(state(&h).shown_matrix(), MatrixTarget::Source(s1));
 }

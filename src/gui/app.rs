@@ -14,13 +14,15 @@ use super::state::AppState;
 use super::views;
 use crate::io::session::Roles;
 
-/// The four views, named as on the command line.
+/// The views, in tab order.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub enum View {
     /// Table, roles, classes, probabilities.
     Data,
     /// The editable flip matrix and its diagnostics.
     Matrix,
+    /// The label sources side by side: table, heatmaps, each one's suspects.
+    Sources,
     /// Ranked suspect rows, worklist export and review import.
     Suspects,
     /// Corrected training and the comparison.
@@ -29,13 +31,20 @@ pub enum View {
 
 impl View {
     /// All views in tab order.
-    pub const ALL: [View; 4] = [View::Data, View::Matrix, View::Suspects, View::Retrain];
+    pub const ALL: [View; 5] = [
+        View::Data,
+        View::Matrix,
+        View::Sources,
+        View::Suspects,
+        View::Retrain,
+    ];
 
     /// The tab's title.
     pub fn title(self) -> &'static str {
         match self {
             View::Data => "Data",
             View::Matrix => "Flip matrix",
+            View::Sources => "Sources",
             View::Suspects => "Suspects",
             View::Retrain => "Compare",
         }

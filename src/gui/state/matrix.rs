@@ -168,14 +168,19 @@ impl AppState {
         let edited = self
             .sources
             .as_ref()
-            .map(|s| s.edited_names().join(", "))
+            .map(|s| s.edited_names())
             .unwrap_or_default();
+        let sources = match edited.as_slice() {
+            [] => String::new(),
+            [one] => format!("{one}'s matrix"),
+            many => format!("the matrices of {}", many.join(", ")),
+        };
         match (&self.editor, &self.estimate) {
             (Some(e), Some(info)) if e.origin() == MatrixOrigin::Edited => {
                 format!("{} (edited by hand)", info.source)
             }
             (Some(_), Some(info)) if !edited.is_empty() => {
-                format!("{} (the matrices of {edited} changed by hand)", info.source)
+                format!("{} ({sources} changed by hand)", info.source)
             }
             (Some(_), Some(info)) => info.source.clone(),
             _ => "none yet".into(),

@@ -1,16 +1,18 @@
 //! The Flip matrix view: the estimate as an editable heatmap (rows = true class), the
-//! estimator controls, and what the matrix implies (noise per class, priors, warnings).
+//! overall matrix or one label source's, the estimator controls, and what the matrix
+//! implies (`matrix_side`).
 
 use eframe::egui;
-use egui_plot::{Bar, BarChart, Legend, Plot};
 
-use super::widgets::{heat, index_axis, path_row, plain};
+use super::matrix_side;
+use super::widgets::{heat, path_row, plain};
 use crate::gui::app::UiState;
 use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
 use crate::gui::matrix_edit::MatrixEditor;
+use crate::gui::source_edit::MatrixTarget;
 use crate::gui::state::AppState;
-use crate::noise::sources::{BySource, SourceMatrix};
+use crate::noise::bootstrap::Interval;
 use crate::noise::{Estimator, TrustedFallback};
 
 /// Above this many classes the grid scrolls and the largest flips are listed beside it.
@@ -22,7 +24,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         ui.label("Load a data table first (Data view).");
         return;
     };
-    let Some(editor) = state.editor() else {
+    let (Some(overall), Some(editor)) = (state.editor(), state.shown_editor()) else {
         ui.horizontal(|ui| {
             ui.spinner();
             ui.label("waiting for probabilities and the estimate…");
@@ -30,17 +32,67 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         return;
     };
     estimator_controls(ui, state, out);
+    matrix_picker(ui, state, out);
     edit_controls(ui, state, editor, out);
     ui.separator();
     egui::Panel::right("matrix-side")
         .resizable(true)
         .default_size(340.0)
-        .show(ui, |ui| side(ui, state, editor));
+        .show(ui, |ui| matrix_side::show(ui, state, overall));
     egui::CentralPanel::default().show(ui, |ui| {
         grid(ui, state, &data.classes, editor, out);
         ui.separator();
-        files(ui, view, out);
+        files(ui, state, view, out);
     });
+}
+
+/// With label sources: which matrix the grid shows (the overall one or a source's), and
+/// what the ranking uses.
+fn matrix_picker(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
+    let Some(sources) = state.current_sources() else {
+        return;
+    };
+    let edited = |s: usize| state.source_editors().is_some_and(|e| e.is_edited(s));
+    let shown = state.shown_matrix();
+    ui.horizontal_wrapped(|ui| {
+        ui.label("matrix shown");
+        let overall = ui
+            .selectable_label(shown == MatrixTarget::Overall, "overall")
+            .on_hover_text(
+                "the sources' mix (each true class's row weighted by the sources' rows of it), \
+                 unless edited by hand",
+            );
+        if overall.clicked() {
+            out.push(Command::SelectMatrix(MatrixTarget::Overall));
+        }
+        for (s, source) in sources.sources.iter().enumerate() {
+            let target = MatrixTarget::Source(s);
+            let hover = format!(
+                "{} rows, noise rate {:.1} %{}",
+                source.rows,
+                100.0 * source.noise_rate,
+                if edited(s) { ", changed by hand" } else { "" }
+            );
+            let pick = ui.selectable_label(shown == target, &source.name);
+            if pick.on_hover_text(hover).clicked() {
+                out.push(Command::SelectMatrix(target));
+            }
+        }
+    });
+    let rule = matrix_side::ranking_rule(state);
+    if state.ranks_by_source() {
+        ui.weak(rule);
+    } else {
+        ui.colored_label(ui.visuals().warn_fg_color, rule);
+    }
+}
+
+/// The bootstrap intervals of the matrix shown, once computed.
+fn shown_intervals(state: &AppState) -> Option<&Interval> {
+    match state.shown_matrix() {
+        MatrixTarget::Overall => state.intervals(),
+        MatrixTarget::Source(s) => state.source_intervals()?.matrices.get(s),
+    }
 }
 
 fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
@@ -118,7 +170,11 @@ fn edit_controls(
         {
             out.push(Command::Redo);
         }
-        if ui.button("Reset to estimate").clicked() {
+        if ui
+            .button("Reset to estimate")
+            .on_hover_text("the matrix shown back to its estimate (one undo step)")
+            .clicked()
+        {
             out.push(Command::ResetMatrix);
         }
         let mut s = state.settings().clone();
@@ -250,7 +306,7 @@ fn cell(
             editor.matrix()[[i, j]]
         ));
         ui.label(format!("estimate: {:.4}", editor.reference()[[i, j]]));
-        if let Some(iv) = state.intervals() {
+        if let Some(iv) = shown_intervals(state) {
             ui.label(format!(
                 "bootstrap 5–95%: {:.4} – {:.4}",
                 iv.low[[i, j]],
@@ -280,8 +336,14 @@ fn largest_flips(ui: &mut egui::Ui, classes: &[String], editor: &MatrixEditor) {
         });
 }
 
-fn files(ui: &mut egui::Ui, view: &mut UiState, out: &mut Vec<Command>) {
-    ui.label("Matrix CSV (the format of the command line's --matrix):");
+fn files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    match state.shown_source_name() {
+        Some(name) => ui.label(format!(
+            "Matrix CSV of {name} (the format of the command line's --matrix): export writes \
+             it, import replaces it"
+        )),
+        None => ui.label("Matrix CSV (the format of the command line's --matrix):"),
+    };
     if let Some(path) = path_row(
         ui,
         view,
@@ -301,135 +363,3 @@ fn files(ui: &mut egui::Ui, view: &mut UiState, out: &mut Vec<Command>) {
         out.push(Command::ExportMatrix(path));
     }
 }
-
-fn side(ui: &mut egui::Ui, state: &AppState, editor: &MatrixEditor) {
-    let Some(data) = state.data() else { return };
-    let Some((d, version)) = state.diagnostics() else {
-        ui.spinner();
-        return;
-    };
-    if *version != editor.version() {
-        ui.weak("updating…");
-    }
-    ui.heading("What the matrix implies");
-    ui.label(format!(
-        "expected mislabelled rows: {:.0} ({:.1}%)",
-        d.expected_mislabeled,
-        100.0 * d.expected_mislabeled_share
-    ));
-    ui.label(format!(
-        "condition number (1-norm): {:.3}",
-        d.condition_number
-    ));
-    ui.label(format!(
-        "calibration error (ECE): {:.4}",
-        d.calibration_error
-    ));
-    let noise: Vec<Bar> = d
-        .noise_rate
-        .iter()
-        .enumerate()
-        .map(|(i, &v)| Bar::new(i as f64, v).name(&data.classes[i]))
-        .collect();
-    ui.label("noise rate per true class (1 - T[i][i])");
-    Plot::new("noise-bars")
-        .height(150.0)
-        .allow_scroll(false)
-        .x_axis_formatter(index_axis(&data.classes))
-        .x_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
-        .show(ui, |p| {
-            p.bar_chart(
-                BarChart::new("noise rate", noise)
-                    .width(0.7)
-                    .color(NOISE_COLOR),
-            )
-        });
-    ui.label("class priors: observed vs clean (estimated)");
-    let observed: Vec<Bar> = d
-        .observed_prior
-        .iter()
-        .enumerate()
-        .map(|(i, &v)| {
-            Bar::new(i as f64 - 0.18, v)
-                .width(0.35)
-                .name(&data.classes[i])
-        })
-        .collect();
-    let clean: Vec<Bar> = d
-        .clean_prior
-        .iter()
-        .enumerate()
-        .map(|(i, &v)| {
-            Bar::new(i as f64 + 0.18, v)
-                .width(0.35)
-                .name(&data.classes[i])
-        })
-        .collect();
-    Plot::new("priors")
-        .height(150.0)
-        .allow_scroll(false)
-        .legend(Legend::default())
-        .x_axis_formatter(index_axis(&data.classes))
-        .x_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
-        .show(ui, |p| {
-            p.bar_chart(BarChart::new("observed", observed).color(OBSERVED_COLOR));
-            p.bar_chart(BarChart::new("clean", clean).color(CLEAN_COLOR));
-        });
-    for w in &d.warnings {
-        ui.colored_label(ui.visuals().warn_fg_color, format!("warning: {}", plain(w)));
-    }
-    if let Some(by_source) = state.estimate().and_then(|e| e.by_source.as_deref()) {
-        ui.separator();
-        sources(ui, &data.classes, by_source);
-    }
-}
-
-/// The label sources from the noisiest: rows, noise rate, largest flip, and the test.
-fn sources(ui: &mut egui::Ui, classes: &[String], by_source: &BySource) {
-    ui.heading("Label sources");
-    ui.label("one flip matrix per source, one clean classifier for all; the grid shows their mix");
-    let order = by_source.noisiest_first();
-    egui::Grid::new("sources").striped(true).show(ui, |ui| {
-        for head in ["source", "rows", "noise", "largest flip"] {
-            ui.strong(head);
-        }
-        ui.end_row();
-        for s in order {
-            let source = &by_source.sources[s];
-            ui.label(&source.name);
-            ui.label(source.rows.to_string());
-            ui.label(format!("{:.1}%", 100.0 * source.noise_rate));
-            ui.label(largest_flip(classes, source));
-            ui.end_row();
-        }
-    });
-    if let Some(test) = by_source.test {
-        let verdict = if test.p_value <= 0.01 {
-            "the sources differ"
-        } else {
-            "no clear difference between the sources"
-        };
-        ui.label(format!(
-            "test of equal matrices: p {} {:.2} ({verdict})",
-            if test.p_value <= 0.01 { "≤" } else { "=" },
-            test.p_value
-        ));
-    }
-}
-
-/// A source's largest off-diagonal flip by share of its rows, in words.
-fn largest_flip(classes: &[String], source: &SourceMatrix) -> String {
-    match source.largest_flips().first() {
-        Some(&(i, j, _)) => format!(
-            "{} typed as {}: {:.0}%",
-            classes[i],
-            classes[j],
-            100.0 * source.matrix[[i, j]]
-        ),
-        None => String::new(),
-    }
-}
-
-const NOISE_COLOR: egui::Color32 = egui::Color32::from_rgb(230, 120, 60);
-const OBSERVED_COLOR: egui::Color32 = egui::Color32::from_rgb(150, 150, 150);
-const CLEAN_COLOR: egui::Color32 = egui::Color32::from_rgb(70, 140, 255);

@@ -3,8 +3,11 @@
 
 mod about;
 mod data;
+mod heatmaps;
 mod matrix;
+mod matrix_side;
 mod retrain;
+mod sources;
 mod suspects;
 mod widgets;
 
@@ -36,6 +39,7 @@ pub fn frame(
     egui::CentralPanel::default().show(ui, |ui| match view.view() {
         View::Data => data::show(ui, state, view, out),
         View::Matrix => matrix::show(ui, state, view, out),
+        View::Sources => sources::show(ui, state, view, out),
         View::Suspects => suspects::show(ui, state, view, out),
         View::Retrain => retrain::show(ui, state, view, out),
     });
@@ -114,9 +118,9 @@ fn file_menu(
     }
 }
 
-/// Undo and redo of matrix edits.
+/// Undo and redo of the edits of the matrix shown.
 fn edit_menu(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
-    let editor = state.editor();
+    let editor = state.shown_editor();
     if ui
         .add_enabled(
             editor.is_some_and(|e| e.can_undo()),
@@ -174,7 +178,12 @@ fn status_bar(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
         };
         ui.separator();
         let origin = state.editor().map_or("none", |e| e.origin().label());
-        ui.label(format!("matrix: {origin}"))
+        let changed = state
+            .source_editors()
+            .map(|s| s.edited_names().join(", "))
+            .filter(|names| !names.is_empty())
+            .map_or(String::new(), |names| format!(" · {names} changed"));
+        ui.label(format!("matrix: {origin}{changed}"))
             .on_hover_text(state.matrix_description());
         if let Some(r) = state.ranking() {
             ui.separator();

@@ -23,6 +23,9 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         return;
     };
     controls(ui, state, &data.classes, out);
+    if let Some(sources) = &data.sources {
+        source_filter(ui, state, &sources.names, out);
+    }
     let Some(ranking) = state.ranking() else {
         ui.horizontal(|ui| {
             ui.spinner();
@@ -112,6 +115,36 @@ fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut V
     }
 }
 
+/// Only one label source's suspects (the Sources view's names lead here too).
+fn source_filter(ui: &mut egui::Ui, state: &AppState, names: &[String], out: &mut Vec<Command>) {
+    let current = state.source_filter();
+    let name = |s: Option<u32>| {
+        s.and_then(|s| names.get(s as usize))
+            .map_or_else(|| "any".to_string(), Clone::clone)
+    };
+    let mut choice = current;
+    ui.horizontal(|ui| {
+        ui.label("source");
+        egui::ComboBox::from_id_salt("source-filter")
+            .selected_text(name(current))
+            .show_ui(ui, |ui| {
+                ui.selectable_value(&mut choice, None, "any");
+                for (s, n) in names.iter().enumerate() {
+                    ui.selectable_value(&mut choice, Some(s as u32), n);
+                }
+            });
+        if current.is_some() {
+            ui.weak(format!(
+                "showing only the rows labelled by {}",
+                name(current)
+            ));
+        }
+    });
+    if choice != current {
+        out.push(Command::FilterSource(choice));
+    }
+}
+
 fn score_help(k: ScoreKind) -> &'static str {
     match k {
         ScoreKind::Posterior => "probability that the label is wrong, under the flip matrix",
@@ -137,27 +170,36 @@ fn histogram(ui: &mut egui::Ui, state: &AppState) {
         .show(ui, |p| p.bar_chart(BarChart::new("rows", bars)));
 }
 
+/// Where the label source's column goes (after the id), when the table has sources.
+const SOURCE_COLUMN: usize = 3;
+
 fn table(ui: &mut egui::Ui, state: &AppState) {
     let (Some(data), Some(r)) = (state.data(), state.ranking()) else {
         return;
     };
     let classes = &data.classes;
-    TableBuilder::new(ui)
+    let sources = data.sources.as_ref();
+    // The ranked worklist's column names (all but the reviewer's column), and below them
+    // the same figures as the file writes; each row's label source after its id, if any.
+    let mut titles: Vec<&str> = WORKLIST_COLUMNS[..9].to_vec();
+    let mut widths = vec![50.0, 60.0, 80.0, 90.0, 90.0, 60.0, 60.0, 90.0, 60.0];
+    if sources.is_some() {
+        titles.insert(SOURCE_COLUMN, "source");
+        widths.insert(SOURCE_COLUMN, 50.0);
+    }
+    let mut builder = TableBuilder::new(ui)
         .id_salt("suspects-table")
-        .striped(true)
-        .column(Column::auto().at_least(50.0))
-        .column(Column::auto().at_least(60.0))
-        .column(Column::auto().at_least(80.0))
-        .column(Column::auto().at_least(90.0))
-        .column(Column::auto().at_least(90.0))
-        .column(Column::auto().at_least(60.0))
-        .column(Column::auto().at_least(60.0))
-        .column(Column::auto().at_least(90.0))
-        .column(Column::remainder().at_least(60.0))
+        .striped(true);
+    for (n, width) in widths.iter().enumerate() {
+        builder = builder.column(if n + 1 == titles.len() {
+            Column::remainder().at_least(*width)
+        } else {
+            Column::auto().at_least(*width)
+        });
+    }
+    builder
         .header(20.0, |mut h| {
-            // The ranked worklist's column names (all but the reviewer's column), and
-            // below them the same figures as the file writes.
-            for &title in &WORKLIST_COLUMNS[..9] {
+            for &title in &titles {
                 h.col(|ui| {
                     ui.strong(title);
                 });
@@ -168,7 +210,7 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
             body.rows(18.0, state.visible().len(), |mut row| {
                 let position = state.visible()[row.index()] as usize;
                 let s = &r.ranked[position];
-                let cells = [
+                let mut cells = vec![
                     (position + 1).to_string(),
                     s.row.to_string(),
                     data.id(s.row).into_owned(),
@@ -181,6 +223,10 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
                     classes[s.second_choice].clone(),
                     format!("{:.4}", s.second_choice_prob),
                 ];
+                if let Some(sources) = sources {
+                    let name = sources.names[sources.of_row[s.row] as usize].clone();
+                    cells.insert(SOURCE_COLUMN, name);
+                }
                 for text in cells {
                     row.col(|ui| {
                         ui.label(text);
