@@ -63,8 +63,11 @@ impl AppState {
                 self.start_estimate();
             }
             JobOutput::Estimated(matrix, info) => self.estimated(matrix, info),
-            JobOutput::Intervals(interval) => self.intervals = Some(interval),
-            JobOutput::SourceIntervals(by_source) => {
+            // Intervals resample one estimate; those of a replaced one are dropped.
+            JobOutput::Intervals(interval, n) if n == self.estimates => {
+                self.intervals = Some(interval)
+            }
+            JobOutput::SourceIntervals(by_source, n) if n == self.estimates => {
                 self.intervals = Some(by_source.overall.clone());
                 self.source_intervals = Some(*by_source);
             }
@@ -113,7 +116,8 @@ impl AppState {
                 let roles = self.session.roles.clone();
                 self.load_data(path, roles);
             }
-            // A ranking of another score, or the rest of a ranking no longer shown.
+            // A ranking of another score, the rest of a ranking no longer shown, or
+            // intervals of a replaced estimate.
             _ => {}
         }
     }

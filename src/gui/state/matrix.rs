@@ -70,7 +70,7 @@ impl AppState {
         }
         self.start_sources(info.by_source.clone());
         self.estimate = Some(info);
-        self.intervals = None;
+        self.drop_intervals();
         self.matrix_changed();
     }
 
@@ -115,7 +115,7 @@ impl AppState {
                     clean: None,
                     by_source: None,
                 });
-                self.intervals = None;
+                self.drop_intervals();
                 self.start_sources(None);
                 self.say(Level::Info, format!("imported {}", path.display()));
                 self.matrix_changed();
@@ -137,6 +137,16 @@ impl AppState {
         });
     }
 
+    /// The intervals belong to the estimate they resampled: a new estimate (or an
+    /// imported matrix) drops them, a bootstrap still running for the old one is
+    /// cancelled, and one that finished meanwhile is dropped by its estimate number.
+    fn drop_intervals(&mut self) {
+        self.estimates += 1;
+        self.jobs.cancel(JobKind::Bootstrap);
+        self.intervals = None;
+        self.source_intervals = None;
+    }
+
     pub(super) fn start_bootstrap(&mut self) {
         let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
             return self.say(Level::Error, "the bootstrap needs data and probabilities");
@@ -150,15 +160,16 @@ impl AppState {
         let s = &self.session.settings;
         let (resamples, seed) = (s.resamples.max(2), s.seed);
         let by_source = self.sources.is_some();
+        let estimate = self.estimates;
         self.spawn_on_data(JobKind::Bootstrap, move |_| match &data.sources {
             // One matrix per source: every source's intervals and their mix's.
             Some(sources) if by_source => {
                 workflow::source_intervals(&data, sources, &probs, &method, resamples, seed)
-                    .map(|i| JobOutput::SourceIntervals(Box::new(i)))
+                    .map(|i| JobOutput::SourceIntervals(Box::new(i), estimate))
                     .map_err(fail)
             }
             _ => workflow::matrix_intervals(&data, &probs, &method, resamples, seed)
-                .map(JobOutput::Intervals)
+                .map(|i| JobOutput::Intervals(i, estimate))
                 .map_err(fail),
         });
     }

@@ -91,10 +91,11 @@ pub enum JobOutput {
     Probabilities(Box<RowProbabilities>),
     /// An estimate.
     Estimated(Array2<f64>, EstimateInfo),
-    /// Bootstrap intervals.
-    Intervals(Interval),
-    /// Bootstrap intervals of every label source's matrix and noise rate, and their mix.
-    SourceIntervals(Box<SourceIntervals>),
+    /// Bootstrap intervals of estimate number `.1`.
+    Intervals(Interval, u64),
+    /// Bootstrap intervals of every label source's matrix and noise rate, and their mix,
+    /// of estimate number `.1`.
+    SourceIntervals(Box<SourceIntervals>, u64),
     /// A ranking (perhaps only its head in order).
     Ranked(Box<Ranking>),
     /// The complete ranking of a head ranking,.
@@ -154,6 +155,8 @@ pub struct AppState {
     intervals: Option<Interval>,
     /// Bootstrap intervals of every label source (with a source column).
     source_intervals: Option<SourceIntervals>,
+    /// Bumped whenever the estimate is replaced: intervals of another are dropped.
+    estimates: u64,
     /// Every label source's matrix being edited (with a source column).
     sources: Option<SourceEditors>,
     /// The source of every row, shared with the ranking jobs (with a source column).
@@ -200,6 +203,7 @@ impl AppState {
             estimate: None,
             intervals: None,
             source_intervals: None,
+            estimates: 0,
             sources: None,
             of_row: None,
             shown: MatrixTarget::Overall,

@@ -64,14 +64,20 @@ fn a_result_from_replaced_data_is_dropped_and_a_save_is_not() {
     };
     s.accept(Stamped {
         generation: 1,
-        output: JobOutput::Intervals(interval()),
+        output: JobOutput::Intervals(interval(), 0),
     });
     assert!(s.intervals().is_none(), "stale: dropped");
     s.accept(Stamped {
         generation: 2,
-        output: JobOutput::Intervals(interval()),
+        output: JobOutput::Intervals(interval(), 0),
     });
     assert!(s.intervals().is_some(), "current: kept");
+    s.intervals = None;
+    s.accept(Stamped {
+        generation: 2,
+        output: JobOutput::Intervals(interval(), 7),
+    });
+    assert!(s.intervals().is_none(), "another estimate's: dropped");
     s.accept(Stamped {
         generation: 1,
         output: JobOutput::Saved("wrote x".into()),

@@ -255,6 +255,31 @@ fn the_bootstrap_gives_every_sources_noise_rate_an_interval() {
 }
 
 #[test]
+fn a_new_estimate_drops_the_intervals_of_the_old_one_even_while_they_run() {
+    let dir = temp_dir();
+    let mut s = loaded(&dir);
+    let mut settings = s.settings().clone();
+    settings.resamples = 3;
+    s.apply(Command::Settings(settings.clone()));
+    s.apply(Command::Bootstrap);
+    settings.estimator = crate::noise::Estimator::Counting;
+    s.apply(Command::Settings(settings));
+    s.settle(120.0);
+    assert!(s.last_error().is_none(), "{:?}", s.last_error());
+    assert_eq!(
+        s.estimate().unwrap().method.as_ref().map(|m| m.name()),
+        Some("counting")
+    );
+    assert!(
+        s.source_editors().is_some(),
+        "counting fits one matrix per source too"
+    );
+    assert!(s.source_intervals().is_none() && s.intervals().is_none());
+    assert!(s.ranks_by_source());
+    assert_ranked_by_source(&s);
+}
+
+#[test]
 fn a_matrix_csv_goes_into_the_source_shown_and_a_session_says_it_cannot_keep_it() {
     let dir = temp_dir();
     let mut s = loaded(&dir);

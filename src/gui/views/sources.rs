@@ -55,17 +55,24 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
 
 /// Before (or without) an estimate by source.
 fn waiting(ui: &mut egui::Ui, state: &AppState) {
-    if state.estimate().is_some() && state.jobs().running(JobKind::Estimate).is_none() {
-        ui.label(
-            "The current matrix is one for every row: it was imported from a file, or the \
-             estimator cannot fit one matrix per source (choose joint, counting or trusted in \
-             the Flip matrix view).",
-        );
-    } else {
+    let busy = [JobKind::Load, JobKind::Probabilities, JobKind::Estimate]
+        .into_iter()
+        .any(|kind| state.jobs().running(kind).is_some());
+    if busy {
         ui.horizontal(|ui| {
             ui.spinner();
             ui.label("waiting for probabilities and the estimate…");
         });
+    } else if state.estimate().is_some() {
+        ui.label(
+            "The current matrix is one for every row: it was imported from a file (import \
+             into the overall matrix sets the sources aside; estimate again to get them back).",
+        );
+    } else {
+        ui.label(
+            "No estimate yet: see the message above. One matrix per source needs the joint, \
+             counting or trusted estimator (Flip matrix view).",
+        );
     }
 }
 
