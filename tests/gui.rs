@@ -587,3 +587,40 @@ fn a_station_in_the_sources_view_opens_its_suspects_and_its_matrix() {
     let s1 = station(state(&h), "S1");
     assert_eq!(state(&h).shown_matrix(), MatrixTarget::Source(s1));
 }
+
+#[test]
+fn annotators_columns_give_a_consensus_and_a_table_of_annotators() {
+    // demo-data/make_demo.py's invented quality panel: four graders who make the base
+    // confusions 0.4, 1, 1.5 and 2.5 times as often, two or three graders an item.
+    let panel = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("demo-data/recycling_panel.csv");
+    let mut h = Harness::builder()
+        .with_size([1400.0, 900.0])
+        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
+    let graders: Vec<String> = ["grader_a", "grader_b", "grader_c", "grader_d"]
+        .map(String::from)
+        .to_vec();
+    let roles = Roles {
+        annotators: Some(graders.clone()),
+        ..Roles::default()
+    };
+    h.state_mut().push(Command::LoadData(panel, roles));
+    h.run_steps(1);
+    settle(&mut h);
+    let s = state(&h);
+    let found = s.consensus().expect("a consensus of the graders").clone();
+    assert_eq!(found.columns, graders);
+    let accuracy: Vec<f64> = found
+        .consensus
+        .annotators
+        .iter()
+        .map(|a| a.accuracy)
+        .collect();
+    assert!(accuracy.windows(2).all(|w| w[0] > w[1]), "{accuracy:?}");
+    // The consensus is the observed label the estimate and the ranking used.
+    assert_eq!(s.data().unwrap().labels, found.consensus.consensus);
+    assert!(s.ranking().is_some() && s.estimate().is_some());
+    h.get_by_label("Data").click();
+    h.run_steps(2);
+    h.get_by_label("Annotators");
+    h.get_by_label("grader_d");
+}

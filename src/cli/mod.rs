@@ -88,6 +88,10 @@ pub struct GuiArgs {
     /// Label-source column of DATA (one flip matrix per source)
     #[arg(long, value_name = "COLUMN")]
     pub source: Option<String>,
+    /// Several annotators' label columns of DATA, comma-separated: their consensus is the
+    /// observed label
+    #[arg(long, value_name = "A,B,..", value_delimiter = ',')]
+    pub labels: Option<Vec<String>>,
 }
 
 /// Runs a parsed command line, writing its report to `out`.
@@ -108,6 +112,7 @@ pub fn run(cli: Cli, out: &mut dyn Write) -> Result<()> {
             roles: crate::io::session::Roles {
                 label: args.label,
                 source: args.source,
+                annotators: args.labels,
                 ..Default::default()
             },
         }),

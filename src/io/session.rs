@@ -60,6 +60,9 @@ pub struct Roles {
     pub features: Option<Vec<String>>,
     /// Label-source column (one flip matrix per source).
     pub source: Option<String>,
+    /// Several annotators' label columns (one per annotator): their consensus is then
+    /// the observed label.
+    pub annotators: Option<Vec<String>>,
 }
 
 /// Every setting a session restores.

@@ -59,14 +59,22 @@ pub fn consensus(
     let prior_values = (prior == ConsensusPrior::Classifier).then(|| probs.values.view());
     let consensus = estimate_consensus(&labels, prior_values, &params, &mut |_| true)
         .map_err(|e| name_annotators(e, &annotations.columns))?;
+    // From the annotations, not the table's labels: a table already relabelled by an
+    // earlier consensus (the app, after new probabilities) still has its majority here.
+    let majority: Vec<usize> = annotations
+        .majority(data.classes.len())
+        .into_iter()
+        .zip(&data.labels)
+        .map(|(m, &label)| m.unwrap_or(label))
+        .collect();
     let changed_from_majority = consensus
         .consensus
         .iter()
-        .zip(&data.labels)
+        .zip(&majority)
         .filter(|(a, b)| a != b)
         .count();
     Ok(Some(Consensual {
-        majority: data.labels.clone(),
+        majority,
         columns: annotations.columns.clone(),
         consensus,
         changed_from_majority,

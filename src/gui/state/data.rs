@@ -6,6 +6,14 @@ use crate::data::{ProbOptions, TableOptions};
 use crate::io::session::Roles;
 use crate::learn::{OofParams, SoftmaxParams};
 use crate::workflow;
+use crate::workflow::consensus::{consensus, relabelled, Consensual, ConsensusPrior};
+
+/// The table relabelled by its annotators' consensus, and the consensus.
+#[derive(Debug)]
+pub struct Relabelled {
+    data: Dataset,
+    found: Consensual,
+}
 
 impl AppState {
     pub(super) fn load_data(&mut self, path: PathBuf, roles: Roles) {
@@ -62,6 +70,7 @@ impl AppState {
             self.jobs.cancel(kind);
         }
         self.probs = None;
+        self.consensus = None;
         self.editor = None;
         self.estimate = None;
         self.intervals = None;
@@ -92,8 +101,45 @@ impl AppState {
                     !control.is_cancelled()
                 })
                 .map_err(fail)?;
-            Ok(JobOutput::Probabilities(Box::new(probs)))
+            // As the command line does: the classifier's probabilities as each row's prior,
+            // the annotators' intervals by Wilson's formula (no resampling).
+            let prior = ConsensusPrior::Classifier;
+            let relabel = consensus(&data, &probs, prior, 0, oof.seed)
+                .map_err(fail)?
+                .map(|found| {
+                    let data = relabelled((*data).clone(), &found);
+                    Box::new(Relabelled { data, found })
+                });
+            Ok(JobOutput::Probabilities(Box::new(probs), relabel))
         });
+    }
+
+    /// New probabilities, and the table their consensus relabelled (annotators' columns).
+    pub(super) fn probabilities_in(
+        &mut self,
+        probs: RowProbabilities,
+        relabel: Option<Box<Relabelled>>,
+    ) {
+        for warning in &probs.warnings {
+            self.say(Level::Warning, warning.clone());
+        }
+        if let Some(relabel) = relabel {
+            let Relabelled { data, found } = *relabel;
+            self.say(
+                Level::Info,
+                format!(
+                    "consensus of {} annotators (Dawid & Skene, the classifier's probabilities \
+                     as the prior): {} rows differ from the plain majority",
+                    found.columns.len(),
+                    found.changed_from_majority
+                ),
+            );
+            self.class_counts = (data.class_counts(), data.trusted_counts());
+            self.data = Some(Arc::new(data));
+            self.consensus = Some(Arc::new(found));
+        }
+        self.probs = Some(Arc::new(probs));
+        self.start_estimate();
     }
 
     /// Folds, seed and model of every fit.
@@ -132,7 +178,7 @@ pub fn table_options(roles: &Roles) -> Result<TableOptions, String> {
         trusted: roles.trusted.clone(),
         features: roles.features.clone(),
         source: roles.source.clone(),
-        annotators: None,
+        annotators: roles.annotators.clone(),
         exclude: Vec::new(),
         unlabeled: false,
     })

@@ -55,13 +55,7 @@ impl AppState {
         }
         match stamped.output {
             JobOutput::Loaded(data, roles) => self.data_loaded(*data, roles),
-            JobOutput::Probabilities(p) => {
-                for warning in &p.warnings {
-                    self.say(Level::Warning, warning.clone());
-                }
-                self.probs = Some(Arc::from(p));
-                self.start_estimate();
-            }
+            JobOutput::Probabilities(p, relabel) => self.probabilities_in(*p, relabel),
             JobOutput::Estimated(matrix, info) => self.estimated(matrix, info),
             // Intervals resample one estimate; those of a replaced one are dropped.
             JobOutput::Intervals(interval, n) if n == self.estimates => {

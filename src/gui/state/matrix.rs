@@ -25,10 +25,12 @@ impl AppState {
         let method = self.method();
         self.spawn_on_data(JobKind::Estimate, move |_| {
             let e = workflow::estimate_on_all_rows(&data, &probs, &method).map_err(fail)?;
+            let classes = data.classes.len();
             let info = EstimateInfo {
                 source: workflow::MatrixSource::Estimate(method.clone()).describe(),
+                volume: e.volume.map(|v| v.describe(classes)),
+                method: Some(e.pinned(&method)),
                 warnings: e.warnings,
-                method: Some(method),
                 clean: e.clean.map(Arc::new),
                 by_source: e.by_source.map(Arc::new),
             };
@@ -112,6 +114,7 @@ impl AppState {
                     source: format!("file {}", path.display()),
                     warnings: Vec::new(),
                     method: None,
+                    volume: None,
                     clean: None,
                     by_source: None,
                 });

@@ -27,7 +27,7 @@ use std::sync::Arc;
 
 use ndarray::Array2;
 
-pub use self::data::table_options;
+pub use self::data::{table_options, Relabelled};
 use self::messages::Messages;
 pub use self::messages::{Level, Message};
 use super::command::Command;
@@ -41,6 +41,7 @@ use crate::io::session::{Roles, Session, SessionMatrix, Settings};
 use crate::noise::bootstrap::{Interval, SourceIntervals};
 use crate::noise::{Diagnostics, Method};
 use crate::workflow::compare::Comparison;
+use crate::workflow::consensus::Consensual;
 use crate::workflow::ranking::Ranking;
 use crate::workflow::review::ReviewSummary;
 use crate::workflow::RowProbabilities;
@@ -52,8 +53,11 @@ pub struct EstimateInfo {
     pub source: String,
     /// Warnings from estimation.
     pub warnings: Vec<String>,
-    /// The method, for the bootstrap (none for imported matrices).
+    /// The method, for the bootstrap (none for imported matrices), with the choices the
+    /// estimate made from the data fixed (the joint fit's λ).
     pub method: Option<Method>,
+    /// The joint fit's λ and why it was used, in words.
+    pub volume: Option<String>,
     /// Every row's clean posterior from a joint fit: the scores read it under the
     /// (possibly edited) matrix instead of inverting the matrix.
     pub clean: Option<Arc<Array2<f32>>>,
@@ -87,8 +91,9 @@ pub struct ReviewRead {
 pub enum JobOutput {
     /// A table was read.
     Loaded(Box<Dataset>, Roles),
-    /// Probabilities.
-    Probabilities(Box<RowProbabilities>),
+    /// Probabilities, and with several annotators' columns the table relabelled by their
+    /// consensus.
+    Probabilities(Box<RowProbabilities>, Option<Box<Relabelled>>),
     /// An estimate.
     Estimated(Array2<f64>, EstimateInfo),
     /// Bootstrap intervals of estimate number `.1`.
@@ -147,6 +152,8 @@ pub struct AppState {
     data_generation: u64,
     /// Probabilities of the current data.
     probs: Option<Arc<RowProbabilities>>,
+    /// The annotators' consensus that relabelled `data` (with annotators' columns).
+    consensus: Option<Arc<Consensual>>,
     /// The matrix being edited.
     editor: Option<MatrixEditor>,
     /// How the editor's reference matrix was made.
@@ -199,6 +206,7 @@ impl AppState {
             class_counts: (Vec::new(), Vec::new()),
             data_generation: 0,
             probs: None,
+            consensus: None,
             editor: None,
             estimate: None,
             intervals: None,
@@ -250,6 +258,11 @@ impl AppState {
     /// Probabilities of the current data.
     pub fn probs(&self) -> Option<&Arc<RowProbabilities>> {
         self.probs.as_ref()
+    }
+
+    /// The annotators' consensus that relabelled the data, with annotators' columns.
+    pub fn consensus(&self) -> Option<&Arc<Consensual>> {
+        self.consensus.as_ref()
     }
 
     /// The matrix being edited.

@@ -36,6 +36,10 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
             ui.separator();
             classes(ui, state);
             ui.separator();
+            if state.consensus().is_some() {
+                super::annotators::table(ui, state);
+                ui.separator();
+            }
             probabilities(ui, state, view, out);
         }
     });
@@ -82,6 +86,12 @@ fn roles(
         ui.label("label source")
             .on_hover_text("the column saying who or what gave each label (annotator, station, vendor, rule): one flip matrix per source");
         source_picker(ui, &data.header, &mut draft.source);
+        ui.end_row();
+        ui.label("annotators' labels").on_hover_text(
+            "several label columns, one per annotator (an empty cell: that annotator did not \
+             label the row); their consensus becomes the observed label",
+        );
+        super::annotators::picker(ui, &data.header, &mut draft);
         ui.end_row();
         ui.label("delimiter");
         let mut text = draft.delimiter.clone().unwrap_or_default();

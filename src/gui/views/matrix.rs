@@ -135,6 +135,9 @@ fn estimator_controls(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command
     if let Some(info) = state.estimate() {
         ui.label(format!("matrix from {}", state.matrix_description()))
             .on_hover_text(plain(&info.warnings.join("\n")).into_owned());
+        if let Some(volume) = &info.volume {
+            ui.label(plain(volume).into_owned());
+        }
     }
 }
 

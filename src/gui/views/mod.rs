@@ -2,6 +2,7 @@
 //! the state itself.
 
 mod about;
+mod annotators;
 mod data;
 mod heatmaps;
 mod matrix;
