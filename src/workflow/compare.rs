@@ -108,6 +108,14 @@ pub struct Comparison {
 pub enum MatrixChoice<'a> {
     /// This matrix (read from a file or edited by hand).
     Given(&'a Array2<f64>),
+    /// These matrices, one per label source of the table (the app's, perhaps edited),
+    /// with their mix for the corrections that take one matrix.
+    GivenBySource {
+        /// The sources' mix.
+        overall: &'a Array2<f64>,
+        /// One per source, in the order of the table's source names.
+        sources: &'a [Array2<f64>],
+    },
     /// Estimated on the training rows only, so the holdout stays unseen.
     Estimate(&'a Method),
 }
@@ -492,6 +500,10 @@ impl Part {
     ) -> Result<PartMatrix> {
         let method = match choice {
             MatrixChoice::Given(m) => return Ok((m.clone(), None, Vec::new())),
+            MatrixChoice::GivenBySource { overall, sources } => {
+                let by_source = self.sources.as_ref().map(|_| sources.to_vec());
+                return Ok((overall.clone(), by_source, Vec::new()));
+            }
             MatrixChoice::Estimate(method) => method,
         };
         let rows: Vec<usize> = (0..self.labels.len()).collect();

@@ -15,6 +15,12 @@ impl AppState {
             );
         };
         let matrix = editor.matrix().clone();
+        // Ranked by source, so trained by source: the forward correction scores each row
+        // under its own source's matrix, as `compare --source` does.
+        let by_source = self
+            .ranks_by_source()
+            .then(|| self.sources.as_ref().map(|s| s.matrices()))
+            .flatten();
         let version = editor.version();
         let s = &self.session.settings;
         let settings = CompareSettings {
@@ -29,10 +35,17 @@ impl AppState {
                 .map(|p| load_test(p, None, &data))
                 .transpose()
                 .map_err(fail)?;
+            let choice = match &by_source {
+                Some(sources) => MatrixChoice::GivenBySource {
+                    overall: &matrix,
+                    sources,
+                },
+                None => MatrixChoice::Given(&matrix),
+            };
             let inputs = CompareInputs {
                 data: &data,
                 probs: Some(&probs),
-                matrix: MatrixChoice::Given(&matrix),
+                matrix: choice,
                 test: test.as_ref().map(|(x, l)| (x, l.as_slice())),
             };
             let comparison = compare(inputs, &settings, Some(control.flag()), &mut |i, n| {

@@ -8,8 +8,10 @@ use std::path::{Path, PathBuf};
 
 use super::*;
 use crate::gui::source_edit::MatrixTarget;
+use crate::learn::train::Correction;
 use crate::noise::posterior::Flip;
 use crate::noise::scores::{score_selected, ScoreKind};
+use crate::workflow::compare::{compare, CompareInputs, CompareSettings, Comparison, MatrixChoice};
 use crate::workflow::ranking::Matrices;
 
 fn temp_dir() -> PathBuf {
@@ -306,4 +308,44 @@ fn a_matrix_csv_goes_into_the_source_shown_and_a_session_says_it_cannot_keep_it(
             && m.text.contains("loud")
     });
     assert!(warned, "{:?}", s.messages());
+}
+
+#[test]
+fn retraining_ranked_by_source_gives_forward_each_sources_matrix() {
+    // The same comparison through the library with the mix as the one matrix: `none` is
+    // the same model, forward differs because the app handed it every source's matrix.
+    let dir = temp_dir();
+    let mut s = loaded(&dir);
+    assert!(s.ranks_by_source());
+    s.apply(Command::Retrain);
+    s.settle(120.0);
+    assert!(s.last_error().is_none(), "{:?}", s.last_error());
+    let app = s.retrained().expect("a comparison").comparison.clone();
+    let settings = CompareSettings {
+        holdout: s.settings().holdout,
+        fit: s.oof_params(),
+        corrections: s.settings().corrections.clone(),
+    };
+    let mix = s.editor().unwrap().matrix().clone();
+    let inputs = CompareInputs {
+        data: s.data().unwrap(),
+        probs: s.probs().map(|p| p.as_ref()),
+        matrix: MatrixChoice::Given(&mix),
+        test: None,
+    };
+    let one = compare(inputs, &settings, None, &mut |_, _| true).unwrap();
+    let model = |c: &Comparison, which: Correction| {
+        c.models
+            .iter()
+            .find(|(k, _)| *k == which)
+            .unwrap()
+            .1
+            .clone()
+    };
+    assert_eq!(model(&app, Correction::None), model(&one, Correction::None));
+    assert_ne!(
+        model(&app, Correction::Forward),
+        model(&one, Correction::Forward)
+    );
+    std::fs::remove_dir_all(dir).ok();
 }

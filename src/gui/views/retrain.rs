@@ -85,6 +85,12 @@ fn controls(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         ui.add(egui::Slider::new(&mut s.holdout, 0.05..=0.5).text("holdout"));
         super::widgets::fit_settings(ui, &mut s);
     });
+    if state.ranks_by_source() {
+        ui.label(
+            "forward scores each row under its own label source's matrix; backward and prune \
+             use the sources' mix",
+        );
+    }
     ui.horizontal(|ui| {
         ui.label(match &s.test {
             Some(p) => format!("test table: {}", p.display()),
