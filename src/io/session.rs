@@ -16,7 +16,10 @@ use crate::noise::{Estimator, TrustedFallback};
 /// The `format` field of every session file.
 pub const SESSION_FORMAT: &str = "flipmend-session";
 /// The newest session version this build reads and the one it writes.
-pub const SESSION_VERSION: u32 = 1;
+pub const SESSION_VERSION: u32 = 2;
+/// The version a session without label-source matrices is written as (version 1 has no
+/// `source_matrices`), so that older flipmend reads it.
+pub const SESSION_VERSION_ONE_MATRIX: u32 = 1;
 /// Session files larger than this are refused before parsing (a session holds paths, a
 /// K×K matrix and settings; even 1,000 classes stay far below it).
 pub const SESSION_MAX_BYTES: u64 = 64 << 20;
@@ -149,6 +152,17 @@ pub struct SessionMatrix {
     pub origin: MatrixOrigin,
 }
 
+/// A label source's matrix as the user changed it (a session keeps only changed ones:
+/// the others are estimated again).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SessionSourceMatrix {
+    /// The source's name (a value of the source column).
+    pub source: String,
+    /// Its matrix.
+    pub matrix: SessionMatrix,
+}
+
 /// A whole session.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -166,6 +180,9 @@ pub struct Session {
     pub probs: Option<PathBuf>,
     /// The flip matrix as last shown.
     pub matrix: Option<SessionMatrix>,
+    /// Label sources whose matrices were changed by hand (version 2).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub source_matrices: Vec<SessionSourceMatrix>,
     /// Settings.
     #[serde(default)]
     pub settings: Settings,
@@ -176,11 +193,12 @@ impl Session {
     pub fn new() -> Self {
         Session {
             format: SESSION_FORMAT.into(),
-            version: SESSION_VERSION,
+            version: SESSION_VERSION_ONE_MATRIX,
             data: None,
             roles: Roles::default(),
             probs: None,
             matrix: None,
+            source_matrices: Vec::new(),
             settings: Settings::default(),
         }
     }
@@ -271,15 +289,25 @@ fn check(s: &Session) -> std::result::Result<(), String> {
         ));
     }
     if let Some(m) = &s.matrix {
-        let k = m.classes.len();
-        if m.values.len() != k || m.values.iter().any(|r| r.len() != k) {
-            return Err(format!("the matrix must be {k}×{k} for its {k} classes"));
-        }
-        let flat: Vec<f64> = m.values.iter().flatten().copied().collect();
-        let t = ndarray::Array2::from_shape_vec((k, k), flat).map_err(|e| e.to_string())?;
-        validate(&t).map_err(|e| format!("the session's matrix: {e}"))?;
+        check_matrix(m, "the session's matrix")?;
+    }
+    for m in &s.source_matrices {
+        check_matrix(
+            &m.matrix,
+            &format!("the matrix of label source '{}'", m.source),
+        )?;
     }
     Ok(())
+}
+
+fn check_matrix(m: &SessionMatrix, what: &str) -> std::result::Result<(), String> {
+    let k = m.classes.len();
+    if m.values.len() != k || m.values.iter().any(|r| r.len() != k) {
+        return Err(format!("{what} must be {k}×{k} for its {k} classes"));
+    }
+    let flat: Vec<f64> = m.values.iter().flatten().copied().collect();
+    let t = ndarray::Array2::from_shape_vec((k, k), flat).map_err(|e| e.to_string())?;
+    validate(&t).map_err(|e| format!("{what}: {e}"))
 }
 
 /// Writes a session (pretty JSON).
@@ -343,6 +371,23 @@ mod tests {
             let message = read(input).unwrap_err().to_string();
             assert!(message.contains(expected), "{input}: {message}");
         }
+    }
+
+    #[test]
+    fn source_matrices_round_trip_and_a_bad_one_names_its_source() {
+        let mut s = sample();
+        s.version = SESSION_VERSION;
+        let matrix = s.matrix.clone().unwrap();
+        s.source_matrices = vec![SessionSourceMatrix {
+            source: "S4".into(),
+            matrix,
+        }];
+        assert_eq!(read(&text(&s)).unwrap(), s);
+        s.source_matrices[0].matrix.values[0] = vec![0.7, 0.7];
+        let message = read(&text(&s)).unwrap_err().to_string();
+        assert!(message.contains("label source 'S4'"), "{message}");
+        // Without source matrices the key is not written at all (a version 1 file).
+        assert!(!text(&sample()).contains("source_matrices"));
     }
 
     #[test]

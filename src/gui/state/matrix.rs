@@ -71,6 +71,7 @@ impl AppState {
             (_, None) => self.editor = Some(MatrixEditor::new(matrix, MatrixOrigin::Estimated)),
         }
         self.start_sources(info.by_source.clone());
+        self.restore_source_matrices();
         self.estimate = Some(info);
         self.drop_intervals();
         self.matrix_changed();

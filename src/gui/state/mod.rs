@@ -37,7 +37,7 @@ use super::source_edit::{MatrixTarget, SourceEditors};
 use crate::data::Dataset;
 use crate::error::Error;
 use crate::io::review::Review;
-use crate::io::session::{Roles, Session, SessionMatrix, Settings};
+use crate::io::session::{Roles, Session, SessionMatrix, SessionSourceMatrix, Settings};
 use crate::noise::bootstrap::{Interval, SourceIntervals};
 use crate::noise::{Diagnostics, Method};
 use crate::workflow::compare::Comparison;
@@ -188,6 +188,8 @@ pub struct AppState {
     jobs: Jobs<Stamped>,
     /// A matrix from a session, applied once its data's estimate arrives.
     pending_matrix: Option<SessionMatrix>,
+    /// Label sources' changed matrices from a session, applied with it.
+    pending_sources: Vec<SessionSourceMatrix>,
     /// The matrix changed while a ranking (or diagnosis) was running: run again when it
     /// ends. At most one of each runs, so a drag over a cell never piles up stale work.
     rank_pending: bool,
@@ -224,6 +226,7 @@ impl AppState {
             messages: Messages::default(),
             jobs: Jobs::new(wake),
             pending_matrix: None,
+            pending_sources: Vec::new(),
             rank_pending: false,
             saves: 0,
             diagnose_pending: false,

@@ -2,7 +2,7 @@
 //! an input.
 
 use super::*;
-use crate::io::session::{read_session, write_session};
+use crate::io::session::{read_session, write_session, SESSION_VERSION};
 use crate::io::{check_not_input, write_atomic};
 
 impl AppState {
@@ -17,7 +17,85 @@ impl AppState {
             }),
             _ => None,
         };
+        s.source_matrices = self.changed_source_matrices();
+        if !s.source_matrices.is_empty() {
+            s.version = SESSION_VERSION;
+        }
         s
+    }
+
+    /// The label sources' matrices changed by hand, as a session keeps them.
+    fn changed_source_matrices(&self) -> Vec<SessionSourceMatrix> {
+        let (Some(data), Some(sources)) = (&self.data, &self.sources) else {
+            return Vec::new();
+        };
+        (0..sources.len())
+            .filter(|&s| sources.is_edited(s))
+            .filter_map(|s| {
+                let editor = sources.editor(s)?;
+                Some(SessionSourceMatrix {
+                    source: sources.current().sources[s].name.clone(),
+                    matrix: SessionMatrix {
+                        classes: data.classes.clone(),
+                        values: editor
+                            .matrix()
+                            .rows()
+                            .into_iter()
+                            .map(|r| r.to_vec())
+                            .collect(),
+                        origin: editor.origin(),
+                    },
+                })
+            })
+            .collect()
+    }
+
+    /// A session's changed source matrices, once the estimate's sources are in: each
+    /// replaces its source's matrix (one undo step), compared with the fresh estimate.
+    pub(super) fn restore_source_matrices(&mut self) {
+        let pending = std::mem::take(&mut self.pending_sources);
+        let Some(sources) = &mut self.sources else {
+            return;
+        };
+        let classes = self
+            .data
+            .as_ref()
+            .map(|d| d.classes.clone())
+            .unwrap_or_default();
+        let restored = !pending.is_empty();
+        let mut skipped = Vec::new();
+        for saved in pending {
+            let at = sources
+                .current()
+                .sources
+                .iter()
+                .position(|s| s.name == saved.source);
+            let k = saved.matrix.classes.len();
+            let flat: Vec<f64> = saved.matrix.values.into_iter().flatten().collect();
+            match (at, Array2::from_shape_vec((k, k), flat)) {
+                (Some(s), Ok(matrix)) if saved.matrix.classes == classes => {
+                    let origin = saved.matrix.origin;
+                    sources.change(s, |e| {
+                        e.replace_current(matrix, origin);
+                        true
+                    });
+                }
+                _ => skipped.push(saved.source),
+            }
+        }
+        if restored {
+            self.follow_sources();
+        }
+        if !skipped.is_empty() {
+            self.say(
+                Level::Warning,
+                format!(
+                    "the session's matrices of {} do not fit this table's label sources or \
+                     classes and were not restored",
+                    skipped.join(", ")
+                ),
+            );
+        }
     }
 
     pub(super) fn save_session(&mut self, path: Option<PathBuf>) {
@@ -33,7 +111,6 @@ impl AppState {
         match outcome {
             Ok(()) => {
                 self.say(Level::Info, format!("session saved to {}", path.display()));
-                self.warn_unsaved_source_edits();
                 self.session_path = Some(path);
             }
             Err(e) => self.say(Level::Error, format!("the session was not saved: {e}")),
@@ -53,33 +130,15 @@ impl AppState {
         };
         self.session_path = Some(path.to_path_buf());
         self.pending_matrix = session.matrix.clone();
+        self.pending_sources = session.source_matrices.clone();
         let data = session.data.clone();
         let roles = session.roles.clone();
         self.session = session;
         self.session.matrix = None;
+        self.session.source_matrices.clear();
         match data {
             Some(data) => self.load_data(data, roles),
             None => self.say(Level::Info, format!("opened session {}", path.display())),
-        }
-    }
-
-    /// A session holds one matrix, the overall one: hand edits of the sources' matrices
-    /// are not in it, and the user is told so.
-    fn warn_unsaved_source_edits(&mut self) {
-        let edited = self
-            .sources
-            .as_ref()
-            .map(|s| s.edited_names().join(", "))
-            .unwrap_or_default();
-        if !edited.is_empty() {
-            self.say(
-                Level::Warning,
-                format!(
-                    "a session keeps one matrix, the overall one: the changed \
-                     matrices of {edited} are not in it (export each as a matrix CSV, and \
-                     import it with that source shown, to keep it)"
-                ),
-            );
         }
     }
 

@@ -117,7 +117,7 @@ impl AppState {
 
     /// The overall editor's reference (and, unless edited by hand, its matrix) becomes
     /// the sources' current mix.
-    fn follow_sources(&mut self) {
+    pub(super) fn follow_sources(&mut self) {
         if let (Some(sources), Some(editor)) = (&self.sources, &mut self.editor) {
             editor.follow(sources.current().overall.clone());
         }

@@ -18,17 +18,23 @@ fn temp_dir() -> PathBuf {
     dir
 }
 
-/// 300 rows, three classes, two features shifted by class; every 10th label moved to the
-/// next class. Deterministic (a fixed congruential sequence, no randomness).
-fn small_table(dir: &std::path::Path) -> PathBuf {
-    let mut text = String::from("id,x1,x2,label\n");
-    let mut state = 12_345u64;
-    let mut next = || {
+/// A deterministic stream in [−0.5, 0.5) (a fixed congruential sequence): the tables'
+/// feature noise.
+pub(super) fn jitter(seed: u64) -> impl FnMut() -> f64 {
+    let mut state = seed;
+    move || {
         state = state
             .wrapping_mul(6_364_136_223_846_793_005)
             .wrapping_add(1);
         (state >> 33) as f64 / (1u64 << 31) as f64 - 0.5
-    };
+    }
+}
+
+/// 300 rows, three classes, two features shifted by class; every 10th label moved to the
+/// next class. Deterministic (a fixed congruential sequence, no randomness).
+fn small_table(dir: &std::path::Path) -> PathBuf {
+    let mut text = String::from("id,x1,x2,label\n");
+    let mut next = jitter(12_345);
     for r in 0..300 {
         let class = r % 3;
         let observed = if r % 10 == 0 { (class + 1) % 3 } else { class };

@@ -18,26 +18,9 @@ pub fn picker(ui: &mut egui::Ui, header: &[String], draft: &mut Roles) {
     egui::CollapsingHeader::new(shown)
         .id_salt("annotators")
         .show(ui, |ui| {
-            egui::ScrollArea::vertical()
-                .max_height(160.0)
-                .id_salt("annotator-list")
-                .show(ui, |ui| {
-                    for name in header {
-                        let mut on = chosen.contains(name);
-                        if ui.checkbox(&mut on, name).changed() {
-                            changed = true;
-                            if on {
-                                chosen.push(name.clone());
-                            } else {
-                                chosen.retain(|c| c != name);
-                            }
-                        }
-                    }
-                });
+            changed = super::widgets::column_checkboxes(ui, "annotator-list", header, &mut chosen);
         });
     if changed {
-        // Header order, so that reports list the annotators as the table does.
-        chosen.sort_by_key(|c| header.iter().position(|h| h == c));
         draft.annotators = (!chosen.is_empty()).then_some(chosen);
     }
 }

@@ -183,26 +183,7 @@ fn features(ui: &mut egui::Ui, state: &AppState, draft: &mut Roles) {
             draft.features = None;
         }
     });
-    let mut changed = false;
-    egui::ScrollArea::vertical()
-        .max_height(180.0)
-        .id_salt("feature-list")
-        .show(ui, |ui| {
-            for name in &data.header {
-                let mut on = chosen.contains(name);
-                if ui.checkbox(&mut on, name).changed() {
-                    changed = true;
-                    if on {
-                        chosen.push(name.clone());
-                    } else {
-                        chosen.retain(|c| c != name);
-                    }
-                }
-            }
-        });
-    if changed {
-        // Keep header order so the model's columns do not depend on click order.
-        chosen.sort_by_key(|c| data.header.iter().position(|h| h == c));
+    if super::widgets::column_checkboxes(ui, "feature-list", &data.header, &mut chosen) {
         draft.features = Some(chosen);
     }
 }

@@ -156,3 +156,35 @@ pub fn job_progress(
         out.push(crate::gui::command::Command::Cancel(kind));
     }
 }
+
+/// A scrolling list of the header's columns with a checkbox each; ticking or unticking
+/// edits `chosen`, which is then put back in header order (so the result does not depend
+/// on click order). True when it changed.
+pub fn column_checkboxes(
+    ui: &mut egui::Ui,
+    id: &str,
+    header: &[String],
+    chosen: &mut Vec<String>,
+) -> bool {
+    let mut changed = false;
+    egui::ScrollArea::vertical()
+        .max_height(170.0)
+        .id_salt(id)
+        .show(ui, |ui| {
+            for name in header {
+                let mut on = chosen.contains(name);
+                if ui.checkbox(&mut on, name).changed() {
+                    changed = true;
+                    if on {
+                        chosen.push(name.clone());
+                    } else {
+                        chosen.retain(|c| c != name);
+                    }
+                }
+            }
+        });
+    if changed {
+        chosen.sort_by_key(|c| header.iter().position(|h| h == c));
+    }
+    changed
+}
