@@ -67,8 +67,14 @@ pub fn demo_file(dir: &Path) -> Result<PathBuf> {
 /// The launch for `flipmend demo`.
 pub fn demo_launch() -> Result<Launch> {
     let dir = std::env::temp_dir().join(format!("flipmend-{}", env!("CARGO_PKG_VERSION")));
+    // The invented stations differ by design, so the demo opens with them as the label
+    // source: the Sources view and the per-station matrices have something to show.
     Ok(Launch {
         data: Some(demo_file(&dir)?),
+        roles: crate::io::session::Roles {
+            source: Some("station".into()),
+            ..Default::default()
+        },
         ..Launch::default()
     })
 }
