@@ -79,6 +79,9 @@ pub struct UiState {
     pub model_choice: Option<usize>,
     /// The About panel is open.
     pub show_about: bool,
+    /// The data row (0-based) the row inspector shows; any view may set it (with
+    /// `view = Some(View::Suspects)`) to open a row there.
+    pub selected_row: Option<usize>,
 }
 
 impl UiState {
