@@ -11,7 +11,7 @@ use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::text_column::read_text_column;
-use crate::io::worklist::{key_path, write_worklist_files};
+use crate::io::worklist::{key_path, write_worklist_files, Extras};
 use crate::io::{check_not_input, write_json};
 use crate::noise::scores::{auroc, RowScore, ScoreKind};
 use crate::timing::Stages;
@@ -131,9 +131,16 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     )?;
     let found = suspects(&data, &probs, &params, &mut stages)?;
     let key = match &args.out {
-        Some(path) => {
-            write_worklist_files(path, &data, found.kind, &found.items, args.with_features)?
-        }
+        Some(path) => write_worklist_files(
+            path,
+            &data,
+            found.kind,
+            &found.items,
+            Extras {
+                with_features: args.with_features,
+                ..Extras::default()
+            },
+        )?,
         None => None,
     };
     let truth = match &args.truth {

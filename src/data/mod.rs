@@ -9,6 +9,7 @@ pub mod roles;
 pub mod sources;
 pub mod summary;
 pub mod table;
+pub mod typical;
 
 pub use probs::{ProbOptions, Probabilities};
 pub use roles::TableOptions;

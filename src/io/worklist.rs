@@ -10,8 +10,11 @@
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
+use rustc_hash::FxHashMap;
+
 use crate::data::origin::Origin;
 use crate::data::Dataset;
+use crate::io::review::{Verdict, KEEP};
 use crate::io::write_atomic;
 use crate::noise::scores::{RowScore, ScoreKind};
 
@@ -110,21 +113,47 @@ pub fn write_worklist_files(
     data: &Dataset,
     kind: ScoreKind,
     items: &[Item],
-    with_features: bool,
+    extras: Extras,
 ) -> crate::error::Result<Option<PathBuf>> {
     if items.iter().all(|i| i.slice == Slice::Listed) {
         let mut ranked = items.to_vec();
         ranked.sort_by_key(|i| i.rank);
         let ranked: Vec<RowScore> = ranked.iter().map(|i| i.score).collect();
-        write_atomic(path, |w| {
-            write_worklist(w, data, kind, &ranked, with_features)
-        })?;
+        write_atomic(path, |w| write_worklist(w, data, kind, &ranked, extras))?;
         return Ok(None);
     }
     let key = key_path(path);
     write_atomic(&key, |w| write_key(w, data, kind, items))?;
-    write_atomic(path, |w| write_blind(w, data, items, with_features))?;
+    write_atomic(path, |w| write_blind(w, data, items, extras))?;
     Ok(Some(key))
+}
+
+/// What a worklist carries besides its own columns.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Extras<'a> {
+    /// The rows' feature values after the worklist's columns.
+    pub with_features: bool,
+    /// Verdicts already given (the app's in-app review): their rows' review cells are
+    /// filled, so the file reads back through `review` like one reviewed by hand.
+    pub verdicts: &'a [Verdict],
+}
+
+impl Extras<'_> {
+    /// The review cell of every row with a verdict: the class name, or [`KEEP`] when it
+    /// confirms the observed label.
+    fn review_cells(&self, data: &Dataset) -> FxHashMap<usize, String> {
+        self.verdicts
+            .iter()
+            .map(|v| {
+                let cell = if data.labels[v.row] == v.label {
+                    KEEP.to_string()
+                } else {
+                    data.classes[v.label].clone()
+                };
+                (v.row, cell)
+            })
+            .collect()
+    }
 }
 
 /// The key beside `worklist` ([`key_path`]), when that file exists.
@@ -164,8 +193,10 @@ pub fn write_worklist(
     data: &Dataset,
     kind: ScoreKind,
     ranked: &[RowScore],
-    with_features: bool,
+    extras: Extras,
 ) -> std::io::Result<()> {
+    let with_features = extras.with_features;
+    let reviews = extras.review_cells(data);
     let mut w = csv::Writer::from_writer(out);
     w.write_record(header(&WORKLIST_COLUMNS, data, with_features))?;
     let mut record: Vec<String> = Vec::with_capacity(WORKLIST_COLUMNS.len());
@@ -176,7 +207,7 @@ pub fn write_worklist(
         record.push(data.id(s.row).into_owned());
         record.push(data.classes[data.labels[s.row]].clone());
         push_verdict(&mut record, data, kind, s);
-        record.push(String::new());
+        record.push(reviews.get(&s.row).cloned().unwrap_or_default());
         push_source(&mut record, data, s.row);
         if with_features {
             record.extend(data.features.row(s.row).iter().map(|v| v.to_string()));
@@ -211,8 +242,10 @@ pub fn write_blind(
     out: &mut dyn Write,
     data: &Dataset,
     items: &[Item],
-    with_features: bool,
+    extras: Extras,
 ) -> std::io::Result<()> {
+    let with_features = extras.with_features;
+    let reviews = extras.review_cells(data);
     let mut w = csv::Writer::from_writer(out);
     w.write_record(header(&BLIND_COLUMNS, data, with_features))?;
     let mut record: Vec<String> = Vec::with_capacity(BLIND_COLUMNS.len());
@@ -220,7 +253,7 @@ pub fn write_blind(
         let row = item.score.row;
         start_item(&mut record, data, i, row);
         record.push(data.classes[data.labels[row]].clone());
-        record.push(String::new());
+        record.push(reviews.get(&row).cloned().unwrap_or_default());
         push_source(&mut record, data, row);
         if with_features {
             record.extend(data.features.row(row).iter().map(|v| v.to_string()));

@@ -65,12 +65,20 @@ pub fn estimate(
     let estimate = flip_matrix(data, probs, &params.matrix)?;
     let (interval, source_intervals) = match (&params.matrix, &data.sources) {
         (MatrixSource::Estimate(method), Some(sources)) if params.resamples > 0 => {
-            let by_source =
-                source_intervals(data, sources, probs, method, params.resamples, params.seed)?;
+            let by_source = source_intervals(
+                data,
+                sources,
+                probs,
+                method,
+                params.resamples,
+                params.seed,
+                None,
+            )?;
             (Some(by_source.overall.clone()), Some(by_source))
         }
         (MatrixSource::Estimate(method), None) if params.resamples > 0 => {
-            let interval = matrix_intervals(data, probs, method, params.resamples, params.seed)?;
+            let interval =
+                matrix_intervals(data, probs, method, params.resamples, params.seed, None)?;
             (Some(interval), None)
         }
         _ => (None, None),

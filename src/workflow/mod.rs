@@ -162,6 +162,22 @@ pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) 
     }
 }
 
+/// [`sample`] with `trusted` (when given) in place of the table's trusted labels and
+/// their origins.
+pub fn sample_trusting<'a>(
+    data: &'a Dataset,
+    probs: &'a Array2<f32>,
+    rows: &'a [usize],
+    trusted: Option<&'a review::TrustedLabels>,
+) -> Sample<'a> {
+    let mut sample = sample(data, probs, rows);
+    if let Some(t) = trusted {
+        sample.trusted = Some(&t.labels);
+        sample.origins = Some(&t.origins);
+    }
+    sample
+}
+
 /// Runs `method` on every row: the matrix, the clean posteriors (joint) and the
 /// estimator's warnings.
 pub fn estimate_on_all_rows(
@@ -169,8 +185,20 @@ pub fn estimate_on_all_rows(
     probs: &RowProbabilities,
     method: &Method,
 ) -> Result<Estimate> {
+    estimate_with_trusted(data, probs, method, None)
+}
+
+/// [`estimate_on_all_rows`] with `trusted` in place of the table's own trusted labels
+/// and origins (the app's verdicts added to them, [`review::with_verdicts`]), so a
+/// review counts without writing and reloading the table.
+pub fn estimate_with_trusted(
+    data: &Dataset,
+    probs: &RowProbabilities,
+    method: &Method,
+    trusted: Option<&review::TrustedLabels>,
+) -> Result<Estimate> {
     let rows: Vec<usize> = (0..data.rows()).collect();
-    let sample = sample(data, &probs.values, &rows);
+    let sample = sample_trusting(data, &probs.values, &rows, trusted);
     let overall = estimate(method, &sample, &data.classes)?;
     match &data.sources {
         Some(sources) => with_sources(method, sample, sources, &data.classes, overall),
@@ -342,10 +370,11 @@ pub fn source_intervals(
     method: &Method,
     resamples: usize,
     seed: u64,
+    trusted: Option<&review::TrustedLabels>,
 ) -> Result<SourceIntervals> {
     let rows: Vec<usize> = (0..data.rows()).collect();
     let base = SourceSample {
-        sample: sample(data, &probs.values, &rows),
+        sample: sample_trusting(data, &probs.values, &rows, trusted),
         of_row: &sources.of_row,
         names: &sources.names,
     };
@@ -359,11 +388,12 @@ pub fn matrix_intervals(
     method: &Method,
     resamples: usize,
     seed: u64,
+    trusted: Option<&review::TrustedLabels>,
 ) -> Result<Interval> {
     let rows: Vec<usize> = (0..data.rows()).collect();
     bootstrap(
         method,
-        &sample(data, &probs.values, &rows),
+        &sample_trusting(data, &probs.values, &rows, trusted),
         &data.classes,
         resamples,
         seed,

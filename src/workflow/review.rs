@@ -10,7 +10,7 @@ use serde::Serialize;
 use crate::data::origin::Origin;
 use crate::data::Dataset;
 use crate::error::Result;
-use crate::io::review::{load_key, load_review, Key, Review};
+use crate::io::review::{load_key, load_review, Key, Review, Verdict};
 use crate::io::worklist::key_beside;
 use crate::learn::metrics::Proportion;
 
@@ -51,6 +51,35 @@ pub fn read_reviewed(data: &Dataset, worklist: &Path, key: Option<&Path>) -> Res
         key,
         summary,
     })
+}
+
+/// Every row's trusted label and how it was obtained, once a review's verdicts are added
+/// to the table's own: what reading the merged copy
+/// ([`write_merged`](crate::io::review::write_merged)) back would give, without writing
+/// it. The app's in-app verdicts reach the estimate this way.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TrustedLabels {
+    /// Trusted label per row, `None` where there is none.
+    pub labels: Vec<Option<usize>>,
+    /// How each row's trusted label was obtained (an audit where there is none, as an
+    /// empty origin cell reads).
+    pub origins: Vec<Origin>,
+}
+
+/// `data`'s trusted labels with `verdicts` added. A verdict replaces an earlier trusted
+/// label but keeps its origin, as the merged copy does: a randomly audited row checked
+/// again is still a random audit, and a reviewed row is never promoted to one.
+pub fn with_verdicts(data: &Dataset, verdicts: &[Verdict]) -> TrustedLabels {
+    let rows = data.rows();
+    let mut labels = data.trusted.clone().unwrap_or_else(|| vec![None; rows]);
+    let mut origins: Vec<Origin> = (0..rows).map(|r| data.origin(r)).collect();
+    for v in verdicts.iter().filter(|v| v.row < rows) {
+        if labels[v.row].is_none() {
+            origins[v.row] = v.origin;
+        }
+        labels[v.row] = Some(v.label);
+    }
+    TrustedLabels { labels, origins }
 }
 
 /// One slice of a review: how many of its reviewed rows had a wrong label.
@@ -254,6 +283,57 @@ mod tests {
             s.notes.iter().any(|n| n.contains("too confident")),
             "{:?}",
             s.notes
+        );
+    }
+
+    #[test]
+    fn verdicts_added_in_memory_equal_the_merged_copy_read_back() {
+        // The reference is the command line's route: write the merged copy, load it.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("d.csv");
+        std::fs::write(
+            &path,
+            "id,x,label,trusted,trusted_origin\nr0,0,cat,,\nr1,1,dog,cat,\nr2,2,cat,,\n\
+             r3,3,dog,dog,review\nr4,4,cat,,\n",
+        )
+        .unwrap();
+        let options = crate::data::TableOptions::default();
+        let d = Dataset::load(&path, &options).unwrap();
+        let verdict = |row, label, origin| Verdict {
+            row,
+            label,
+            line: 0,
+            origin,
+        };
+        // A new reviewed suspect, a control row, and re-checks of an audited row and of
+        // a reviewed one (they keep their origins).
+        let review = Review {
+            verdicts: vec![
+                verdict(0, 1, Origin::Review),
+                verdict(2, 0, Origin::Control),
+                verdict(1, 1, Origin::Review),
+                verdict(3, 0, Origin::Control),
+            ],
+            not_reviewed: 0,
+        };
+        let merged = dir.path().join("m.csv");
+        crate::io::write_atomic(&merged, |w| {
+            crate::io::review::write_merged(w, &d, b',', &review)
+        })
+        .unwrap();
+        let back = Dataset::load(&merged, &options).unwrap();
+        let got = with_verdicts(&d, &review.verdicts);
+        assert_eq!(Some(&got.labels), back.trusted.as_ref());
+        let read: Vec<Origin> = (0..back.rows()).map(|r| back.origin(r)).collect();
+        assert_eq!(got.origins, read);
+        assert_eq!(
+            got.origins[..4],
+            [
+                Origin::Review,
+                Origin::Audit,
+                Origin::Control,
+                Origin::Review
+            ]
         );
     }
 }

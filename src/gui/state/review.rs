@@ -3,7 +3,7 @@
 
 use super::*;
 use crate::io::review::write_merged;
-use crate::io::worklist::{key_path, write_worklist_files, Item};
+use crate::io::worklist::{key_path, write_worklist_files, Extras, Item};
 use crate::io::{check_not_input, write_atomic};
 use crate::noise::scores::RowScore;
 use crate::workflow::ranking::Filter;
@@ -49,7 +49,8 @@ impl AppState {
             for target in [&path, &key_path(&path)] {
                 check_not_input(target, &refs).map_err(fail)?;
             }
-            let key = write_worklist_files(&path, &data, kind, &items, false).map_err(fail)?;
+            let key = write_worklist_files(&path, &data, kind, &items, Extras::default())
+                .map_err(fail)?;
             let drawn = items.len() - listed.len();
             Ok(JobOutput::Saved(match key {
                 None => format!(
@@ -109,17 +110,17 @@ impl AppState {
 
 /// How a worklist's control rows are drawn: how many, the seed, and the rows the
 /// filter's class and source choices allow (`of_row`: every row's source).
-struct Pick<'a> {
-    control: usize,
-    seed: u64,
-    filter: &'a Filter,
-    of_row: Option<&'a [u32]>,
+pub(super) struct Pick<'a> {
+    pub(super) control: usize,
+    pub(super) seed: u64,
+    pub(super) filter: &'a Filter,
+    pub(super) of_row: Option<&'a [u32]>,
 }
 
 /// The listed rows of the app's worklist plus control rows drawn from the rows the
 /// filter's class and source choices allow, with their verdicts and ranks from the
 /// ranking.
-fn ranked_with_control(
+pub(super) fn ranked_with_control(
     ranking: &Ranking,
     data: &Dataset,
     listed: &[(RowScore, usize)],
