@@ -4,7 +4,7 @@
 
 mod common;
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 use eframe::egui::{Key, Modifiers};
 use egui_kittest::kittest::Queryable;
@@ -18,29 +18,8 @@ use flipmend::gui::state::{AppState, JobOutput};
 use flipmend::io::session::{MatrixOrigin, Roles};
 use flipmend::workflow::ranking::Matrices;
 
+use common::app::{app_on_demo, app_on_demo_with_stations, set_path, settle, state};
 use common::TempDir;
-
-/// Waits for every background job, then lets the UI catch up.
-fn settle(h: &mut Harness<'_, FlipmendApp>) {
-    h.state_mut().state.settle(300.0);
-    h.run_steps(3);
-}
-
-fn app_on_demo(dir: &Path) -> Harness<'static, FlipmendApp> {
-    let demo = flipmend::gui::demo_file(dir).unwrap();
-    let mut h = Harness::builder()
-        .with_size([1400.0, 900.0])
-        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
-    h.state_mut()
-        .push(Command::LoadData(demo, Roles::default()));
-    h.run_steps(1);
-    settle(&mut h);
-    h
-}
-
-fn state<'a>(h: &'a Harness<'_, FlipmendApp>) -> &'a AppState {
-    &h.state().state
-}
 
 fn order(s: &AppState) -> Vec<usize> {
     s.ranking()
@@ -383,28 +362,6 @@ fn many_classes_get_a_scrolling_grid_and_the_largest_flips() {
     h.get_by_label("Flip matrix").click();
     h.run_steps(2);
     h.get_by_label("Largest flips");
-}
-
-fn set_path(h: &mut Harness<'_, FlipmendApp>, purpose: Purpose, path: &Path) {
-    let text: PathBuf = path.to_path_buf();
-    *h.state_mut().ui.path(purpose) = text.display().to_string();
-    h.run_steps(1);
-}
-
-/// The demo with its `station` column as the label source.
-fn app_on_demo_with_stations(dir: &Path) -> Harness<'static, FlipmendApp> {
-    let demo = flipmend::gui::demo_file(dir).unwrap();
-    let mut h = Harness::builder()
-        .with_size([1400.0, 900.0])
-        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
-    let roles = Roles {
-        source: Some("station".into()),
-        ..Roles::default()
-    };
-    h.state_mut().push(Command::LoadData(demo, roles));
-    h.run_steps(1);
-    settle(&mut h);
-    h
 }
 
 #[test]

@@ -82,6 +82,12 @@ pub struct UiState {
     /// The data row (0-based) the row inspector shows; any view may set it (with
     /// `view = Some(View::Suspects)`) to open a row there.
     pub selected_row: Option<usize>,
+    /// The suspects table scrolls to the selected row on the next frame.
+    pub scroll_to_selected: bool,
+    /// The id typed in the suspects view's search box.
+    pub id_search: String,
+    /// The class the inspector compares the row with (the suggested one until chosen).
+    pub compare_class: Option<usize>,
 }
 
 impl UiState {
@@ -255,6 +261,7 @@ impl FlipmendApp {
             }
             Purpose::OpenSession => Command::OpenSession(path),
             Purpose::SaveSession => Command::SaveSession(Some(path)),
+            Purpose::ExportVerdicts => Command::ExportVerdicts(path),
         };
         self.push(command);
     }

@@ -69,6 +69,28 @@ pub enum Command {
     Cancel(JobKind),
     /// Hide a message.
     Dismiss(usize),
+    /// A reviewer's verdict: data row `row`'s true class is `label` (its observed label
+    /// to keep it).
+    Verdict {
+        /// 0-based data row.
+        row: usize,
+        /// The class it truly is.
+        label: usize,
+    },
+    /// Take back the last verdict change.
+    UndoVerdict,
+    /// Give back the last verdict change taken back.
+    RedoVerdict,
+    /// Start a review round in the app: the worklist's rows (suspects and random control
+    /// rows, shuffled) to be reviewed one by one.
+    StartRound,
+    /// Leave the review round (its verdicts stay).
+    EndRound,
+    /// Write the verdicts given in the app as a reviewed worklist (with its key when the
+    /// round has control rows), as `review` reads it.
+    ExportVerdicts(PathBuf),
+    /// Order the suspects table by a column (`None`: by rank).
+    SortSuspects(Option<crate::gui::state::SuspectSort>),
 }
 
 impl Command {

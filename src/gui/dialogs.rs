@@ -30,6 +30,8 @@ pub enum Purpose {
     OpenSession,
     /// Where to save the session.
     SaveSession,
+    /// Where to write the verdicts given in the app.
+    ExportVerdicts,
 }
 
 impl Purpose {
@@ -42,6 +44,7 @@ impl Purpose {
                 | Purpose::SaveMerged
                 | Purpose::SaveModel
                 | Purpose::SaveSession
+                | Purpose::ExportVerdicts
         )
     }
 
@@ -53,6 +56,7 @@ impl Purpose {
             Purpose::ImportMatrix | Purpose::ExportMatrix => ("flip-matrix.csv", &["csv"]),
             Purpose::ExportWorklist => ("worklist.csv", &["csv"]),
             Purpose::ImportReview => ("worklist.csv", &["csv"]),
+            Purpose::ExportVerdicts => ("worklist-reviewed.csv", &["csv"]),
             Purpose::SaveMerged => ("data-reviewed.csv", &["csv", "tsv"]),
             Purpose::SaveModel => ("model.json", &["json"]),
             Purpose::OpenSession | Purpose::SaveSession => ("session.json", &["json"]),

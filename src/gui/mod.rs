@@ -8,6 +8,7 @@ pub mod jobs;
 pub mod matrix_edit;
 pub mod source_edit;
 pub mod state;
+pub mod verdict_book;
 mod views;
 
 use std::path::{Path, PathBuf};

@@ -15,8 +15,11 @@ use crate::noise::{Estimator, TrustedFallback};
 
 /// The `format` field of every session file.
 pub const SESSION_FORMAT: &str = "flipmend-session";
-/// The newest session version this build reads and the one it writes.
-pub const SESSION_VERSION: u32 = 2;
+/// The newest session version this build reads; written when the session holds
+/// verdicts given in the app (or a review round).
+pub const SESSION_VERSION: u32 = 3;
+/// The version a session with label-source matrices but no verdicts is written as.
+pub const SESSION_VERSION_SOURCES: u32 = 2;
 /// The version a session without label-source matrices is written as (version 1 has no
 /// `source_matrices`), so that older flipmend reads it.
 pub const SESSION_VERSION_ONE_MATRIX: u32 = 1;
@@ -163,6 +166,43 @@ pub struct SessionSourceMatrix {
     pub matrix: SessionMatrix,
 }
 
+/// A verdict given in the app, as a session keeps it: the row by number and id (checked
+/// when the session is opened), the class by name, how the row came to be reviewed.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SessionVerdict {
+    /// 0-based data row.
+    pub row: usize,
+    /// Its id (its row number when the table has no id column).
+    pub id: String,
+    /// The class it truly is.
+    pub label: String,
+    /// `review` or `control` (or `audit`).
+    pub origin: String,
+}
+
+/// A row of the review round under way, as a session keeps it.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SessionRoundRow {
+    /// 0-based data row.
+    pub row: usize,
+    /// Its id.
+    pub id: String,
+    /// `listed` or `control`.
+    pub slice: String,
+    /// 1-based rank when the round started.
+    pub rank: usize,
+    /// Its score then.
+    pub score: f64,
+    /// The class suggested then.
+    pub suggested: String,
+    /// The second choice then.
+    pub second_choice: String,
+    /// Its probability.
+    pub second_choice_prob: f64,
+}
+
 /// A whole session.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -186,6 +226,15 @@ pub struct Session {
     /// Settings.
     #[serde(default)]
     pub settings: Settings,
+    /// Verdicts given in the app (version 3).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub verdicts: Vec<SessionVerdict>,
+    /// The review round under way in the app, in review order (version 3).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub round: Vec<SessionRoundRow>,
+    /// The score the round's rows were ranked by (version 3).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub round_score: Option<ScoreKind>,
 }
 
 impl Session {
@@ -200,6 +249,9 @@ impl Session {
             matrix: None,
             source_matrices: Vec::new(),
             settings: Settings::default(),
+            verdicts: Vec::new(),
+            round: Vec::new(),
+            round_score: None,
         }
     }
 }
@@ -376,7 +428,7 @@ mod tests {
     #[test]
     fn source_matrices_round_trip_and_a_bad_one_names_its_source() {
         let mut s = sample();
-        s.version = SESSION_VERSION;
+        s.version = SESSION_VERSION_SOURCES;
         let matrix = s.matrix.clone().unwrap();
         s.source_matrices = vec![SessionSourceMatrix {
             source: "S4".into(),
@@ -388,6 +440,32 @@ mod tests {
         assert!(message.contains("label source 'S4'"), "{message}");
         // Without source matrices the key is not written at all (a version 1 file).
         assert!(!text(&sample()).contains("source_matrices"));
+    }
+
+    #[test]
+    fn verdicts_and_a_round_round_trip_and_are_left_out_when_there_are_none() {
+        let mut s = sample();
+        s.version = SESSION_VERSION;
+        s.verdicts = vec![SessionVerdict {
+            row: 4,
+            id: "B1-00004".into(),
+            label: "b".into(),
+            origin: "control".into(),
+        }];
+        s.round = vec![SessionRoundRow {
+            row: 4,
+            id: "B1-00004".into(),
+            slice: "control".into(),
+            rank: 812,
+            score: 0.03,
+            suggested: "a".into(),
+            second_choice: "b".into(),
+            second_choice_prob: 0.01,
+        }];
+        s.round_score = Some(ScoreKind::Posterior);
+        assert_eq!(read(&text(&s)).unwrap(), s);
+        let plain = text(&sample());
+        assert!(!plain.contains("verdicts") && !plain.contains("round"));
     }
 
     #[test]

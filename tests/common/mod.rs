@@ -2,6 +2,9 @@
 
 #![allow(dead_code)]
 
+#[cfg(feature = "gui")]
+pub mod app;
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
 

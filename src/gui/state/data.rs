@@ -53,6 +53,7 @@ impl AppState {
             .as_ref()
             .map(|s| Arc::from(s.of_row.as_slice()));
         self.source_filter = None;
+        self.reset_review(&data);
         self.data = Some(Arc::new(data));
         self.data_generation += 1;
         self.rank_pending = false;

@@ -37,6 +37,9 @@ impl AppState {
             }
             Err(failure) => self.say(Level::Error, failure.to_string()),
         }
+        if kind == JobKind::Estimate && std::mem::take(&mut self.estimate_pending) {
+            self.start_estimate();
+        }
         if kind == JobKind::Rank && std::mem::take(&mut self.rank_pending) {
             self.start_rank();
         }

@@ -23,8 +23,11 @@ impl AppState {
             return;
         };
         let method = self.method();
+        let trusted = self.trusted_overlay();
+        self.estimate_pending = false;
         self.spawn_on_data(JobKind::Estimate, move |_| {
-            let e = workflow::estimate_on_all_rows(&data, &probs, &method).map_err(fail)?;
+            let e = workflow::estimate_with_trusted(&data, &probs, &method, trusted.as_deref())
+                .map_err(fail)?;
             let classes = data.classes.len();
             let info = EstimateInfo {
                 source: workflow::MatrixSource::Estimate(method.clone()).describe(),
@@ -165,16 +168,25 @@ impl AppState {
         let (resamples, seed) = (s.resamples.max(2), s.seed);
         let by_source = self.sources.is_some();
         let estimate = self.estimates;
+        let trusted = self.trusted_overlay();
         self.spawn_on_data(JobKind::Bootstrap, move |_| match &data.sources {
             // One matrix per source: every source's intervals and their mix's.
             Some(sources) if by_source => {
-                workflow::source_intervals(&data, sources, &probs, &method, resamples, seed)
+                let t = trusted.as_deref();
+                workflow::source_intervals(&data, sources, &probs, &method, resamples, seed, t)
                     .map(|i| JobOutput::SourceIntervals(Box::new(i), estimate))
                     .map_err(fail)
             }
-            _ => workflow::matrix_intervals(&data, &probs, &method, resamples, seed)
-                .map(|i| JobOutput::Intervals(i, estimate))
-                .map_err(fail),
+            _ => workflow::matrix_intervals(
+                &data,
+                &probs,
+                &method,
+                resamples,
+                seed,
+                trusted.as_deref(),
+            )
+            .map(|i| JobOutput::Intervals(i, estimate))
+            .map_err(fail),
         });
     }
 

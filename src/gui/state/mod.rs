@@ -21,6 +21,7 @@ mod sources;
 mod tests;
 #[cfg(test)]
 mod tests_sources;
+mod verdicts;
 
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -30,20 +31,25 @@ use ndarray::Array2;
 pub use self::data::{table_options, Relabelled};
 use self::messages::Messages;
 pub use self::messages::{Level, Message};
+pub use self::verdicts::{SuspectColumn, SuspectSort};
 use super::command::Command;
 use super::jobs::{Finished, JobControl, JobFailure, JobKind, Jobs};
 use super::matrix_edit::MatrixEditor;
 use super::source_edit::{MatrixTarget, SourceEditors};
+use super::verdict_book::{Round, VerdictBook};
+use crate::data::typical::Typical;
 use crate::data::Dataset;
 use crate::error::Error;
 use crate::io::review::Review;
-use crate::io::session::{Roles, Session, SessionMatrix, SessionSourceMatrix, Settings};
+use crate::io::session::{
+    Roles, Session, SessionMatrix, SessionRoundRow, SessionSourceMatrix, SessionVerdict, Settings,
+};
 use crate::noise::bootstrap::{Interval, SourceIntervals};
 use crate::noise::{Diagnostics, Method};
 use crate::workflow::compare::Comparison;
 use crate::workflow::consensus::Consensual;
 use crate::workflow::ranking::Ranking;
-use crate::workflow::review::ReviewSummary;
+use crate::workflow::review::{ReviewSummary, TrustedLabels};
 use crate::workflow::RowProbabilities;
 
 /// The estimate a matrix was started from.
@@ -176,8 +182,10 @@ pub struct AppState {
     diagnostics: Option<(Diagnostics, u64)>,
     /// Ranked suspects of the current (or, while re-ranking, the previous) matrix.
     ranking: Option<Arc<Ranking>>,
-    /// Positions in the ranking that pass the filters.
+    /// Positions in the ranking that pass the filters, in rank order.
     visible: Vec<u32>,
+    /// `visible` in the table's order when it is sorted by a column.
+    sorted: Vec<u32>,
     /// The last comparison.
     retrained: Option<Retrained>,
     /// The last reviewed worklist read.
@@ -196,6 +204,23 @@ pub struct AppState {
     diagnose_pending: bool,
     /// Saves started so far (each save is its own job).
     saves: u64,
+    /// Verdicts given in the app, with their history.
+    verdicts: VerdictBook,
+    /// The review round being worked through in the app.
+    round: Option<Round>,
+    /// The table's trusted labels with the verdicts added, for the estimate and the
+    /// bootstrap (`None` without verdicts).
+    trusted_overlay: Option<Arc<TrustedLabels>>,
+    /// What the verdicts measured so far.
+    verdict_summary: Option<ReviewSummary>,
+    /// Verdicts changed while an estimate was running: estimate again when it ends.
+    estimate_pending: bool,
+    /// Each class's typical feature values, for the row inspector.
+    typical: Option<Arc<Typical>>,
+    /// The suspects table's order, when not by rank.
+    sort: Option<SuspectSort>,
+    /// A session's verdicts and round, applied once its table is loaded.
+    pending_review: Option<(Vec<SessionVerdict>, verdicts::PendingRound)>,
 }
 
 impl AppState {
@@ -221,6 +246,7 @@ impl AppState {
             diagnostics: None,
             ranking: None,
             visible: Vec::new(),
+            sorted: Vec::new(),
             retrained: None,
             review: None,
             messages: Messages::default(),
@@ -230,6 +256,14 @@ impl AppState {
             rank_pending: false,
             saves: 0,
             diagnose_pending: false,
+            verdicts: VerdictBook::default(),
+            round: None,
+            trusted_overlay: None,
+            verdict_summary: None,
+            estimate_pending: false,
+            typical: None,
+            sort: None,
+            pending_review: None,
         }
     }
 
@@ -362,6 +396,16 @@ impl AppState {
             Command::Cancel(kind) => self.jobs.cancel(kind),
             Command::Dismiss(i) => self.messages.dismiss(i),
             Command::UseProbabilitiesFile(path) => self.session.probs = Some(path),
+            Command::Verdict { row, label } => self.give_verdict(row, label),
+            Command::UndoVerdict => self.undo_verdict(),
+            Command::RedoVerdict => self.redo_verdict(),
+            Command::StartRound => self.start_round(),
+            Command::EndRound => self.round = None,
+            Command::ExportVerdicts(path) => self.export_verdicts(path),
+            Command::SortSuspects(sort) => {
+                self.sort = sort;
+                self.refilter();
+            }
         }
     }
 }

@@ -137,6 +137,7 @@ impl AppState {
             (Some(r), Some(d)) => filter_rows(r, &d.labels, self.of_row.as_deref(), &filter),
             _ => Vec::new(),
         };
+        self.sort_table();
     }
 }
 

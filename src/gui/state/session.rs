@@ -2,7 +2,7 @@
 //! an input.
 
 use super::*;
-use crate::io::session::{read_session, write_session, SESSION_VERSION};
+use crate::io::session::{read_session, write_session, SESSION_VERSION, SESSION_VERSION_SOURCES};
 use crate::io::{check_not_input, write_atomic};
 
 impl AppState {
@@ -19,6 +19,11 @@ impl AppState {
         };
         s.source_matrices = self.changed_source_matrices();
         if !s.source_matrices.is_empty() {
+            s.version = SESSION_VERSION_SOURCES;
+        }
+        let review = self.review_for_session();
+        (s.verdicts, s.round, s.round_score) = (review.verdicts, review.round, review.round_score);
+        if !s.verdicts.is_empty() || !s.round.is_empty() {
             s.version = SESSION_VERSION;
         }
         s
@@ -131,11 +136,19 @@ impl AppState {
         self.session_path = Some(path.to_path_buf());
         self.pending_matrix = session.matrix.clone();
         self.pending_sources = session.source_matrices.clone();
+        let round = verdicts::PendingRound {
+            rows: session.round.clone(),
+            kind: session.round_score,
+        };
+        self.pending_review = Some((session.verdicts.clone(), round));
         let data = session.data.clone();
         let roles = session.roles.clone();
         self.session = session;
         self.session.matrix = None;
         self.session.source_matrices.clear();
+        self.session.verdicts.clear();
+        self.session.round.clear();
+        self.session.round_score = None;
         match data {
             Some(data) => self.load_data(data, roles),
             None => self.say(Level::Info, format!("opened session {}", path.display())),

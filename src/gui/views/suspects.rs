@@ -1,20 +1,20 @@
 //! The Suspects view: every row ranked by how likely its label is wrong (re-ranked when
-//! the matrix changes), filters, a budget, the score histogram, and the worklist round
-//! trip (export, review elsewhere, import).
+//! the matrix changes and as verdicts come in), filters, search by id, sorting by any
+//! column, the row inspector with the verdict keys, the review round, the score
+//! histogram and the worklist files.
 
 use eframe::egui;
 use egui_extras::{Column, TableBuilder};
 use egui_plot::{Bar, BarChart, Plot};
 
-use super::widgets::{class_filter, path_row};
+use super::widgets::class_filter;
+use super::{inspector, review_panel};
 use crate::gui::app::UiState;
 use crate::gui::command::Command;
-use crate::gui::dialogs::Purpose;
 use crate::gui::jobs::JobKind;
-use crate::gui::state::AppState;
+use crate::gui::state::{AppState, SuspectColumn, SuspectSort};
 use crate::io::worklist::WORKLIST_COLUMNS;
 use crate::noise::scores::ScoreKind;
-use crate::workflow::review::{ReviewSummary, SliceResult};
 
 /// Draws the view.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
@@ -55,14 +55,66 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         }
     });
     ui.weak("Scores are estimates to guide a qualified reviewer, not verdicts; for medical, safety or other sensitive data follow your local rules and licensed practice.");
+    search(ui, state, view);
     egui::Panel::right("suspects-side")
-        .default_size(320.0)
+        .default_size(430.0)
         .show(ui, |ui| {
-            histogram(ui, state);
-            ui.separator();
-            worklist_files(ui, state, view, out);
+            egui::ScrollArea::vertical()
+                .id_salt("suspects-side-scroll")
+                .show(ui, |ui| {
+                    review_panel::in_app(ui, state, view, out);
+                    ui.separator();
+                    inspector::show(ui, state, view, out);
+                    ui.separator();
+                    egui::CollapsingHeader::new("score histogram")
+                        .show(ui, |ui| histogram(ui, state));
+                    egui::CollapsingHeader::new("worklist files")
+                        .default_open(true)
+                        .show(ui, |ui| review_panel::worklist_files(ui, state, view, out));
+                });
         });
-    egui::CentralPanel::default().show(ui, |ui| table(ui, state));
+    egui::CentralPanel::default().show(ui, |ui| table(ui, state, view, out));
+}
+
+/// Finds a row by id (the whole id, else the first id that starts with the text) and
+/// opens it in the inspector.
+fn search(ui: &mut egui::Ui, state: &AppState, view: &mut UiState) {
+    let Some(data) = state.data() else { return };
+    ui.horizontal(|ui| {
+        ui.label("find id");
+        let response = ui.add(
+            egui::TextEdit::singleline(&mut view.id_search)
+                .desired_width(160.0)
+                .hint_text("id, then Enter"),
+        );
+        let go = response.lost_focus() && ui.input(|i| i.key_pressed(egui::Key::Enter));
+        if go || ui.button("Find").clicked() {
+            let wanted = view.id_search.trim();
+            let found = (0..data.rows())
+                .find(|&r| data.id(r) == wanted)
+                .or_else(|| (0..data.rows()).find(|&r| data.id(r).starts_with(wanted)));
+            match found {
+                Some(row) if !wanted.is_empty() => {
+                    view.selected_row = Some(row);
+                    view.scroll_to_selected = true;
+                }
+                _ => {
+                    ui.weak("no such id");
+                }
+            }
+        }
+        if let Some(row) = view.selected_row {
+            let shown = state.ranking().is_some_and(|r| {
+                state
+                    .table_rows()
+                    .iter()
+                    .any(|&p| r.ranked[p as usize].row == row)
+            });
+            if !shown {
+                ui.weak(format!("row {row} is not in the filtered table"));
+            }
+        }
+    });
 }
 
 fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut Vec<Command>) {
@@ -85,6 +137,7 @@ fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut V
         if let Some(c) = class_filter(ui, "suggested-filter", classes, &s.suggested_filter) {
             s.suggested_filter = c;
         }
+        flip_filter(ui, state, classes, &mut s);
         let (low, high) = s.score.shown_range();
         ui.add(
             egui::Slider::new(&mut s.min_score, low..=high)
@@ -113,6 +166,48 @@ fn controls(ui: &mut egui::Ui, state: &AppState, classes: &[String], out: &mut V
     if s != *state.settings() {
         out.push(Command::Settings(s));
     }
+}
+
+/// The two class filters at once, by flip: the matrix's off-diagonal cells of at least
+/// half a percent, largest first ("cardboard typed as paper").
+fn flip_filter(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    classes: &[String],
+    s: &mut crate::io::session::Settings,
+) {
+    let Some(editor) = state.editor() else { return };
+    let t = editor.matrix();
+    let mut flips: Vec<(usize, usize, f64)> = t
+        .indexed_iter()
+        .filter(|&((i, j), &v)| i != j && v >= 0.005 && i < classes.len() && j < classes.len())
+        .map(|((i, j), &v)| (i, j, v))
+        .collect();
+    flips.sort_by(|a, b| b.2.total_cmp(&a.2));
+    let name = |i: usize, j: usize| format!("{} typed as {}", classes[i], classes[j]);
+    let current = match (&s.suggested_filter, &s.observed_filter) {
+        (Some(i), Some(j)) => format!("{i} typed as {j}"),
+        (None, None) => "any".to_string(),
+        _ => "(by class)".to_string(),
+    };
+    ui.label("flip");
+    egui::ComboBox::from_id_salt("flip-filter")
+        .selected_text(current)
+        .show_ui(ui, |ui| {
+            if ui.selectable_label(false, "any").clicked() {
+                s.observed_filter = None;
+                s.suggested_filter = None;
+            }
+            for (i, j, v) in flips {
+                let text = format!("{}  ({:.1} %)", name(i, j), 100.0 * v);
+                if ui.selectable_label(false, text).clicked() {
+                    s.suggested_filter = Some(classes[i].clone());
+                    s.observed_filter = Some(classes[j].clone());
+                }
+            }
+        })
+        .response
+        .on_hover_text("true class typed as observed label: the rows labelled as the second class that are likely the first");
 }
 
 /// Only one label source's suspects (the Sources view's names lead here too).
@@ -170,46 +265,129 @@ fn histogram(ui: &mut egui::Ui, state: &AppState) {
         .show(ui, |p| p.bar_chart(BarChart::new("rows", bars)));
 }
 
-/// Where the label source's column goes (after the id), when the table has sources.
-const SOURCE_COLUMN: usize = 3;
+/// The table's columns: title, width, and the order a click on the title gives.
+fn columns(with_source: bool) -> Vec<(&'static str, f32, Option<SuspectColumn>)> {
+    // The ranked worklist's column names (all but the reviewer's column), each row's
+    // label source after its id when there is one, and the verdict given here.
+    let sort = [
+        Some(SuspectColumn::Rank),
+        Some(SuspectColumn::Row),
+        Some(SuspectColumn::Id),
+        Some(SuspectColumn::Observed),
+        Some(SuspectColumn::Suggested),
+        Some(SuspectColumn::Rank),
+        Some(SuspectColumn::Rank),
+        Some(SuspectColumn::SecondChoice),
+        Some(SuspectColumn::SecondChoiceProb),
+    ];
+    let widths = [50.0, 60.0, 80.0, 90.0, 90.0, 60.0, 60.0, 90.0, 60.0];
+    let mut columns: Vec<_> = WORKLIST_COLUMNS[..9]
+        .iter()
+        .zip(widths)
+        .zip(sort)
+        .map(|((&t, w), s)| (t, w, s))
+        .collect();
+    if with_source {
+        columns.insert(3, ("source", 50.0, Some(SuspectColumn::Source)));
+    }
+    columns.push(("verdict", 80.0, Some(SuspectColumn::Verdict)));
+    columns
+}
 
-fn table(ui: &mut egui::Ui, state: &AppState) {
+/// A click on a column title: by that column, then the other way, then back to rank.
+fn next_sort(current: Option<SuspectSort>, column: SuspectColumn) -> Option<SuspectSort> {
+    match current {
+        Some(s) if s.column == column && !s.descending => Some(SuspectSort {
+            column,
+            descending: true,
+        }),
+        Some(s) if s.column == column => None,
+        _ if column == SuspectColumn::Rank => Some(SuspectSort {
+            column,
+            descending: true,
+        }),
+        _ => Some(SuspectSort {
+            column,
+            descending: false,
+        }),
+    }
+}
+
+fn table(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
     let (Some(data), Some(r)) = (state.data(), state.ranking()) else {
         return;
     };
     let classes = &data.classes;
     let sources = data.sources.as_ref();
-    // The ranked worklist's column names (all but the reviewer's column), and below them
-    // the same figures as the file writes; each row's label source after its id, if any.
-    let mut titles: Vec<&str> = WORKLIST_COLUMNS[..9].to_vec();
-    let mut widths = vec![50.0, 60.0, 80.0, 90.0, 90.0, 60.0, 60.0, 90.0, 60.0];
-    if sources.is_some() {
-        titles.insert(SOURCE_COLUMN, "source");
-        widths.insert(SOURCE_COLUMN, 50.0);
-    }
+    let columns = columns(sources.is_some());
+    let rows = state.table_rows();
     let mut builder = TableBuilder::new(ui)
         .id_salt("suspects-table")
-        .striped(true);
-    for (n, width) in widths.iter().enumerate() {
-        builder = builder.column(if n + 1 == titles.len() {
-            Column::remainder().at_least(*width)
+        .striped(true)
+        .sense(egui::Sense::click());
+    if std::mem::take(&mut view.scroll_to_selected) {
+        let at = view
+            .selected_row
+            .and_then(|row| rows.iter().position(|&p| r.ranked[p as usize].row == row));
+        if let Some(at) = at {
+            builder = builder.scroll_to_row(at, Some(egui::Align::Center));
+        }
+    }
+    for (n, &(_, width, _)) in columns.iter().enumerate() {
+        builder = builder.column(if n + 1 == columns.len() {
+            Column::remainder().at_least(width)
         } else {
-            Column::auto().at_least(*width)
+            Column::auto().at_least(width)
         });
     }
     builder
         .header(20.0, |mut h| {
-            for &title in &titles {
+            for &(title, _, column) in &columns {
                 h.col(|ui| {
-                    ui.strong(title);
+                    let Some(column) = column else {
+                        ui.strong(title);
+                        return;
+                    };
+                    let arrow = match state.sort() {
+                        Some(s) if s.column == column => {
+                            if s.descending {
+                                " (desc)"
+                            } else {
+                                " (asc)"
+                            }
+                        }
+                        _ => "",
+                    };
+                    let clicked = ui
+                        .add(
+                            egui::Button::new(
+                                egui::RichText::new(format!("{title}{arrow}")).strong(),
+                            )
+                            .frame(false),
+                        )
+                        .on_hover_text(
+                            "sort by this column (again: the other way; a third time: by rank)",
+                        )
+                        .clicked();
+                    if clicked {
+                        out.push(Command::SortSuspects(next_sort(state.sort(), column)));
+                    }
                 });
             }
         })
         .body(|body| {
             // Only the rows in view are laid out, so a million rows scroll smoothly.
-            body.rows(18.0, state.visible().len(), |mut row| {
-                let position = state.visible()[row.index()] as usize;
+            body.rows(18.0, rows.len(), |mut row| {
+                let position = rows[row.index()] as usize;
                 let s = &r.ranked[position];
+                row.set_selected(view.selected_row == Some(s.row));
+                let verdict = state.verdicts().get(s.row).map_or(String::new(), |v| {
+                    if v.label == data.labels[s.row] {
+                        "keep".into()
+                    } else {
+                        format!("as {}", classes[v.label])
+                    }
+                });
                 let mut cells = vec![
                     (position + 1).to_string(),
                     s.row.to_string(),
@@ -222,98 +400,21 @@ fn table(ui: &mut egui::Ui, state: &AppState) {
                         .map_or(String::new(), |p| format!("{p:.4}")),
                     classes[s.second_choice].clone(),
                     format!("{:.4}", s.second_choice_prob),
+                    verdict,
                 ];
                 if let Some(sources) = sources {
                     let name = sources.names[sources.of_row[s.row] as usize].clone();
-                    cells.insert(SOURCE_COLUMN, name);
+                    cells.insert(3, name);
                 }
                 for text in cells {
                     row.col(|ui| {
-                        ui.label(text);
+                        // Not selectable, so a click on the text selects the row.
+                        ui.add(egui::Label::new(text).selectable(false));
                     });
+                }
+                if row.response().clicked() {
+                    view.selected_row = Some(s.row);
                 }
             });
         });
-}
-
-fn worklist_files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
-    ui.heading("Worklist");
-    ui.label("Export the filtered rows up to the budget (with the control share drawn at random and shuffled in, and the key beside the file); reviewers fill the review column with the correct class (or keep).");
-    if let Some(path) = path_row(
-        ui,
-        view,
-        Purpose::ExportWorklist,
-        "Export",
-        "worklist CSV to write",
-    ) {
-        out.push(Command::ExportWorklist(path));
-    }
-    ui.label("Read a reviewed worklist (checked like the command line's review):");
-    if let Some(path) = path_row(
-        ui,
-        view,
-        Purpose::ImportReview,
-        "Import",
-        "reviewed worklist CSV",
-    ) {
-        out.push(Command::ImportReview(path));
-    }
-    if let Some(r) = state.review() {
-        ui.label(format!(
-            "{}: {} confirm, {} change the label, {} left blank",
-            r.path
-                .file_name()
-                .map(|n| n.to_string_lossy().into_owned())
-                .unwrap_or_default(),
-            r.summary.confirmed,
-            r.summary.changed,
-            r.review.not_reviewed
-        ));
-        for line in review_findings(&r.summary) {
-            ui.label(line);
-        }
-        ui.label(
-            "Write a copy of the data with the reviewed labels in the trusted column, and load it:",
-        );
-        if let Some(path) = path_row(
-            ui,
-            view,
-            Purpose::SaveMerged,
-            "Write and load",
-            "merged data CSV to write",
-        ) {
-            out.push(Command::SaveMerged(path));
-        }
-    }
-}
-
-/// The review's measurements in words: precision of the listed rows, the error rate of
-/// the control rows and what it implies for the rows not listed, and any note.
-fn review_findings(s: &ReviewSummary) -> Vec<String> {
-    let rate = |what: &str, r: &SliceResult| {
-        format!(
-            "{what}: {} of {} wrong ({:.0} %, 90 % interval {:.0}–{:.0} %){}",
-            r.wrong.count,
-            r.wrong.of,
-            100.0 * r.wrong.value,
-            100.0 * r.wrong.low,
-            100.0 * r.wrong.high,
-            r.expected
-                .map_or(String::new(), |e| format!("; expected {:.0} %", 100.0 * e))
-        )
-    };
-    let mut lines = Vec::new();
-    if let Some(l) = &s.listed {
-        lines.push(rate("listed suspects", l));
-    }
-    if let Some(c) = &s.control {
-        lines.push(rate("control rows", c));
-    }
-    if let (Some((low, mid, high)), Some(n)) = (s.missed_errors, s.unlisted_rows) {
-        lines.push(format!(
-            "about {mid:.0} wrong labels left among the {n} rows not listed (90 % interval {low:.0}–{high:.0})"
-        ));
-    }
-    lines.extend(s.notes.iter().map(|n| format!("note: {n}")));
-    lines
 }

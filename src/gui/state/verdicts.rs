@@ -1,0 +1,479 @@
+//! Reviewing inside the app: verdicts (given, undone, redone), review rounds with their
+//! random control rows, the trusted labels the verdicts make (the estimate, the
+//! bootstrap and the ranking follow them), writing them as a reviewed worklist, and the
+//! suspects table's order.
+
+use rayon::slice::ParallelSliceMut;
+
+use super::*;
+use crate::data::origin::Origin;
+use crate::data::typical::typical_values;
+use crate::gui::verdict_book::RoundRow;
+use crate::io::check_not_input;
+use crate::io::review::{Key, KeyRow, Verdict};
+use crate::io::session::MatrixOrigin;
+use crate::io::worklist::{write_worklist_files, Extras, Item, Slice};
+use crate::noise::scores::RowScore;
+use crate::workflow::review::{summarise, with_verdicts};
+use crate::workflow::worklist::split_budget;
+
+/// A column the suspects table can be ordered by.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum SuspectColumn {
+    /// Rank (the score's order).
+    Rank,
+    /// Data row number.
+    Row,
+    /// Row id.
+    Id,
+    /// Label source.
+    Source,
+    /// Observed label.
+    Observed,
+    /// Suggested class.
+    Suggested,
+    /// Second choice.
+    SecondChoice,
+    /// Its probability.
+    SecondChoiceProb,
+    /// The verdict given in the app (rows with one first).
+    Verdict,
+}
+
+/// An order of the suspects table: a column, descending or not. Ties keep rank order.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub struct SuspectSort {
+    /// The column.
+    pub column: SuspectColumn,
+    /// Largest first.
+    pub descending: bool,
+}
+
+impl AppState {
+    /// Verdicts given in the app.
+    pub fn verdicts(&self) -> &VerdictBook {
+        &self.verdicts
+    }
+
+    /// The review round being worked through, if any.
+    pub fn round(&self) -> Option<&Round> {
+        self.round.as_ref()
+    }
+
+    /// What the verdicts measured so far (precision of the reviewed suspects, the error
+    /// rate of the control rows).
+    pub fn verdict_summary(&self) -> Option<&ReviewSummary> {
+        self.verdict_summary.as_ref()
+    }
+
+    /// Each class's typical feature values.
+    pub fn typical(&self) -> Option<&Arc<Typical>> {
+        self.typical.as_ref()
+    }
+
+    /// The suspects table's order, when not by rank.
+    pub fn sort(&self) -> Option<SuspectSort> {
+        self.sort
+    }
+
+    /// Positions in the ranking the suspects table shows, in the table's order (rank
+    /// order unless sorted by a column).
+    pub fn table_rows(&self) -> &[u32] {
+        if self.sort.is_some() {
+            &self.sorted
+        } else {
+            &self.visible
+        }
+    }
+
+    /// The table's trusted labels with the verdicts added (what the estimate reads).
+    pub(super) fn trusted_overlay(&self) -> Option<Arc<TrustedLabels>> {
+        self.trusted_overlay.clone()
+    }
+
+    pub(super) fn give_verdict(&mut self, row: usize, label: usize) {
+        let Some(data) = &self.data else { return };
+        if row >= data.rows() || label >= data.classes.len() {
+            return self.say(
+                Level::Error,
+                format!("no row {row} or class {label} to judge"),
+            );
+        }
+        if self.verdicts.give(row, label, self.round.as_ref()) {
+            self.verdicts_changed();
+        }
+    }
+
+    pub(super) fn undo_verdict(&mut self) {
+        if self.verdicts.undo().is_some() {
+            self.verdicts_changed();
+        }
+    }
+
+    pub(super) fn redo_verdict(&mut self) {
+        if self.verdicts.redo().is_some() {
+            self.verdicts_changed();
+        }
+    }
+
+    /// The verdicts changed: new trusted labels, a new summary, and a new estimate when
+    /// the matrices are the estimator's own (hand edits are never replaced unasked).
+    pub(super) fn verdicts_changed(&mut self) {
+        let Some(data) = self.data.clone() else {
+            return;
+        };
+        self.trusted_overlay = (!self.verdicts.is_empty())
+            .then(|| Arc::new(with_verdicts(&data, self.verdicts.verdicts())));
+        self.verdict_summary = self.summarise_verdicts(&data);
+        if self
+            .sort
+            .is_some_and(|s| s.column == SuspectColumn::Verdict)
+        {
+            self.refilter();
+        }
+        if self.follows_estimate() {
+            self.request_estimate();
+        }
+    }
+
+    /// True when the matrices shown are the estimator's output, untouched, so a new
+    /// estimate replaces nothing the user made.
+    pub fn follows_estimate(&self) -> bool {
+        let untouched = self
+            .editor
+            .as_ref()
+            .is_some_and(|e| e.origin() == MatrixOrigin::Estimated);
+        let sources_untouched = self
+            .sources
+            .as_ref()
+            .is_none_or(|s| s.edited_names().is_empty());
+        let estimated = self.estimate.as_ref().is_some_and(|e| e.method.is_some());
+        untouched && sources_untouched && estimated
+    }
+
+    /// Estimates now, or once the running estimate ends (at most one runs, so a quick
+    /// run of verdicts never piles up work).
+    pub(super) fn request_estimate(&mut self) {
+        if self.jobs.running(JobKind::Estimate).is_some() {
+            self.estimate_pending = true;
+        } else {
+            self.start_estimate();
+        }
+    }
+
+    /// The verdicts as a review with the round's key: the precision of the reviewed
+    /// suspects and, from the control rows, the error rate among the rows not listed.
+    fn summarise_verdicts(&self, data: &Dataset) -> Option<ReviewSummary> {
+        if self.verdicts.is_empty() {
+            return None;
+        }
+        let mut review = Review {
+            verdicts: self.verdicts.verdicts().to_vec(),
+            not_reviewed: 0,
+        };
+        let key = self.round.as_ref().map(|round| Key {
+            rows: round
+                .rows
+                .iter()
+                .map(|r| {
+                    let key = KeyRow {
+                        slice: r.slice,
+                        p_wrong: round.p_wrong(r),
+                    };
+                    (r.row, key)
+                })
+                .collect(),
+        });
+        let mut summary = summarise(data, &mut review, key.as_ref());
+        // Verdicts given outside a round have no key by nature; the general note about
+        // files without one would only confuse here.
+        summary.notes.retain(|n| !n.starts_with("no key"));
+        Some(summary)
+    }
+
+    /// A round from the worklist as it would be exported now: the budget's suspects
+    /// (by rank, through the filters) and its control share drawn at random from the
+    /// other rows, shuffled together with the seed.
+    pub(super) fn start_round(&mut self) {
+        let (Some(data), Some(ranking)) = (self.data.clone(), self.ranking.clone()) else {
+            return self.say(Level::Error, "rank the suspects first");
+        };
+        if !ranking.is_complete() {
+            return self.say(
+                Level::Error,
+                "the suspects are still being ranked; start the round in a moment",
+            );
+        }
+        let settings = &self.session.settings;
+        let (suspects, control) = split_budget(settings.budget, settings.control);
+        let listed: Vec<(RowScore, usize)> = self
+            .visible
+            .iter()
+            .take(suspects)
+            .map(|&i| (ranking.ranked[i as usize], i as usize + 1))
+            .collect();
+        let filter = self.filter();
+        let pick = review::Pick {
+            control,
+            seed: settings.seed,
+            filter: &filter,
+            of_row: self.of_row.as_deref(),
+        };
+        let items = review::ranked_with_control(&ranking, &data, &listed, &pick);
+        let rows = items
+            .iter()
+            .map(|item| RoundRow {
+                row: item.score.row,
+                slice: item.slice,
+                rank: item.rank,
+                score: item.score,
+            })
+            .collect::<Vec<_>>();
+        let (n, drawn) = (rows.len(), items.len() - listed.len());
+        self.round = Some(Round {
+            rows,
+            kind: ranking.kind,
+        });
+        self.verdict_summary = self.summarise_verdicts(&data);
+        self.say(
+            Level::Info,
+            format!(
+                "review round of {n} rows ({drawn} of them drawn at random to measure what the \
+                 list misses; which ones is not shown while reviewing)"
+            ),
+        );
+    }
+
+    /// Writes the verdicts as a reviewed worklist: the round's rows as they were ranked
+    /// when it started (blind, with its key beside it when it has control rows), or,
+    /// without a round, the judged rows by their current rank.
+    pub(super) fn export_verdicts(&mut self, path: PathBuf) {
+        let (Some(data), Some(ranking)) = (self.data.clone(), self.ranking.clone()) else {
+            return self.say(Level::Error, "there are no verdicts to write");
+        };
+        if self.verdicts.is_empty() || !ranking.is_complete() {
+            return self.say(
+                Level::Error,
+                "give a verdict first (and let the ranking finish)",
+            );
+        }
+        let items: Vec<Item> = match &self.round {
+            Some(round) => round
+                .rows
+                .iter()
+                .map(|r| Item {
+                    score: r.score,
+                    rank: r.rank,
+                    slice: r.slice,
+                })
+                .collect(),
+            None => {
+                let mut position = vec![0usize; ranking.ranked.len()];
+                for (i, s) in ranking.ranked.iter().enumerate() {
+                    position[s.row] = i;
+                }
+                self.verdicts
+                    .verdicts()
+                    .iter()
+                    .map(|v| Item {
+                        score: ranking.ranked[position[v.row]],
+                        rank: position[v.row] + 1,
+                        slice: Slice::Listed,
+                    })
+                    .collect()
+            }
+        };
+        let verdicts = self.verdicts.verdicts().to_vec();
+        let inputs = self.input_paths();
+        let kind = self.round.as_ref().map_or(ranking.kind, |r| r.kind);
+        let job = self.next_save();
+        self.spawn_on_data(job, move |_| {
+            let refs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
+            check_not_input(&path, &refs).map_err(fail)?;
+            let extras = Extras {
+                verdicts: &verdicts,
+                ..Extras::default()
+            };
+            let key = write_worklist_files(&path, &data, kind, &items, extras).map_err(fail)?;
+            let keyed = key.map_or(String::new(), |k| format!(" and its key {}", k.display()));
+            Ok(JobOutput::Saved(format!(
+                "wrote {} verdicts to {}{keyed}",
+                verdicts.len(),
+                path.display()
+            )))
+        });
+    }
+
+    /// A new table: no verdicts and no round (but those of a session being opened), and
+    /// the classes' typical values.
+    pub(super) fn reset_review(&mut self, data: &Dataset) {
+        self.verdicts = VerdictBook::default();
+        self.round = None;
+        self.trusted_overlay = None;
+        self.verdict_summary = None;
+        self.estimate_pending = false;
+        self.sort = None;
+        self.typical = Some(Arc::new(typical_values(data)));
+        if let Some((verdicts, round)) = self.pending_review.take() {
+            self.restore_review(data, &verdicts, &round);
+        }
+    }
+
+    /// The verdicts and the round as a session keeps them.
+    pub(super) fn review_for_session(&self) -> ReviewForSession {
+        let Some(data) = &self.data else {
+            return ReviewForSession::default();
+        };
+        let verdicts = self
+            .verdicts
+            .verdicts()
+            .iter()
+            .map(|v| SessionVerdict {
+                row: v.row,
+                id: data.id(v.row).into_owned(),
+                label: data.classes[v.label].clone(),
+                origin: v.origin.name().to_string(),
+            })
+            .collect();
+        let Some(round) = &self.round else {
+            return ReviewForSession {
+                verdicts,
+                ..ReviewForSession::default()
+            };
+        };
+        let rows = round.rows.iter().map(|r| SessionRoundRow {
+            row: r.row,
+            id: data.id(r.row).into_owned(),
+            slice: r.slice.name().to_string(),
+            rank: r.rank,
+            score: r.score.score,
+            suggested: data.classes[r.score.suggested].clone(),
+            second_choice: data.classes[r.score.second_choice].clone(),
+            second_choice_prob: r.score.second_choice_prob,
+        });
+        ReviewForSession {
+            verdicts,
+            round: rows.collect(),
+            round_score: Some(round.kind),
+        }
+    }
+
+    /// A session's verdicts and round for `data`: each row must exist with the same id
+    /// and each class by name; what does not fit is left out and said.
+    fn restore_review(
+        &mut self,
+        data: &Dataset,
+        verdicts: &[SessionVerdict],
+        round: &PendingRound,
+    ) {
+        let fits = |row: usize, id: &str| row < data.rows() && data.id(row) == id;
+        let class = |name: &str| data.classes.iter().position(|c| c == name);
+        let kept: Vec<Verdict> = verdicts
+            .iter()
+            .filter(|v| fits(v.row, &v.id))
+            .filter_map(|v| {
+                Some(Verdict {
+                    row: v.row,
+                    label: class(&v.label)?,
+                    line: 0,
+                    origin: Origin::parse(&v.origin)?,
+                })
+            })
+            .collect();
+        let rows: Vec<RoundRow> = round
+            .rows
+            .iter()
+            .filter(|r| fits(r.row, &r.id))
+            .filter_map(|r| {
+                Some(RoundRow {
+                    row: r.row,
+                    slice: Slice::parse(&r.slice)?,
+                    rank: r.rank,
+                    score: RowScore {
+                        row: r.row,
+                        score: r.score,
+                        suggested: class(&r.suggested)?,
+                        second_choice: class(&r.second_choice)?,
+                        second_choice_prob: r.second_choice_prob,
+                    },
+                })
+            })
+            .collect();
+        let dropped = verdicts.len() - kept.len() + round.rows.len() - rows.len();
+        if dropped > 0 {
+            self.say(
+                Level::Warning,
+                format!(
+                    "{dropped} of the session's verdicts or round rows do not match this \
+                     table's rows, ids or classes and were left out"
+                ),
+            );
+        }
+        self.verdicts = VerdictBook::with_verdicts(kept);
+        self.round = match (rows.is_empty(), round.kind) {
+            (false, Some(kind)) => Some(Round { rows, kind }),
+            _ => None,
+        };
+        self.trusted_overlay = (!self.verdicts.is_empty())
+            .then(|| Arc::new(with_verdicts(data, self.verdicts.verdicts())));
+        self.verdict_summary = self.summarise_verdicts(data);
+    }
+
+    /// Orders `visible` by the chosen column into `sorted` (stable, so ties keep rank
+    /// order); sorts on every core, since a million rows take a moment.
+    pub(super) fn sort_table(&mut self) {
+        self.sorted.clear();
+        let (Some(sort), Some(ranking), Some(data)) = (self.sort, &self.ranking, &self.data) else {
+            return;
+        };
+        let mut rows = self.visible.clone();
+        let ranked = &ranking.ranked;
+        let score = |p: &u32| &ranked[*p as usize];
+        let verdicts = &self.verdicts;
+        let of_row = self.of_row.as_deref();
+        let compare = |a: &u32, b: &u32| {
+            let (x, y) = (score(a), score(b));
+            match sort.column {
+                SuspectColumn::Rank => a.cmp(b),
+                SuspectColumn::Row => x.row.cmp(&y.row),
+                SuspectColumn::Id => data.id(x.row).cmp(&data.id(y.row)),
+                SuspectColumn::Source => {
+                    let source = |r: usize| of_row.map_or(0, |o| o[r]);
+                    source(x.row).cmp(&source(y.row))
+                }
+                SuspectColumn::Observed => data.labels[x.row].cmp(&data.labels[y.row]),
+                SuspectColumn::Suggested => x.suggested.cmp(&y.suggested),
+                SuspectColumn::SecondChoice => x.second_choice.cmp(&y.second_choice),
+                SuspectColumn::SecondChoiceProb => {
+                    x.second_choice_prob.total_cmp(&y.second_choice_prob)
+                }
+                SuspectColumn::Verdict => {
+                    // Judged rows first (by the class given), then the others.
+                    let label = |r: usize| verdicts.get(r).map_or(usize::MAX, |v| v.label);
+                    label(x.row).cmp(&label(y.row))
+                }
+            }
+        };
+        if sort.descending {
+            rows.par_sort_by(|a, b| compare(b, a).then(a.cmp(b)));
+        } else {
+            rows.par_sort_by(compare);
+        }
+        self.sorted = rows;
+    }
+}
+
+/// The verdicts and the round as a session file keeps them.
+#[derive(Debug, Default)]
+pub(super) struct ReviewForSession {
+    pub(super) verdicts: Vec<SessionVerdict>,
+    pub(super) round: Vec<SessionRoundRow>,
+    pub(super) round_score: Option<crate::noise::scores::ScoreKind>,
+}
+
+/// A session's round, waiting for its table.
+#[derive(Debug, Clone, Default)]
+pub(super) struct PendingRound {
+    pub(super) rows: Vec<SessionRoundRow>,
+    pub(super) kind: Option<crate::noise::scores::ScoreKind>,
+}

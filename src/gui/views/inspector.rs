@@ -1,0 +1,395 @@
+//! The row inspector: why a row is suspect (its scores, the model's probabilities, its
+//! features beside the typical values of two classes, its label source) and the
+//! verdict buttons, with keyboard shortcuts so a reviewer goes through hundreds of rows
+//! without the mouse. During a review round flipmend's opinion (rank, score, suggested
+//! class, probabilities) is hidden, so listed suspects and random control rows are
+//! judged alike.
+
+use eframe::egui;
+use egui_plot::{Bar, BarChart, Legend, Plot};
+
+use crate::gui::app::UiState;
+use crate::gui::command::Command;
+use crate::gui::state::AppState;
+use crate::noise::scores::RowScore;
+
+/// Classes reachable by a digit key (1–9).
+const DIGIT_CLASSES: usize = 9;
+
+/// Draws the inspector of `view.selected_row`, and reads the review keys.
+pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    let Some(data) = state.data() else { return };
+    keys(ui, state, view, out);
+    let Some(row) = view.selected_row.filter(|&r| r < data.rows()) else {
+        ui.heading("Row inspector");
+        ui.label("Click a row of the table (or start a review round) to see why it is suspect and give a verdict.");
+        shortcuts_help(ui);
+        return;
+    };
+    let blind = state.round().is_some_and(|r| r.slice_of(row).is_some());
+    let score = row_score(state, row);
+    header(ui, state, row, blind, score.as_ref());
+    verdict_buttons(ui, state, view, row, out);
+    ui.separator();
+    if blind {
+        ui.weak("Review round: flipmend's scores, suggestion and probabilities are hidden so that every row of the round is judged alike.");
+    } else {
+        probabilities(ui, state, row);
+    }
+    features(ui, state, view, row, score.filter(|_| !blind));
+    shortcuts_help(ui);
+}
+
+/// The row's entry in the ranking.
+fn row_score(state: &AppState, row: usize) -> Option<RowScore> {
+    let ranking = state.ranking()?;
+    ranking.ranked.iter().find(|s| s.row == row).copied()
+}
+
+fn header(ui: &mut egui::Ui, state: &AppState, row: usize, blind: bool, score: Option<&RowScore>) {
+    let Some(data) = state.data() else { return };
+    ui.heading(format!("Row {row} · id {}", data.id(row)));
+    ui.horizontal_wrapped(|ui| {
+        ui.label(format!("observed: {}", data.classes[data.labels[row]]));
+        if let Some(sources) = &data.sources {
+            ui.label(format!(
+                "· label source: {}",
+                sources.names[sources.of_row[row] as usize]
+            ));
+        }
+        if let Some(t) = data.trusted.as_ref().and_then(|t| t[row]) {
+            ui.label(format!(
+                "· trusted ({}): {}",
+                data.origin(row).name(),
+                data.classes[t]
+            ));
+        }
+    });
+    if blind {
+        if let Some(round) = state.round() {
+            let done = round
+                .rows
+                .iter()
+                .filter(|r| state.verdicts().get(r.row).is_some())
+                .count();
+            ui.label(format!(
+                "review round: {done} of {} rows judged",
+                round.rows.len()
+            ));
+        }
+        return;
+    }
+    let (Some(s), Some(ranking)) = (score, state.ranking()) else {
+        return;
+    };
+    let rank = ranking
+        .ranked
+        .iter()
+        .position(|x| x.row == row)
+        .map_or(0, |p| p + 1);
+    let p_wrong = ranking
+        .kind
+        .probability(s.score)
+        .map_or(String::new(), |p| {
+            format!(" · P(label wrong) {:.1} %", 100.0 * p)
+        });
+    ui.label(format!(
+        "rank {rank} of {} · suggested: {} · score {:.2}{p_wrong}",
+        ranking.rows,
+        data.classes[s.suggested],
+        ranking.kind.written(s.score)
+    ));
+}
+
+fn verdict_buttons(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    view: &mut UiState,
+    row: usize,
+    out: &mut Vec<Command>,
+) {
+    let Some(data) = state.data() else { return };
+    let observed = data.labels[row];
+    let given = state.verdicts().get(row).map(|v| v.label);
+    match given {
+        Some(l) if l == observed => ui.strong("verdict: keep the label"),
+        Some(l) => ui.strong(format!("verdict: relabel as {}", data.classes[l])),
+        None => ui.label("no verdict yet"),
+    };
+    ui.horizontal_wrapped(|ui| {
+        if ui
+            .button("Keep (K)")
+            .on_hover_text("the observed label is right")
+            .clicked()
+        {
+            judge(state, view, row, observed, out);
+        }
+        if ui
+            .button("Skip (S)")
+            .on_hover_text("no verdict; next row")
+            .clicked()
+        {
+            move_selection(state, view, 1, true);
+        }
+        if ui
+            .add_enabled(state.verdicts().can_undo(), egui::Button::new("Undo (U)"))
+            .clicked()
+        {
+            out.push(Command::UndoVerdict);
+        }
+    });
+    ui.horizontal_wrapped(|ui| {
+        ui.label("relabel as:");
+        for (c, name) in data.classes.iter().enumerate() {
+            let text = if c < DIGIT_CLASSES {
+                format!("{} {name}", c + 1)
+            } else {
+                name.clone()
+            };
+            let chosen = given == Some(c);
+            if ui
+                .add_enabled(c != observed, egui::Button::new(text).selected(chosen))
+                .clicked()
+            {
+                judge(state, view, row, c, out);
+            }
+        }
+    });
+}
+
+/// Gives the verdict and moves on to the next row still to judge.
+fn judge(state: &AppState, view: &mut UiState, row: usize, label: usize, out: &mut Vec<Command>) {
+    out.push(Command::Verdict { row, label });
+    move_selection(state, view, 1, true);
+}
+
+/// The rows the arrows move through: the round's, in review order, else the table's.
+fn sequence(state: &AppState) -> Vec<usize> {
+    if let Some(round) = state.round() {
+        return round.rows.iter().map(|r| r.row).collect();
+    }
+    let Some(ranking) = state.ranking() else {
+        return Vec::new();
+    };
+    state
+        .table_rows()
+        .iter()
+        .map(|&p| ranking.ranked[p as usize].row)
+        .collect()
+}
+
+/// Selects the row `step` places on (negative: back) from the selected one; with
+/// `unjudged`, skips rows that already have a verdict (in a round).
+pub fn move_selection(state: &AppState, view: &mut UiState, step: isize, unjudged: bool) {
+    let rows = sequence(state);
+    if rows.is_empty() {
+        return;
+    }
+    let at = view
+        .selected_row
+        .and_then(|r| rows.iter().position(|&x| x == r));
+    let skip_judged = unjudged && state.round().is_some();
+    let mut i = at.map_or(0, |i| i as isize + step);
+    while (0..rows.len() as isize).contains(&i) {
+        let row = rows[i as usize];
+        if !(skip_judged && state.verdicts().get(row).is_some() && Some(row) != view.selected_row) {
+            view.selected_row = Some(row);
+            view.scroll_to_selected = true;
+            return;
+        }
+        i += step.signum();
+    }
+}
+
+/// The review keys, when no text field has the keyboard: digits relabel, K keeps,
+/// Enter takes the suggestion, S skips, the arrows move, U undoes and R redoes.
+fn keys(ui: &egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    if ui.ctx().egui_wants_keyboard_input() {
+        return;
+    }
+    let Some(data) = state.data() else { return };
+    let pressed = |k: egui::Key| ui.input(|i| i.key_pressed(k) && i.modifiers.is_none());
+    if pressed(egui::Key::ArrowDown) {
+        move_selection(state, view, 1, false);
+    }
+    if pressed(egui::Key::ArrowUp) {
+        move_selection(state, view, -1, false);
+    }
+    if pressed(egui::Key::U) {
+        out.push(Command::UndoVerdict);
+    }
+    if pressed(egui::Key::R) {
+        out.push(Command::RedoVerdict);
+    }
+    let Some(row) = view.selected_row.filter(|&r| r < data.rows()) else {
+        return;
+    };
+    if pressed(egui::Key::S) {
+        move_selection(state, view, 1, true);
+    }
+    if pressed(egui::Key::K) {
+        judge(state, view, row, data.labels[row], out);
+    }
+    let blind = state.round().is_some_and(|r| r.slice_of(row).is_some());
+    if pressed(egui::Key::Enter) && !blind {
+        if let Some(s) = row_score(state, row) {
+            judge(state, view, row, s.suggested, out);
+        }
+    }
+    for (c, key) in DIGITS.iter().enumerate().take(data.classes.len()) {
+        if pressed(*key) && c != data.labels[row] {
+            judge(state, view, row, c, out);
+        }
+    }
+}
+
+const DIGITS: [egui::Key; DIGIT_CLASSES] = [
+    egui::Key::Num1,
+    egui::Key::Num2,
+    egui::Key::Num3,
+    egui::Key::Num4,
+    egui::Key::Num5,
+    egui::Key::Num6,
+    egui::Key::Num7,
+    egui::Key::Num8,
+    egui::Key::Num9,
+];
+
+fn shortcuts_help(ui: &mut egui::Ui) {
+    ui.weak("Keys: arrow up/down move · K keep · 1–9 relabel as that class · Enter take the suggestion · S skip · U undo · R redo");
+}
+
+/// The model's probabilities of every class for the row, and the clean posterior when
+/// the estimate fitted one.
+fn probabilities(ui: &mut egui::Ui, state: &AppState, row: usize) {
+    let (Some(data), Some(probs)) = (state.data(), state.probs()) else {
+        return;
+    };
+    let k = data.classes.len();
+    let clean = state.estimate().and_then(|e| e.clean.clone());
+    let bars = |values: Vec<f64>, offset: f64| -> Vec<Bar> {
+        values
+            .into_iter()
+            .enumerate()
+            .map(|(c, v)| {
+                Bar::new(c as f64 + offset, v)
+                    .width(0.38)
+                    .name(&data.classes[c])
+            })
+            .collect()
+    };
+    let noisy: Vec<f64> = (0..k).map(|c| f64::from(probs.values[[row, c]])).collect();
+    ui.label("class probabilities of this row");
+    let classes = data.classes.clone();
+    Plot::new(("inspector-probs", row))
+        .height(140.0)
+        .allow_scroll(false)
+        .allow_drag(false)
+        .allow_zoom(false)
+        .include_y(0.0)
+        .include_y(1.0)
+        .legend(Legend::default())
+        .x_axis_formatter(move |mark, _| {
+            let c = mark.value.round();
+            if (mark.value - c).abs() < 1e-6 && c >= 0.0 {
+                classes.get(c as usize).cloned().unwrap_or_default()
+            } else {
+                String::new()
+            }
+        })
+        .show(ui, |p| {
+            p.bar_chart(BarChart::new("model (observed label)", bars(noisy, -0.2)));
+            if let Some(clean) = clean.filter(|c| c.nrows() > row) {
+                let values = (0..k).map(|c| f64::from(clean[[row, c]])).collect();
+                p.bar_chart(BarChart::new("clean class (estimate)", bars(values, 0.2)));
+            }
+        });
+}
+
+/// The row's feature values beside the typical values of its observed class and of a
+/// class to compare with (the suggested one unless the reviewer picks another).
+fn features(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    view: &mut UiState,
+    row: usize,
+    score: Option<RowScore>,
+) {
+    let (Some(data), Some(typical)) = (state.data(), state.typical()) else {
+        return;
+    };
+    let observed = data.labels[row];
+    let other = view
+        .compare_class
+        .or(score.map(|s| s.suggested))
+        .filter(|&c| c < data.classes.len());
+    ui.horizontal(|ui| {
+        ui.label("compare with");
+        egui::ComboBox::from_id_salt("inspector-compare")
+            .selected_text(other.map_or("choose a class", |c| data.classes[c].as_str()))
+            .show_ui(ui, |ui| {
+                for (c, name) in data.classes.iter().enumerate() {
+                    if ui.selectable_label(other == Some(c), name).clicked() {
+                        view.compare_class = Some(c);
+                    }
+                }
+            });
+    });
+    let from = |c: usize| match typical.from[c] {
+        crate::data::typical::TypicalFrom::Trusted => "trusted rows",
+        crate::data::typical::TypicalFrom::Observed => "observed rows",
+        crate::data::typical::TypicalFrom::Nothing => "no rows",
+    };
+    ui.weak(format!(
+        "typical = median of the class's {} ({} rows){}",
+        from(observed),
+        typical.rows[observed],
+        other.map_or(String::new(), |c| format!(
+            "; {}: its {} ({} rows)",
+            data.classes[c],
+            from(c),
+            typical.rows[c]
+        ))
+    ));
+    egui::Grid::new("inspector-features")
+        .striped(true)
+        .num_columns(4)
+        .show(ui, |ui| {
+            ui.strong("feature");
+            ui.strong("this row");
+            ui.strong(&data.classes[observed]);
+            ui.strong(other.map_or("", |c| data.classes[c].as_str()));
+            ui.end_row();
+            for (j, name) in data.feature_names.iter().enumerate() {
+                let x = data.features[[row, j]];
+                let a = typical.medians[[observed, j]];
+                let b = other.map(|c| typical.medians[[c, j]]);
+                ui.label(name);
+                // The typical value the row is nearer to is marked.
+                let nearer_b = b.is_some_and(|b| (x - b).abs() < (x - a).abs());
+                ui.label(format!("{x:.3}"));
+                mark(ui, a, !nearer_b);
+                match b {
+                    Some(b) => mark(ui, b, nearer_b),
+                    None => {
+                        ui.label("");
+                    }
+                }
+                ui.end_row();
+            }
+        });
+}
+
+/// A typical value, strong when the row's value is nearer to it.
+fn mark(ui: &mut egui::Ui, value: f64, nearer: bool) {
+    let text = if value.is_finite() {
+        format!("{value:.3}")
+    } else {
+        "–".into()
+    };
+    if nearer {
+        ui.strong(text);
+    } else {
+        ui.weak(text);
+    }
+}
