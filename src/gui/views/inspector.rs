@@ -6,7 +6,6 @@
 //! judged alike.
 
 use eframe::egui;
-use egui_plot::{Bar, BarChart, Legend, Plot};
 
 use crate::gui::app::UiState;
 use crate::gui::command::Command;
@@ -260,48 +259,50 @@ fn shortcuts_help(ui: &mut egui::Ui) {
 }
 
 /// The model's probabilities of every class for the row, and the clean posterior when
-/// the estimate fitted one.
+/// the estimate fitted one, as bars: one line per class, so every class name is read
+/// in full whatever the number of classes.
 fn probabilities(ui: &mut egui::Ui, state: &AppState, row: usize) {
     let (Some(data), Some(probs)) = (state.data(), state.probs()) else {
         return;
     };
-    let k = data.classes.len();
-    let clean = state.estimate().and_then(|e| e.clean.clone());
-    let bars = |values: Vec<f64>, offset: f64| -> Vec<Bar> {
-        values
-            .into_iter()
-            .enumerate()
-            .map(|(c, v)| {
-                Bar::new(c as f64 + offset, v)
-                    .width(0.38)
-                    .name(&data.classes[c])
-            })
-            .collect()
+    let clean = state
+        .estimate()
+        .and_then(|e| e.clean.clone())
+        .filter(|c| c.nrows() > row);
+    let bar = |ui: &mut egui::Ui, p: f64| {
+        let p = if p.is_finite() {
+            p.clamp(0.0, 1.0)
+        } else {
+            0.0
+        };
+        ui.add(
+            egui::ProgressBar::new(p as f32)
+                .desired_width(110.0)
+                .text(format!("{:.1} %", 100.0 * p)),
+        );
     };
-    let noisy: Vec<f64> = (0..k).map(|c| f64::from(probs.values[[row, c]])).collect();
-    ui.label("class probabilities of this row");
-    let classes = data.classes.clone();
-    Plot::new(("inspector-probs", row))
-        .height(140.0)
-        .allow_scroll(false)
-        .allow_drag(false)
-        .allow_zoom(false)
-        .include_y(0.0)
-        .include_y(1.0)
-        .legend(Legend::default())
-        .x_axis_formatter(move |mark, _| {
-            let c = mark.value.round();
-            if (mark.value - c).abs() < 1e-6 && c >= 0.0 {
-                classes.get(c as usize).cloned().unwrap_or_default()
-            } else {
-                String::new()
+    egui::Grid::new("inspector-probs")
+        .num_columns(3)
+        .show(ui, |ui| {
+            ui.strong("class");
+            ui.strong("model (observed label)")
+                .on_hover_text("the out-of-sample probability of each observed label");
+            if clean.is_some() {
+                ui.strong("true class (estimate)")
+                    .on_hover_text("the joint fit's probability that the row truly is each class");
             }
-        })
-        .show(ui, |p| {
-            p.bar_chart(BarChart::new("model (observed label)", bars(noisy, -0.2)));
-            if let Some(clean) = clean.filter(|c| c.nrows() > row) {
-                let values = (0..k).map(|c| f64::from(clean[[row, c]])).collect();
-                p.bar_chart(BarChart::new("clean class (estimate)", bars(values, 0.2)));
+            ui.end_row();
+            for (c, name) in data.classes.iter().enumerate() {
+                if c == data.labels[row] {
+                    ui.strong(name);
+                } else {
+                    ui.label(name);
+                }
+                bar(ui, f64::from(probs.values[[row, c]]));
+                if let Some(clean) = &clean {
+                    bar(ui, f64::from(clean[[row, c]]));
+                }
+                ui.end_row();
             }
         });
 }
