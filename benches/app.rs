@@ -73,7 +73,53 @@ fn main() {
         "app: cell edit to the whole ranking in order (15 edits)  median {:.1} ms",
         ms(complete[complete.len() / 2])
     );
+    review_steps(&mut state);
     println!("app: peak memory (VmHWM) {} MiB", peak_mib());
+}
+
+/// What a reviewer waits for on the UI thread: sorting the suspects table by a column,
+/// giving a verdict (the trusted labels rebuilt; the new estimate runs in the
+/// background), and each class's typical values (computed at load).
+fn review_steps(state: &mut AppState) {
+    use flipmend::gui::state::{SuspectColumn, SuspectSort};
+    for column in [SuspectColumn::Id, SuspectColumn::SecondChoiceProb] {
+        let started = Instant::now();
+        state.apply(Command::SortSuspects(Some(SuspectSort {
+            column,
+            descending: false,
+        })));
+        println!(
+            "app: sort the 1000000-row suspects table by {column:?}: {:.1} ms",
+            ms(started.elapsed())
+        );
+    }
+    state.apply(Command::SortSuspects(None));
+    let mut verdicts: Vec<Duration> = Vec::new();
+    for row in 0..15 {
+        let started = Instant::now();
+        state.apply(Command::Verdict { row, label: 0 });
+        verdicts.push(started.elapsed());
+    }
+    verdicts.sort();
+    println!(
+        "app: a verdict on the UI thread (15 verdicts)  median {:.1} ms  max {:.1} ms",
+        ms(verdicts[verdicts.len() / 2]),
+        ms(verdicts[verdicts.len() - 1])
+    );
+    let started = Instant::now();
+    state.settle(600.0);
+    println!(
+        "app: the estimate and ranking with the verdicts, in the background: {:.2} s",
+        started.elapsed().as_secs_f64()
+    );
+    let data = state.data().expect("data").clone();
+    let started = Instant::now();
+    let typical = flipmend::data::typical::typical_values(&data);
+    println!(
+        "app: typical values of {} classes (at load): {:.1} ms",
+        typical.rows.len(),
+        ms(started.elapsed())
+    );
 }
 
 fn ms(d: Duration) -> f64 {
