@@ -3,9 +3,11 @@
 
 mod about;
 mod annotators;
+mod colour;
 mod data;
 mod heatmaps;
 mod matrix;
+mod matrix_grid;
 mod matrix_side;
 mod retrain;
 mod sources;
