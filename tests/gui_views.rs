@@ -1,4 +1,4 @@
-//! The Flip matrix heatmap driven headless with egui_kittest: real
+//! The Flip matrix heatmap and the Compare view driven headless with egui_kittest: real
 //! clicks on labelled widgets, then assertions on the app state (the harness helpers are
 //! copied from `tests/gui.rs`).
 #![cfg(feature = "gui")]
@@ -110,4 +110,35 @@ fn a_stations_flip_opens_the_suspects_of_that_station() {
         (Some("paper".into()), Some("cardboard".into()))
     );
     assert_eq!(state(&h).source_filter(), Some(s4 as u32));
+}
+
+#[test]
+fn the_compare_view_lists_the_changed_rows_and_a_click_opens_one() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""), Roles::default());
+    h.get_by_label("Compare").click();
+    h.run_steps(2);
+    h.get_by_label("Train and compare").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let c = state(&h).retrained().expect("trained").comparison.clone();
+    // The first correction (forward) is set against none until another is picked.
+    let changed: Vec<usize> = (0..c.holdout.len())
+        .filter(|&i| c.predictions[0][i] != c.predictions[1][i])
+        .map(|i| c.holdout[i])
+        .collect();
+    assert!(!changed.is_empty(), "forward changed some predictions");
+    let shown = format!(
+        "holdout rows whose prediction changed from none to forward: {} (click a row to \
+         inspect it)",
+        changed.len()
+    );
+    h.get_by_label(&shown).scroll_to_me();
+    h.run_steps(3);
+    let row = changed[0];
+    assert_eq!(h.state().ui.selected_row, None);
+    h.get_by_label(&format!("row {row}")).click();
+    h.run_steps(2);
+    assert_eq!(h.state().ui.selected_row, Some(row));
+    assert_eq!(h.state().ui.view(), View::Suspects);
 }

@@ -4,6 +4,7 @@
 mod about;
 mod annotators;
 mod colour;
+mod compare_charts;
 mod data;
 mod heatmaps;
 mod matrix;
