@@ -179,7 +179,7 @@ pub fn legend_vertical(ui: &mut egui::Ui, scale: FlipScale, what: &str, height: 
             );
         }
         ui.add_space(6.0);
-        diagonal_swatch(ui, dark);
+        diagonal_swatch(ui, dark, "diagonal");
     });
 }
 
@@ -209,7 +209,7 @@ pub fn legend_horizontal(ui: &mut egui::Ui, scale: FlipScale, what: &str) {
             );
         }
         ui.separator();
-        diagonal_swatch(ui, dark);
+        diagonal_swatch(ui, dark, "diagonal: grey, 0–100 %");
     });
 }
 
@@ -252,11 +252,16 @@ fn gradient(ui: &egui::Ui, bar: egui::Rect, dark: bool, across: bool) {
         .rect_stroke(bar, 0.0, frame, egui::StrokeKind::Outside);
 }
 
-fn diagonal_swatch(ui: &mut egui::Ui, dark: bool) {
+/// A grey swatch for the diagonal, which has its own scale (0–100 %, lighter or darker
+/// as more labels are kept).
+fn diagonal_swatch(ui: &mut egui::Ui, dark: bool, text: &str) {
     ui.horizontal(|ui| {
         let (swatch, _) = ui.allocate_exact_size(egui::vec2(14.0, 14.0), egui::Sense::hover());
         ui.painter().rect_filled(swatch, 0.0, diagonal(0.6, dark));
-        ui.weak("diagonal: grey, 0–100 %");
+        ui.weak(text).on_hover_text(
+            "the diagonal (labels kept) is grey on its own 0–100 % scale, so that it does \
+             not wash out the flips beside it",
+        );
     });
 }
 

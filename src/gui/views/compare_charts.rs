@@ -37,12 +37,12 @@ pub fn accuracies(ui: &mut egui::Ui, c: &Comparison) {
     let models = &c.report.models;
     ui.label("accuracy with its 90 % interval (axis zoomed to the figures)");
     Plot::new("compare-accuracy")
-        .height(40.0 + 34.0 * models.len() as f32)
+        .height(36.0 + 30.0 * models.len() as f32)
         .legend(Legend::default())
         .allow_scroll(false)
         .allow_zoom(false)
         .allow_drag(false)
-        .x_axis_formatter(|mark, _| format!("{:.1} %", 100.0 * mark.value))
+        .custom_x_axes(vec![short_ticks(percent_mark)])
         .y_axis_formatter(model_axis(models))
         .y_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
         .label_formatter(|pos| hovered(pos, |x| format!("{:.2} %", 100.0 * x)))
@@ -71,19 +71,21 @@ pub fn gains(ui: &mut egui::Ui, c: &Comparison) {
         return;
     }
     ui.label("gain over none in accuracy points, with its 90 % interval (right of 0: better)");
-    let zero = ui.visuals().weak_text_color();
+    let zero = ui.visuals().strong_text_color();
     Plot::new("compare-gain")
-        .height(40.0 + 30.0 * models.len() as f32)
+        .height(36.0 + 30.0 * models.len() as f32)
         .include_x(0.0)
         .allow_scroll(false)
         .allow_zoom(false)
         .allow_drag(false)
-        .x_axis_formatter(|mark, _| format!("{:+.1}", 100.0 * mark.value))
+        .custom_x_axes(vec![short_ticks(|mark| {
+            format!("{:+.1}", 100.0 * mark.value)
+        })])
         .y_axis_formatter(model_axis(models))
         .y_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
         .label_formatter(|pos| hovered(pos, |x| format!("{:+.2} points", 100.0 * x)))
         .show(ui, |p| {
-            p.vline(VLine::new("no gain", 0.0).color(zero).width(1.5));
+            p.vline(VLine::new("no gain", 0.0).color(zero).width(2.0));
             let colour = egui::Color32::from_rgb(70, 170, 110);
             let points = figures.iter().map(|&(i, (g, iv))| (i, (Some(g), Some(iv))));
             dots(p, "gain over none", colour, 0.0, points);
@@ -117,6 +119,23 @@ fn dots(
             .filled(true);
         p.points(points);
     }
+}
+
+/// An x axis whose short tick labels may sit closer than egui_plot's default 60 points,
+/// so that a zoomed axis a few points wide still names its whole points.
+fn short_ticks<'a>(
+    format: impl Fn(egui_plot::GridMark) -> String + 'a,
+) -> egui_plot::AxisHints<'a> {
+    egui_plot::AxisHints::new_x()
+        .formatter(move |mark, _| format(mark))
+        .label_spacing(34.0..=50.0)
+}
+
+/// An accuracy tick as a short percentage (whole points when the ticks are a point or
+/// more apart), so that the labels fit between the ticks of a zoomed axis.
+fn percent_mark(mark: egui_plot::GridMark) -> String {
+    let decimals = if mark.step_size >= 0.00999 { 0 } else { 1 };
+    format!("{:.*}%", decimals, 100.0 * mark.value)
 }
 
 /// Names the model lines (model `i` sits at y = −i, so `none` is on top).
@@ -217,9 +236,9 @@ fn confusion_grid(
 ) {
     let dark = ui.visuals().dark_mode;
     let k = classes.len();
-    let side = if k > 12 { 26.0 } else { 40.0 };
+    let side = cell_width(ui, classes);
     egui::Grid::new(("confusion-grid", model.correction))
-        .spacing([1.0, 1.0])
+        .spacing([2.0, 2.0])
         .show(ui, |ui| {
             ui.label("");
             for name in classes {
@@ -249,6 +268,25 @@ fn confusion_grid(
                 ui.end_row();
             }
         });
+}
+
+/// Cells as wide as the widest class name (so the columns under the names line up), at
+/// least 40 points and at most 90; 26 with many classes, whose names then overflow.
+fn cell_width(ui: &egui::Ui, classes: &[String]) -> f32 {
+    if classes.len() > 12 {
+        return 26.0;
+    }
+    let font = egui::TextStyle::Body.resolve(ui.style());
+    let widest = classes
+        .iter()
+        .map(|c| {
+            let galley = ui
+                .painter()
+                .layout_no_wrap(c.clone(), font.clone(), egui::Color32::WHITE);
+            galley.size().x
+        })
+        .fold(0.0, f32::max);
+    (widest + 4.0).clamp(40.0, 90.0)
 }
 
 fn name(classes: &[String], i: usize) -> &str {

@@ -257,12 +257,12 @@ fn hover(ui: &mut egui::Ui, g: &Grid<'_>, (i, j): (usize, usize)) {
         m[[i, j]]
     ));
     ui.label(format!("estimate: {:.4}", g.editor.reference()[[i, j]]));
-    match g.intervals {
-        Some(iv) => ui.label(format!(
-            "bootstrap 5–95 %: {:.4} – {:.4}",
-            iv.low[[i, j]],
-            iv.high[[i, j]]
-        )),
+    // An interval of another shape (computed before the classes changed) is not shown.
+    let interval = g
+        .intervals
+        .and_then(|iv| Some((iv.low.get((i, j))?, iv.high.get((i, j))?)));
+    match interval {
+        Some((low, high)) => ui.label(format!("bootstrap 5–95 %: {low:.4} – {high:.4}")),
         None => ui.weak("no bootstrap interval yet (Bootstrap intervals, above)"),
     };
     for line in counts(g, (i, j)) {

@@ -38,8 +38,10 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
     let c = &r.comparison;
     egui::ScrollArea::vertical().show(ui, |ui| {
         results(ui, c);
-        compare_charts::accuracies(ui, c);
-        compare_charts::gains(ui, c);
+        ui.columns(2, |cols| {
+            compare_charts::accuracies(&mut cols[0], c);
+            compare_charts::gains(&mut cols[1], c);
+        });
         ui.separator();
         let chosen = view.chosen_model(c.models.len());
         ui.horizontal(|ui| {
