@@ -1,22 +1,18 @@
-//! The Flip matrix view: the estimate as an editable heatmap (rows = true class), the
-//! overall matrix or one label source's, the estimator controls, and what the matrix
-//! implies (`matrix_side`).
+//! The Flip matrix view: the estimate as an editable heatmap (rows = true class,
+//! `matrix_grid`), the overall matrix or one label source's, the estimator controls, and
+//! what the matrix implies (`matrix_side`).
 
 use eframe::egui;
 
-use super::matrix_side;
-use super::widgets::{heat, path_row, plain};
+use super::widgets::{path_row, plain};
+use super::{matrix_grid, matrix_side};
 use crate::gui::app::UiState;
 use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
 use crate::gui::matrix_edit::MatrixEditor;
 use crate::gui::source_edit::MatrixTarget;
 use crate::gui::state::AppState;
-use crate::noise::bootstrap::Interval;
 use crate::noise::{Estimator, TrustedFallback};
-
-/// Above this many classes the grid scrolls and the largest flips are listed beside it.
-pub const MANY_CLASSES: usize = 12;
 
 /// Draws the view.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
@@ -40,7 +36,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
         .default_size(340.0)
         .show(ui, |ui| matrix_side::show(ui, state, overall));
     egui::CentralPanel::default().show(ui, |ui| {
-        grid(ui, state, &data.classes, editor, out);
+        matrix_grid::show(ui, state, data, editor, view, out);
         ui.separator();
         files(ui, state, view, out);
     });
@@ -84,14 +80,6 @@ fn matrix_picker(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
         ui.weak(rule);
     } else {
         ui.colored_label(ui.visuals().warn_fg_color, rule);
-    }
-}
-
-/// The bootstrap intervals of the matrix shown, once computed.
-fn shown_intervals(state: &AppState) -> Option<&Interval> {
-    match state.shown_matrix() {
-        MatrixTarget::Overall => state.intervals(),
-        MatrixTarget::Source(s) => state.source_intervals()?.matrices.get(s),
     }
 }
 
@@ -190,153 +178,8 @@ fn edit_controls(
         {
             out.push(Command::Settings(s));
         }
-        ui.label("· type a value or drag a cell; the rest of its row rescales to sum to 1");
+        ui.label(format!("· {}", matrix_grid::HINT));
     });
-}
-
-fn grid(
-    ui: &mut egui::Ui,
-    state: &AppState,
-    classes: &[String],
-    editor: &MatrixEditor,
-    out: &mut Vec<Command>,
-) {
-    let k = classes.len();
-    let dark = ui.visuals().dark_mode;
-    let changed_stroke = egui::Stroke::new(2.0, egui::Color32::from_rgb(255, 150, 40));
-    let height = if k > MANY_CLASSES {
-        420.0
-    } else {
-        f32::INFINITY
-    };
-    egui::ScrollArea::both()
-        .max_height(height)
-        .id_salt("matrix-grid")
-        .show(ui, |ui| {
-            egui::Grid::new("matrix")
-                .spacing([2.0, 2.0])
-                .show(ui, |ui| {
-                    ui.label("true \\ observed");
-                    for c in classes {
-                        ui.strong(c);
-                    }
-                    ui.strong("row sum");
-                    ui.end_row();
-                    for i in 0..k {
-                        ui.strong(&classes[i]);
-                        for j in 0..k {
-                            cell(
-                                ui,
-                                state,
-                                editor,
-                                classes,
-                                (i, j),
-                                dark,
-                                changed_stroke,
-                                out,
-                            );
-                        }
-                        ui.label(format!("{:.4}", editor.row_sum(i)));
-                        ui.end_row();
-                    }
-                });
-        });
-    if k > MANY_CLASSES {
-        largest_flips(ui, classes, editor);
-    }
-}
-
-#[allow(clippy::too_many_arguments)]
-fn cell(
-    ui: &mut egui::Ui,
-    state: &AppState,
-    editor: &MatrixEditor,
-    classes: &[String],
-    (i, j): (usize, usize),
-    dark: bool,
-    changed_stroke: egui::Stroke,
-    out: &mut Vec<Command>,
-) {
-    let mut value = editor.matrix()[[i, j]];
-    let changed = editor.is_changed(i, j);
-    // The heat colour fills a frame around the value (the value box keeps the theme's
-    // colours, so its text stays readable); a changed cell gets an orange outline.
-    let frame = egui::Frame::new()
-        .fill(heat(value, dark))
-        .stroke(if changed {
-            changed_stroke
-        } else {
-            egui::Stroke::NONE
-        })
-        .corner_radius(3.0)
-        .inner_margin(4.0);
-    let response = frame
-        .show(ui, |ui| {
-            ui.add_sized(
-                [62.0, 20.0],
-                egui::DragValue::new(&mut value)
-                    .speed(0.002)
-                    .range(0.0..=1.0)
-                    .fixed_decimals(4),
-            )
-        })
-        .inner;
-    let label = format!("T {} → {}", classes[i], classes[j]);
-    let shown = value;
-    response.widget_info(|| {
-        let mut info = egui::WidgetInfo::drag_value(true, shown);
-        info.label = Some(label.clone());
-        info
-    });
-    if response.changed() {
-        out.push(Command::SetCell {
-            row: i,
-            col: j,
-            value,
-        });
-        if !response.dragged() {
-            out.push(Command::EndGesture);
-        }
-    }
-    if response.drag_stopped() {
-        out.push(Command::EndGesture);
-    }
-    response.on_hover_ui(|ui| {
-        ui.label(format!(
-            "P(observed {} | true {}) = {:.4}",
-            classes[j],
-            classes[i],
-            editor.matrix()[[i, j]]
-        ));
-        ui.label(format!("estimate: {:.4}", editor.reference()[[i, j]]));
-        if let Some(iv) = shown_intervals(state) {
-            ui.label(format!(
-                "bootstrap 5–95%: {:.4} – {:.4}",
-                iv.low[[i, j]],
-                iv.high[[i, j]]
-            ));
-        }
-    });
-}
-
-/// The off-diagonal cells from largest down, for matrices too big to scan by eye.
-fn largest_flips(ui: &mut egui::Ui, classes: &[String], editor: &MatrixEditor) {
-    let m = editor.matrix();
-    let k = classes.len();
-    let mut flips: Vec<(f64, usize, usize)> = (0..k)
-        .flat_map(|i| (0..k).filter(move |&j| j != i).map(move |j| (i, j)))
-        .map(|(i, j)| (m[[i, j]], i, j))
-        .collect();
-    flips.sort_by(|a, b| b.0.total_cmp(&a.0));
-    ui.heading("Largest flips");
-    egui::ScrollArea::vertical()
-        .max_height(200.0)
-        .id_salt("largest-flips")
-        .show(ui, |ui| {
-            for (v, i, j) in flips.into_iter().take(30) {
-                ui.label(format!("{} -> {}: {:.4}", classes[i], classes[j], v));
-            }
-        });
 }
 
 fn files(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {

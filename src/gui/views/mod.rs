@@ -3,10 +3,13 @@
 
 mod about;
 mod annotators;
+mod colour;
+mod compare_charts;
 mod data;
 mod heatmaps;
 mod inspector;
 mod matrix;
+mod matrix_grid;
 mod matrix_side;
 mod retrain;
 mod review_panel;

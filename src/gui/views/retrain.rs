@@ -3,10 +3,10 @@
 
 use eframe::egui;
 use egui_extras::{Column, TableBuilder};
-use egui_plot::{Bar, BarChart, Legend, Plot};
 
-use super::widgets::{index_axis, path_row, pct};
-use crate::gui::app::UiState;
+use super::compare_charts;
+use super::widgets::{path_row, pct};
+use crate::gui::app::{UiState, View};
 use crate::gui::command::Command;
 use crate::gui::dialogs::Purpose;
 use crate::gui::jobs::JobKind;
@@ -38,7 +38,10 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
     let c = &r.comparison;
     egui::ScrollArea::vertical().show(ui, |ui| {
         results(ui, c);
-        chart(ui, c);
+        ui.columns(2, |cols| {
+            compare_charts::accuracies(&mut cols[0], c);
+            compare_charts::gains(&mut cols[1], c);
+        });
         ui.separator();
         let chosen = view.chosen_model(c.models.len());
         ui.horizontal(|ui| {
@@ -51,8 +54,8 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
                     }
                 });
         });
-        confusions(ui, c, chosen);
-        changed_rows(ui, state, c, chosen);
+        compare_charts::confusions(ui, c, chosen);
+        changed_rows(ui, state, c, chosen, view);
         ui.label(
             "Save the chosen model (the command line's model file; `flipmend predict` reads it):",
         );
@@ -180,119 +183,65 @@ fn interval_text(interval: Option<[f64; 2]>, m: &ModelReport) -> String {
     text
 }
 
-/// Reads one figure of a model's report.
-type Metric = fn(&ModelReport) -> Option<f64>;
-
-fn chart(ui: &mut egui::Ui, c: &Comparison) {
-    let metrics: [(&str, Metric); 3] = [
-        ("est. clean", |m| m.estimated_clean_accuracy),
-        ("trusted", |m| m.trusted_accuracy),
-        ("test", |m| m.test_accuracy),
-    ];
-    let models = &c.report.models;
-    let names: Vec<String> = models.iter().map(|m| m.correction.to_string()).collect();
-    Plot::new("compare-chart")
-        .height(180.0)
-        .allow_scroll(false)
-        .legend(Legend::default())
-        .x_axis_formatter(index_axis(&names))
-        .x_grid_spacer(egui_plot::uniform_grid_spacer(|_| [1.0, 5.0, 10.0]))
-        .show(ui, |p| {
-            for (s, (name, get)) in metrics.iter().enumerate() {
-                let bars: Vec<Bar> = models
-                    .iter()
-                    .enumerate()
-                    .filter_map(|(i, m)| get(m).map(|v| (i, v)))
-                    .map(|(i, v)| {
-                        Bar::new(i as f64 + (s as f64 - 1.0) * 0.25, v)
-                            .width(0.22)
-                            .name(m_name(models, i))
-                    })
-                    .collect();
-                if !bars.is_empty() {
-                    p.bar_chart(BarChart::new(*name, bars));
-                }
-            }
-        });
-}
-
-fn m_name(models: &[ModelReport], i: usize) -> &'static str {
-    models[i].correction
-}
-
-fn confusions(ui: &mut egui::Ui, c: &Comparison, chosen: usize) {
-    let classes = &c.report.classes;
-    ui.label(format!(
-        "confusion against {} (rows: reference, columns: prediction)",
-        c.report.reference
-    ));
-    ui.columns(2, |cols| {
-        for (col, index) in cols.iter_mut().zip([0, chosen]) {
-            col.strong(c.report.models[index].correction);
-            egui::ScrollArea::horizontal()
-                .id_salt(("confusion", index))
-                .show(col, |ui| {
-                    egui::Grid::new(("confusion-grid", index))
-                        .striped(true)
-                        .show(ui, |ui| {
-                            ui.label("");
-                            for name in classes {
-                                ui.weak(name);
-                            }
-                            ui.end_row();
-                            for (i, row) in c.report.models[index].confusion.iter().enumerate() {
-                                ui.weak(&classes[i]);
-                                for (j, v) in row.iter().enumerate() {
-                                    if i == j {
-                                        ui.strong(v.to_string());
-                                    } else {
-                                        ui.label(v.to_string());
-                                    }
-                                }
-                                ui.end_row();
-                            }
-                        });
-                });
-        }
-    });
-}
-
-fn changed_rows(ui: &mut egui::Ui, state: &AppState, c: &Comparison, chosen: usize) {
+/// The holdout rows whose prediction the chosen correction changed from `none`'s, with
+/// their labels; a row's button opens it in the Suspects view's row inspector.
+fn changed_rows(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    c: &Comparison,
+    chosen: usize,
+    view: &mut UiState,
+) {
     let Some(data) = state.data() else { return };
-    let before = &c.predictions[0];
-    let after = &c.predictions[chosen];
-    let changed: Vec<usize> = (0..before.len())
-        .filter(|&i| before[i] != after[i])
-        .collect();
+    let changed = changed_vs_none(c, chosen);
+    let Some(after) = c.predictions.get(chosen) else {
+        return;
+    };
     ui.label(format!(
-        "holdout rows whose prediction changed from none to {}: {}",
+        "holdout rows whose prediction changed from none to {}: {} (click a row to inspect it)",
         c.report.models[chosen].correction,
         changed.len()
     ));
     let classes = &data.classes;
+    let class = |k: Option<usize>| k.and_then(|k| classes.get(k)).map_or("–", |c| c.as_str());
     ui.push_id("changed-rows", |ui| {
         TableBuilder::new(ui)
             .striped(true)
-            .max_scroll_height(200.0)
-            .columns(Column::auto().at_least(80.0), 4)
+            .max_scroll_height(220.0)
+            .columns(Column::auto().at_least(80.0), 5)
             .column(Column::remainder())
             .header(18.0, |mut h| {
-                for t in ["row", "id", "observed", "none", "corrected"] {
+                for t in ["row", "id", "observed", "trusted", "none", "corrected"] {
                     h.col(|ui| {
                         ui.strong(t);
                     });
                 }
             })
             .body(|body| {
-                body.rows(18.0, changed.len(), |mut row| {
+                body.rows(20.0, changed.len(), |mut row| {
                     let i = changed[row.index()];
-                    let r = c.holdout[i];
+                    let Some(&r) = c.holdout.get(i) else { return };
+                    row.col(|ui| {
+                        let open =
+                            ui.selectable_label(view.selected_row == Some(r), format!("row {r}"));
+                        if open
+                            .on_hover_text("open this row in the Suspects view")
+                            .clicked()
+                        {
+                            view.selected_row = Some(r);
+                            view.view = Some(View::Suspects);
+                        }
+                    });
+                    let trusted = data
+                        .trusted
+                        .as_ref()
+                        .and_then(|t| t.get(r).copied().flatten());
                     for text in [
-                        r.to_string(),
                         data.id(r).into_owned(),
-                        classes[data.labels[r]].clone(),
-                        classes[before[i]].clone(),
-                        classes[after[i]].clone(),
+                        class(data.labels.get(r).copied()).to_string(),
+                        class(trusted).to_string(),
+                        class(c.predictions[0].get(i).copied()).to_string(),
+                        class(after.get(i).copied()).to_string(),
                     ] {
                         row.col(|ui| {
                             ui.label(text);
@@ -301,4 +250,15 @@ fn changed_rows(ui: &mut egui::Ui, state: &AppState, c: &Comparison, chosen: usi
                 });
             });
     });
+}
+
+/// Indices into the holdout whose prediction differs between `none` (the first model)
+/// and model `chosen`.
+fn changed_vs_none(c: &Comparison, chosen: usize) -> Vec<usize> {
+    let (Some(before), Some(after)) = (c.predictions.first(), c.predictions.get(chosen)) else {
+        return Vec::new();
+    };
+    (0..before.len().min(after.len()))
+        .filter(|&i| before[i] != after[i])
+        .collect()
 }

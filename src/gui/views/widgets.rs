@@ -41,19 +41,6 @@ pub fn path_row(
     chosen
 }
 
-/// The heat colour of a matrix cell: from the panel's grey towards strong blue as the
-/// value grows (square root, so that small flips stay visible).
-pub fn heat(value: f64, dark: bool) -> egui::Color32 {
-    let t = value.clamp(0.0, 1.0).sqrt() as f32;
-    let (from, to) = if dark {
-        ([40.0, 40.0, 44.0], [40.0, 120.0, 255.0])
-    } else {
-        ([238.0, 238.0, 240.0], [30.0, 110.0, 240.0])
-    };
-    let mix = |c: usize| (from[c] + (to[c] - from[c]) * t) as u8;
-    egui::Color32::from_rgb(mix(0), mix(1), mix(2))
-}
-
 /// A share as a percentage, or a dash.
 pub fn pct(v: Option<f64>) -> String {
     v.map_or("–".into(), |v| format!("{:.2}%", 100.0 * v))

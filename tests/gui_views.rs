@@ -1,0 +1,144 @@
+//! The Flip matrix heatmap and the Compare view driven headless with egui_kittest: real
+//! clicks on labelled widgets, then assertions on the app state (the harness helpers are
+//! copied from `tests/gui.rs`).
+#![cfg(feature = "gui")]
+
+mod common;
+
+use std::path::Path;
+
+use egui_kittest::kittest::Queryable;
+use egui_kittest::Harness;
+use flipmend::gui::app::{FlipmendApp, Persisted, View};
+use flipmend::gui::command::Command;
+use flipmend::gui::source_edit::MatrixTarget;
+use flipmend::gui::state::AppState;
+use flipmend::io::session::Roles;
+
+use common::TempDir;
+
+/// Waits for every background job, then lets the UI catch up.
+fn settle(h: &mut Harness<'_, FlipmendApp>) {
+    h.state_mut().state.settle(300.0);
+    h.run_steps(3);
+}
+
+fn app_on_demo(dir: &Path, roles: Roles) -> Harness<'static, FlipmendApp> {
+    let demo = flipmend::gui::demo_file(dir).unwrap();
+    let mut h = Harness::builder()
+        .with_size([1400.0, 900.0])
+        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
+    h.state_mut().push(Command::LoadData(demo, roles));
+    h.run_steps(1);
+    settle(&mut h);
+    h
+}
+
+fn state<'a>(h: &'a Harness<'_, FlipmendApp>) -> &'a AppState {
+    &h.state().state
+}
+
+fn filters(h: &Harness<'_, FlipmendApp>) -> (Option<String>, Option<String>) {
+    let s = state(h).settings();
+    (s.observed_filter.clone(), s.suggested_filter.clone())
+}
+
+#[test]
+fn a_flips_open_button_opens_its_suspects_and_a_click_on_the_value_does_not() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""), Roles::default());
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    // A click on the value itself starts editing it: still the Flip matrix, no filters.
+    h.get_by_label("T pet_bottle → hdpe_jug").click();
+    h.run_steps(2);
+    assert_eq!(h.state().ui.view(), View::Matrix);
+    assert_eq!(filters(&h), (None, None));
+    // The open button of the flip from true pet_bottle to label hdpe_jug: rows labelled
+    // hdpe_jug (the column) whose suggested class is pet_bottle (the row).
+    h.get_by_label("open suspects pet_bottle → hdpe_jug")
+        .click();
+    h.run_steps(2);
+    assert_eq!(h.state().ui.view(), View::Suspects);
+    assert_eq!(
+        filters(&h),
+        (Some("hdpe_jug".into()), Some("pet_bottle".into()))
+    );
+    let m = state(&h).editor().unwrap().matrix().clone();
+    assert_eq!(
+        state(&h).editor().unwrap().version(),
+        state(&h).ranking().unwrap().matrix_version,
+        "opening the suspects changed no cell"
+    );
+    // The other direction of the same pair gives the other filters.
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    h.get_by_label("open suspects hdpe_jug → pet_bottle")
+        .click();
+    h.run_steps(2);
+    assert_eq!(
+        filters(&h),
+        (Some("pet_bottle".into()), Some("hdpe_jug".into()))
+    );
+    assert_eq!(state(&h).editor().unwrap().matrix(), &m);
+}
+
+#[test]
+fn a_stations_flip_opens_the_suspects_of_that_station() {
+    let dir = TempDir::new();
+    let roles = Roles {
+        source: Some("station".into()),
+        ..Roles::default()
+    };
+    let mut h = app_on_demo(&dir.path(""), roles);
+    let sources = state(&h).current_sources().expect("stations").clone();
+    let s4 = sources
+        .sources
+        .iter()
+        .position(|s| s.name == "S4")
+        .expect("the demo's station S4");
+    h.state_mut()
+        .push(Command::SelectMatrix(MatrixTarget::Source(s4)));
+    h.get_by_label("Flip matrix").click();
+    h.run_steps(2);
+    h.get_by_label("open suspects cardboard → paper").click();
+    h.run_steps(2);
+    settle(&mut h);
+    assert_eq!(h.state().ui.view(), View::Suspects);
+    assert_eq!(
+        filters(&h),
+        (Some("paper".into()), Some("cardboard".into()))
+    );
+    assert_eq!(state(&h).source_filter(), Some(s4 as u32));
+}
+
+#[test]
+fn the_compare_view_lists_the_changed_rows_and_a_click_opens_one() {
+    let dir = TempDir::new();
+    let mut h = app_on_demo(&dir.path(""), Roles::default());
+    h.get_by_label("Compare").click();
+    h.run_steps(2);
+    h.get_by_label("Train and compare").click();
+    h.run_steps(2);
+    settle(&mut h);
+    let c = state(&h).retrained().expect("trained").comparison.clone();
+    // The first correction (forward) is set against none until another is picked.
+    let changed: Vec<usize> = (0..c.holdout.len())
+        .filter(|&i| c.predictions[0][i] != c.predictions[1][i])
+        .map(|i| c.holdout[i])
+        .collect();
+    assert!(!changed.is_empty(), "forward changed some predictions");
+    let shown = format!(
+        "holdout rows whose prediction changed from none to forward: {} (click a row to \
+         inspect it)",
+        changed.len()
+    );
+    h.get_by_label(&shown).scroll_to_me();
+    h.run_steps(3);
+    let row = changed[0];
+    assert_eq!(h.state().ui.selected_row, None);
+    h.get_by_label(&format!("row {row}")).click();
+    h.run_steps(2);
+    assert_eq!(h.state().ui.selected_row, Some(row));
+    assert_eq!(h.state().ui.view(), View::Suspects);
+}
