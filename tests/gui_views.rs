@@ -5,38 +5,15 @@
 
 mod common;
 
-use std::path::Path;
-
 use egui_kittest::kittest::Queryable;
 use egui_kittest::Harness;
-use flipmend::gui::app::{FlipmendApp, Persisted, View};
+use flipmend::gui::app::{FlipmendApp, View};
 use flipmend::gui::command::Command;
 use flipmend::gui::source_edit::MatrixTarget;
-use flipmend::gui::state::AppState;
 use flipmend::io::session::Roles;
 
+use common::app::{app_on_demo_as as app_on_demo, settle, state};
 use common::TempDir;
-
-/// Waits for every background job, then lets the UI catch up.
-fn settle(h: &mut Harness<'_, FlipmendApp>) {
-    h.state_mut().state.settle(300.0);
-    h.run_steps(3);
-}
-
-fn app_on_demo(dir: &Path, roles: Roles) -> Harness<'static, FlipmendApp> {
-    let demo = flipmend::gui::demo_file(dir).unwrap();
-    let mut h = Harness::builder()
-        .with_size([1400.0, 900.0])
-        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
-    h.state_mut().push(Command::LoadData(demo, roles));
-    h.run_steps(1);
-    settle(&mut h);
-    h
-}
-
-fn state<'a>(h: &'a Harness<'_, FlipmendApp>) -> &'a AppState {
-    &h.state().state
-}
 
 fn filters(h: &Harness<'_, FlipmendApp>) -> (Option<String>, Option<String>) {
     let s = state(h).settings();
