@@ -219,19 +219,16 @@ pub fn percent(share: f64) -> String {
 
 /// A share with its interval at the same precision: "14 % (11–17 %)".
 pub fn percent_with(share: f64, interval: Option<[f64; 2]>) -> String {
-    let Some([low, high]) = interval.filter(|i| i.iter().all(|v| v.is_finite())) else {
-        return percent(share);
-    };
-    let digits = if share.abs() >= 0.095 { 0 } else { 1 };
-    format!(
-        "{:.*} % ({:.*}–{:.*} %)",
-        digits,
-        100.0 * share,
-        digits,
-        100.0 * low,
-        digits,
-        100.0 * high
-    )
+    match interval.filter(|i| i.iter().all(|v| v.is_finite())) {
+        Some(range) => format!("{} ({})", percent(share), percent_range(range, share)),
+        None => percent(share),
+    }
+}
+
+/// An interval of shares at the precision [`percent`] gives `like`: "11–17 %".
+pub fn percent_range([low, high]: [f64; 2], like: f64) -> String {
+    let digits = if like.abs() >= 0.095 { 0 } else { 1 };
+    format!("{:.*}–{:.*} %", digits, 100.0 * low, digits, 100.0 * high)
 }
 
 fn clip(p: f64) -> f64 {

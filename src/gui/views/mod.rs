@@ -7,6 +7,7 @@ mod data;
 mod heatmaps;
 mod matrix;
 mod matrix_side;
+mod overview;
 mod retrain;
 mod sources;
 mod suspects;
@@ -27,6 +28,7 @@ pub fn frame(
     persisted: &mut Persisted,
     out: &mut Vec<Command>,
 ) {
+    overview::follow_loads(state, view);
     egui::Panel::top("menu").show(ui, |ui| menu_bar(ui, state, view, persisted, out));
     egui::Panel::bottom("status").show(ui, |ui| status_bar(ui, state, out));
     if !state.messages().is_empty() {
@@ -38,6 +40,7 @@ pub fn frame(
             .show(ui, |ui| about::show(ui, view));
     }
     egui::CentralPanel::default().show(ui, |ui| match view.view() {
+        View::Overview => overview::show(ui, state, view, out),
         View::Data => data::show(ui, state, view, out),
         View::Matrix => matrix::show(ui, state, view, out),
         View::Sources => sources::show(ui, state, view, out),

@@ -1,0 +1,391 @@
+//! The Overview view, shown first once data are loaded: the few numbers a person wants
+//! before any table (mislabelled rows, noisiest classes and sources, the largest flips,
+//! the next step's yield), each with its interval and each a link to the view that
+//! explains it. Before data are loaded it says what to do. The numbers come from
+//! [`crate::workflow::overview`], recomputed only when what they read changes.
+
+use std::hash::{Hash, Hasher};
+use std::sync::Arc;
+
+use eframe::egui;
+use rustc_hash::FxHasher;
+
+use super::widgets::{job_progress, plain};
+use crate::gui::app::{UiState, View};
+use crate::gui::command::Command;
+use crate::gui::dialogs::Purpose;
+use crate::gui::jobs::JobKind;
+use crate::gui::state::AppState;
+use crate::io::session::MatrixOrigin;
+use crate::workflow::overview::{
+    percent, percent_range, percent_with, summarize, FlipCell, Inputs, Mislabelled, Overview,
+};
+
+/// Notices a successful load (a new data generation) and shows the Overview then.
+pub fn follow_loads(state: &AppState, view: &mut UiState) {
+    let generation = state.data_generation();
+    if generation != view.seen_generation {
+        view.seen_generation = generation;
+        if state.data().is_some() {
+            view.view = Some(View::Overview);
+        }
+    }
+}
+
+/// Draws the view.
+pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    let Some(data) = state.data() else {
+        return first_steps(ui, view);
+    };
+    start_intervals(state, view, out);
+    let overview = summary(state, view);
+    egui::ScrollArea::vertical()
+        .id_salt("overview-view")
+        .show(ui, |ui| {
+            if state.editor().is_none() {
+                waiting(ui, state);
+            }
+            if let Some(m) = &overview.mislabelled {
+                mislabelled(ui, state, m, data.rows(), view, out);
+            }
+            intervals_status(ui, state, out);
+            classes(ui, &overview, view);
+            sources(ui, &overview, view);
+            flips(ui, state, &overview.largest_flips, view, out);
+            estimator(ui, state);
+            next_step(ui, state, &overview, view, out);
+            ui.add_space(8.0);
+            ui.weak(
+                "Every number here is an estimate from a model, meant to direct qualified \
+                 human review, not a verdict on any row. For medical, safety or other \
+                 sensitive data follow your local rules and licensed practice.",
+            );
+        });
+}
+
+/// Before any data: what to do.
+fn first_steps(ui: &mut egui::Ui, view: &mut UiState) {
+    ui.heading("Start here");
+    ui.label(
+        "No data yet. Open a table (CSV with a label column) in the Data view, or run \
+         `flipmend demo` to try the invented recycling table. Once it is loaded, this page \
+         shows how many rows are probably mislabelled, the largest flips between classes \
+         and what reviewing the top of the ranking should find.",
+    );
+    ui.horizontal(|ui| {
+        if ui.button("Go to the Data view").clicked() {
+            view.view = Some(View::Data);
+        }
+        if ui.button("Open a table…").clicked() {
+            view.dialog_requests.push(Purpose::OpenData);
+        }
+    });
+}
+
+fn waiting(ui: &mut egui::Ui, state: &AppState) {
+    let running = [JobKind::Load, JobKind::Probabilities, JobKind::Estimate]
+        .into_iter()
+        .find_map(|kind| state.jobs().running(kind));
+    ui.horizontal(|ui| match running {
+        Some(r) => {
+            ui.spinner();
+            ui.label(format!("{}…", r.ticket.kind.label()));
+        }
+        None => {
+            ui.label("No flip matrix yet: see the messages above, or the Flip matrix view.");
+        }
+    });
+}
+
+/// Starts the bootstrap once per estimate, when the estimate can be resampled and the
+/// ranking and diagnostics no longer need the cores.
+fn start_intervals(state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    let number = state.estimate_number();
+    let resamplable = state.estimate().is_some_and(|e| e.method.is_some());
+    let busy = [
+        JobKind::Probabilities,
+        JobKind::Estimate,
+        JobKind::Bootstrap,
+        JobKind::Rank,
+        JobKind::Diagnose,
+    ]
+    .into_iter()
+    .any(|kind| state.jobs().running(kind).is_some());
+    if resamplable && state.intervals().is_none() && !busy && view.intervals_started != Some(number)
+    {
+        view.intervals_started = Some(number);
+        out.push(Command::Bootstrap);
+    }
+}
+
+/// The intervals of the estimate apply to the current matrix only while nobody edited it.
+fn matrix_as_estimated(state: &AppState) -> bool {
+    let overall = state
+        .editor()
+        .is_some_and(|e| e.origin() == MatrixOrigin::Estimated);
+    let sources = state
+        .source_editors()
+        .is_none_or(|s| s.edited_names().is_empty());
+    overall && sources
+}
+
+/// The summary, computed again only when what it reads changed.
+fn summary(state: &AppState, view: &mut UiState) -> Arc<Overview> {
+    let (Some(data), Some(editor)) = (state.data(), state.editor()) else {
+        return Arc::new(Overview::default());
+    };
+    let estimated = matrix_as_estimated(state);
+    let inputs = Inputs {
+        classes: &data.classes,
+        matrix: editor.matrix().view(),
+        interval: state.intervals().filter(|_| estimated),
+        diagnostics: state.diagnostics().map(|(d, _)| d),
+        sources: state.current_sources(),
+        source_intervals: state.source_intervals().filter(|_| estimated),
+        ranking: state.ranking().map(|r| r.as_ref()),
+        rows: data.rows(),
+        budget: state.settings().budget,
+    };
+    let key = fingerprint(state, &inputs);
+    match &view.overview {
+        Some((k, o)) if *k == key => o.clone(),
+        _ => {
+            let o = Arc::new(summarize(&inputs));
+            view.overview = Some((key, o.clone()));
+            o
+        }
+    }
+}
+
+/// What the summary depends on, hashed: the data, the matrix's values, the sources'
+/// noise rates, which intervals and diagnostics exist, the ranking and the budget.
+fn fingerprint(state: &AppState, inputs: &Inputs) -> u64 {
+    let mut h = FxHasher::default();
+    state.data_generation().hash(&mut h);
+    inputs.matrix.iter().for_each(|v| v.to_bits().hash(&mut h));
+    if let Some(s) = inputs.sources {
+        s.sources
+            .iter()
+            .for_each(|s| s.noise_rate.to_bits().hash(&mut h));
+    }
+    let interval = inputs.interval.map(|i| i as *const _ as usize);
+    (interval, inputs.source_intervals.is_some(), inputs.budget).hash(&mut h);
+    state.diagnostics().map(|(_, v)| *v).hash(&mut h);
+    if let Some(r) = inputs.ranking {
+        let identity = (r as *const _ as usize, r.matrix_version, r.ranked.len());
+        (identity, r.kind.is_probability()).hash(&mut h);
+    }
+    h.finish()
+}
+
+fn mislabelled(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    m: &Mislabelled,
+    rows: usize,
+    view: &mut UiState,
+    out: &mut Vec<Command>,
+) {
+    let text = format!(
+        "About {} of {} rows ({}) are probably mislabelled (an estimate)",
+        count(m.rows),
+        count(rows as f64),
+        percent(m.share)
+    );
+    let link = ui.add(egui::Link::new(egui::RichText::new(text).heading()));
+    if link
+        .on_hover_text("the ranked rows: Suspects view")
+        .clicked()
+    {
+        to_top_of_ranking(state, view, out);
+    }
+    if let (Some([low, high]), Some(share)) = (m.interval, m.share_interval(rows)) {
+        let basis = if m.spread_included {
+            "the bootstrap band of the class noise rates weighted by the estimated class \
+             shares, and the binomial spread of the count, added in quadrature"
+        } else {
+            "the bootstrap band of the class noise rates weighted by the estimated class \
+             shares (the count's binomial spread follows once every row is ranked)"
+        };
+        ui.label(format!(
+            "90 % interval: {}–{} rows ({}), from {basis}.",
+            count(low),
+            count(high),
+            percent_range(share, m.share)
+        ));
+    }
+}
+
+fn intervals_status(ui: &mut egui::Ui, state: &AppState, out: &mut Vec<Command>) {
+    if state.intervals().is_some() && matrix_as_estimated(state) {
+        return;
+    }
+    ui.horizontal(|ui| {
+        if state.jobs().running(JobKind::Bootstrap).is_some() {
+            ui.spinner();
+            ui.label("computing intervals…");
+            job_progress(ui, state, JobKind::Bootstrap, out);
+        } else if state.intervals().is_some() {
+            ui.weak("the matrix was edited by hand: the bootstrap intervals belong to the estimate, so none is shown");
+        } else if state.estimate().is_some_and(|e| e.method.is_none()) {
+            ui.weak("an imported matrix has no estimator to resample: no intervals");
+        } else if state.estimate().is_some() {
+            ui.weak("intervals after the bootstrap");
+            if ui.button("Compute intervals").clicked() {
+                out.push(Command::Bootstrap);
+            }
+        }
+    });
+}
+
+fn classes(ui: &mut egui::Ui, overview: &Overview, view: &mut UiState) {
+    if overview.noisiest_classes.is_empty() {
+        return;
+    }
+    ui.add_space(6.0);
+    ui.strong("Noisiest classes (share of each true class's rows typed as another)");
+    for c in &overview.noisiest_classes {
+        let text = format!("{}: {}", c.name, percent_with(c.rate, c.interval));
+        if ui.link(text).on_hover_text("Flip matrix view").clicked() {
+            view.view = Some(View::Matrix);
+        }
+    }
+}
+
+fn sources(ui: &mut egui::Ui, overview: &Overview, view: &mut UiState) {
+    if overview.noisiest_sources.is_empty() {
+        return;
+    }
+    ui.add_space(6.0);
+    ui.strong("Noisiest label sources (share of each source's rows mislabelled)");
+    for s in &overview.noisiest_sources {
+        let pooled = if s.pooled {
+            ", too few rows: pooled"
+        } else {
+            ""
+        };
+        let text = format!(
+            "{}: {} of its {} rows{pooled}",
+            s.name,
+            percent_with(s.rate, s.interval),
+            count(s.rows as f64)
+        );
+        if ui.link(text).on_hover_text("Sources view").clicked() {
+            view.view = Some(View::Sources);
+        }
+    }
+}
+
+fn flips(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    flips: &[FlipCell],
+    view: &mut UiState,
+    out: &mut Vec<Command>,
+) {
+    if flips.is_empty() {
+        return;
+    }
+    ui.add_space(6.0);
+    ui.strong("Largest flips (share of a true class's rows typed as another class)");
+    for f in flips {
+        let link = ui.link(f.words());
+        if link.on_hover_text("these rows: Suspects view").clicked() {
+            let mut s = state.settings().clone();
+            s.observed_filter = Some(f.observed_name.clone());
+            s.suggested_filter = Some(f.true_name.clone());
+            out.push(Command::Settings(s));
+            view.view = Some(View::Suspects);
+        }
+    }
+}
+
+fn estimator(ui: &mut egui::Ui, state: &AppState) {
+    let Some(info) = state.estimate() else {
+        return;
+    };
+    ui.add_space(6.0);
+    ui.label(format!("Matrix: {}", state.matrix_description()));
+    if let Some(volume) = &info.volume {
+        ui.weak(plain(volume));
+    }
+    for w in &info.warnings {
+        ui.colored_label(ui.visuals().warn_fg_color, format!("warning: {}", plain(w)));
+    }
+}
+
+fn next_step(
+    ui: &mut egui::Ui,
+    state: &AppState,
+    overview: &Overview,
+    view: &mut UiState,
+    out: &mut Vec<Command>,
+) {
+    ui.add_space(6.0);
+    ui.strong("Next step");
+    let Some(y) = &overview.review else {
+        if state.ranking().is_none() {
+            ui.label("ranking the rows…");
+        } else {
+            ui.label("the margin score gives no probability of a wrong label: no expected yield");
+        }
+        return;
+    };
+    let text = format!(
+        "Reviewing the top {} rows should find about {} errors",
+        count(y.rows as f64),
+        count(y.expected)
+    );
+    if ui.link(text).on_hover_text("Suspects view").clicked() {
+        to_top_of_ranking(state, view, out);
+    }
+    ui.weak(format!(
+        "(an estimate: {}–{} if the p_wrong are calibrated, 90 % binomial spread; set the budget in the Suspects view)",
+        count(y.interval[0]),
+        count(y.interval[1])
+    ));
+}
+
+/// The Suspects view on the whole ranking (the figures are of the unfiltered rows).
+fn to_top_of_ranking(state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
+    let mut s = state.settings().clone();
+    if s.observed_filter.is_some() || s.suggested_filter.is_some() {
+        s.observed_filter = None;
+        s.suggested_filter = None;
+        out.push(Command::Settings(s));
+    }
+    if state.source_filter().is_some() {
+        out.push(Command::FilterSource(None));
+    }
+    view.view = Some(View::Suspects);
+}
+
+/// A count rounded to whole rows, with thousands separated: "12,345".
+fn count(v: f64) -> String {
+    if !v.is_finite() {
+        return "–".into();
+    }
+    let digits = format!("{:.0}", v.abs());
+    let mut out = String::new();
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i) % 3 == 0 {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    if v < -0.5 {
+        out.insert(0, '-');
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn counts_group_thousands() {
+        assert_eq!(super::count(0.4), "0");
+        assert_eq!(super::count(999.6), "1,000");
+        assert_eq!(super::count(1234567.0), "1,234,567");
+        assert_eq!(super::count(f64::NAN), "–");
+    }
+}
