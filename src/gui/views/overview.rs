@@ -157,24 +157,32 @@ fn summary(state: &AppState, view: &mut UiState) -> Arc<Overview> {
     }
 }
 
-/// What the summary depends on, hashed: the data, the matrix's values, the sources'
-/// noise rates, which intervals and diagnostics exist, the ranking and the budget.
+/// What the summary depends on, hashed: the data, the values of the matrix, of its
+/// intervals and of the sources' noise rates, the diagnostics' version, the ranking (its
+/// score, matrix version, length and sum) and the budget.
 fn fingerprint(state: &AppState, inputs: &Inputs) -> u64 {
     let mut h = FxHasher::default();
-    state.data_generation().hash(&mut h);
-    inputs.matrix.iter().for_each(|v| v.to_bits().hash(&mut h));
+    let mut floats = |values: &mut dyn Iterator<Item = f64>| {
+        values.for_each(|v| v.to_bits().hash(&mut h));
+    };
+    floats(&mut inputs.matrix.iter().copied());
+    if let Some(i) = inputs.interval {
+        floats(&mut i.low.iter().chain(i.high.iter()).copied());
+    }
     if let Some(s) = inputs.sources {
-        s.sources
-            .iter()
-            .for_each(|s| s.noise_rate.to_bits().hash(&mut h));
+        floats(&mut s.sources.iter().map(|s| s.noise_rate));
     }
-    let interval = inputs.interval.map(|i| i as *const _ as usize);
-    (interval, inputs.source_intervals.is_some(), inputs.budget).hash(&mut h);
-    state.diagnostics().map(|(_, v)| *v).hash(&mut h);
+    if let Some(i) = inputs.source_intervals {
+        floats(&mut i.noise_rates.iter().flatten().copied());
+    }
     if let Some(r) = inputs.ranking {
-        let identity = (r as *const _ as usize, r.matrix_version, r.ranked.len());
-        (identity, r.kind.is_probability()).hash(&mut h);
+        floats(&mut r.expected_errors.into_iter());
+        std::mem::discriminant(&r.kind).hash(&mut h);
+        (r.matrix_version, r.ranked.len(), r.rows).hash(&mut h);
     }
+    let diagnosed = state.diagnostics().map(|(_, v)| *v);
+    (state.data_generation(), diagnosed, inputs.budget).hash(&mut h);
+    (inputs.interval.is_some(), inputs.source_intervals.is_some()).hash(&mut h);
     h.finish()
 }
 
@@ -339,8 +347,15 @@ fn next_step(
     if ui.link(text).on_hover_text("Suspects view").clicked() {
         to_top_of_ranking(state, view, out);
     }
+    let control = if state.settings().control > 0.0 {
+        " A worklist gives part of the budget to control rows drawn at random; they are \
+         not counted here."
+    } else {
+        ""
+    };
     ui.weak(format!(
-        "(an estimate: {}–{} if the p_wrong are calibrated, 90 % binomial spread; set the budget in the Suspects view)",
+        "An estimate: {}–{} if the p_wrong are calibrated (90 % binomial spread). The \
+         budget is set in the Suspects view.{control}",
         count(y.interval[0]),
         count(y.interval[1])
     ));
