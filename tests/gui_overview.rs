@@ -81,6 +81,15 @@ fn after_a_load_the_overview_lists_the_largest_flips_and_they_open_their_suspect
         "the bootstrap starts"
     );
     h.get_by_label("computing intervals…");
+    // Cancelled, it is not started again for the same estimate; the button starts it.
+    h.state_mut().push(Command::Cancel(JobKind::Bootstrap));
+    h.run_steps(3);
+    assert!(state(&h).jobs().running(JobKind::Bootstrap).is_none());
+    assert!(state(&h).intervals().is_none());
+    h.get_by_label("intervals after the bootstrap");
+    h.get_by_label("Compute intervals").click();
+    h.run_steps(1);
+    assert!(state(&h).jobs().running(JobKind::Bootstrap).is_some());
     settle(&mut h);
     assert!(state(&h).intervals().is_some());
     h.run_steps(3);
