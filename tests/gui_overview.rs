@@ -43,10 +43,11 @@ fn state<'a>(h: &'a Harness<'_, FlipmendApp>) -> &'a AppState {
     &h.state().state
 }
 
-/// Labels of the widgets whose label contains `part`, in drawing order.
+/// Labels of the widgets whose label contains `part`, in drawing order (AccessKit keeps
+/// a plain label's text as its value).
 fn labels(h: &Harness<'_, FlipmendApp>, part: &str) -> Vec<String> {
     h.query_all_by_label_contains(part)
-        .filter_map(|n| n.accesskit_node().label())
+        .filter_map(|n| n.accesskit_node().label().or(n.accesskit_node().value()))
         .collect()
 }
 
@@ -108,7 +109,15 @@ fn after_a_load_the_overview_lists_the_largest_flips_and_they_open_their_suspect
         .filter(|(i, j)| i != j)
         .collect();
     cells.sort_by(|a, b| t[*b].total_cmp(&t[*a]));
-    let shown = labels(&h, " typed as ");
+    // The flips, not the section titles that explain them.
+    let shown: Vec<String> = labels(&h, " typed as ")
+        .into_iter()
+        .filter(|l| {
+            classes
+                .iter()
+                .any(|c| l.starts_with(&format!("{c} typed as ")))
+        })
+        .collect();
     assert_eq!(shown.len(), 5, "{shown:?}");
     for (label, &(i, j)) in shown.iter().zip(&cells[..5]) {
         let words = format!("{} typed as {}: ", classes[i], classes[j]);
@@ -163,7 +172,18 @@ fn the_yield_is_the_top_rows_p_wrong_sum_and_each_number_opens_its_view() {
     );
     // The headline count with its interval, once the bootstrap is in.
     h.get_by_label_contains("are probably mislabelled (an estimate)");
-    h.get_by_label_contains("90 % interval:");
+    let interval = labels(&h, "90 % interval:");
+    assert_eq!(interval.len(), 1, "{interval:?}");
+    // Against the demo's truth (demo-data/recycling_truth.csv, written by its generator,
+    // make_demo.py, beside the table): the number of rows whose label is not the true
+    // material lies inside the interval the Overview shows.
+    let (low, high) = rows_in(&interval[0]);
+    let wrong = wrong_labels_of_the_demo();
+    assert!(
+        low <= wrong && wrong <= high,
+        "{wrong} outside {}",
+        interval[0]
+    );
 
     // A class's noise rate opens the Flip matrix view, a source the Sources view.
     let (noise, source) = {
@@ -211,6 +231,39 @@ fn the_yield_is_the_top_rows_p_wrong_sum_and_each_number_opens_its_view() {
     h.run_steps(2);
     assert_eq!(h.state().ui.view(), View::Suspects);
     assert_eq!(state(&h).settings().observed_filter, None);
+}
+
+/// "90 % interval: 868–1,207 rows (…" → (868, 1207).
+fn rows_in(label: &str) -> (usize, usize) {
+    let range = label
+        .trim_start_matches("90 % interval: ")
+        .split(" rows")
+        .next()
+        .unwrap();
+    let (low, high) = range.split_once('–').expect(label);
+    let number = |s: &str| s.replace(',', "").parse::<usize>().expect(label);
+    (number(low), number(high))
+}
+
+/// Rows of the demo table whose label differs from the true material.
+fn wrong_labels_of_the_demo() -> usize {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data");
+    let read = |name: &str| std::fs::read_to_string(root.join(name)).unwrap();
+    let truth: std::collections::HashMap<String, String> = read("recycling_truth.csv")
+        .lines()
+        .skip(1)
+        .filter_map(|l| l.split_once(','))
+        .map(|(id, t)| (id.to_string(), t.trim().to_string()))
+        .collect();
+    let table = read("recycling.csv");
+    let header: Vec<&str> = table.lines().next().unwrap().split(',').collect();
+    let label = header.iter().position(|c| *c == "label").unwrap();
+    table
+        .lines()
+        .skip(1)
+        .map(|l| l.split(',').collect::<Vec<_>>())
+        .filter(|cells| truth[cells[0]] != cells[label])
+        .count()
 }
 
 fn go_overview(h: &mut Harness<'_, FlipmendApp>) {

@@ -8,6 +8,7 @@ mod heatmaps;
 mod matrix;
 mod matrix_side;
 mod overview;
+mod overview_inputs;
 mod retrain;
 mod sources;
 mod suspects;
@@ -28,7 +29,7 @@ pub fn frame(
     persisted: &mut Persisted,
     out: &mut Vec<Command>,
 ) {
-    overview::follow_loads(state, view);
+    overview_inputs::follow_loads(state, view);
     egui::Panel::top("menu").show(ui, |ui| menu_bar(ui, state, view, persisted, out));
     egui::Panel::bottom("status").show(ui, |ui| status_bar(ui, state, out));
     if !state.messages().is_empty() {
