@@ -201,6 +201,9 @@ fn a_broken_table_shows_its_error_and_keeps_the_previous_data() {
     let broken = dir.path("broken.csv");
     std::fs::write(&broken, "a,b,label\n1,2,x\n3,4\n5,6,y\n").unwrap();
     set_path(&mut h, Purpose::OpenData, &broken);
+    // A load shows the Overview; the table's path and roles are in the Data view.
+    h.get_by_label("Data").click();
+    h.run_steps(1);
     h.get_by_label("Load table").click();
     h.run_steps(2);
     settle(&mut h);

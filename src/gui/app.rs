@@ -17,6 +17,9 @@ use crate::io::session::Roles;
 /// The views, in tab order.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 pub enum View {
+    /// The headline numbers with their intervals, each linking to the view that explains
+    /// it; what to do first before data are loaded.
+    Overview,
     /// Table, roles, classes, probabilities.
     Data,
     /// The editable flip matrix and its diagnostics.
@@ -31,7 +34,8 @@ pub enum View {
 
 impl View {
     /// All views in tab order.
-    pub const ALL: [View; 5] = [
+    pub const ALL: [View; 6] = [
+        View::Overview,
         View::Data,
         View::Matrix,
         View::Sources,
@@ -42,6 +46,7 @@ impl View {
     /// The tab's title.
     pub fn title(self) -> &'static str {
         match self {
+            View::Overview => "Overview",
             View::Data => "Data",
             View::Matrix => "Flip matrix",
             View::Sources => "Sources",
@@ -88,12 +93,21 @@ pub struct UiState {
     pub id_search: String,
     /// The class the inspector compares the row with (the suggested one until chosen).
     pub compare_class: Option<usize>,
+    /// The data generation the UI last saw ([`AppState::data_generation`]): a newer one
+    /// means a load succeeded, and the Overview is shown.
+    pub seen_generation: u64,
+    /// The estimate number whose bootstrap the Overview started, so it starts once per
+    /// estimate (not again after a cancel or a failure).
+    pub intervals_started: Option<u64>,
+    /// The Overview's summary and the fingerprint of what it was computed from (summing
+    /// every row's spread each frame would cost milliseconds on a million rows).
+    pub(crate) overview: Option<(u64, Arc<crate::workflow::overview::Overview>)>,
 }
 
 impl UiState {
-    /// The current view (Data until one is chosen).
+    /// The current view (the Overview until one is chosen).
     pub fn view(&self) -> View {
-        self.view.unwrap_or(View::Data)
+        self.view.unwrap_or(View::Overview)
     }
 
     /// The model picked among `models` (index into the comparison). Until one is picked,

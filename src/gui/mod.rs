@@ -83,9 +83,14 @@ pub fn demo_launch() -> Result<Launch> {
 /// Opens the window and runs until it is closed.
 pub fn run(launch: Launch) -> Result<()> {
     let started = std::time::Instant::now();
+    // Maximised: the matrix, the suspects table and the Overview want the whole screen.
+    // The inner size is what a window manager that ignores maximising gives; the
+    // minimum keeps every view usable. Screen readers get the widget tree through
+    // eframe's accesskit feature (Cargo.toml).
     let options = eframe::NativeOptions {
         viewport: eframe::egui::ViewportBuilder::default()
             .with_title("flipmend")
+            .with_maximized(true)
             .with_inner_size([1280.0, 820.0])
             .with_min_inner_size([720.0, 480.0])
             .with_drag_and_drop(true),

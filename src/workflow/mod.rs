@@ -4,6 +4,7 @@
 pub mod compare;
 pub mod consensus;
 pub mod estimate;
+pub mod overview;
 pub mod ranking;
 pub mod review;
 pub mod suspects;

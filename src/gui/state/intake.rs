@@ -5,6 +5,12 @@
 use super::*;
 
 impl AppState {
+    /// Bumped by every successful load (0 before any): the UI compares it with the last
+    /// one it saw to notice new data (the Overview opens then).
+    pub fn data_generation(&self) -> u64 {
+        self.data_generation
+    }
+
     /// Takes in finished jobs; returns true when anything changed.
     pub fn poll(&mut self) -> bool {
         let finished = self.jobs.poll();

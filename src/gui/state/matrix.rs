@@ -18,6 +18,12 @@ impl AppState {
         })
     }
 
+    /// Bumped whenever the estimate is replaced (or a matrix imported): the Overview
+    /// starts the bootstrap once per estimate number, not again after a cancel.
+    pub fn estimate_number(&self) -> u64 {
+        self.estimates
+    }
+
     pub(super) fn start_estimate(&mut self) {
         let (Some(data), Some(probs)) = (self.data.clone(), self.probs.clone()) else {
             return;

@@ -11,6 +11,8 @@ mod inspector;
 mod matrix;
 mod matrix_grid;
 mod matrix_side;
+mod overview;
+mod overview_inputs;
 mod retrain;
 mod review_panel;
 mod sources;
@@ -32,6 +34,7 @@ pub fn frame(
     persisted: &mut Persisted,
     out: &mut Vec<Command>,
 ) {
+    overview_inputs::follow_loads(state, view);
     egui::Panel::top("menu").show(ui, |ui| menu_bar(ui, state, view, persisted, out));
     egui::Panel::bottom("status").show(ui, |ui| status_bar(ui, state, out));
     if !state.messages().is_empty() {
@@ -43,6 +46,7 @@ pub fn frame(
             .show(ui, |ui| about::show(ui, view));
     }
     egui::CentralPanel::default().show(ui, |ui| match view.view() {
+        View::Overview => overview::show(ui, state, view, out),
         View::Data => data::show(ui, state, view, out),
         View::Matrix => matrix::show(ui, state, view, out),
         View::Sources => sources::show(ui, state, view, out),
