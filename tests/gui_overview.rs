@@ -4,43 +4,26 @@
 //! Expected values are computed here from the app state, not taken from the view's code.
 #![cfg(feature = "gui")]
 
+mod common;
+
 use std::path::Path;
 
 use egui_kittest::kittest::{NodeT, Queryable};
 use egui_kittest::Harness;
-use flipmend::gui::app::{FlipmendApp, Persisted, View};
+use flipmend::gui::app::{FlipmendApp, View};
 use flipmend::gui::command::Command;
 use flipmend::gui::jobs::JobKind;
-use flipmend::gui::state::AppState;
 use flipmend::io::session::Roles;
 
-/// Waits for every background job, then lets the UI catch up.
-fn settle(h: &mut Harness<'_, FlipmendApp>) {
-    h.state_mut().state.settle(600.0);
-    h.run_steps(3);
-}
-
-fn app() -> Harness<'static, FlipmendApp> {
-    Harness::builder()
-        .with_size([1400.0, 900.0])
-        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()))
-}
+use common::app::{app, app_on_demo_as, settle, state};
 
 /// The demo loaded with `roles`, every job (the Overview's bootstrap included) done.
 fn app_on_demo(dir: &Path, roles: Roles) -> Harness<'static, FlipmendApp> {
-    let demo = flipmend::gui::demo_file(dir).unwrap();
-    let mut h = app();
-    h.state_mut().push(Command::LoadData(demo, roles));
-    h.run_steps(1);
-    settle(&mut h);
+    let mut h = app_on_demo_as(dir, roles);
     // The frame after the estimate starts the intervals; wait for them too.
     h.run_steps(2);
     settle(&mut h);
     h
-}
-
-fn state<'a>(h: &'a Harness<'_, FlipmendApp>) -> &'a AppState {
-    &h.state().state
 }
 
 /// Labels of the widgets whose label contains `part`, in drawing order (AccessKit keeps

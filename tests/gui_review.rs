@@ -159,6 +159,21 @@ fn a_round_hides_the_scores_and_its_control_rows_measure_what_the_list_missed() 
         assert_eq!(origin, r.slice.origin(), "row {}", r.row);
     }
     let in_app = s.verdict_summary().unwrap().clone();
+    // The yield plot states what the budget should find: the sum of p_wrong over the
+    // table's first 38 rows (the round's listed share).
+    let ranking = s.ranking().unwrap();
+    let expected: f64 = s.visible()[..38]
+        .iter()
+        .map(|&p| {
+            ranking
+                .kind
+                .probability(ranking.ranked[p as usize].score)
+                .unwrap()
+        })
+        .sum();
+    h.get_by_label(&format!(
+        "expected wrong labels found by reviewing the first 38 rows of the table: about {expected:.0}"
+    ));
     // Written as a reviewed worklist, `review`'s reader measures the same.
     let out = dir.path("round.csv");
     set_path(&mut h, Purpose::ExportVerdicts, &out);

@@ -12,16 +12,21 @@ use flipmend::io::session::Roles;
 
 /// Waits for every background job, then lets the UI catch up.
 pub fn settle(h: &mut Harness<'_, FlipmendApp>) {
-    h.state_mut().state.settle(300.0);
+    h.state_mut().state.settle(600.0);
     h.run_steps(3);
+}
+
+/// The app, empty, in a 1400 × 900 window.
+pub fn app() -> Harness<'static, FlipmendApp> {
+    Harness::builder()
+        .with_size([1400.0, 900.0])
+        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()))
 }
 
 /// The app with the demo table loaded with `roles`, every job done.
 pub fn app_on_demo_as(dir: &Path, roles: Roles) -> Harness<'static, FlipmendApp> {
     let demo = flipmend::gui::demo_file(dir).unwrap();
-    let mut h = Harness::builder()
-        .with_size([1400.0, 900.0])
-        .build_eframe(|cc| FlipmendApp::new(&cc.egui_ctx, Persisted::default()));
+    let mut h = app();
     h.state_mut().push(Command::LoadData(demo, roles));
     h.run_steps(1);
     settle(&mut h);

@@ -8,7 +8,7 @@ use egui_extras::{Column, TableBuilder};
 use egui_plot::{Bar, BarChart, Plot};
 
 use super::widgets::class_filter;
-use super::{inspector, review_panel};
+use super::{inspector, review_panel, yield_plot};
 use crate::gui::app::UiState;
 use crate::gui::command::Command;
 use crate::gui::jobs::JobKind;
@@ -63,6 +63,9 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
                 .id_salt("suspects-side-scroll")
                 .show(ui, |ui| {
                     review_panel::in_app(ui, state, view, out);
+                    egui::CollapsingHeader::new("review yield")
+                        .default_open(true)
+                        .show(ui, |ui| yield_plot::show(ui, state, view));
                     ui.separator();
                     inspector::show(ui, state, view, out);
                     ui.separator();
