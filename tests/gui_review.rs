@@ -191,6 +191,14 @@ fn a_round_hides_the_scores_and_its_control_rows_measure_what_the_list_missed() 
         assert!((file.expected.unwrap() - app.expected.unwrap()).abs() < 1e-6);
     }
     assert_eq!(read.summary.missed_errors, in_app.missed_errors);
+    // The findings wait for the end of the round (counts that move with each verdict
+    // would tell the control rows apart); ended, the round still keys its verdicts.
+    assert!(h.query_by_label_contains("listed suspects:").is_none());
+    h.get_by_label("End round").click();
+    h.run_steps(2);
+    assert!(state(&h).round().is_none());
+    h.get_by_label_contains("listed suspects:");
+    h.get_by_label_contains("wrong labels left among the");
     assert_eq!(in_app.control.unwrap().wrong.of, 2);
 }
 

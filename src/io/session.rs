@@ -235,6 +235,9 @@ pub struct Session {
     /// The score the round's rows were ranked by (version 3).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub round_score: Option<ScoreKind>,
+    /// The round has ended (its rows still key its verdicts) (version 3).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub round_closed: bool,
 }
 
 impl Session {
@@ -252,6 +255,7 @@ impl Session {
             verdicts: Vec::new(),
             round: Vec::new(),
             round_score: None,
+            round_closed: false,
         }
     }
 }

@@ -206,8 +206,10 @@ pub struct AppState {
     saves: u64,
     /// Verdicts given in the app, with their history.
     verdicts: VerdictBook,
-    /// The review round being worked through in the app.
+    /// The last review round started in the app (its rows are the key of its verdicts).
     round: Option<Round>,
+    /// The round is under way (its rows are judged blind).
+    round_open: bool,
     /// The table's trusted labels with the verdicts added, for the estimate and the
     /// bootstrap (`None` without verdicts).
     trusted_overlay: Option<Arc<TrustedLabels>>,
@@ -258,6 +260,7 @@ impl AppState {
             diagnose_pending: false,
             verdicts: VerdictBook::default(),
             round: None,
+            round_open: false,
             trusted_overlay: None,
             verdict_summary: None,
             estimate_pending: false,
@@ -400,7 +403,7 @@ impl AppState {
             Command::UndoVerdict => self.undo_verdict(),
             Command::RedoVerdict => self.redo_verdict(),
             Command::StartRound => self.start_round(),
-            Command::EndRound => self.round = None,
+            Command::EndRound => self.end_round(),
             Command::ExportVerdicts(path) => self.export_verdicts(path),
             Command::SortSuspects(sort) => {
                 self.sort = sort;

@@ -23,6 +23,7 @@ impl AppState {
         }
         let review = self.review_for_session();
         (s.verdicts, s.round, s.round_score) = (review.verdicts, review.round, review.round_score);
+        s.round_closed = review.round_closed;
         if !s.verdicts.is_empty() || !s.round.is_empty() {
             s.version = SESSION_VERSION;
         }
@@ -139,6 +140,7 @@ impl AppState {
         let round = verdicts::PendingRound {
             rows: session.round.clone(),
             kind: session.round_score,
+            closed: session.round_closed,
         };
         self.pending_review = Some((session.verdicts.clone(), round));
         let data = session.data.clone();
@@ -149,6 +151,7 @@ impl AppState {
         self.session.verdicts.clear();
         self.session.round.clear();
         self.session.round_score = None;
+        self.session.round_closed = false;
         match data {
             Some(data) => self.load_data(data, roles),
             None => self.say(Level::Info, format!("opened session {}", path.display())),

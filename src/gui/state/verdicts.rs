@@ -55,9 +55,15 @@ impl AppState {
         &self.verdicts
     }
 
-    /// The review round being worked through, if any.
+    /// The review round being worked through, if one is under way.
     pub fn round(&self) -> Option<&Round> {
-        self.round.as_ref()
+        self.round.as_ref().filter(|_| self.round_open)
+    }
+
+    /// Ends the round under way. Its rows stay known, so its control rows keep
+    /// measuring what the list missed and its verdicts are written with its key.
+    pub(super) fn end_round(&mut self) {
+        self.round_open = false;
     }
 
     /// What the verdicts measured so far (precision of the reviewed suspects, the error
@@ -99,7 +105,8 @@ impl AppState {
                 format!("no row {row} or class {label} to judge"),
             );
         }
-        if self.verdicts.give(row, label, self.round.as_ref()) {
+        let round = self.round.as_ref().filter(|_| self.round_open);
+        if self.verdicts.give(row, label, round) {
             self.verdicts_changed();
         }
     }
@@ -234,6 +241,7 @@ impl AppState {
             rows,
             kind: ranking.kind,
         });
+        self.round_open = true;
         self.verdict_summary = self.summarise_verdicts(&data);
         self.say(
             Level::Info,
@@ -309,6 +317,7 @@ impl AppState {
     pub(super) fn reset_review(&mut self, data: &Dataset) {
         self.verdicts = VerdictBook::default();
         self.round = None;
+        self.round_open = false;
         self.trusted_overlay = None;
         self.verdict_summary = None;
         self.estimate_pending = false;
@@ -355,6 +364,7 @@ impl AppState {
             verdicts,
             round: rows.collect(),
             round_score: Some(round.kind),
+            round_closed: !self.round_open,
         }
     }
 
@@ -414,6 +424,7 @@ impl AppState {
             (false, Some(kind)) => Some(Round { rows, kind }),
             _ => None,
         };
+        self.round_open = self.round.is_some() && !round.closed;
         self.trusted_overlay = (!self.verdicts.is_empty())
             .then(|| Arc::new(with_verdicts(data, self.verdicts.verdicts())));
         self.verdict_summary = self.summarise_verdicts(data);
@@ -469,6 +480,7 @@ pub(super) struct ReviewForSession {
     pub(super) verdicts: Vec<SessionVerdict>,
     pub(super) round: Vec<SessionRoundRow>,
     pub(super) round_score: Option<crate::noise::scores::ScoreKind>,
+    pub(super) round_closed: bool,
 }
 
 /// A session's round, waiting for its table.
@@ -476,4 +488,5 @@ pub(super) struct ReviewForSession {
 pub(super) struct PendingRound {
     pub(super) rows: Vec<SessionRoundRow>,
     pub(super) kind: Option<crate::noise::scores::ScoreKind>,
+    pub(super) closed: bool,
 }

@@ -55,7 +55,11 @@ pub fn in_app(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut
             "; the matrix was changed by hand, so it does not follow them (re-estimate to include them)"
         }
     ));
-    if let Some(s) = state.verdict_summary() {
+    if state.round().is_some() {
+        // Per-slice counts that move with each verdict would tell which rows were drawn
+        // at random, so they wait for the end of the round.
+        ui.weak("The round's findings (precision of the suspects, errors the list missed) are shown when it ends.");
+    } else if let Some(s) = state.verdict_summary() {
         for line in review_findings(s) {
             ui.label(line);
         }

@@ -76,7 +76,18 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
                         .show(ui, |ui| review_panel::worklist_files(ui, state, view, out));
                 });
         });
-    egui::CentralPanel::default().show(ui, |ui| table(ui, state, view, out));
+    egui::CentralPanel::default().show(ui, |ui| match state.round() {
+        // The table would give a round's rows away (their rank, their score, where the
+        // selection sits), so it steps aside until the round ends.
+        Some(round) => {
+            ui.heading("Review round under way");
+            ui.label(format!(
+                "{} rows, listed suspects and rows drawn at random mixed together. The table is hidden while you review, so that ranks and scores do not tell them apart; judge each row in the inspector (K keeps, 1–9 relabel, S skips) and press End round to see the table again.",
+                round.rows.len()
+            ));
+        }
+        None => table(ui, state, view, out),
+    });
 }
 
 /// Finds a row by id (the whole id, else the first id that starts with the text) and

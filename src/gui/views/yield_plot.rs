@@ -22,7 +22,12 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState) {
     };
     let s = state.settings();
     let (suspects, _) = split_budget(s.budget, s.control);
-    let measured = state.verdict_summary().and_then(|v| v.listed);
+    // Not during a round: a count that moves with each verdict would tell control rows
+    // from suspects.
+    let measured = state
+        .verdict_summary()
+        .filter(|_| state.round().is_none())
+        .and_then(|v| v.listed);
     let at_budget = curve
         .iter()
         .take_while(|p| p[0] <= suspects as f64)
