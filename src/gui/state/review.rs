@@ -25,14 +25,8 @@ impl AppState {
             return;
         };
         let filter = self.filter();
+        let (listed, control) = self.worklist_head(&ranking);
         let settings = &self.session.settings;
-        let (suspects, control) = split_budget(settings.budget, settings.control);
-        let listed: Vec<(RowScore, usize)> = self
-            .visible
-            .iter()
-            .take(suspects)
-            .map(|&i| (ranking.ranked[i as usize], i as usize + 1))
-            .collect();
         let inputs = self.input_paths();
         let (kind, seed) = (settings.score, settings.seed);
         let of_row = self.of_row.clone();
@@ -67,6 +61,20 @@ impl AppState {
                 ),
             }))
         });
+    }
+
+    /// The worklist's listed suspects (the budget's share of the filtered rows, in rank
+    /// order, each with its 1-based rank) and how many control rows go with them.
+    pub(super) fn worklist_head(&self, ranking: &Ranking) -> (Vec<(RowScore, usize)>, usize) {
+        let settings = &self.session.settings;
+        let (suspects, control) = split_budget(settings.budget, settings.control);
+        let listed = self
+            .visible
+            .iter()
+            .take(suspects)
+            .map(|&i| (ranking.ranked[i as usize], i as usize + 1))
+            .collect();
+        (listed, control)
     }
 
     pub(super) fn import_review(&mut self, path: PathBuf) {

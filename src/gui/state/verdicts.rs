@@ -15,7 +15,6 @@ use crate::io::session::MatrixOrigin;
 use crate::io::worklist::{write_worklist_files, Extras, Item, Slice};
 use crate::noise::scores::RowScore;
 use crate::workflow::review::{summarise, with_verdicts};
-use crate::workflow::worklist::split_budget;
 
 /// A column the suspects table can be ordered by.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -58,6 +57,17 @@ impl AppState {
     /// The review round being worked through, if one is under way.
     pub fn round(&self) -> Option<&Round> {
         self.round.as_ref().filter(|_| self.round_open)
+    }
+
+    /// Rows of the round under way that have a verdict, and its rows.
+    pub fn round_progress(&self) -> Option<(usize, usize)> {
+        let round = self.round()?;
+        let judged = round
+            .rows
+            .iter()
+            .filter(|r| self.verdicts.get(r.row).is_some())
+            .count();
+        Some((judged, round.rows.len()))
     }
 
     /// Ends the round under way. Its rows stay known, so its control rows keep
@@ -211,18 +221,11 @@ impl AppState {
                 "the suspects are still being ranked; start the round in a moment",
             );
         }
-        let settings = &self.session.settings;
-        let (suspects, control) = split_budget(settings.budget, settings.control);
-        let listed: Vec<(RowScore, usize)> = self
-            .visible
-            .iter()
-            .take(suspects)
-            .map(|&i| (ranking.ranked[i as usize], i as usize + 1))
-            .collect();
+        let (listed, control) = self.worklist_head(&ranking);
         let filter = self.filter();
         let pick = review::Pick {
             control,
-            seed: settings.seed,
+            seed: self.session.settings.seed,
             filter: &filter,
             of_row: self.of_row.as_deref(),
         };

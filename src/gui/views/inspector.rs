@@ -65,16 +65,8 @@ fn header(ui: &mut egui::Ui, state: &AppState, row: usize, blind: bool, score: O
         }
     });
     if blind {
-        if let Some(round) = state.round() {
-            let done = round
-                .rows
-                .iter()
-                .filter(|r| state.verdicts().get(r.row).is_some())
-                .count();
-            ui.label(format!(
-                "review round: {done} of {} rows judged",
-                round.rows.len()
-            ));
+        if let Some((done, rows)) = state.round_progress() {
+            ui.label(format!("review round: {done} of {rows} rows judged"));
         }
         return;
     }

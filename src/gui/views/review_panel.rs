@@ -14,16 +14,10 @@ use crate::workflow::review::{ReviewSummary, SliceResult};
 /// The in-app review: the round, the verdicts' findings, and writing them.
 pub fn in_app(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
     ui.heading("Review");
-    match state.round() {
-        Some(round) => {
-            let done = round
-                .rows
-                .iter()
-                .filter(|r| state.verdicts().get(r.row).is_some())
-                .count();
+    match state.round_progress() {
+        Some((done, rows)) => {
             ui.label(format!(
-                "review round: {done} of {} rows judged (suspects and random control rows, shuffled)",
-                round.rows.len()
+                "review round: {done} of {rows} rows judged (suspects and random control rows, shuffled)"
             ));
             ui.horizontal(|ui| {
                 if ui.button("Next row to judge").clicked() {
