@@ -186,6 +186,11 @@ pub struct AppState {
     visible: Vec<u32>,
     /// `visible` in the table's order when it is sorted by a column.
     sorted: Vec<u32>,
+    /// Every data row's position in the ranking, and its line in the table (`u32::MAX`
+    /// where it has none): the inspector and the arrows look rows up every frame, and a
+    /// scan of a million-row ranking takes milliseconds.
+    position_of: Vec<u32>,
+    table_line_of: Vec<u32>,
     /// The last comparison.
     retrained: Option<Retrained>,
     /// The last reviewed worklist read.
@@ -249,6 +254,8 @@ impl AppState {
             ranking: None,
             visible: Vec::new(),
             sorted: Vec::new(),
+            position_of: Vec::new(),
+            table_line_of: Vec::new(),
             retrained: None,
             review: None,
             messages: Messages::default(),

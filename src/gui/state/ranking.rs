@@ -138,6 +138,7 @@ impl AppState {
             _ => Vec::new(),
         };
         self.sort_table();
+        self.index_rows();
     }
 }
 

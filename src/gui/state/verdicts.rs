@@ -102,6 +102,44 @@ impl AppState {
         }
     }
 
+    /// `row`'s position in the ranking (0 = most suspect), when it is ranked.
+    pub fn ranking_position(&self, row: usize) -> Option<usize> {
+        let p = *self.position_of.get(row)?;
+        (p != u32::MAX).then_some(p as usize)
+    }
+
+    /// `row`'s line in the suspects table (0 = the top line), when it passes the filters.
+    pub fn table_line(&self, row: usize) -> Option<usize> {
+        let i = *self.table_line_of.get(row)?;
+        (i != u32::MAX).then_some(i as usize)
+    }
+
+    /// Rebuilds the row → ranking position and row → table line look-ups.
+    pub(super) fn index_rows(&mut self) {
+        let rows = self.data.as_ref().map_or(0, |d| d.rows());
+        self.position_of.clear();
+        self.position_of.resize(rows, u32::MAX);
+        self.table_line_of.clear();
+        self.table_line_of.resize(rows, u32::MAX);
+        let Some(ranking) = &self.ranking else { return };
+        for (p, s) in ranking.ranked.iter().enumerate() {
+            if let Some(slot) = self.position_of.get_mut(s.row) {
+                *slot = p as u32;
+            }
+        }
+        let lines = if self.sort.is_some() {
+            &self.sorted
+        } else {
+            &self.visible
+        };
+        for (line, &p) in lines.iter().enumerate() {
+            let row = ranking.ranked[p as usize].row;
+            if let Some(slot) = self.table_line_of.get_mut(row) {
+                *slot = line as u32;
+            }
+        }
+    }
+
     /// The table's trusted labels with the verdicts added (what the estimate reads).
     pub(super) fn trusted_overlay(&self) -> Option<Arc<TrustedLabels>> {
         self.trusted_overlay.clone()

@@ -42,7 +42,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
 /// The row's entry in the ranking.
 fn row_score(state: &AppState, row: usize) -> Option<RowScore> {
     let ranking = state.ranking()?;
-    ranking.ranked.iter().find(|s| s.row == row).copied()
+    ranking.ranked.get(state.ranking_position(row)?).copied()
 }
 
 fn header(ui: &mut egui::Ui, state: &AppState, row: usize, blind: bool, score: Option<&RowScore>) {
@@ -73,11 +73,7 @@ fn header(ui: &mut egui::Ui, state: &AppState, row: usize, blind: bool, score: O
     let (Some(s), Some(ranking)) = (score, state.ranking()) else {
         return;
     };
-    let rank = ranking
-        .ranked
-        .iter()
-        .position(|x| x.row == row)
-        .map_or(0, |p| p + 1);
+    let rank = state.ranking_position(row).map_or(0, |p| p + 1);
     let p_wrong = ranking
         .kind
         .probability(s.score)
@@ -154,35 +150,36 @@ fn judge(state: &AppState, view: &mut UiState, row: usize, label: usize, out: &m
     move_selection(state, view, 1, true);
 }
 
-/// The rows the arrows move through: the round's, in review order, else the table's.
-fn sequence(state: &AppState) -> Vec<usize> {
+/// How many rows the arrows move through, the selected one's place among them, and the
+/// row at each place.
+type Sequence<'a> = (usize, Option<usize>, Box<dyn Fn(usize) -> usize + 'a>);
+
+/// The rows the arrows move through: the round's rows in review order, else the
+/// table's lines; (how many, the selected one's place, the row at a place).
+fn sequence(state: &AppState, selected: Option<usize>) -> Sequence<'_> {
     if let Some(round) = state.round() {
-        return round.rows.iter().map(|r| r.row).collect();
+        let at = selected.and_then(|r| round.rows.iter().position(|x| x.row == r));
+        return (round.rows.len(), at, Box::new(move |i| round.rows[i].row));
     }
-    let Some(ranking) = state.ranking() else {
-        return Vec::new();
+    let (Some(ranking), lines) = (state.ranking(), state.table_rows()) else {
+        return (0, None, Box::new(|i| i));
     };
-    state
-        .table_rows()
-        .iter()
-        .map(|&p| ranking.ranked[p as usize].row)
-        .collect()
+    let at = selected.and_then(|r| state.table_line(r));
+    (
+        lines.len(),
+        at,
+        Box::new(move |i| ranking.ranked[lines[i] as usize].row),
+    )
 }
 
 /// Selects the row `step` places on (negative: back) from the selected one; with
 /// `unjudged`, skips rows that already have a verdict (in a round).
 pub fn move_selection(state: &AppState, view: &mut UiState, step: isize, unjudged: bool) {
-    let rows = sequence(state);
-    if rows.is_empty() {
-        return;
-    }
-    let at = view
-        .selected_row
-        .and_then(|r| rows.iter().position(|&x| x == r));
+    let (len, at, row_at) = sequence(state, view.selected_row);
     let skip_judged = unjudged && state.round().is_some();
     let mut i = at.map_or(0, |i| i as isize + step);
-    while (0..rows.len() as isize).contains(&i) {
-        let row = rows[i as usize];
+    while (0..len as isize).contains(&i) {
+        let row = row_at(i as usize);
         if !(skip_judged && state.verdicts().get(row).is_some() && Some(row) != view.selected_row) {
             view.selected_row = Some(row);
             view.scroll_to_selected = true;

@@ -118,13 +118,7 @@ fn search(ui: &mut egui::Ui, state: &AppState, view: &mut UiState) {
             }
         }
         if let Some(row) = view.selected_row {
-            let shown = state.ranking().is_some_and(|r| {
-                state
-                    .table_rows()
-                    .iter()
-                    .any(|&p| r.ranked[p as usize].row == row)
-            });
-            if !shown {
+            if state.table_line(row).is_none() {
                 ui.weak(format!("row {row} is not in the filtered table"));
             }
         }
