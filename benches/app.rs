@@ -82,7 +82,11 @@ fn main() {
 /// background), and each class's typical values (computed at load).
 fn review_steps(state: &mut AppState) {
     use flipmend::gui::state::{SuspectColumn, SuspectSort};
-    for column in [SuspectColumn::Id, SuspectColumn::SecondChoiceProb] {
+    for column in [
+        SuspectColumn::SecondChoiceProb,
+        SuspectColumn::Id,
+        SuspectColumn::Row,
+    ] {
         let started = Instant::now();
         state.apply(Command::SortSuspects(Some(SuspectSort {
             column,
@@ -94,6 +98,9 @@ fn review_steps(state: &mut AppState) {
         );
     }
     state.apply(Command::SortSuspects(None));
+    // Back to the estimate: a matrix changed by hand does not follow verdicts.
+    state.apply(Command::ResetMatrix);
+    state.settle(600.0);
     let mut verdicts: Vec<Duration> = Vec::new();
     for row in 0..15 {
         let started = Instant::now();
