@@ -46,6 +46,21 @@ pub struct Location {
     pub column: Option<(usize, String)>,
     /// 0-based data row, for binary files that have no lines.
     pub row: Option<usize>,
+    /// The stored part holding that row, for columnar files (Parquet row groups, Arrow
+    /// record batches), so the row can be found with the format's own tools.
+    pub part: Option<Part>,
+}
+
+/// A row's place inside a columnar file: its part (row group or record batch) and its
+/// 0-based offset there.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Part {
+    /// "row group" (Parquet) or "record batch" (Arrow IPC).
+    pub kind: &'static str,
+    /// 0-based index of the part.
+    pub index: usize,
+    /// 0-based row inside the part.
+    pub offset: usize,
 }
 
 impl Location {
@@ -56,6 +71,7 @@ impl Location {
             line: None,
             column: None,
             row: None,
+            part: None,
         }
     }
 
@@ -66,6 +82,7 @@ impl Location {
             line: Some(line),
             column: None,
             row: None,
+            part: None,
         }
     }
 
@@ -76,6 +93,15 @@ impl Location {
             line: None,
             column: None,
             row: Some(row),
+            part: None,
+        }
+    }
+
+    /// A problem in one data row of a columnar file, with the part that stores it.
+    pub fn row_in_part(path: &Path, row: usize, part: Part) -> Self {
+        Location {
+            part: Some(part),
+            ..Location::row(path, row)
         }
     }
 
@@ -94,6 +120,9 @@ impl fmt::Display for Location {
         }
         if let Some(row) = self.row {
             write!(f, ", row {row}")?;
+        }
+        if let Some(part) = &self.part {
+            write!(f, " ({} {}, offset {})", part.kind, part.index, part.offset)?;
         }
         if let Some((number, name)) = &self.column {
             write!(f, ", column {number} '{name}'")?;
@@ -218,12 +247,34 @@ pub enum Problem {
     #[error("the text is not valid UTF-8; save the file as UTF-8")]
     InvalidUtf8,
     /// An id that occurs twice.
-    #[error("the id '{id}' was already used on line {first_line}; ids must be unique")]
+    #[error("the id '{id}' was already used on {first}; ids must be unique")]
     DuplicateId {
         /// The repeated id.
         id: String,
-        /// Line of its first occurrence.
-        first_line: u64,
+        /// Where it first occurred ("line 9", or "row 8" in a columnar file).
+        first: String,
+    },
+    /// A null where a feature value is needed (columnar files, which have no empty cells).
+    #[error("{count} null value(s) in this feature column (the first is in this row); fill them, or leave the column out with --features")]
+    NullValues {
+        /// Nulls in the column.
+        count: usize,
+    },
+    /// A column whose stored type cannot hold what its role needs.
+    #[error("the column holds {found}; {expected}")]
+    ColumnType {
+        /// The stored type, in words.
+        found: String,
+        /// What the role needs.
+        expected: String,
+    },
+    /// A columnar file that cannot be read.
+    #[error("not a readable {format} file: {detail}")]
+    Columnar {
+        /// "Parquet" or "Arrow IPC".
+        format: &'static str,
+        /// The reader's explanation.
+        detail: String,
     },
     /// The CSV parser itself failed (e.g. a quote that never closes).
     #[error("cannot parse this as CSV: {detail}")]

@@ -11,8 +11,9 @@ use serde::Serialize;
 use super::args::PipelineArgs;
 use crate::data::Dataset;
 use crate::error::{Error, Result};
+use crate::io::columnar::Format;
 use crate::io::matrix_csv::write_matrix_csv;
-use crate::io::probs_csv::write_probs_csv;
+use crate::io::probs_csv::write_probs;
 use crate::io::{check_not_input, write_atomic, write_json};
 use crate::noise::diagnostics::ReliabilityBin;
 use crate::noise::Method;
@@ -184,7 +185,9 @@ fn write_outputs(
         })?;
     }
     if let Some(path) = &args.probs_out {
-        write_atomic(path, |w| write_probs_csv(w, data, &probs.values))?;
+        write_atomic(path, |w| {
+            write_probs(w, Format::of(path), data, &probs.values)
+        })?;
     }
     if let Some(path) = &args.json {
         let d = &estimate.diagnostics;

@@ -9,7 +9,9 @@ use clap::Args;
 use crate::data::roles::parse_delimiter;
 use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
+use crate::io::columnar::Format;
 use crate::io::model::read_model;
+use crate::io::table_out::{CellKind, OutColumn, TableWriter};
 use crate::io::{check_not_input, write_atomic};
 use crate::learn::train::predict_classes;
 
@@ -54,19 +56,22 @@ pub fn run(args: &PredictArgs, out: &mut dyn Write) -> Result<()> {
     let probs = model.predict_proba(data.features.view(), None);
     let predicted = predict_classes(&probs);
     write_atomic(&args.out, |w| {
-        let mut csv = csv::Writer::from_writer(w);
-        let mut header = vec!["id".to_string(), "predicted".to_string()];
-        header.extend(model_file.classes.iter().cloned());
-        csv.write_record(&header)?;
+        let mut columns = vec![
+            OutColumn::new("id", CellKind::Text),
+            OutColumn::new("predicted", CellKind::Text),
+        ];
+        let classes = model_file.classes.iter();
+        columns.extend(classes.map(|c| OutColumn::new(c, CellKind::Float)));
+        let mut table = TableWriter::new(w, Format::of(&args.out), &columns)?;
         for (row, p) in probs.rows().into_iter().enumerate() {
             let mut record = vec![
                 data.id(row).into_owned(),
                 model_file.classes[predicted[row]].clone(),
             ];
             record.extend(p.iter().map(|v| v.to_string()));
-            csv.write_record(&record)?;
+            table.row(&record)?;
         }
-        csv.flush()
+        table.finish()
     })?;
     let mut text = String::new();
     let _ = writeln!(

@@ -14,7 +14,7 @@ use super::sources::LabelSources;
 use super::table::{Dataset, IgnoredColumn, MissingCount, StringColumn};
 use crate::error::{Error, Location, Problem, Result};
 use crate::io::table_chunk::NONE;
-use crate::io::table_csv::Merged;
+use crate::io::table_merge::Merged;
 
 /// The cells of one table and the file they came from.
 pub(super) struct Assembly<'a> {
@@ -126,8 +126,14 @@ impl Assembly<'_> {
             let name = &plan.header[plan.numeric[slot]];
             if plan.explicit {
                 kept.push(slot);
-            } else if let Some((line, text)) = &stats.first_bad {
-                let reason = format!("not numeric ('{text}' on line {line})");
+            } else if let Some(found) = &stats.wrong_type {
+                let reason = format!("not numeric (holds {found})");
+                ignored.push(IgnoredColumn {
+                    name: name.clone(),
+                    reason,
+                });
+            } else if let Some((at, text)) = &stats.first_bad {
+                let reason = format!("not numeric ('{text}' on {})", self.cells.places.words(*at));
                 ignored.push(IgnoredColumn {
                     name: name.clone(),
                     reason,
@@ -180,6 +186,17 @@ impl Assembly<'_> {
 
     /// The earliest bad cell among the features, if any, as an error.
     fn check_feature_cells(&self, plan: &ColumnPlan, kept: &[usize]) -> Result<()> {
+        for &slot in kept {
+            if let Some(found) = &self.cells.slots[slot].wrong_type {
+                let field = plan.numeric[slot];
+                let problem = Problem::ColumnType {
+                    found: found.clone(),
+                    expected: "features must be integer or floating-point numbers".into(),
+                };
+                let location = Location::file(self.path).at_column(field, &plan.header[field]);
+                return Err(Error::input(location, problem));
+            }
+        }
         let mut worst: Option<(u64, usize, Problem)> = None;
         for &slot in kept {
             let stats = &self.cells.slots[slot];
@@ -192,14 +209,9 @@ impl Assembly<'_> {
                     .first_nonfinite
                     .clone()
                     .map(|(l, value)| (l, Problem::NotFinite { value })),
-                stats.first_missing.map(|l| {
-                    (
-                        l,
-                        Problem::MissingValues {
-                            count: stats.missing,
-                        },
-                    )
-                }),
+                stats
+                    .first_missing
+                    .map(|l| (l, self.cells.places.missing_values(stats.missing))),
             ];
             for (line, problem) in candidates.into_iter().flatten() {
                 if worst.as_ref().is_none_or(|(l, _, _)| line < *l) {
@@ -211,8 +223,9 @@ impl Assembly<'_> {
             None => Ok(()),
             Some((line, slot, problem)) => {
                 let field = plan.numeric[slot];
+                let location = self.cells.places.locate(self.path, line);
                 Err(Error::input(
-                    Location::line(self.path, line).at_column(field, &plan.header[field]),
+                    location.at_column(field, &plan.header[field]),
                     problem,
                 ))
             }
@@ -264,11 +277,13 @@ impl Assembly<'_> {
             return Ok(());
         };
         let field = plan.id.unwrap_or(0);
-        let location = Location::line(self.path, self.cells.row_lines[row])
+        let places = &self.cells.places;
+        let location = places
+            .locate(self.path, self.cells.row_lines[row])
             .at_column(field, &plan.header[field]);
         let problem = Problem::DuplicateId {
             id: crate::error::shorten(ids.get(row)),
-            first_line: self.cells.row_lines[first],
+            first: places.words(self.cells.row_lines[first]),
         };
         Err(Error::input(location, problem))
     }

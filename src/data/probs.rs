@@ -14,7 +14,9 @@ use rayon::prelude::*;
 
 use super::table::Dataset;
 use crate::error::{Error, Location, Problem, Result};
+use crate::io::columnar::Format;
 use crate::io::npy::{self, read_up_to};
+use crate::io::probs_arrow::read_probs_columnar;
 use crate::io::probs_csv::read_probs_csv;
 use crate::io::probs_npy::read_probs_npy;
 
@@ -42,8 +44,19 @@ pub struct Probabilities {
 }
 
 impl Probabilities {
-    /// Loads `path` as `.npy` (by extension or magic bytes) or CSV, aligned to `data`.
+    /// Loads `path` as Parquet or Arrow IPC (by extension), `.npy` (by extension or magic
+    /// bytes) or CSV, aligned to `data`.
     pub fn load(path: &Path, data: &Dataset, options: &ProbOptions) -> Result<Self> {
+        let format = Format::of(path);
+        if format.is_columnar() {
+            let mut loaded = read_probs_columnar(path, data, format)?;
+            loaded.check_rows(options.renormalize)?;
+            return Ok(Probabilities {
+                path: path.to_path_buf(),
+                values: loaded.values,
+                warnings: loaded.warnings,
+            });
+        }
         let read_err = |source| Error::Read {
             path: path.to_path_buf(),
             source,

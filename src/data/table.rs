@@ -13,6 +13,8 @@ use super::assemble::Assembly;
 use super::origin::Origin;
 use super::roles::TableOptions;
 use crate::error::{Error, Result};
+use crate::io::columnar::Format;
+use crate::io::table_arrow::read_columnar_table;
 use crate::io::table_csv::{read_table, BLOCK_BYTES};
 
 /// Strings stored back to back, so a million ids cost one allocation, not a million.
@@ -111,8 +113,14 @@ pub struct Dataset {
 }
 
 impl Dataset {
-    /// Loads a CSV file (see [`TableOptions`] for the role rules).
+    /// Loads a CSV, Parquet or Arrow IPC file, by its extension (see [`TableOptions`]
+    /// for the role rules, which are the same for every format).
     pub fn load(path: &Path, options: &TableOptions) -> Result<Self> {
+        let format = Format::of(path);
+        if format.is_columnar() {
+            let (plan, cells) = read_columnar_table(path, options, format)?;
+            return Assembly { path, cells }.finish(plan);
+        }
         let file = File::open(path).map_err(|source| Error::Read {
             path: path.to_path_buf(),
             source,

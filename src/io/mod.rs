@@ -3,18 +3,24 @@
 //! annotators.
 
 pub mod annotations_long;
+pub(crate) mod arrow_cells;
+pub mod columnar;
 pub(crate) mod csv_blocks;
 pub mod csv_source;
 pub mod matrix_csv;
 pub mod model;
 pub mod npy;
 pub mod number;
+pub(crate) mod probs_arrow;
 pub mod probs_csv;
 pub mod probs_npy;
 pub mod review;
 pub mod session;
+pub(crate) mod table_arrow;
 pub(crate) mod table_chunk;
 pub(crate) mod table_csv;
+pub(crate) mod table_merge;
+pub mod table_out;
 pub mod text_column;
 pub mod worklist;
 
@@ -63,7 +69,7 @@ fn same_inode(_: &fs::Metadata, _: &fs::Metadata) -> bool {
 /// it was.
 pub fn write_atomic<F>(path: &Path, write: F) -> Result<()>
 where
-    F: FnOnce(&mut dyn Write) -> std::io::Result<()>,
+    F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
 {
     let write_err = |source| Error::Write {
         path: path.to_path_buf(),
@@ -85,7 +91,7 @@ where
 
 fn fill<F>(file: File, write: F) -> std::io::Result<()>
 where
-    F: FnOnce(&mut dyn Write) -> std::io::Result<()>,
+    F: FnOnce(&mut (dyn Write + Send)) -> std::io::Result<()>,
 {
     let mut out = BufWriter::with_capacity(1 << 16, file);
     write(&mut out)?;

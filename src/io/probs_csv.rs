@@ -11,27 +11,33 @@ use rustc_hash::FxHashMap as HashMap;
 use crate::data::probs::{checked, Loaded};
 use crate::data::Dataset;
 use crate::error::{csv_syntax, shorten, Error, Location, Problem, Result};
+use crate::io::columnar::Format;
 use crate::io::csv_source::CsvFormat;
+use crate::io::table_out::{CellKind, OutColumn, TableWriter};
 
-/// Writes probabilities as CSV: `id`, then one column per class (shortest round-trip
-/// text).
-pub fn write_probs_csv(
-    w: &mut dyn Write,
+/// Writes probabilities as CSV, or as Parquet when `format` says: `id`, then one column
+/// per class (shortest round-trip text in CSV, Float64 in Parquet).
+pub fn write_probs(
+    w: &mut (dyn Write + Send),
+    format: Format,
     data: &Dataset,
     probs: &Array2<f32>,
 ) -> std::io::Result<()> {
-    let mut writer = csv::Writer::from_writer(w);
-    let mut header = vec!["id".to_string()];
-    header.extend(data.classes.iter().cloned());
-    writer.write_record(&header)?;
-    let mut record = Vec::with_capacity(header.len());
+    let mut columns = vec![OutColumn::new("id", CellKind::Text)];
+    columns.extend(
+        data.classes
+            .iter()
+            .map(|c| OutColumn::new(c, CellKind::Float)),
+    );
+    let mut writer = TableWriter::new(w, format, &columns)?;
+    let mut record = Vec::with_capacity(columns.len());
     for (row, p) in probs.rows().into_iter().enumerate() {
         record.clear();
         record.push(data.id(row).into_owned());
         record.extend(p.iter().map(|v| v.to_string()));
-        writer.write_record(&record)?;
+        writer.row(&record)?;
     }
-    writer.flush()
+    writer.finish()
 }
 
 /// Reads a probability CSV for `data`; `delimiter` as in
@@ -52,7 +58,7 @@ pub(crate) fn read_probs_csv<'a, R: Read>(
         .iter()
         .map(|c| String::from_utf8_lossy(c).trim().to_string())
         .collect();
-    let columns = csv_columns(path, &header, data)?;
+    let columns = csv_columns(&header, data, Location::line(path, 1))?;
     let mut rows = Rows::new(path, data, &header, &columns);
     while rdr.read_byte_record(&mut record).map_err(syntax)? {
         rows.take(&record)?;
@@ -132,7 +138,10 @@ impl<'r> Rows<'r> {
         if self.lines[row] != 0 {
             let id = self.data.id(row).to_string();
             let first_line = self.lines[row];
-            let problem = Problem::DuplicateId { id, first_line };
+            let problem = Problem::DuplicateId {
+                id,
+                first: format!("line {first_line}"),
+            };
             return Err(Error::input(Location::line(self.path, line), problem));
         }
         self.lines[row] = line;
@@ -168,14 +177,21 @@ impl<'r> Rows<'r> {
 }
 
 /// How the CSV's columns map onto the dataset.
-struct CsvColumns {
-    /// For each CSV field, the class it holds (or `None` for the id field).
-    class_of_field: Vec<Option<usize>>,
+/// Which class each column of a probability file holds, and which column is the id.
+pub(crate) struct CsvColumns {
+    /// For each field, the class it holds (or `None` for the id field).
+    pub(crate) class_of_field: Vec<Option<usize>>,
     /// Field index of the id column.
-    id_field: Option<usize>,
+    pub(crate) id_field: Option<usize>,
 }
 
-fn csv_columns(path: &Path, header: &[String], data: &Dataset) -> Result<CsvColumns> {
+/// Matches a probability file's column names to the data's classes; `at_header` locates
+/// problems with the names (the header line of a CSV file, the schema of a columnar one).
+pub(crate) fn csv_columns(
+    header: &[String],
+    data: &Dataset,
+    at_header: Location,
+) -> Result<CsvColumns> {
     let class_index: HashMap<&str, usize> = data
         .classes
         .iter()
@@ -194,10 +210,8 @@ fn csv_columns(path: &Path, header: &[String], data: &Dataset) -> Result<CsvColu
         if let Some(&c) = class_index.get(name.as_str()) {
             if seen[c] {
                 let problem = Problem::DuplicateColumn { name: name.clone() };
-                return Err(Error::input(
-                    Location::line(path, 1).at_column(i, name),
-                    problem,
-                ));
+                let location = at_header.clone().at_column(i, name);
+                return Err(Error::input(location, problem));
             }
             seen[c] = true;
             class_of_field.push(Some(c));
@@ -215,7 +229,7 @@ fn csv_columns(path: &Path, header: &[String], data: &Dataset) -> Result<CsvColu
             extra: extra.join(", "),
             classes,
         };
-        return Err(Error::input(Location::line(path, 1), problem));
+        return Err(Error::input(at_header, problem));
     }
     let missing: Vec<&str> = data
         .classes
@@ -229,7 +243,7 @@ fn csv_columns(path: &Path, header: &[String], data: &Dataset) -> Result<CsvColu
             missing: missing.join(", "),
             classes,
         };
-        return Err(Error::input(Location::line(path, 1), problem));
+        return Err(Error::input(at_header, problem));
     }
     Ok(CsvColumns {
         class_of_field,
@@ -238,7 +252,7 @@ fn csv_columns(path: &Path, header: &[String], data: &Dataset) -> Result<CsvColu
 }
 
 /// Maps an id to its data row.
-fn id_index(data: &Dataset) -> Option<HashMap<&str, usize>> {
+pub(crate) fn id_index(data: &Dataset) -> Option<HashMap<&str, usize>> {
     data.ids
         .as_ref()
         .map(|ids| (0..ids.len()).map(|r| (ids.get(r), r)).collect())
@@ -246,7 +260,7 @@ fn id_index(data: &Dataset) -> Option<HashMap<&str, usize>> {
 
 /// The data row of a probability row's id. Without an id column in the data, ids are
 /// 0-based row numbers.
-fn join_row(
+pub(crate) fn join_row(
     cell: &[u8],
     index: Option<&HashMap<&str, usize>>,
     rows: usize,
@@ -264,7 +278,7 @@ fn join_row(
     }
 }
 
-fn check_coverage(
+pub(crate) fn check_coverage(
     path: &Path,
     data: &Dataset,
     lines: &[u64],

@@ -308,6 +308,7 @@ fn at(path: &Path, e: &serde_json::Error) -> Error {
         line: Some(e.line() as u64),
         column: None,
         row: None,
+        part: None,
     };
     Error::input(
         location,

@@ -25,6 +25,8 @@ pub(crate) struct SlotStats {
     pub first_bad: Option<(u64, String)>,
     /// Line and text of the first NaN or infinity.
     pub first_nonfinite: Option<(u64, String)>,
+    /// The stored type, in words, when a columnar file's column is not numeric.
+    pub wrong_type: Option<String>,
 }
 
 impl SlotStats {
@@ -40,6 +42,9 @@ impl SlotStats {
         }
         if self.first_nonfinite.is_none() {
             self.first_nonfinite = later.first_nonfinite.clone().map(|(l, t)| (shift(l), t));
+        }
+        if self.wrong_type.is_none() {
+            self.wrong_type.clone_from(&later.wrong_type);
         }
     }
 }
@@ -182,8 +187,8 @@ fn ragged(expected: usize, found: usize) -> Problem {
     }
 }
 
-/// Field access for the `csv` crate's records.
-trait Fields {
+/// Field access by index: the `csv` crate's records, or a columnar row's role cells.
+pub(crate) trait Fields {
     fn count(&self) -> usize;
     fn field(&self, i: usize) -> &[u8];
 }
@@ -245,6 +250,42 @@ fn field_end(line: &[u8], start: usize, delimiter: u8) -> usize {
         i += 1;
     }
     i
+}
+
+/// Parses rows handed over cell by cell (columnar files). Role cells come as text, so
+/// they follow exactly the CSV rules (empty labels, origins, sources, ids); the numeric
+/// columns are filled by the caller, who reads them as numbers.
+pub(crate) struct RowParser<'a>(BlockParser<'a>);
+
+impl<'a> RowParser<'a> {
+    pub(crate) fn new(plan: &'a ColumnPlan) -> Self {
+        RowParser(BlockParser::new(plan, &[]))
+    }
+
+    /// One row's role cells; `at` is its place number within the part.
+    pub(crate) fn row(&mut self, record: &impl Fields, at: u64) -> Result<(), Fatal> {
+        self.0.roles(record, at)?;
+        self.0.out.rows += 1;
+        Ok(())
+    }
+
+    /// The part as parsed, with its numeric columns (row-major values and per-column
+    /// statistics) and the place numbers it spans.
+    pub(crate) fn finish(
+        self,
+        values: Vec<f64>,
+        slots: Vec<SlotStats>,
+        places: u64,
+        fatal: Option<Fatal>,
+    ) -> ChunkOut {
+        ChunkOut {
+            values,
+            slots,
+            newlines: places,
+            fatal,
+            ..self.0.out
+        }
+    }
 }
 
 struct BlockParser<'a> {
@@ -426,6 +467,17 @@ impl<'a> BlockParser<'a> {
         if record.count() != expected {
             return Err((line, None, ragged(expected, record.count())));
         }
+        self.roles(record, line)?;
+        for (slot, &field) in self.plan.numeric.iter().enumerate() {
+            let value = parse_number(record.field(field), line, &mut self.out.slots[slot]);
+            self.out.values.push(value);
+        }
+        self.out.rows += 1;
+        Ok(())
+    }
+
+    /// The cells of every role but the numeric columns.
+    fn roles(&mut self, record: &impl Fields, line: u64) -> Result<(), Fatal> {
         if let Some(label_field) = self.plan.label {
             self.label(record.field(label_field), line, label_field)?;
         }
@@ -447,11 +499,6 @@ impl<'a> BlockParser<'a> {
         if let Some(field) = self.plan.id {
             self.id(record.field(field), line, field)?;
         }
-        for (slot, &field) in self.plan.numeric.iter().enumerate() {
-            let value = parse_number(record.field(field), line, &mut self.out.slots[slot]);
-            self.out.values.push(value);
-        }
-        self.out.rows += 1;
         Ok(())
     }
 

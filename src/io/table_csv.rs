@@ -4,7 +4,6 @@
 //! overlapping. What comes out is the table's cells as read; [`crate::data::table`] makes
 //! the checked `Dataset` of them.
 
-use rustc_hash::FxHashMap as HashMap;
 use std::io::Read;
 use std::path::Path;
 use std::sync::mpsc::{Receiver, Sender};
@@ -13,10 +12,9 @@ use rayon::prelude::*;
 
 use super::csv_blocks::{BlockError, Blocks};
 use super::csv_source::{strip_bom, CsvFormat};
-use super::table_chunk::{parse_block, ChunkOut, SlotStats, NONE};
-use crate::data::origin::Origin;
+use super::table_chunk::{parse_block, ChunkOut};
+use super::table_merge::{Merged, Merger, Places};
 use crate::data::roles::{ColumnPlan, TableOptions};
-use crate::data::table::StringColumn;
 use crate::error::{Error, Location, Problem, Result};
 
 /// Target size of one parsed block. Large enough to amortise thread hand-off, small
@@ -24,35 +22,6 @@ use crate::error::{Error, Location, Problem, Result};
 pub(crate) const BLOCK_BYTES: usize = 4 << 20;
 /// A single record larger than this is refused instead of growing memory without bound.
 const MAX_RECORD_BYTES: usize = 64 << 20;
-
-/// The cells of a table as read, merged in file order; not yet checked as a whole.
-#[derive(Debug, Default)]
-pub(crate) struct Merged {
-    /// Data rows read.
-    pub(crate) rows: usize,
-    /// Row-major `rows × plan.numeric.len()`; NaN where a cell was not a number.
-    pub(crate) values: Vec<f64>,
-    /// Observed label per row, as a code into `names`.
-    pub(crate) labels: Vec<u32>,
-    /// Trusted label per row as a code into `names`, or [`NONE`].
-    pub(crate) trusted: Vec<u32>,
-    /// Origin of each row's trusted label (only when the plan has an origin column).
-    pub(crate) origins: Vec<Origin>,
-    /// Label strings in order of first appearance.
-    pub(crate) names: Vec<String>,
-    /// Rows × annotators label codes into `names` or [`NONE`] (only with annotators).
-    pub(crate) annotations: Vec<u32>,
-    /// Label source per row as a code into `source_names` (only with a source column).
-    pub(crate) sources: Vec<u32>,
-    /// Source strings in order of first appearance.
-    pub(crate) source_names: Vec<String>,
-    /// Ids, when the plan has an id column.
-    pub(crate) ids: StringColumn,
-    /// File line of each row (only kept when there is an id column).
-    pub(crate) row_lines: Vec<u64>,
-    /// What each numeric column looked like.
-    pub(crate) slots: Vec<SlotStats>,
-}
 
 /// Reads the whole table from `reader` in blocks of about `block_bytes`; `size_hint` (the
 /// file's length, when known) sizes the value buffer once. Returns the column plan
@@ -67,6 +36,17 @@ pub(crate) fn read_table<R: Read + Send>(
     TableReader::new(path, options, size_hint, block_bytes).run(reader)
 }
 
+/// The rows a file of `size` bytes holds, from the first block's density (plus 2 %).
+/// The size is only a hint (the file may change while it is read).
+fn estimated_rows(size: u64, first: &ChunkOut) -> usize {
+    let bytes_per_row = (first.bytes as f64 / first.rows as f64).max(2.0);
+    (size as f64 / bytes_per_row * 1.02) as usize + 16
+}
+
+fn no_header() -> Error {
+    Error::Internal("a CSV block was merged before the header was read".into())
+}
+
 /// Accumulates parsed blocks in file order.
 struct TableReader<'a> {
     path: &'a Path,
@@ -74,12 +54,10 @@ struct TableReader<'a> {
     delimiter: u8,
     size_hint: Option<u64>,
     block_bytes: usize,
-    lines_done: u64,
-    /// Label name → its code in `cells.names`.
-    codes: HashMap<String, u32>,
-    /// Source name → its code in `cells.source_names`.
-    source_codes: HashMap<String, u32>,
-    cells: Merged,
+    /// Lines up to the end of the header.
+    header_lines: u64,
+    /// Set once the header is read (it knows the numeric columns).
+    merger: Option<Merger<'a>>,
 }
 
 impl<'a> TableReader<'a> {
@@ -95,10 +73,8 @@ impl<'a> TableReader<'a> {
             options,
             delimiter: options.delimiter_for(path),
             size_hint,
-            lines_done: 0,
-            codes: HashMap::default(),
-            source_codes: HashMap::default(),
-            cells: Merged::default(),
+            header_lines: 0,
+            merger: None,
         }
     }
 
@@ -112,7 +88,9 @@ impl<'a> TableReader<'a> {
         };
         let (plan, first_data) = self.header(&first)?;
         drop(first);
-        self.cells.slots = vec![SlotStats::default(); plan.numeric.len()];
+        let mut merger = Merger::new(self.path, Places::Lines, plan.numeric.len());
+        merger.skip(self.header_lines);
+        self.merger = Some(merger);
         let per_batch = 2 * rayon::current_num_threads().max(1);
         let (sender, receiver) = std::sync::mpsc::sync_channel(per_batch);
         let (spare_sender, spares) = std::sync::mpsc::channel::<Vec<u8>>();
@@ -128,7 +106,8 @@ impl<'a> TableReader<'a> {
             });
             self.parse_batches(&plan, first_data, &receiver, &spare_sender)
         })?;
-        Ok((plan, self.cells))
+        let merger = self.merger.ok_or_else(no_header)?;
+        Ok((plan, merger.cells))
     }
 
     fn parse_batches(
@@ -195,7 +174,8 @@ impl<'a> TableReader<'a> {
                     "a single row is longer than {} MiB (a quote that never closes?)",
                     limit >> 20
                 );
-                self.at_line(self.lines_done + 1, Problem::Syntax { detail })
+                let done = self.merger.as_ref().map_or(self.header_lines, Merger::done);
+                self.at_line(done + 1, Problem::Syntax { detail })
             }
         }
     }
@@ -232,94 +212,19 @@ impl<'a> TableReader<'a> {
         }
         let plan = ColumnPlan::resolve(self.path, &header, self.options)?;
         let next = reader.position().clone();
-        self.lines_done = next.line() - 1;
+        self.header_lines = next.line() - 1;
         let rest = first[next.byte() as usize..].to_vec();
         Ok((plan, rest))
     }
 
     fn absorb(&mut self, out: ChunkOut, plan: &ColumnPlan) -> Result<()> {
-        let base = self.lines_done;
-        if let Some((line, field, problem)) = out.fatal {
-            let mut location = Location::line(self.path, base + line);
-            if let Some(field) = field {
-                location = location.at_column(field, &plan.header[field]);
+        let merger = self.merger.as_mut().ok_or_else(no_header)?;
+        if merger.cells.values.capacity() == 0 {
+            if let (Some(size), true) = (self.size_hint, out.rows > 0) {
+                merger.reserve_rows(estimated_rows(size, &out), plan);
             }
-            return Err(Error::input(location, problem));
         }
-        if self.cells.values.capacity() == 0 {
-            self.reserve(&out, plan);
-        }
-        let remap: Vec<u32> = out
-            .names
-            .into_iter()
-            .map(|name| self.global_code(name))
-            .collect();
-        self.cells
-            .labels
-            .extend(out.labels.iter().map(|&c| remap[c as usize]));
-        let optional = |c: u32| if c == NONE { NONE } else { remap[c as usize] };
-        self.cells
-            .trusted
-            .extend(out.trusted.iter().map(|&c| optional(c)));
-        self.cells
-            .annotations
-            .extend(out.annotations.iter().map(|&c| optional(c)));
-        self.cells.origins.extend_from_slice(&out.origins);
-        let source_remap: Vec<u32> = out
-            .source_names
-            .into_iter()
-            .map(|name| self.global_source_code(name))
-            .collect();
-        self.cells
-            .sources
-            .extend(out.sources.iter().map(|&c| source_remap[c as usize]));
-        self.cells.ids.append(&out.ids, &out.id_ends);
-        self.cells
-            .row_lines
-            .extend(out.row_lines.iter().map(|l| l + base));
-        self.cells.values.extend_from_slice(&out.values);
-        for (mine, theirs) in self.cells.slots.iter_mut().zip(&out.slots) {
-            mine.absorb(theirs, base);
-        }
-        self.cells.rows += out.rows;
-        self.lines_done += out.newlines;
-        Ok(())
-    }
-
-    /// Reserves the value buffer from the first block's density and the file size, so the
-    /// big array grows once instead of doubling (which would briefly need 1.5–2× memory).
-    /// The size is only a hint (the file may change while it is read, a stream may not
-    /// know its length): when the reservation fails the buffer just grows as it fills.
-    fn reserve(&mut self, out: &ChunkOut, plan: &ColumnPlan) {
-        let (Some(size), true) = (self.size_hint, out.rows > 0) else {
-            return;
-        };
-        let bytes_per_row = (out.bytes as f64 / out.rows as f64).max(2.0);
-        let est_rows = (size as f64 / bytes_per_row * 1.02) as usize + 16;
-        let _ = self
-            .cells
-            .values
-            .try_reserve_exact(est_rows.saturating_mul(plan.numeric.len()));
-    }
-
-    fn global_code(&mut self, name: String) -> u32 {
-        if let Some(&code) = self.codes.get(&name) {
-            return code;
-        }
-        let code = self.cells.names.len() as u32;
-        self.codes.insert(name.clone(), code);
-        self.cells.names.push(name);
-        code
-    }
-
-    fn global_source_code(&mut self, name: String) -> u32 {
-        if let Some(&code) = self.source_codes.get(&name) {
-            return code;
-        }
-        let code = self.cells.source_names.len() as u32;
-        self.source_codes.insert(name.clone(), code);
-        self.cells.source_names.push(name);
-        code
+        merger.absorb(out, plan)
     }
 
     fn whole_file(&self, problem: Problem) -> Error {

@@ -14,7 +14,9 @@ use rustc_hash::FxHashMap;
 
 use crate::data::origin::Origin;
 use crate::data::Dataset;
+use crate::io::columnar::Format;
 use crate::io::review::{Verdict, KEEP};
+use crate::io::table_out::{CellKind, OutColumn, TableWriter};
 use crate::io::write_atomic;
 use crate::noise::scores::{RowScore, ScoreKind};
 
@@ -94,14 +96,27 @@ pub struct Item {
     pub slice: Slice,
 }
 
-/// Where the key of the worklist `worklist` goes: `w.csv` → `w.key.csv`.
+/// The kind of each of flipmend's own worklist and key columns.
+fn kind_of(column: &str) -> CellKind {
+    match column {
+        "rank" | "row" | "item" => CellKind::Int,
+        "score" | "p_wrong" | "second_choice_prob" => CellKind::Float,
+        _ => CellKind::Text,
+    }
+}
+
+/// Where the key of the worklist `worklist` goes: `w.csv` → `w.key.csv`. The key of a
+/// Parquet worklist is CSV too (`w.key.csv`): `review` reads keys as text.
 pub fn key_path(worklist: &Path) -> PathBuf {
     let stem = worklist
         .file_stem()
         .map_or_else(|| "worklist".into(), |s| s.to_string_lossy().into_owned());
-    let extension = worklist
-        .extension()
-        .map_or_else(|| "csv".into(), |e| e.to_string_lossy().into_owned());
+    let extension = match Format::of(worklist) {
+        Format::Text => worklist
+            .extension()
+            .map_or_else(|| "csv".into(), |e| e.to_string_lossy().into_owned()),
+        _ => "csv".into(),
+    };
     worklist.with_file_name(format!("{stem}.key.{extension}"))
 }
 
@@ -119,12 +134,16 @@ pub fn write_worklist_files(
         let mut ranked = items.to_vec();
         ranked.sort_by_key(|i| i.rank);
         let ranked: Vec<RowScore> = ranked.iter().map(|i| i.score).collect();
-        write_atomic(path, |w| write_worklist(w, data, kind, &ranked, extras))?;
+        let format = Format::of(path);
+        write_atomic(path, |w| {
+            write_worklist(w, format, data, kind, &ranked, extras)
+        })?;
         return Ok(None);
     }
     let key = key_path(path);
     write_atomic(&key, |w| write_key(w, data, kind, items))?;
-    write_atomic(path, |w| write_blind(w, data, items, extras))?;
+    let format = Format::of(path);
+    write_atomic(path, |w| write_blind(w, format, data, items, extras))?;
     Ok(Some(key))
 }
 
@@ -168,20 +187,21 @@ pub const SOURCE_COLUMN: &str = "source";
 /// The header: `own` columns, [`SOURCE_COLUMN`] when the table names a source column,
 /// then with `with_features` the feature names (a feature whose name is one of those
 /// gets the prefix `data_`).
-fn header(own: &[&str], data: &Dataset, with_features: bool) -> Vec<String> {
-    let mut header: Vec<String> = own.iter().map(|c| c.to_string()).collect();
+fn header(own: &[&str], data: &Dataset, with_features: bool) -> Vec<OutColumn> {
+    let mut header: Vec<OutColumn> = own.iter().map(|c| OutColumn::new(*c, kind_of(c))).collect();
     if data.sources.is_some() {
-        header.push(SOURCE_COLUMN.to_string());
+        header.push(OutColumn::new(SOURCE_COLUMN, CellKind::Text));
     }
     if with_features {
         for name in &data.feature_names {
             let clash =
                 own.contains(&name.as_str()) || (data.sources.is_some() && name == SOURCE_COLUMN);
-            header.push(if clash {
+            let name = if clash {
                 format!("data_{name}")
             } else {
                 name.clone()
-            });
+            };
+            header.push(OutColumn::new(name, CellKind::Float));
         }
     }
     header
@@ -189,7 +209,8 @@ fn header(own: &[&str], data: &Dataset, with_features: bool) -> Vec<String> {
 
 /// Writes the ranked rows (the ranked form).
 pub fn write_worklist(
-    out: &mut dyn Write,
+    out: &mut (dyn Write + Send),
+    format: Format,
     data: &Dataset,
     kind: ScoreKind,
     ranked: &[RowScore],
@@ -197,8 +218,7 @@ pub fn write_worklist(
 ) -> std::io::Result<()> {
     let with_features = extras.with_features;
     let reviews = extras.review_cells(data);
-    let mut w = csv::Writer::from_writer(out);
-    w.write_record(header(&WORKLIST_COLUMNS, data, with_features))?;
+    let mut w = TableWriter::new(out, format, &header(&WORKLIST_COLUMNS, data, with_features))?;
     let mut record: Vec<String> = Vec::with_capacity(WORKLIST_COLUMNS.len());
     for (i, s) in ranked.iter().enumerate() {
         record.clear();
@@ -212,9 +232,9 @@ pub fn write_worklist(
         if with_features {
             record.extend(data.features.row(s.row).iter().map(|v| v.to_string()));
         }
-        w.write_record(&record)?;
+        w.row(&record)?;
     }
-    w.flush()
+    w.finish()
 }
 
 /// The row's source name, when the table has a source column.
@@ -239,15 +259,15 @@ fn push_verdict(record: &mut Vec<String>, data: &Dataset, kind: ScoreKind, s: &R
 /// Writes `items` in their order with nothing that tells a control row from a suspect
 /// (the blind form).
 pub fn write_blind(
-    out: &mut dyn Write,
+    out: &mut (dyn Write + Send),
+    format: Format,
     data: &Dataset,
     items: &[Item],
     extras: Extras,
 ) -> std::io::Result<()> {
     let with_features = extras.with_features;
     let reviews = extras.review_cells(data);
-    let mut w = csv::Writer::from_writer(out);
-    w.write_record(header(&BLIND_COLUMNS, data, with_features))?;
+    let mut w = TableWriter::new(out, format, &header(&BLIND_COLUMNS, data, with_features))?;
     let mut record: Vec<String> = Vec::with_capacity(BLIND_COLUMNS.len());
     for (i, item) in items.iter().enumerate() {
         let row = item.score.row;
@@ -258,9 +278,9 @@ pub fn write_blind(
         if with_features {
             record.extend(data.features.row(row).iter().map(|v| v.to_string()));
         }
-        w.write_record(&record)?;
+        w.row(&record)?;
     }
-    w.flush()
+    w.finish()
 }
 
 /// Starts `record` with the item's number (1-based), its data row and its id: the first
@@ -274,22 +294,25 @@ fn start_item(record: &mut Vec<String>, data: &Dataset, i: usize, row: usize) {
 
 /// Writes the key of a blind worklist: each item's slice, rank and verdict.
 pub fn write_key(
-    out: &mut dyn Write,
+    out: &mut (dyn Write + Send),
     data: &Dataset,
     kind: ScoreKind,
     items: &[Item],
 ) -> std::io::Result<()> {
-    let mut w = csv::Writer::from_writer(out);
-    w.write_record(KEY_COLUMNS)?;
+    let columns: Vec<OutColumn> = KEY_COLUMNS
+        .iter()
+        .map(|c| OutColumn::new(*c, kind_of(c)))
+        .collect();
+    let mut w = TableWriter::new(out, Format::Text, &columns)?;
     let mut record: Vec<String> = Vec::with_capacity(KEY_COLUMNS.len());
     for (i, item) in items.iter().enumerate() {
         start_item(&mut record, data, i, item.score.row);
         record.push(item.slice.name().to_string());
         record.push(item.rank.to_string());
         push_verdict(&mut record, data, kind, &item.score);
-        w.write_record(&record)?;
+        w.row(&record)?;
     }
-    w.flush()
+    w.finish()
 }
 
 #[cfg(test)]
@@ -304,6 +327,7 @@ mod tests {
         );
         assert_eq!(key_path(Path::new("w.tsv")), PathBuf::from("w.key.tsv"));
         assert_eq!(key_path(Path::new("list")), PathBuf::from("list.key.csv"));
+        assert_eq!(key_path(Path::new("w.parquet")), PathBuf::from("w.key.csv"));
     }
 
     #[test]

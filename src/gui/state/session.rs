@@ -177,7 +177,7 @@ impl AppState {
     /// Writes a file on a worker, atomically, never over an input.
     pub(super) fn save_job<F>(&mut self, path: PathBuf, inputs: Vec<PathBuf>, write: F)
     where
-        F: FnOnce(&mut dyn std::io::Write) -> std::io::Result<()> + Send + 'static,
+        F: FnOnce(&mut (dyn std::io::Write + Send)) -> std::io::Result<()> + Send + 'static,
     {
         let kind = self.next_save();
         self.spawn_on_data(kind, move |_| {
