@@ -10,6 +10,7 @@ use clap::Args;
 use super::args::TableArgs;
 use crate::data::Dataset;
 use crate::error::Result;
+use crate::io::merged_columnar::check_merged_target;
 use crate::io::review::{write_merged, Key};
 use crate::io::{check_not_input, write_atomic, write_json};
 use crate::workflow::review::{key_file_for, read_reviewed, ReviewSummary, SliceResult};
@@ -47,6 +48,7 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
         check_not_input(output, &inputs)?;
     }
     let data = args.table.load()?;
+    check_merged_target(&data, &args.out)?;
     let read = read_reviewed(&data, &args.worklist, args.key.as_deref())?;
     let delimiter = args.table.options().delimiter_for(&args.table.data);
     write_atomic(&args.out, |w| {

@@ -10,7 +10,7 @@ use std::sync::mpsc::{channel, Receiver, Sender};
 pub enum Purpose {
     /// A labelled table to load.
     OpenData,
-    /// A probability file (CSV or .npy).
+    /// A probability file (CSV, .npy, Parquet or Arrow IPC).
     OpenProbabilities,
     /// A matrix CSV to import.
     ImportMatrix,
@@ -51,13 +51,23 @@ impl Purpose {
     /// The file name a save dialog proposes, and the extensions it filters on.
     fn file(self) -> (&'static str, &'static [&'static str]) {
         match self {
-            Purpose::OpenData | Purpose::OpenTest => ("data.csv", &["csv", "tsv", "txt"]),
-            Purpose::OpenProbabilities => ("probs.csv", &["csv", "tsv", "npy"]),
+            Purpose::OpenData | Purpose::OpenTest => (
+                "data.csv",
+                &[
+                    "csv", "tsv", "txt", "parquet", "pq", "feather", "arrow", "ipc",
+                ],
+            ),
+            Purpose::OpenProbabilities => (
+                "probs.csv",
+                &[
+                    "csv", "tsv", "npy", "parquet", "pq", "feather", "arrow", "ipc",
+                ],
+            ),
             Purpose::ImportMatrix | Purpose::ExportMatrix => ("flip-matrix.csv", &["csv"]),
-            Purpose::ExportWorklist => ("worklist.csv", &["csv"]),
+            Purpose::ExportWorklist => ("worklist.csv", &["csv", "parquet"]),
             Purpose::ImportReview => ("worklist.csv", &["csv"]),
             Purpose::ExportVerdicts => ("worklist-reviewed.csv", &["csv"]),
-            Purpose::SaveMerged => ("data-reviewed.csv", &["csv", "tsv"]),
+            Purpose::SaveMerged => ("data-reviewed.csv", &["csv", "tsv", "parquet"]),
             Purpose::SaveModel => ("model.json", &["json"]),
             Purpose::OpenSession | Purpose::SaveSession => ("session.json", &["json"]),
         }

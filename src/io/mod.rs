@@ -8,6 +8,7 @@ pub mod columnar;
 pub(crate) mod csv_blocks;
 pub mod csv_source;
 pub mod matrix_csv;
+pub mod merged_columnar;
 pub mod model;
 pub mod npy;
 pub mod number;

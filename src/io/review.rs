@@ -177,13 +177,17 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
 /// new last column `trusted` when the data has none) and its origin into the origin
 /// column (`trusted_origin`, added likewise). A row that already had a trusted label keeps
 /// its origin: it was chosen by that audit, not by this review. Every other cell is
-/// copied as read.
+/// copied as read. A Parquet or Arrow IPC table's copy is Parquet
+/// ([`crate::io::merged_columnar`]).
 pub fn write_merged(
-    out: &mut dyn Write,
+    out: &mut (dyn Write + Send),
     data: &Dataset,
     delimiter: u8,
     review: &Review,
 ) -> std::io::Result<()> {
+    if crate::io::columnar::Format::of(&data.path).is_columnar() {
+        return crate::io::merged_columnar::write_merged_columnar(out, data, review);
+    }
     let file = std::fs::File::open(&data.path)?;
     let mut rdr = CsvFormat { delimiter }.reader(file);
     let mut w = csv::WriterBuilder::new()

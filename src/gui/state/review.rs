@@ -2,6 +2,7 @@
 //! writing the data with the reviewed labels.
 
 use super::*;
+use crate::io::merged_columnar::check_merged_target;
 use crate::io::review::write_merged;
 use crate::io::worklist::{key_path, write_worklist_files, Extras, Item};
 use crate::io::{check_not_input, write_atomic};
@@ -107,6 +108,7 @@ impl AppState {
         self.spawn_on_data(kind, move |_| {
             let inputs: Vec<&Path> = all_inputs.iter().map(PathBuf::as_path).collect();
             check_not_input(&target, &inputs).map_err(fail)?;
+            check_merged_target(&data, &target).map_err(fail)?;
             write_atomic(&target, |w| {
                 write_merged(w, &data, delimiter, &review.review)
             })
