@@ -104,8 +104,8 @@ pub struct UiState {
     /// The Overview's summary and the fingerprint of what it was computed from (summing
     /// every row's spread each frame would cost milliseconds on a million rows).
     pub(crate) overview: Option<(u64, Arc<crate::workflow::overview::Overview>)>,
-    /// The review yield curve's points and the hash of the inputs they were drawn from.
-    pub yield_cache: Option<(u64, Vec<[f64; 2]>)>,
+    /// The review yield plot's figures and the hash of the inputs they were drawn from.
+    pub(crate) yield_cache: Option<(u64, crate::gui::views::yield_plot::YieldFigures)>,
 }
 
 impl UiState {
