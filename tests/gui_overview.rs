@@ -1,6 +1,7 @@
 //! The Overview view driven headless with egui_kittest: shown first once data are
 //! loaded, its flips are the matrix's largest off-diagonal cells, every number opens the
-//! view that explains it, and the expected yield is the sum of the top rows' p_wrong.
+//! view that explains it, and the expected yield is the sum of p_wrong over the suspects
+//! a worklist lists, the same figure as the Suspects view's yield plot.
 //! Expected values are computed here from the app state, not taken from the view's code.
 #![cfg(feature = "gui")]
 
@@ -14,6 +15,7 @@ use flipmend::gui::app::{FlipmendApp, View};
 use flipmend::gui::command::Command;
 use flipmend::gui::jobs::JobKind;
 use flipmend::io::session::Roles;
+use flipmend::workflow::worklist::split_budget;
 
 use common::app::{app, app_on_demo_as, settle, state};
 
@@ -133,7 +135,7 @@ fn after_a_load_the_overview_lists_the_largest_flips_and_they_open_their_suspect
 }
 
 #[test]
-fn the_yield_is_the_top_rows_p_wrong_sum_and_each_number_opens_its_view() {
+fn the_yield_is_the_listed_suspects_p_wrong_sum_and_each_number_opens_its_view() {
     let dir = tempfile::tempdir().unwrap();
     let roles = Roles {
         source: Some("station".into()),
@@ -141,18 +143,20 @@ fn the_yield_is_the_top_rows_p_wrong_sum_and_each_number_opens_its_view() {
     };
     let mut h = app_on_demo(dir.path(), roles);
     assert_eq!(h.state().ui.view(), View::Overview);
-    // The expected yield: Σ p_wrong over the top `budget` ranked rows.
+    // The expected yield: Σ p_wrong over the suspects a worklist lists, the top rows of
+    // the ranking up to the budget less its control rows.
     let s = state(&h);
-    let budget = s.settings().budget;
+    let (suspects, _) = split_budget(s.settings().budget, s.settings().control);
     let ranking = s.ranking().unwrap();
-    let expected: f64 = ranking.ranked[..budget]
+    let expected: f64 = ranking.ranked[..suspects]
         .iter()
         .map(|r| ranking.kind.probability(r.score).unwrap())
         .sum();
     let text = format!(
-        "Reviewing the top {budget} rows should find about {} errors",
+        "Reviewing the {suspects} suspects a worklist lists should find about {} errors",
         expected.round()
     );
+    h.get_by_label(&text);
     // The headline count with its interval, once the bootstrap is in.
     h.get_by_label_contains("are probably mislabelled (an estimate)");
     let interval = labels(&h, "90 % interval:");
@@ -205,15 +209,40 @@ fn the_yield_is_the_top_rows_p_wrong_sum_and_each_number_opens_its_view() {
     h.run_steps(2);
     assert_eq!(h.state().ui.view(), View::Sources);
 
-    // The yield opens the Suspects view on the whole ranking (filters cleared).
+    // Under a filter the yield is of the worklist the Suspects view would export now:
+    // the filtered table's top rows. Its link keeps the filter, and the yield plot
+    // there shows the same figure.
     let mut filtered = state(&h).settings().clone();
-    filtered.observed_filter = Some(state(&h).data().unwrap().classes[0].clone());
+    let class = state(&h).data().unwrap().classes[0].clone();
+    filtered.observed_filter = Some(class.clone());
     h.state_mut().push(Command::Settings(filtered));
     go_overview(&mut h);
+    let (rows, expected) = {
+        let s = state(&h);
+        let (data, ranking) = (s.data().unwrap(), s.ranking().unwrap());
+        let of_class: Vec<f64> = ranking
+            .ranked
+            .iter()
+            .filter(|r| data.classes[data.labels[r.row]] == class)
+            .take(suspects)
+            .map(|r| ranking.kind.probability(r.score).unwrap())
+            .collect();
+        (of_class.len(), of_class.iter().sum::<f64>())
+    };
+    let text = format!(
+        "Reviewing the {rows} suspects a worklist lists should find about {} errors",
+        expected.round()
+    );
+    h.get_by_label_contains("Only the rows the Suspects view's filters keep are listed.");
     h.get_by_label(&text).click();
     h.run_steps(2);
     assert_eq!(h.state().ui.view(), View::Suspects);
-    assert_eq!(state(&h).settings().observed_filter, None);
+    assert_eq!(state(&h).settings().observed_filter, Some(class));
+    h.get_by_label(&format!(
+        "expected wrong labels found by reviewing the first {rows} rows of the table (the \
+         suspects a worklist lists): about {}",
+        expected.round()
+    ));
 }
 
 /// "90 % interval: 868–1,207 rows (…" → (868, 1207).

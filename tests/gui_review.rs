@@ -48,14 +48,21 @@ fn a_clicked_suspect_is_judged_by_keys_and_the_estimate_follows() {
     // Click the top row by its id.
     h.get_by_label(&data.id(rows[0])).click();
     h.run_steps(2);
-    assert_eq!(h.state().ui.selected_row, Some(rows[0]));
+    assert_eq!(h.state().ui.selected_row(), Some(rows[0]));
     h.get_by_label("Keep (K)");
+    // A class chosen to compare the row with belongs to that row.
+    h.state_mut().ui.compare_with(data.classes.len() - 1);
     let matrix_before = state(&h).editor().unwrap().matrix().clone();
     // K keeps the label, and the inspector moves on; 2 relabels the next row as class 2
     // (or, when that is its own label, nothing happens and the row stays).
     h.key_press(Key::K);
     h.run_steps(2);
-    assert_eq!(h.state().ui.selected_row, Some(rows[1]));
+    assert_eq!(h.state().ui.selected_row(), Some(rows[1]));
+    assert_eq!(
+        h.state().ui.compare_class(),
+        None,
+        "the next row: its suggested class"
+    );
     let second_label = if data.labels[rows[1]] == 1 { 0 } else { 1 };
     h.key_press(if second_label == 1 {
         Key::Num2
@@ -139,7 +146,7 @@ fn a_round_hides_the_scores_and_its_control_rows_measure_what_the_list_missed() 
     // The first row of the round opens without flipmend's opinion.
     h.get_by_label("Next row to judge").click();
     h.run_steps(2);
-    assert_eq!(h.state().ui.selected_row, Some(round.rows[0].row));
+    assert_eq!(h.state().ui.selected_row(), Some(round.rows[0].row));
     assert!(h.query_by_label_contains("suggested:").is_none());
     // Judge every row: keep all but every third, which becomes class 0 (or 1).
     let data = state(&h).data().unwrap().clone();
@@ -270,7 +277,7 @@ fn the_table_sorts_by_a_column_and_finds_an_id() {
     h.run_steps(1);
     h.get_by_label("Find").click();
     h.run_steps(2);
-    assert_eq!(h.state().ui.selected_row, Some(wanted));
+    assert_eq!(h.state().ui.selected_row(), Some(wanted));
     assert!(h
         .query_by_label_contains(&format!("Row {wanted} ·"))
         .is_some());

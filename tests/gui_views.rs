@@ -113,9 +113,9 @@ fn the_compare_view_lists_the_changed_rows_and_a_click_opens_one() {
     h.get_by_label(&shown).scroll_to_me();
     h.run_steps(3);
     let row = changed[0];
-    assert_eq!(h.state().ui.selected_row, None);
+    assert_eq!(h.state().ui.selected_row(), None);
     h.get_by_label(&format!("row {row}")).click();
     h.run_steps(2);
-    assert_eq!(h.state().ui.selected_row, Some(row));
+    assert_eq!(h.state().ui.selected_row(), Some(row));
     assert_eq!(h.state().ui.view(), View::Suspects);
 }

@@ -84,15 +84,17 @@ pub struct UiState {
     pub model_choice: Option<usize>,
     /// The About panel is open.
     pub show_about: bool,
-    /// The data row (0-based) the row inspector shows; any view may set it (with
-    /// `view = Some(View::Suspects)`) to open a row there.
-    pub selected_row: Option<usize>,
+    /// The data row (0-based) the row inspector shows; any view may select one
+    /// ([`UiState::select_row`], with `view = Some(View::Suspects)`) to open it there.
+    /// Private so that every change of row goes through `select_row`.
+    selected_row: Option<usize>,
     /// The suspects table scrolls to the selected row on the next frame.
     pub scroll_to_selected: bool,
     /// The id typed in the suspects view's search box.
     pub id_search: String,
-    /// The class the inspector compares the row with (the suggested one until chosen).
-    pub compare_class: Option<usize>,
+    /// The class the inspector compares the selected row with (`None`: the row's
+    /// suggested class); chosen for one row, so a new selection clears it.
+    compare_class: Option<usize>,
     /// The data generation the UI last saw ([`AppState::data_generation`]): a newer one
     /// means a load succeeded, and the Overview is shown.
     pub seen_generation: u64,
@@ -102,8 +104,8 @@ pub struct UiState {
     /// The Overview's summary and the fingerprint of what it was computed from (summing
     /// every row's spread each frame would cost milliseconds on a million rows).
     pub(crate) overview: Option<(u64, Arc<crate::workflow::overview::Overview>)>,
-    /// The review yield curve's points and the hash of the inputs they were drawn from.
-    pub yield_cache: Option<(u64, Vec<[f64; 2]>)>,
+    /// The review yield plot's figures and the hash of the inputs they were drawn from.
+    pub(crate) yield_cache: Option<(u64, crate::gui::views::yield_plot::YieldFigures)>,
 }
 
 impl UiState {
@@ -121,6 +123,30 @@ impl UiState {
     /// The typed path for `purpose`.
     pub fn path(&mut self, purpose: Purpose) -> &mut String {
         self.paths.entry(purpose).or_default()
+    }
+
+    /// The data row the row inspector shows.
+    pub fn selected_row(&self) -> Option<usize> {
+        self.selected_row
+    }
+
+    /// Selects `row` (or none). A class chosen to compare with belongs to the row it was
+    /// chosen for: another row starts again from its own suggested class.
+    pub fn select_row(&mut self, row: Option<usize>) {
+        if row != self.selected_row {
+            self.compare_class = None;
+        }
+        self.selected_row = row;
+    }
+
+    /// The class the inspector compares the selected row with, when one was chosen.
+    pub fn compare_class(&self) -> Option<usize> {
+        self.compare_class
+    }
+
+    /// Compares the selected row with `class` until another row is selected.
+    pub fn compare_with(&mut self, class: usize) {
+        self.compare_class = Some(class);
     }
 }
 
@@ -330,5 +356,28 @@ impl eframe::App for FlipmendApp {
 
     fn save(&mut self, storage: &mut dyn eframe::Storage) {
         eframe::set_value(storage, STORAGE_KEY, &self.persisted);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::UiState;
+
+    #[test]
+    fn a_class_chosen_to_compare_with_is_cleared_when_another_row_is_selected() {
+        let mut ui = UiState::default();
+        ui.select_row(Some(3));
+        ui.compare_with(2);
+        assert_eq!(ui.compare_class(), Some(2));
+        // The same row again (a second click on it) keeps the choice.
+        ui.select_row(Some(3));
+        assert_eq!(ui.compare_class(), Some(2));
+        // Another row starts from its own suggested class.
+        ui.select_row(Some(4));
+        assert_eq!((ui.selected_row(), ui.compare_class()), (Some(4), None));
+        // So does clearing the selection.
+        ui.compare_with(1);
+        ui.select_row(None);
+        assert_eq!((ui.selected_row(), ui.compare_class()), (None, None));
     }
 }

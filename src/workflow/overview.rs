@@ -1,7 +1,7 @@
 //! The few numbers a person wants first, before any table: how many rows are probably
 //! mislabelled (with a 90 % interval that says where it comes from), which classes and
-//! label sources are noisiest, the largest flips in words, and what reviewing the top of
-//! the ranking should find. Plain data, computed from what the estimate, the bootstrap,
+//! label sources are noisiest, the largest flips in words, and what reviewing the
+//! suspects a worklist lists should find. Plain data, computed from what the estimate, the bootstrap,
 //! the diagnostics and the ranking already hold; the app's Overview view draws it.
 //!
 //! Every figure is an estimate from a model, meant to direct qualified human review.
@@ -19,6 +19,7 @@ use ndarray::ArrayView2;
 
 use crate::learn::metrics::Z_90;
 use crate::noise::bootstrap::{Interval, SourceIntervals};
+use crate::noise::scores::{RowScore, ScoreKind};
 use crate::noise::sources::BySource;
 use crate::noise::Diagnostics;
 use crate::workflow::ranking::Ranking;
@@ -49,8 +50,10 @@ pub struct Inputs<'a> {
     pub ranking: Option<&'a Ranking>,
     /// Rows of the data.
     pub rows: usize,
-    /// Rows a reviewer will look at.
-    pub budget: usize,
+    /// The suspects a worklist would list now, each with its rank (the worklist head:
+    /// the budget less its control rows, through the filters), as
+    /// [`listed_head`](crate::workflow::worklist::listed_head) gives them.
+    pub listed: &'a [(RowScore, usize)],
 }
 
 /// The estimated number of mislabelled rows.
@@ -134,10 +137,11 @@ impl FlipCell {
     }
 }
 
-/// What reviewing the top of the ranking should find.
+/// What reviewing the suspects a worklist lists should find.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ReviewYield {
-    /// Rows reviewed: the budget, or fewer when fewer are ranked.
+    /// Rows reviewed: the listed suspects (control rows are drawn at random and not
+    /// counted).
     pub rows: usize,
     /// Expected wrong labels among them: Σ p_wrong.
     pub expected: f64,
@@ -175,7 +179,9 @@ pub fn summarize(inputs: &Inputs) -> Overview {
         noisiest_classes: noisiest_classes(&inputs),
         noisiest_sources: noisiest_sources(&inputs),
         largest_flips: largest_flips(&inputs),
-        review: inputs.ranking.and_then(|r| review_yield(r, inputs.budget)),
+        review: inputs
+            .ranking
+            .and_then(|r| worklist_yield(r.kind, inputs.listed)),
     }
 }
 
@@ -355,17 +361,26 @@ fn largest_flips(inputs: &Inputs) -> Vec<FlipCell> {
         .collect()
 }
 
-/// Σ p_wrong over the top `budget` ranked rows, with its binomial spread.
-fn review_yield(ranking: &Ranking, budget: usize) -> Option<ReviewYield> {
-    let top: Vec<f64> = p_wrong_in_rank_order(ranking)?.take(budget).collect();
-    let expected = *yield_curve(top.iter().copied()).last()?;
-    let half = Z_90 * binomial_spread(top.iter().copied());
+/// What reviewing the `listed` suspects (a worklist head, without its control rows)
+/// should find: Σ p_wrong over exactly those rows, with its binomial spread; none for
+/// the margin score. The one figure of the kind: the Overview and the Suspects view's
+/// yield plot both call it on the same rows, so they cannot disagree.
+pub fn worklist_yield(kind: ScoreKind, listed: &[(RowScore, usize)]) -> Option<ReviewYield> {
+    if !kind.is_probability() {
+        return None;
+    }
+    let p_wrong: Vec<f64> = listed
+        .iter()
+        .filter_map(|(s, _)| kind.probability(s.score))
+        .collect();
+    let expected = *yield_curve(p_wrong.iter().copied()).last()?;
+    let half = Z_90 * binomial_spread(p_wrong.iter().copied());
     Some(ReviewYield {
-        rows: top.len(),
+        rows: p_wrong.len(),
         expected,
         interval: [
             (expected - half).max(0.0),
-            (expected + half).min(top.len() as f64),
+            (expected + half).min(p_wrong.len() as f64),
         ],
     })
 }

@@ -44,7 +44,8 @@ pub fn read_reviewed(data: &Dataset, worklist: &Path, key: Option<&Path>) -> Res
         .as_deref()
         .map(|path| load_key(path, data))
         .transpose()?;
-    let summary = summarise(data, &mut review, key.as_ref());
+    // A file read without its key may have lost it: the note says what that costs.
+    let summary = summarise(data, &mut review, key.as_ref(), false);
     Ok(Reviewed {
         review,
         key_file,
@@ -119,7 +120,15 @@ pub struct ReviewSummary {
 
 /// Summarises `review` of `data`; with the worklist's `key`, the verdicts get their
 /// origins (control rows become [`Origin::Control`]) and the control slice is measured.
-pub fn summarise(data: &Dataset, review: &mut Review, key: Option<&Key>) -> ReviewSummary {
+/// `missing_key_expected` is true where a review has no key by nature (the app's
+/// verdicts given outside a round): the note that warns about a worklist read without
+/// its key is then left out, since there is no key to have lost.
+pub fn summarise(
+    data: &Dataset,
+    review: &mut Review,
+    key: Option<&Key>,
+    missing_key_expected: bool,
+) -> ReviewSummary {
     let mut notes = Vec::new();
     match key {
         Some(key) => {
@@ -130,6 +139,7 @@ pub fn summarise(data: &Dataset, review: &mut Review, key: Option<&Key>) -> Revi
                 ));
             }
         }
+        None if missing_key_expected => {}
         None => notes.push(
             "no key: every reviewed row counts as a reviewed suspect (chosen, not random), and \
              what the list missed is not measured"
@@ -236,7 +246,7 @@ mod tests {
         let key = read_key(key.as_bytes(), Path::new("k.csv"), &d).unwrap();
         let worklist = "row,review\n0,dog\n1,cat\n2,dog\n3,keep\n8,keep\n9,cat\n";
         let mut review = read_review(worklist.as_bytes(), Path::new("w.csv"), &d).unwrap();
-        let s = summarise(&d, &mut review, Some(&key));
+        let s = summarise(&d, &mut review, Some(&key), false);
         let listed = s.listed.unwrap();
         assert_eq!((listed.wrong.count, listed.wrong.of), (3, 4));
         assert!((listed.expected.unwrap() - 0.9).abs() < 1e-12);
@@ -260,11 +270,27 @@ mod tests {
             &d,
         )
         .unwrap();
-        let s = summarise(&d, &mut review, None);
+        let s = summarise(&d, &mut review, None, false);
         assert_eq!(s.listed.unwrap().wrong.count, 1);
         assert_eq!(s.control, None);
         assert_eq!(s.missed_errors, None);
+        assert_eq!(s.notes.len(), 1, "{:?}", s.notes);
         assert!(s.notes[0].starts_with("no key"));
+    }
+
+    #[test]
+    fn an_expected_missing_key_gives_no_note_but_the_same_figures() {
+        let d = data();
+        let worklist = "row,review\n0,dog\n5,keep\n";
+        let read = || read_review(worklist.as_bytes(), Path::new("w.csv"), &d).unwrap();
+        let noted = summarise(&d, &mut read(), None, false);
+        let expected = summarise(&d, &mut read(), None, true);
+        assert!(expected.notes.is_empty(), "{:?}", expected.notes);
+        let without_notes = ReviewSummary {
+            notes: Vec::new(),
+            ..noted
+        };
+        assert_eq!(expected, without_notes);
     }
 
     #[test]
@@ -277,13 +303,16 @@ mod tests {
             worklist.push_str(&format!("{r},keep\n"));
         }
         let key = read_key(key.as_bytes(), Path::new("k.csv"), &d).unwrap();
-        let mut review = read_review(worklist.as_bytes(), Path::new("w.csv"), &d).unwrap();
-        let s = summarise(&d, &mut review, Some(&key));
-        assert!(
-            s.notes.iter().any(|n| n.contains("too confident")),
-            "{:?}",
-            s.notes
-        );
+        let review = read_review(worklist.as_bytes(), Path::new("w.csv"), &d).unwrap();
+        // The flag only concerns a missing key: with one, the notes are the same.
+        for missing_key_expected in [false, true] {
+            let s = summarise(&d, &mut review.clone(), Some(&key), missing_key_expected);
+            assert!(
+                s.notes.iter().any(|n| n.contains("too confident")),
+                "{:?}",
+                s.notes
+            );
+        }
     }
 
     #[test]

@@ -11,6 +11,7 @@ use rand_chacha::ChaCha8Rng;
 
 use crate::io::worklist::{Item, Slice};
 use crate::noise::scores::RowScore;
+use crate::workflow::ranking::Ranking;
 
 /// Share of a worklist's budget given to control rows by default. A cost, not a
 /// measured optimum: at 5 % a budget of 500 buys 25 control rows, enough to tell an
@@ -33,6 +34,18 @@ pub fn split_budget(budget: usize, share: f64) -> (usize, usize) {
         0
     };
     (budget - control, control)
+}
+
+/// The suspects a worklist lists: the first `suspects` of `table` (positions in the
+/// ranking that pass the filters, in rank order), each with its 1-based rank among all
+/// rows. One function, so that the exported worklist, a review round and every figure
+/// of what reviewing them should find read the same rows.
+pub fn listed_head(ranking: &Ranking, table: &[u32], suspects: usize) -> Vec<(RowScore, usize)> {
+    table
+        .iter()
+        .take(suspects)
+        .map(|&p| (ranking.ranked[p as usize], p as usize + 1))
+        .collect()
 }
 
 /// `count` rows drawn uniformly without replacement from the rows in `0..rows` that are

@@ -9,7 +9,7 @@ use crate::io::{check_not_input, write_atomic};
 use crate::noise::scores::RowScore;
 use crate::workflow::ranking::Filter;
 use crate::workflow::review::read_reviewed;
-use crate::workflow::worklist::{split_budget, with_control};
+use crate::workflow::worklist::{listed_head, split_budget, with_control};
 
 impl AppState {
     pub(super) fn export_worklist(&mut self, path: PathBuf) {
@@ -69,13 +69,16 @@ impl AppState {
     pub(super) fn worklist_head(&self, ranking: &Ranking) -> (Vec<(RowScore, usize)>, usize) {
         let settings = &self.session.settings;
         let (suspects, control) = split_budget(settings.budget, settings.control);
-        let listed = self
-            .visible
-            .iter()
-            .take(suspects)
-            .map(|&i| (ranking.ranked[i as usize], i as usize + 1))
-            .collect();
-        (listed, control)
+        (listed_head(ranking, &self.visible, suspects), control)
+    }
+
+    /// The suspects a worklist exported now would list (none before a ranking): what the
+    /// Overview's and the yield plot's expected findings are summed over.
+    pub fn worklist_listed(&self) -> Vec<(RowScore, usize)> {
+        self.ranking
+            .as_ref()
+            .map(|ranking| self.worklist_head(ranking).0)
+            .unwrap_or_default()
     }
 
     pub(super) fn import_review(&mut self, path: PathBuf) {

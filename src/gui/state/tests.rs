@@ -205,3 +205,16 @@ fn a_probability_file_named_before_the_table_is_read_with_it() {
     let error = s.last_error().expect("the absent file is reported");
     assert!(error.contains("absent.csv"), "{error}");
 }
+
+#[test]
+fn verdicts_outside_a_round_are_summarised_without_the_missing_key_note() {
+    let dir = temp_dir();
+    let mut s = loaded(&dir);
+    // Row 0 is labelled c1 (every 10th label moved): a verdict of c0 changes it.
+    s.apply(Command::Verdict { row: 0, label: 0 });
+    s.apply(Command::Verdict { row: 1, label: 1 });
+    let summary = s.verdict_summary().expect("two verdicts");
+    assert_eq!((summary.reviewed, summary.changed), (2, 1));
+    assert!(summary.notes.is_empty(), "{:?}", summary.notes);
+    std::fs::remove_dir_all(dir).ok();
+}

@@ -240,11 +240,8 @@ impl AppState {
                 })
                 .collect(),
         });
-        let mut summary = summarise(data, &mut review, key.as_ref());
-        // Verdicts given outside a round have no key by nature; the general note about
-        // files without one would only confuse here.
-        summary.notes.retain(|n| !n.starts_with("no key"));
-        Some(summary)
+        // Verdicts given outside a round have no key by nature: a missing key is expected.
+        Some(summarise(data, &mut review, key.as_ref(), true))
     }
 
     /// A round from the worklist as it would be exported now: the budget's suspects

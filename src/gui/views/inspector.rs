@@ -15,11 +15,11 @@ use crate::noise::scores::RowScore;
 /// Classes reachable by a digit key (1–9).
 const DIGIT_CLASSES: usize = 9;
 
-/// Draws the inspector of `view.selected_row`, and reads the review keys.
+/// Draws the inspector of `view.selected_row()`, and reads the review keys.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
     let Some(data) = state.data() else { return };
     keys(ui, state, view, out);
-    let Some(row) = view.selected_row.filter(|&r| r < data.rows()) else {
+    let Some(row) = view.selected_row().filter(|&r| r < data.rows()) else {
         ui.heading("Row inspector");
         ui.label("Click a row of the table (or start a review round) to see why it is suspect and give a verdict.");
         shortcuts_help(ui);
@@ -175,13 +175,14 @@ fn sequence(state: &AppState, selected: Option<usize>) -> Sequence<'_> {
 /// Selects the row `step` places on (negative: back) from the selected one; with
 /// `unjudged`, skips rows that already have a verdict (in a round).
 pub fn move_selection(state: &AppState, view: &mut UiState, step: isize, unjudged: bool) {
-    let (len, at, row_at) = sequence(state, view.selected_row);
+    let (len, at, row_at) = sequence(state, view.selected_row());
     let skip_judged = unjudged && state.round().is_some();
     let mut i = at.map_or(0, |i| i as isize + step);
     while (0..len as isize).contains(&i) {
         let row = row_at(i as usize);
-        if !(skip_judged && state.verdicts().get(row).is_some() && Some(row) != view.selected_row) {
-            view.selected_row = Some(row);
+        if !(skip_judged && state.verdicts().get(row).is_some() && Some(row) != view.selected_row())
+        {
+            view.select_row(Some(row));
             view.scroll_to_selected = true;
             return;
         }
@@ -209,7 +210,7 @@ fn keys(ui: &egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Comma
     if pressed(egui::Key::R) {
         out.push(Command::RedoVerdict);
     }
-    let Some(row) = view.selected_row.filter(|&r| r < data.rows()) else {
+    let Some(row) = view.selected_row().filter(|&r| r < data.rows()) else {
         return;
     };
     if pressed(egui::Key::S) {
@@ -310,7 +311,7 @@ fn features(
     };
     let observed = data.labels[row];
     let other = view
-        .compare_class
+        .compare_class()
         .or(score.map(|s| s.suggested))
         .filter(|&c| c < data.classes.len());
     ui.horizontal(|ui| {
@@ -320,7 +321,7 @@ fn features(
             .show_ui(ui, |ui| {
                 for (c, name) in data.classes.iter().enumerate() {
                     if ui.selectable_label(other == Some(c), name).clicked() {
-                        view.compare_class = Some(c);
+                        view.compare_with(c);
                     }
                 }
             });

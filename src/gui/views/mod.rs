@@ -18,7 +18,7 @@ mod review_panel;
 mod sources;
 mod suspects;
 mod widgets;
-mod yield_plot;
+pub(crate) mod yield_plot;
 
 use eframe::egui;
 

@@ -16,6 +16,7 @@ use crate::gui::state::AppState;
 use crate::workflow::overview::{
     percent, percent_range, percent_with, FlipCell, Mislabelled, Overview,
 };
+use crate::workflow::worklist::split_budget;
 
 /// Draws the view.
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
@@ -38,7 +39,7 @@ pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut V
             sources(ui, &overview, view);
             flips(ui, state, &overview.largest_flips, view, out);
             estimator(ui, state);
-            next_step(ui, state, &overview, view, out);
+            next_step(ui, state, &overview, view);
             ui.add_space(8.0);
             ui.weak(
                 "Every number here is an estimate from a model, meant to direct qualified \
@@ -218,13 +219,7 @@ fn estimator(ui: &mut egui::Ui, state: &AppState) {
     }
 }
 
-fn next_step(
-    ui: &mut egui::Ui,
-    state: &AppState,
-    overview: &Overview,
-    view: &mut UiState,
-    out: &mut Vec<Command>,
-) {
+fn next_step(ui: &mut egui::Ui, state: &AppState, overview: &Overview, view: &mut UiState) {
     ui.add_space(6.0);
     ui.strong("Next step");
     let Some(y) = &overview.review else {
@@ -236,25 +231,40 @@ fn next_step(
         return;
     };
     let text = format!(
-        "Reviewing the top {} rows should find about {} errors",
+        "Reviewing the {} suspects a worklist lists should find about {} errors",
         count(y.rows as f64),
         count(y.expected)
     );
+    // The figure is of the worklist as the Suspects view would export it, filters and
+    // all, so the link keeps them.
     if ui.link(text).on_hover_text("Suspects view").clicked() {
-        to_top_of_ranking(state, view, out);
+        view.view = Some(View::Suspects);
     }
-    let control = if state.settings().control > 0.0 {
-        " A worklist gives part of the budget to control rows drawn at random; they are \
-         not counted here."
-    } else {
-        ""
-    };
     ui.weak(format!(
         "An estimate: {}–{} if the p_wrong are calibrated (90 % binomial spread). The \
-         budget is set in the Suspects view.{control}",
+         budget is set in the Suspects view.{}",
         count(y.interval[0]),
-        count(y.interval[1])
+        count(y.interval[1]),
+        worklist_note(state)
     ));
+}
+
+/// What the worklist figure leaves out: its control rows, and the rows the filters hide.
+fn worklist_note(state: &AppState) -> String {
+    let s = state.settings();
+    let (_, control) = split_budget(s.budget, s.control);
+    let mut note = String::new();
+    if control > 0 {
+        note += &format!(
+            " The worklist's other {control} rows are control rows drawn at random; they \
+             are not counted here."
+        );
+    }
+    let f = state.filter();
+    if f.observed.is_some() || f.suggested.is_some() || f.source.is_some() || f.min_score > 0.0 {
+        note += " Only the rows the Suspects view's filters keep are listed.";
+    }
+    note
 }
 
 /// The Suspects view on the whole ranking (the figures are of the unfiltered rows).

@@ -73,13 +73,18 @@ pub fn summary(state: &AppState, view: &mut UiState) -> Arc<Overview> {
         source_intervals: state.source_intervals().filter(|_| estimated),
         ranking: state.ranking().map(|r| r.as_ref()),
         rows: data.rows(),
-        budget: state.settings().budget,
+        listed: &[],
     };
     let key = fingerprint(state, &inputs);
     match &view.overview {
         Some((k, o)) if *k == key => o.clone(),
         _ => {
-            let o = Arc::new(summarize(&inputs));
+            // The worklist head is built only here: it holds up to a budget of rows.
+            let listed = state.worklist_listed();
+            let o = Arc::new(summarize(&Inputs {
+                listed: &listed,
+                ..inputs
+            }));
             view.overview = Some((key, o.clone()));
             o
         }
@@ -88,7 +93,8 @@ pub fn summary(state: &AppState, view: &mut UiState) -> Arc<Overview> {
 
 /// What the summary depends on, hashed: the data, the values of the matrix, of its
 /// intervals and of the sources' noise rates, the diagnostics' version, the ranking (its
-/// score, matrix version, length and sum) and the budget.
+/// score, matrix version, length and sum), and what picks the worklist head from it
+/// (budget, control share, filters, and the filtered rows' count).
 fn fingerprint(state: &AppState, inputs: &Inputs) -> u64 {
     let mut h = FxHasher::default();
     let mut floats = |values: &mut dyn Iterator<Item = f64>| {
@@ -110,7 +116,11 @@ fn fingerprint(state: &AppState, inputs: &Inputs) -> u64 {
         (r.matrix_version, r.ranked.len(), r.rows).hash(&mut h);
     }
     let diagnosed = state.diagnostics().map(|(_, v)| *v);
-    (state.data_generation(), diagnosed, inputs.budget).hash(&mut h);
+    (state.data_generation(), diagnosed).hash(&mut h);
+    let (settings, filter) = (state.settings(), state.filter());
+    (settings.budget, settings.control.to_bits()).hash(&mut h);
+    (filter.observed, filter.suggested, filter.source).hash(&mut h);
+    (filter.min_score.to_bits(), state.visible().len()).hash(&mut h);
     (inputs.interval.is_some(), inputs.source_intervals.is_some()).hash(&mut h);
     h.finish()
 }

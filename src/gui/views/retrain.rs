@@ -223,12 +223,12 @@ fn changed_rows(
                     let Some(&r) = c.holdout.get(i) else { return };
                     row.col(|ui| {
                         let open =
-                            ui.selectable_label(view.selected_row == Some(r), format!("row {r}"));
+                            ui.selectable_label(view.selected_row() == Some(r), format!("row {r}"));
                         if open
                             .on_hover_text("open this row in the Suspects view")
                             .clicked()
                         {
-                            view.selected_row = Some(r);
+                            view.select_row(Some(r));
                             view.view = Some(View::Suspects);
                         }
                     });

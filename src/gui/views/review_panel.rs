@@ -21,7 +21,7 @@ pub fn in_app(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut
             ));
             ui.horizontal(|ui| {
                 if ui.button("Next row to judge").clicked() {
-                    view.selected_row = None;
+                    view.select_row(None);
                     super::inspector::move_selection(state, view, 1, true);
                 }
                 if ui.button("End round").clicked() {
@@ -33,7 +33,7 @@ pub fn in_app(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut
             ui.label("A round takes the worklist (the budget, with its control share drawn at random) and shows its rows one by one, in a shuffled order, without flipmend's opinion.");
             if ui.button("Start review round").clicked() {
                 out.push(Command::StartRound);
-                view.selected_row = None;
+                view.select_row(None);
             }
         }
     }

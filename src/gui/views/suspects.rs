@@ -109,7 +109,7 @@ fn search(ui: &mut egui::Ui, state: &AppState, view: &mut UiState) {
                 .or_else(|| (0..data.rows()).find(|&r| data.id(r).starts_with(wanted)));
             match found {
                 Some(row) if !wanted.is_empty() => {
-                    view.selected_row = Some(row);
+                    view.select_row(Some(row));
                     view.scroll_to_selected = true;
                 }
                 _ => {
@@ -117,7 +117,7 @@ fn search(ui: &mut egui::Ui, state: &AppState, view: &mut UiState) {
                 }
             }
         }
-        if let Some(row) = view.selected_row {
+        if let Some(row) = view.selected_row() {
             if state.table_line(row).is_none() {
                 ui.weak(format!("row {row} is not in the filtered table"));
             }
@@ -335,7 +335,7 @@ fn table(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<
         .sense(egui::Sense::click());
     if std::mem::take(&mut view.scroll_to_selected) {
         let at = view
-            .selected_row
+            .selected_row()
             .and_then(|row| rows.iter().position(|&p| r.ranked[p as usize].row == row));
         if let Some(at) = at {
             builder = builder.scroll_to_row(at, Some(egui::Align::Center));
@@ -388,7 +388,7 @@ fn table(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<
             body.rows(18.0, rows.len(), |mut row| {
                 let position = rows[row.index()] as usize;
                 let s = &r.ranked[position];
-                row.set_selected(view.selected_row == Some(s.row));
+                row.set_selected(view.selected_row() == Some(s.row));
                 let verdict = state.verdicts().get(s.row).map_or(String::new(), |v| {
                     if v.label == data.labels[s.row] {
                         "keep".into()
@@ -421,7 +421,7 @@ fn table(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<
                     });
                 }
                 if row.response().clicked() {
-                    view.selected_row = Some(s.row);
+                    view.select_row(Some(s.row));
                 }
             });
         });

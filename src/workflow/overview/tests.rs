@@ -4,7 +4,8 @@
 use super::*;
 use crate::noise::posterior::Flip;
 use crate::noise::scores::ScoreKind;
-use crate::workflow::ranking::rank_rows;
+use crate::workflow::ranking::{filter_rows, rank_rows, Filter};
+use crate::workflow::worklist::{listed_head, split_budget};
 use ndarray::{array, Array2};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -40,7 +41,7 @@ fn inputs<'a>(classes: &'a [String], matrix: &'a Array2<f64>, rows: usize) -> In
         source_intervals: None,
         ranking: None,
         rows,
-        budget: 500,
+        listed: &[],
     }
 }
 
@@ -205,7 +206,9 @@ fn with_a_ranking_the_count_is_its_p_wrong_sum_and_the_spread_adds_in_quadrature
     i.ranking = Some(&ranking);
     i.diagnostics = Some(&d);
     i.interval = Some(&band);
-    i.budget = 2;
+    let table: Vec<u32> = (0..3).collect();
+    let top_two = listed_head(&ranking, &table, 2);
+    i.listed = &top_two;
     let o = summarize(&i);
     let m = o.mislabelled.unwrap();
     assert!(
@@ -223,8 +226,91 @@ fn with_a_ranking_the_count_is_its_p_wrong_sum_and_the_spread_adds_in_quadrature
     assert_eq!(review.rows, 2);
     assert!((review.expected - 1.4).abs() < 1e-6);
     // A budget beyond the rows reviews them all.
-    i.budget = 10;
+    let all = listed_head(&ranking, &table, 10);
+    i.listed = &all;
     assert_eq!(summarize(&i).review.unwrap().rows, 3);
+}
+
+/// Eight rows of two classes scored by self-confidence, p_wrong = 1 − p(observed):
+/// rows 0–4 observed as class 0 with p_wrong 0.9, 0.2, 0.7, 0.5, 0.05; rows 5–7 as
+/// class 1 with 0.95, 0.8, 0.1.
+fn eight_rows() -> (Ranking, Vec<usize>) {
+    let p_wrong = [0.9f32, 0.2, 0.7, 0.5, 0.05, 0.95, 0.8, 0.1];
+    let labels = vec![0, 0, 0, 0, 0, 1, 1, 1];
+    let mut probs = Array2::<f32>::zeros((8, 2));
+    for (r, (&p, &l)) in p_wrong.iter().zip(&labels).enumerate() {
+        probs[[r, l]] = 1.0 - p;
+        probs[[r, 1 - l]] = p;
+    }
+    let eye = Array2::eye(2);
+    let ranking = rank_rows(
+        probs.view(),
+        &labels,
+        Flip::noisy(&eye),
+        ScoreKind::SelfConfidence,
+        0,
+    );
+    (ranking, labels)
+}
+
+/// The worklist head of `eight_rows` with only class 0 shown, a budget of 4 and a
+/// quarter of it for control rows: the filtered table and the head.
+fn filtered_head(ranking: &Ranking, labels: &[usize]) -> (Vec<u32>, Vec<(RowScore, usize)>) {
+    let filter = Filter {
+        observed: Some(0),
+        suggested: None,
+        source: None,
+        min_score: 0.0,
+    };
+    let table = filter_rows(ranking, labels, None, &filter);
+    let (suspects, control) = split_budget(4, 0.25);
+    assert_eq!((suspects, control), (3, 1));
+    let head = listed_head(ranking, &table, suspects);
+    (table, head)
+}
+
+#[test]
+fn the_overview_and_the_yield_plot_get_the_same_figure_from_the_worklist_head() {
+    let (ranking, labels) = eight_rows();
+    let (table, head) = filtered_head(&ranking, &labels);
+    // The Overview's route: the summary of inputs holding the head.
+    let classes = names(2);
+    let t = array![[0.9, 0.1], [0.2, 0.8]];
+    let mut i = inputs(&classes, &t, 8);
+    i.ranking = Some(&ranking);
+    i.listed = &head;
+    let overview = summarize(&i).review.unwrap();
+    // The yield plot's route: the head itself, and its curve over the filtered table.
+    let plot = worklist_yield(ranking.kind, &head).unwrap();
+    assert_eq!(overview, plot);
+    let curve = yield_curve(
+        table
+            .iter()
+            .filter_map(|&p| ranking.kind.probability(ranking.ranked[p as usize].score)),
+    );
+    assert!((curve[head.len()] - plot.expected).abs() < 1e-12);
+    // Not the whole budget over the whole ranking (0.95 + 0.9 + 0.8 + 0.7), as the
+    // Overview once counted.
+    assert!((plot.expected - 3.35).abs() > 1.0);
+}
+
+#[test]
+fn the_worklist_figure_is_the_p_wrong_sum_of_its_listed_rows() {
+    let (ranking, labels) = eight_rows();
+    let (_, head) = filtered_head(&ranking, &labels);
+    // By hand: class 0's rows by p_wrong are 0 (0.9), 2 (0.7), 3 (0.5), 1, 4; the budget
+    // of 4 less 1 control row lists the first three, ranked 2nd, 4th and 5th of all.
+    let rows: Vec<(usize, usize)> = head.iter().map(|(s, rank)| (s.row, *rank)).collect();
+    assert_eq!(rows, [(0, 2), (2, 4), (3, 5)]);
+    let y = worklist_yield(ranking.kind, &head).unwrap();
+    assert_eq!(y.rows, 3);
+    assert!((y.expected - 2.1).abs() < 1e-6, "{}", y.expected);
+    // Binomial variance 0.09 + 0.21 + 0.25 = 0.55.
+    let half = Z_90 * 0.55f64.sqrt();
+    assert!((y.interval[0] - (2.1 - half)).abs() < 1e-6);
+    assert!((y.interval[1] - (2.1 + half).min(3.0)).abs() < 1e-6);
+    // The margin score gives no probability, so no figure, even for the same rows.
+    assert_eq!(worklist_yield(ScoreKind::Margin, &head), None);
 }
 
 #[test]
@@ -285,6 +371,8 @@ fn nothing_to_summarise_gives_empty_parts_not_a_panic() {
     let mut i = inputs(&classes, &t, 2);
     i.ranking = Some(&r);
     i.diagnostics = Some(&d);
+    let head = listed_head(&r, &[0, 1], 2);
+    i.listed = &head;
     let o = summarize(&i);
     assert!(o.review.is_none() && p_wrong_in_rank_order(&r).is_none());
     assert!((o.mislabelled.unwrap().rows - 0.7).abs() < 1e-12);
