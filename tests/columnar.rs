@@ -188,3 +188,49 @@ fn a_missing_class_column_in_parquet_probabilities_is_named() {
         ],
     );
 }
+
+#[test]
+fn a_reviewed_parquet_worklist_reads_like_its_csv_and_locates_bad_cells_by_row() {
+    use flipmend::io::review::{load_review, read_review};
+    let data = load("good.csv"); // r1 cat, r2 dog, r3 cat, r4 bird, …
+    let dir = TempDir::new();
+    let rows = [
+        ["0", "r1", "cat", "dog"],
+        ["2", "r3", "cat", "keep"],
+        ["3", "r4", "bird", ""],
+    ];
+    let write = |name: &str, rows: &[[&str; 4]]| {
+        let columns = [
+            OutColumn::new("row", CellKind::Int),
+            OutColumn::new("id", CellKind::Text),
+            OutColumn::new("observed", CellKind::Text),
+            OutColumn::new("review", CellKind::Text),
+        ];
+        let mut bytes = Vec::new();
+        let mut writer = TableWriter::new(&mut bytes, Format::Parquet, &columns).unwrap();
+        rows.iter().for_each(|r| writer.row(r).unwrap());
+        writer.finish().unwrap();
+        let path = dir.path(name);
+        std::fs::write(&path, bytes).unwrap();
+        path
+    };
+    let parquet = write("w.parquet", &rows);
+    let mut csv = String::from("row,id,observed,review\n");
+    rows.iter()
+        .for_each(|r| csv.push_str(&format!("{}\n", r.join(","))));
+    let from_parquet = load_review(&parquet, &data).unwrap();
+    let from_csv = read_review(csv.as_bytes(), Path::new("w.csv"), &data).unwrap();
+    assert_eq!(from_parquet.verdicts.len(), 2);
+    let pairs = |r: &flipmend::io::review::Review| -> Vec<(usize, usize)> {
+        r.verdicts.iter().map(|v| (v.row, v.label)).collect()
+    };
+    assert_eq!(pairs(&from_parquet), pairs(&from_csv));
+    assert_eq!(from_parquet.not_reviewed, from_csv.not_reviewed);
+
+    let bad = write("bad.parquet", &[rows[0], ["2", "r3", "cat", "nonsense"]]);
+    let message = load_review(&bad, &data).unwrap_err().to_string();
+    assert!(
+        message.contains("bad.parquet, row 1, column 4 'review'"),
+        "{message}"
+    );
+}

@@ -204,6 +204,77 @@ pub(crate) fn unreadable(path: &Path, format: Format, detail: impl ToString) -> 
     )
 }
 
+/// A columnar file's whole table as CSV text (every column, nulls empty, numbers in
+/// their shortest round-trip form), for readers of small hand-edited files (a reviewed
+/// worklist) that parse CSV records. Line `n` of the text is the file's row `n − 2`
+/// ([`row_of_line`]).
+pub(crate) fn as_csv_text(path: &Path, format: Format) -> Result<Vec<u8>> {
+    let file = ColumnarFile::open(path, format)?;
+    let header = file.header();
+    let fields: Vec<usize> = (0..header.len()).collect();
+    let mut out = csv::Writer::from_writer(Vec::new());
+    let csv_error = |e: csv::Error| Error::Internal(format!("CSV text in memory: {e}"));
+    out.write_record(&header).map_err(csv_error)?;
+    let mut write = |batch: RecordBatch| -> Result<()> {
+        let cells: Vec<Vec<String>> = batch
+            .columns()
+            .iter()
+            .map(|column| column_as_text(column.as_ref()))
+            .collect();
+        for row in 0..batch.num_rows() {
+            out.write_record(cells.iter().map(|c| c[row].as_str()))
+                .map_err(csv_error)?;
+        }
+        Ok(())
+    };
+    match file.known_parts() {
+        Some(groups) => {
+            for group in 0..groups {
+                file.read_row_group(group, &fields)?
+                    .into_iter()
+                    .try_for_each(&mut write)?;
+            }
+        }
+        None => {
+            for batch in file.ipc_batches(&fields)? {
+                write(batch?)?;
+            }
+        }
+    }
+    out.into_inner()
+        .map_err(|e| Error::Internal(format!("CSV text in memory: {e}")))
+}
+
+/// A column's cells as text: text-like columns as they read, numbers in shortest form.
+fn column_as_text(array: &dyn arrow_array::Array) -> Vec<String> {
+    if let Some(text) = super::arrow_cells::Text::of(array) {
+        let mut buf = Vec::new();
+        return (0..array.len())
+            .map(|i| {
+                text.cell(i, &mut buf);
+                String::from_utf8_lossy(&buf).into_owned()
+            })
+            .collect();
+    }
+    let mut cells = vec![String::new(); array.len()];
+    super::arrow_cells::for_each_number(array, |i, v| cells[i] = v.to_string());
+    cells
+}
+
+/// Turns a location on a line of [`as_csv_text`]'s text back into the file's row.
+pub(crate) fn row_of_line(error: Error) -> Error {
+    match error {
+        Error::Input(mut input) => {
+            if let Some(line) = input.location.line.take() {
+                let row = line.saturating_sub(2) as usize;
+                input.location.row = Some(row);
+            }
+            Error::Input(input)
+        }
+        other => other,
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
