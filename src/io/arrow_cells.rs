@@ -189,6 +189,22 @@ pub(crate) fn for_each_number(
     None
 }
 
+/// A numeric column as f64 values, borrowed when it is stored as Float64 and else
+/// converted into `buf`; null positions hold unspecified values (check the nulls). `None`
+/// when the column is not numeric.
+pub(crate) fn dense<'a>(
+    array: &'a dyn Array,
+    buf: &'a mut Vec<f64>,
+) -> Option<(&'a [f64], Option<NullBuffer>)> {
+    if let Some(a) = array.as_primitive_opt::<Float64Type>() {
+        return Some((a.values().as_ref(), a.nulls().cloned()));
+    }
+    buf.clear();
+    buf.resize(array.len(), f64::NAN);
+    let nulls = for_each_number(array, |i, v| buf[i] = v)?;
+    Some((&buf[..], nulls))
+}
+
 /// The column's type in words, for messages.
 pub(crate) fn type_words(array: &dyn Array) -> String {
     format!("{} values", array.data_type())

@@ -262,6 +262,11 @@ impl<'a> RowParser<'a> {
         RowParser(BlockParser::new(plan, &[]))
     }
 
+    /// Fields of the header: a row handed over needs this many cells.
+    pub(crate) fn fields(&self) -> usize {
+        self.0.plan.header.len()
+    }
+
     /// One row's role cells; `at` is its place number within the part.
     pub(crate) fn row(&mut self, record: &impl Fields, at: u64) -> Result<(), Fatal> {
         self.0.roles(record, at)?;

@@ -62,6 +62,12 @@ pub(crate) struct PartMap {
 }
 
 impl PartMap {
+    /// Rows of part `index` in a file of `total` rows.
+    pub(crate) fn rows_of(&self, index: usize, total: usize) -> usize {
+        let end = self.starts.get(index + 1).copied().unwrap_or(total);
+        end.saturating_sub(self.starts.get(index).copied().unwrap_or(total))
+    }
+
     /// The part holding `row` and the row's offset in it.
     pub(crate) fn part_of(&self, row: usize) -> Part {
         let index = self.starts.partition_point(|&s| s <= row).saturating_sub(1);
