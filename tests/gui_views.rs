@@ -12,7 +12,7 @@ use flipmend::gui::command::Command;
 use flipmend::gui::source_edit::MatrixTarget;
 use flipmend::io::session::Roles;
 
-use common::app::{app_on_demo_as as app_on_demo, settle, state};
+use common::app::{app, app_on_demo_as as app_on_demo, settle, state};
 use common::TempDir;
 
 fn filters(h: &Harness<'_, FlipmendApp>) -> (Option<String>, Option<String>) {
@@ -118,4 +118,47 @@ fn the_compare_view_lists_the_changed_rows_and_a_click_opens_one() {
     h.run_steps(2);
     assert_eq!(h.state().ui.selected_row(), Some(row));
     assert_eq!(h.state().ui.view(), View::Suspects);
+}
+
+#[test]
+fn a_parquet_table_opens_like_its_csv() {
+    // The demo written as Parquet by flipmend's own writer (the CSV's columns, typed).
+    use flipmend::data::{Dataset, TableOptions};
+    use flipmend::io::columnar::Format;
+    use flipmend::io::table_out::{CellKind, OutColumn, TableWriter};
+    let dir = TempDir::new();
+    let csv = flipmend::gui::demo_file(&dir.path("")).unwrap();
+    let data = Dataset::load(&csv, &TableOptions::default()).unwrap();
+    let mut columns = vec![OutColumn::new("id", CellKind::Text)];
+    let features = data.feature_names.iter();
+    columns.extend(features.map(|f| OutColumn::new(f, CellKind::Float)));
+    columns.push(OutColumn::new("label", CellKind::Text));
+    columns.push(OutColumn::new("trusted", CellKind::Text));
+    let mut bytes = Vec::new();
+    let mut writer = TableWriter::new(&mut bytes, Format::Parquet, &columns).unwrap();
+    for row in 0..data.rows() {
+        let mut cells = vec![data.id(row).into_owned()];
+        cells.extend(data.features.row(row).iter().map(|v| v.to_string()));
+        cells.push(data.classes[data.labels[row]].clone());
+        let trusted = data.trusted.as_ref().and_then(|t| t[row]);
+        cells.push(trusted.map_or(String::new(), |c| data.classes[c].clone()));
+        writer.row(&cells).unwrap();
+    }
+    writer.finish().unwrap();
+    let parquet = dir.path("recycling.parquet");
+    std::fs::write(&parquet, bytes).unwrap();
+
+    let mut h = app();
+    h.state_mut()
+        .push(Command::LoadData(parquet, Roles::default()));
+    h.run_steps(1);
+    settle(&mut h);
+    let loaded = state(&h).data().expect("the Parquet table loads");
+    assert_eq!(loaded.rows(), data.rows());
+    assert_eq!(loaded.classes, data.classes);
+    assert_eq!(loaded.features, data.features);
+    assert!(
+        state(&h).estimate().is_some(),
+        "and is estimated like the CSV"
+    );
 }

@@ -2,6 +2,7 @@
 
 pub mod annotations;
 mod assemble;
+pub mod footprint;
 pub mod natural;
 pub mod origin;
 pub mod probs;

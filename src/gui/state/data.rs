@@ -22,6 +22,9 @@ impl AppState {
             Err(e) => return self.say(Level::Error, e),
         };
         self.spawn_on_data(JobKind::Load, move |_| {
+            if let Some(reason) = crate::data::footprint::too_large(&path) {
+                return Err(crate::gui::jobs::JobFailure::Error(reason));
+            }
             let data = Dataset::load(&path, &options).map_err(fail)?;
             Ok(JobOutput::Loaded(Box::new(data), roles))
         });
