@@ -18,7 +18,8 @@ use crate::workflow::MatrixSource;
 /// Which file to read and which column plays which role.
 #[derive(Debug, Clone, Args)]
 pub struct TableArgs {
-    /// The labelled table: CSV with a header row (tab-separated when it ends in .tsv).
+    /// The labelled table: CSV with a header row (tab-separated when it ends in .tsv), or
+    /// Parquet (.parquet) or Arrow IPC / Feather (.feather, .arrow) with the same columns.
     #[arg(long, value_name = "FILE")]
     pub data: PathBuf,
     /// Field delimiter: one character such as ';', or 'tab' [default: ',' or tab for .tsv]
@@ -104,8 +105,9 @@ impl TableArgs {
 #[derive(Debug, Clone, Args)]
 pub struct ProbArgs {
     /// Class probabilities per row: CSV with one column per class (any order; an 'id'
-    /// column joins rows by id) or a float32/float64 .npy array of shape (rows, classes)
-    /// with columns in class order (the natural sort of the class names)
+    /// column joins rows by id), the same as Parquet or Feather (or one list column of K
+    /// numbers per row), or a float32/float64 .npy array of shape (rows, classes) with
+    /// columns in class order (the natural sort of the class names)
     #[arg(long, value_name = "FILE")]
     pub probs: Option<PathBuf>,
     /// Rescale rows of probability files (off by more than 1e-3) and matrix files (off by

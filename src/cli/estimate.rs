@@ -34,7 +34,8 @@ pub struct EstimateArgs {
     /// Write the matrix as CSV (header class,<classes>; one row per true class)
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
-    /// Write the out-of-fold probabilities (CSV: id, one column per class) for reuse with --probs
+    /// Write the out-of-fold probabilities (id, one column per class; Parquet when FILE ends
+    /// in .parquet, else CSV) for reuse with --probs
     #[arg(long, value_name = "FILE")]
     pub probs_out: Option<PathBuf>,
     /// Write the report as JSON

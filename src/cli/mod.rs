@@ -76,7 +76,7 @@ pub struct GuiArgs {
     /// A labelled table to load at start
     #[arg(value_name = "DATA")]
     pub data: Option<std::path::PathBuf>,
-    /// Out-of-sample probabilities for it (CSV by id, or .npy)
+    /// Out-of-sample probabilities for it (CSV by id, .npy, Parquet or Feather)
     #[arg(long, value_name = "FILE")]
     pub probs: Option<std::path::PathBuf>,
     /// A saved session to restore (its data, roles, matrix and settings)

@@ -32,6 +32,7 @@ pub struct PredictArgs {
     #[arg(long, value_name = "COL")]
     pub id: Option<String>,
     /// Where to write the predictions: id, predicted, then one probability column per class
+    /// (Parquet when FILE ends in .parquet, else CSV)
     #[arg(long, value_name = "FILE")]
     pub out: PathBuf,
 }

@@ -31,7 +31,8 @@ pub struct ReviewArgs {
     pub key: Option<PathBuf>,
     /// Where to write the merged copy of the dataset: reviewed rows carry their verified
     /// label in the trusted column and how it was obtained (review or control) in its
-    /// origin column, both added when absent. The input is never changed.
+    /// origin column, both added when absent. The input is never changed. A CSV table's
+    /// copy is CSV, a Parquet or Feather table's copy is Parquet (name it .parquet).
     #[arg(long, value_name = "FILE")]
     pub out: PathBuf,
     /// Write the summary as JSON

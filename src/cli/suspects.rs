@@ -59,7 +59,8 @@ pub struct SuspectsArgs {
     pub with_features: bool,
     /// Write the worklist CSV: blind (item,row,id,observed,review) with its key NAME.key.csv
     /// when there are control rows, else ranked
-    /// (rank,row,id,observed,suggested,score,p_wrong,second_choice,second_choice_prob,review)
+    /// (rank,row,id,observed,suggested,score,p_wrong,second_choice,second_choice_prob,review);
+    /// Parquet when FILE ends in .parquet (the key stays CSV)
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
     /// Write the summary as JSON

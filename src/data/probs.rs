@@ -14,7 +14,7 @@ use rayon::prelude::*;
 
 use super::table::Dataset;
 use crate::error::{Error, Location, Problem, Result};
-use crate::io::columnar::Format;
+use crate::io::columnar::{guarded, Format};
 use crate::io::npy::{self, read_up_to};
 use crate::io::probs_arrow::read_probs_columnar;
 use crate::io::probs_csv::read_probs_csv;
@@ -49,7 +49,7 @@ impl Probabilities {
     pub fn load(path: &Path, data: &Dataset, options: &ProbOptions) -> Result<Self> {
         let format = Format::of(path);
         if format.is_columnar() {
-            let mut loaded = read_probs_columnar(path, data, format)?;
+            let mut loaded = guarded(path, format, || read_probs_columnar(path, data, format))?;
             loaded.check_rows(options.renormalize)?;
             return Ok(Probabilities {
                 path: path.to_path_buf(),

@@ -13,7 +13,7 @@ use super::assemble::Assembly;
 use super::origin::Origin;
 use super::roles::TableOptions;
 use crate::error::{Error, Result};
-use crate::io::columnar::Format;
+use crate::io::columnar::{guarded, Format};
 use crate::io::table_arrow::read_columnar_table;
 use crate::io::table_csv::{read_table, BLOCK_BYTES};
 
@@ -118,7 +118,8 @@ impl Dataset {
     pub fn load(path: &Path, options: &TableOptions) -> Result<Self> {
         let format = Format::of(path);
         if format.is_columnar() {
-            let (plan, cells) = read_columnar_table(path, options, format)?;
+            let (plan, cells) =
+                guarded(path, format, || read_columnar_table(path, options, format))?;
             return Assembly { path, cells }.finish(plan);
         }
         let file = File::open(path).map_err(|source| Error::Read {

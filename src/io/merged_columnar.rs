@@ -17,7 +17,7 @@ use parquet::file::properties::WriterProperties;
 use rustc_hash::FxHashMap as HashMap;
 
 use super::arrow_cells::Text;
-use super::columnar::{ColumnarFile, Format};
+use super::columnar::{guarded, ColumnarFile, Format};
 use super::review::Review;
 use crate::data::origin::{origin_column, Origin};
 use crate::data::Dataset;
@@ -45,6 +45,16 @@ pub fn check_merged_target(data: &Dataset, out: &Path) -> Result<()> {
 
 /// Writes the merged copy of `data` (a Parquet or Arrow IPC table) to `out` as Parquet.
 pub(crate) fn write_merged_columnar(
+    out: &mut (dyn Write + Send),
+    data: &Dataset,
+    review: &Review,
+) -> std::io::Result<()> {
+    let format = Format::of(&data.path);
+    let copy = || copy_merged(out, data, review).map_err(|e| Error::Internal(e.to_string()));
+    guarded(&data.path, format, copy).map_err(std::io::Error::other)
+}
+
+fn copy_merged(
     out: &mut (dyn Write + Send),
     data: &Dataset,
     review: &Review,

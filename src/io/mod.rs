@@ -7,6 +7,7 @@ pub(crate) mod arrow_cells;
 pub mod columnar;
 pub(crate) mod csv_blocks;
 pub mod csv_source;
+pub(crate) mod ipc_check;
 pub mod matrix_csv;
 pub mod merged_columnar;
 pub mod model;

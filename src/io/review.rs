@@ -11,7 +11,7 @@ use rustc_hash::FxHashMap as HashMap;
 use crate::data::origin::{origin_column, Origin};
 use crate::data::Dataset;
 use crate::error::{shorten, Error, Location, Problem, Result};
-use crate::io::columnar::{as_csv_text, row_of_line, Format};
+use crate::io::columnar::{as_csv_text, guarded, row_of_line, Format};
 use crate::io::csv_source::{open, CsvFormat, SkipBom};
 use crate::io::worklist::Slice;
 
@@ -253,7 +253,7 @@ pub fn load_review(path: &Path, data: &Dataset) -> Result<Review> {
     let format = Format::of(path);
     if format.is_columnar() {
         // A worklist is small: read as CSV text, with locations turned back into rows.
-        let text = as_csv_text(path, format)?;
+        let text = guarded(path, format, || as_csv_text(path, format))?;
         return read_review(&text[..], path, data).map_err(row_of_line);
     }
     read_review(open(path)?, path, data)

@@ -16,9 +16,9 @@ use crate::workflow::ProbSource;
 pub fn show(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &mut Vec<Command>) {
     egui::ScrollArea::vertical().show(ui, |ui| {
         ui.heading("Data table");
-        ui.label("A CSV (or TSV) with feature columns and an observed label; optionally an id and a partly audited trusted label. Drop a file on the window, browse, or type a path.");
+        ui.label("A CSV (or TSV), Parquet or Feather table with feature columns and an observed label; optionally an id and a partly audited trusted label. Drop a file on the window, browse, or type a path.");
         let draft = view.roles_draft.clone().unwrap_or_else(|| state.session().roles.clone());
-        if let Some(path) = path_row(ui, view, Purpose::OpenData, "Load table", "path to a .csv or .tsv") {
+        if let Some(path) = path_row(ui, view, Purpose::OpenData, "Load table", "path to a .csv, .tsv, .parquet or .feather") {
             out.push(Command::LoadData(path, draft.clone()));
         }
         if let Some(running) = state.jobs().running(JobKind::Load) {
@@ -231,7 +231,7 @@ fn probabilities(ui: &mut egui::Ui, state: &AppState, view: &mut UiState, out: &
         view,
         Purpose::OpenProbabilities,
         "Load probabilities",
-        "probabilities: .csv (by id) or .npy",
+        "probabilities: .csv (by id), .npy, .parquet or .feather",
     ) {
         out.push(Command::LoadProbabilities(path));
     }
