@@ -259,3 +259,40 @@ fn mutated_columnar_files_are_refused_not_crashed_on() {
         }
     }
 }
+
+#[test]
+fn probabilities_may_sit_in_the_tables_own_file() {
+    let dir = TempDir::new();
+    let path = dir.path("both.parquet");
+    let columns = [
+        OutColumn::new("id", CellKind::Text),
+        OutColumn::new("label", CellKind::Text),
+        OutColumn::new("x", CellKind::Float),
+        OutColumn::new("a", CellKind::Float),
+        OutColumn::new("b", CellKind::Float),
+    ];
+    let mut bytes = Vec::new();
+    let mut writer = TableWriter::new(&mut bytes, Format::Parquet, &columns).unwrap();
+    for r in 0..40 {
+        let p = (r % 10) as f64 / 10.0;
+        let label = if r % 3 == 0 { "a" } else { "b" };
+        let cells = [
+            format!("r{r}"),
+            label.into(),
+            r.to_string(),
+            p.to_string(),
+            (1.0 - p).to_string(),
+        ];
+        writer.row(&cells).unwrap();
+    }
+    writer.finish().unwrap();
+    std::fs::write(&path, bytes).unwrap();
+    let options = TableOptions {
+        features: Some(vec!["x".into()]),
+        ..Default::default()
+    };
+    let data = Dataset::load(&path, &options).unwrap();
+    let probs = Probabilities::load(&path, &data, &ProbOptions::default()).unwrap();
+    assert_eq!(probs.values[[7, 0]], 0.7);
+    assert_eq!(probs.values[[7, 1]], (1.0f64 - 0.7) as f32);
+}

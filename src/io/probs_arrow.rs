@@ -83,7 +83,10 @@ impl Layout {
             )
         });
         let Some(list) = list else {
-            let columns = csv_columns(header, data, Location::file(path))?;
+            // The table's own columns are skipped, so the probabilities may sit in the
+            // table's file (one Parquet file with the label and a column per class).
+            let table_columns: Vec<&str> = data.header.iter().map(String::as_str).collect();
+            let columns = csv_columns(header, data, Location::file(path), &table_columns)?;
             return Ok(Layout {
                 id: columns.id_field,
                 classes: Classes::Columns(columns.class_of_field),

@@ -58,7 +58,7 @@ pub(crate) fn read_probs_csv<'a, R: Read>(
         .iter()
         .map(|c| String::from_utf8_lossy(c).trim().to_string())
         .collect();
-    let columns = csv_columns(&header, data, Location::line(path, 1))?;
+    let columns = csv_columns(&header, data, Location::line(path, 1), &[])?;
     let mut rows = Rows::new(path, data, &header, &columns);
     while rdr.read_byte_record(&mut record).map_err(syntax)? {
         rows.take(&record)?;
@@ -186,11 +186,13 @@ pub(crate) struct CsvColumns {
 }
 
 /// Matches a probability file's column names to the data's classes; `at_header` locates
-/// problems with the names (the header line of a CSV file, the schema of a columnar one).
+/// problems with the names (the header line of a CSV file, the schema of a columnar one);
+/// columns named in `ignored` are skipped.
 pub(crate) fn csv_columns(
     header: &[String],
     data: &Dataset,
     at_header: Location,
+    ignored: &[&str],
 ) -> Result<CsvColumns> {
     let class_index: HashMap<&str, usize> = data
         .classes
@@ -217,6 +219,8 @@ pub(crate) fn csv_columns(
             class_of_field.push(Some(c));
         } else if id_field.is_none() && id_names.contains(&Some(name.as_str())) {
             id_field = Some(i);
+            class_of_field.push(None);
+        } else if ignored.contains(&name.as_str()) {
             class_of_field.push(None);
         } else {
             extra.push(name.clone());
