@@ -179,7 +179,8 @@ fn a_round_hides_the_scores_and_its_control_rows_measure_what_the_list_missed() 
         })
         .sum();
     h.get_by_label(&format!(
-        "expected wrong labels found by reviewing the first 38 rows of the table: about {expected:.0}"
+        "expected wrong labels found by reviewing the first 38 rows of the table (the \
+         suspects a worklist lists): about {expected:.0}"
     ));
     // Written as a reviewed worklist, `review`'s reader measures the same.
     let out = dir.path("round.csv");
