@@ -44,8 +44,7 @@ PY
 )
   theirs+=("$t")
 done
-median() { printf '%s\n' "$@" | awk '{print $1}' | sort -g | awk '{a[NR]=$1} END {print a[int((NR+1)/2)]}'; }
-peak() { printf '%s\n' "$@" | awk '{print $2}' | sort -g | tail -1; }
+source benches/common/stats.sh
 a=$(median "${ours[@]}"); b=$(median "${theirs[@]}")
 echo "file: $data/data.csv ($(du -m "$data/data.csv" | cut -f1) MiB), numeric arrays ${numeric_mib} MiB"
 echo "flipmend inspect (whole process): median ${a} s, peak $(( $(peak "${ours[@]}") / 1024 )) MiB"
