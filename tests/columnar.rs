@@ -296,3 +296,36 @@ fn probabilities_may_sit_in_the_tables_own_file() {
     assert_eq!(probs.values[[7, 0]], 0.7);
     assert_eq!(probs.values[[7, 1]], (1.0f64 - 0.7) as f32);
 }
+
+#[test]
+fn parquet_probabilities_in_another_order_join_by_id() {
+    // Rows in table order join without an index; one out of order switches to the index.
+    let data = load("good.csv");
+    let csv = Probabilities::load(
+        Path::new(&fixture("probs_good.csv")),
+        &data,
+        &ProbOptions::default(),
+    )
+    .unwrap();
+    let dir = TempDir::new();
+    let columns = [
+        OutColumn::new("id", CellKind::Text),
+        OutColumn::new("bird", CellKind::Float),
+        OutColumn::new("cat", CellKind::Float),
+        OutColumn::new("dog", CellKind::Float),
+    ];
+    let mut order: Vec<usize> = (0..data.rows()).collect();
+    order.swap(2, 4);
+    let mut bytes = Vec::new();
+    let mut writer = TableWriter::new(&mut bytes, Format::Parquet, &columns).unwrap();
+    for &row in &order {
+        let mut cells = vec![data.id(row).into_owned()];
+        cells.extend(csv.values.row(row).iter().map(|v| v.to_string()));
+        writer.row(&cells).unwrap();
+    }
+    writer.finish().unwrap();
+    let path = dir.path("p.parquet");
+    std::fs::write(&path, bytes).unwrap();
+    let back = Probabilities::load(&path, &data, &ProbOptions::default()).unwrap();
+    assert_eq!(back.values, csv.values);
+}

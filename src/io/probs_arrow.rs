@@ -124,7 +124,12 @@ struct Fill<'a> {
     path: &'a Path,
     data: &'a Dataset,
     layout: &'a Layout,
+    /// Id → data row, built at the first row whose id is not the data's id of the same
+    /// row: probabilities written in table order (or kept in the table's own file) join
+    /// without one. Outer `None`: not joined by id; inner `None`: the data has no ids.
     ids: Option<Option<HashMap<&'a str, usize>>>,
+    /// Whether `ids` has been built yet.
+    indexed: bool,
     values: Array2<f32>,
     /// 1 + the file row that filled each data row; 0 while none has.
     places: Vec<u64>,
@@ -139,7 +144,8 @@ impl<'a> Fill<'a> {
             path,
             data,
             layout,
-            ids: layout.id.map(|_| id_index(data)),
+            ids: layout.id.map(|_| None),
+            indexed: false,
             values: Array2::zeros((data.rows(), data.classes.len())),
             places: vec![0; data.rows()],
             count: 0,
@@ -222,13 +228,13 @@ impl<'a> Fill<'a> {
         let mut cell = Vec::new();
         for i in 0..rows {
             let file_row = self.count + i;
-            let row = match (&text, &self.ids) {
-                (Some((field, text)), Some(index)) => {
+            let row = match &text {
+                Some((field, text)) => {
                     text.cell(i, &mut cell);
-                    join_row(&cell, index.as_ref(), self.data.rows())
+                    self.join(&cell, file_row)
                         .map_err(|p| Error::input(self.at(file_row, *field, header), p))?
                 }
-                _ => file_row,
+                None => file_row,
             };
             if row < self.data.rows() {
                 if self.places[row] != 0 {
@@ -246,6 +252,25 @@ impl<'a> Fill<'a> {
             }
         }
         Ok(targets)
+    }
+
+    /// The data row of the file row `file_row` whose id is `cell`: the same row when the
+    /// ids agree there, else by the id index (built on first need).
+    fn join(&mut self, cell: &[u8], file_row: usize) -> Result<usize, Problem> {
+        let same_row = self
+            .data
+            .ids
+            .as_ref()
+            .is_some_and(|ids| file_row < ids.len() && ids.get(file_row).as_bytes() == cell);
+        if same_row {
+            return Ok(file_row);
+        }
+        if !self.indexed {
+            self.ids = Some(id_index(self.data));
+            self.indexed = true;
+        }
+        let index = self.ids.as_ref().and_then(Option::as_ref);
+        join_row(cell, index, self.data.rows())
     }
 
     /// Stores the numbers of `array`; `cell(i)` gives the batch row and class of its
