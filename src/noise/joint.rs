@@ -113,6 +113,36 @@ pub struct JointFit {
     pub converged: bool,
     /// The fitted parameters, to start a related fit from ([`Start::Parameters`]).
     pub parameters: Vec<f64>,
+    /// The clean classifier alone, for rows the fit did not see.
+    pub model: CleanModel,
+}
+
+/// The fitted clean classifier q(x) = softmax(A·z(x) + b), with the standardisation of
+/// its inputs z measured on the fitted rows: what it takes to give rows the fit never saw
+/// their clean posteriors (a pass over a table too large to fit whole, whose sample was
+/// fitted). On the fitted probabilities it gives [`JointFit::clean`] exactly.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CleanModel {
+    /// Mean of each centred log-probability column over the fitted rows.
+    mean: Vec<f64>,
+    /// Its standard deviation (floored).
+    scale: Vec<f64>,
+    /// A (K × K, row-major) then b (K).
+    weights: Vec<f64>,
+}
+
+impl CleanModel {
+    /// Number of classes.
+    pub fn classes(&self) -> usize {
+        self.mean.len()
+    }
+
+    /// q(x) of every row of `probs` (noisy probabilities, rows × K), a block at a time.
+    pub fn posteriors(&self, probs: ArrayView2<f32>) -> Array2<f32> {
+        let mut z = centred_logs(probs);
+        standardise(&mut z, &self.mean, &self.scale);
+        posteriors_in_blocks(z.view(), &self.weights, self.classes())
+    }
 }
 
 /// Where a fit starts.
@@ -150,6 +180,7 @@ pub fn fit_joint_from(
         iterations,
         converged,
         parameters,
+        model,
     } = fit;
     Ok(JointFit {
         matrix: matrices.swap_remove(0),
@@ -157,6 +188,7 @@ pub fn fit_joint_from(
         iterations,
         converged,
         parameters,
+        model,
     })
 }
 
@@ -201,6 +233,8 @@ pub struct GroupedFit {
     pub converged: bool,
     /// The fitted parameters (A, b, then each group's U).
     pub parameters: Vec<f64>,
+    /// The clean classifier alone, for rows the fit did not see.
+    pub model: CleanModel,
 }
 
 /// Fits one flip matrix per group and the shared clean classifier, every group started
@@ -277,12 +311,18 @@ pub fn fit_grouped(
         .map(|g| flip_of(&outcome.x, k, g))
         .collect();
     let clean = problem.clean_posteriors(&outcome.x);
+    let model = CleanModel {
+        mean,
+        scale,
+        weights: outcome.x[..k * k + k].to_vec(),
+    };
     Ok(GroupedFit {
         matrices,
         clean,
         iterations: outcome.iterations,
         converged: outcome.stop != Stop::MaxIter,
         parameters: outcome.x,
+        model,
     })
 }
 
@@ -293,11 +333,7 @@ pub fn fit_grouped(
 /// columns' strong correlation slowed L-BFGS to hundreds of iterations.
 fn log_inputs(probs: ArrayView2<f32>, rows: &[usize]) -> (Array2<f64>, Vec<f64>, Vec<f64>) {
     let k = probs.ncols();
-    let mut z = probs.mapv(|p| (p as f64).max(MIN_INPUT_PROB).ln());
-    for mut row in z.rows_mut() {
-        let centre = row.sum() / k as f64;
-        row.mapv_inplace(|v| v - centre);
-    }
+    let mut z = centred_logs(probs);
     let n = rows.len().max(1) as f64;
     let mut mean = vec![0.0; k];
     let mut square = vec![0.0; k];
@@ -316,12 +352,28 @@ fn log_inputs(probs: ArrayView2<f32>, rows: &[usize]) -> (Array2<f64>, Vec<f64>,
                 .max(1e-6)
         })
         .collect();
+    standardise(&mut z, &mean, &scale);
+    (z, mean, scale)
+}
+
+/// ln p̃ floored at [`MIN_INPUT_PROB`], centred within each row.
+fn centred_logs(probs: ArrayView2<f32>) -> Array2<f64> {
+    let k = probs.ncols();
+    let mut z = probs.mapv(|p| (p as f64).max(MIN_INPUT_PROB).ln());
+    for mut row in z.rows_mut() {
+        let centre = row.sum() / k as f64;
+        row.mapv_inplace(|v| v - centre);
+    }
+    z
+}
+
+/// Each column of `z` standardised by `mean` and `scale`.
+fn standardise(z: &mut Array2<f64>, mean: &[f64], scale: &[f64]) {
     for mut row in z.rows_mut() {
         for (c, v) in row.iter_mut().enumerate() {
             *v = (*v - mean[c]) / scale[c];
         }
     }
-    (z, mean, scale)
 }
 
 /// A = diag(scale), b = mean (so q starts as p̃), U[i][j] = ln T₀[i][j] (floored).
@@ -516,30 +568,32 @@ impl Problem<'_> {
         Partial { loss, grad }
     }
 
-    /// q(x) of every row of the inputs, a block at a time.
+    /// q(x) of every row of the inputs.
     fn clean_posteriors(&self, theta: &[f64]) -> Array2<f32> {
-        let k = self.k;
-        let n = self.inputs.nrows();
-        let blocks: Vec<Array2<f64>> = (0..n.div_ceil(BLOCK_ROWS))
-            .into_par_iter()
-            .map(|block| {
-                let end = ((block + 1) * BLOCK_ROWS).min(n);
-                let zb = self
-                    .inputs
-                    .slice_axis(Axis(0), Slice::from(block * BLOCK_ROWS..end));
-                clean_of(zb, theta, k)
-            })
-            .collect();
-        let mut out = Array2::<f32>::zeros((n, k));
-        for (block, q) in blocks.iter().enumerate() {
-            out.slice_axis_mut(
-                Axis(0),
-                Slice::from(block * BLOCK_ROWS..block * BLOCK_ROWS + q.nrows()),
-            )
-            .zip_mut_with(q, |o, &v| *o = v as f32);
-        }
-        out
+        posteriors_in_blocks(self.inputs, theta, self.k)
     }
+}
+
+/// q(x) of every row of the standardised `inputs`, a block at a time on every core.
+fn posteriors_in_blocks(inputs: ArrayView2<f64>, theta: &[f64], k: usize) -> Array2<f32> {
+    let n = inputs.nrows();
+    let blocks: Vec<Array2<f64>> = (0..n.div_ceil(BLOCK_ROWS))
+        .into_par_iter()
+        .map(|block| {
+            let end = ((block + 1) * BLOCK_ROWS).min(n);
+            let zb = inputs.slice_axis(Axis(0), Slice::from(block * BLOCK_ROWS..end));
+            clean_of(zb, theta, k)
+        })
+        .collect();
+    let mut out = Array2::<f32>::zeros((n, k));
+    for (block, q) in blocks.iter().enumerate() {
+        out.slice_axis_mut(
+            Axis(0),
+            Slice::from(block * BLOCK_ROWS..block * BLOCK_ROWS + q.nrows()),
+        )
+        .zip_mut_with(q, |o, &v| *o = v as f32);
+    }
+    out
 }
 
 /// q = softmax(A·z + b) of each row of `inputs`, the logits as one product (block × Aᵀ)
@@ -647,6 +701,53 @@ mod tests {
                 grad[i]
             );
         }
+    }
+
+    #[test]
+    fn the_clean_model_gives_unseen_rows_the_posteriors_of_the_fit() {
+        // Fitted on rows 0–2 only; the fit's own clean posteriors cover all five rows, so
+        // the portable model must reproduce rows 3 and 4 (never fitted) bit for bit.
+        let (probs, labels, trusted) = toy();
+        let rows = [0, 1, 2];
+        let sample = Sample {
+            probs: probs.view(),
+            labels: &labels,
+            trusted: Some(&trusted),
+            origins: None,
+            rows: &rows,
+        };
+        let start = Array2::from_shape_fn((3, 3), |(i, j)| if i == j { 0.8 } else { 0.1 });
+        let fit = fit_joint(&sample, &start, &JointParams::default(), &mut |_| true).unwrap();
+        assert_eq!(fit.model.classes(), 3);
+        assert_eq!(fit.model.posteriors(probs.view()), fit.clean);
+        let unseen = probs.slice_axis(Axis(0), Slice::from(3..));
+        let alone = fit.model.posteriors(unseen);
+        assert_eq!(alone, fit.clean.slice_axis(Axis(0), Slice::from(3..)));
+        assert!(alone
+            .rows()
+            .into_iter()
+            .all(|q| (q.sum() - 1.0).abs() < 1e-5));
+
+        // Beyond one block of rows, cut where the fit's blocks are not.
+        let n = 10_000;
+        let big = Array2::from_shape_fn((n, 3), |(r, c)| {
+            let raw = [1.0 + (r % 7) as f32, 1.0 + (r % 5) as f32, 0.5 + c as f32];
+            raw[c] / raw.iter().sum::<f32>()
+        });
+        let labels: Vec<usize> = (0..n).map(|r| (r * 7 + r / 3) % 3).collect();
+        let rows: Vec<usize> = (0..n / 2).collect();
+        let sample = Sample {
+            probs: big.view(),
+            labels: &labels,
+            trusted: None,
+            origins: None,
+            rows: &rows,
+        };
+        let fit = fit_joint(&sample, &start, &JointParams::default(), &mut |_| true).unwrap();
+        let tail = fit
+            .model
+            .posteriors(big.slice_axis(Axis(0), Slice::from(4_999..)));
+        assert_eq!(tail, fit.clean.slice_axis(Axis(0), Slice::from(4_999..)));
     }
 
     #[test]
