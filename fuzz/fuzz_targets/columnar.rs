@@ -16,10 +16,8 @@ fuzz_target!(|data: &[u8]| {
         return;
     };
     let extension = if pick % 2 == 0 { "parquet" } else { "feather" };
-    let path = std::env::temp_dir().join(format!(
-        "flipmend-fuzz-{}.{extension}",
-        std::process::id()
-    ));
+    let path =
+        std::env::temp_dir().join(format!("flipmend-fuzz-{}.{extension}", std::process::id()));
     if std::fs::write(&path, bytes).is_err() {
         return;
     }
