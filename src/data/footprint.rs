@@ -55,7 +55,7 @@ fn too_large_with(path: &Path, free: u64) -> Option<String> {
     (need > free).then(|| {
         format!(
             "{} would need about {:.1} GiB of memory to load and this machine has {:.1} GiB free; \
-             load a sample of its rows, or run the command line on a larger machine",
+             write a sample of its rows to a smaller file, or use a machine with more memory",
             path.display(),
             need as f64 / GIB,
             free as f64 / GIB
