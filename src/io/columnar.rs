@@ -138,7 +138,7 @@ impl ColumnarFile {
     }
 
     /// Parts whose row counts are known up front (Parquet row groups), so they can be
-    /// read in any order; `None` for Arrow IPC, read in order by [`Self::ipc_batches`].
+    /// read in any order; `None` for Arrow IPC, read in order by [`Self::batches`].
     pub(crate) fn known_parts(&self) -> Option<usize> {
         self.parquet
             .as_ref()
@@ -171,8 +171,28 @@ impl ColumnarFile {
             .collect()
     }
 
+    /// Every batch of the file in order, with the columns `fields` (file order): the
+    /// Parquet row groups one after another, or the Arrow IPC record batches. For readers
+    /// that go through a file once; the table reader splits Parquet row groups across
+    /// cores instead ([`Self::read_row_group`]).
+    pub(crate) fn batches<'s>(
+        &'s self,
+        fields: &'s [usize],
+    ) -> Result<Box<dyn Iterator<Item = Result<RecordBatch>> + 's>> {
+        let Some(groups) = self.known_parts() else {
+            return Ok(Box::new(self.ipc_batches(fields)?));
+        };
+        Ok(Box::new((0..groups).flat_map(move |group| {
+            let (batches, failed) = match self.read_row_group(group, fields) {
+                Ok(batches) => (batches, None),
+                Err(e) => (Vec::new(), Some(e)),
+            };
+            batches.into_iter().map(Ok).chain(failed.map(Err))
+        })))
+    }
+
     /// The record batches of an Arrow IPC file in order, with the columns `fields`.
-    pub(crate) fn ipc_batches(
+    fn ipc_batches(
         &self,
         fields: &[usize],
     ) -> Result<impl Iterator<Item = Result<RecordBatch>> + '_> {
@@ -243,7 +263,8 @@ pub(crate) fn as_csv_text(path: &Path, format: Format) -> Result<Vec<u8>> {
     let mut out = csv::Writer::from_writer(Vec::new());
     let csv_error = |e: csv::Error| Error::Internal(format!("CSV text in memory: {e}"));
     out.write_record(&header).map_err(csv_error)?;
-    let mut write = |batch: RecordBatch| -> Result<()> {
+    for batch in file.batches(&fields)? {
+        let batch = batch?;
         let cells: Vec<Vec<String>> = batch
             .columns()
             .iter()
@@ -252,21 +273,6 @@ pub(crate) fn as_csv_text(path: &Path, format: Format) -> Result<Vec<u8>> {
         for row in 0..batch.num_rows() {
             out.write_record(cells.iter().map(|c| c[row].as_str()))
                 .map_err(csv_error)?;
-        }
-        Ok(())
-    };
-    match file.known_parts() {
-        Some(groups) => {
-            for group in 0..groups {
-                file.read_row_group(group, &fields)?
-                    .into_iter()
-                    .try_for_each(&mut write)?;
-            }
-        }
-        None => {
-            for batch in file.ipc_batches(&fields)? {
-                write(batch?)?;
-            }
         }
     }
     out.into_inner()

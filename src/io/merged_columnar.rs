@@ -74,25 +74,11 @@ fn copy_merged(
         .collect();
     let fields: Vec<usize> = (0..file.schema.fields().len()).collect();
     let mut first_row = 0;
-    let mut write = |batch: RecordBatch| -> std::io::Result<()> {
+    for batch in file.batches(&fields).map_err(std::io::Error::other)? {
+        let batch = batch.map_err(std::io::Error::other)?;
         let merged = plan.merge(&batch, first_row, data, &verdicts)?;
         first_row += batch.num_rows();
-        writer.write(&merged).map_err(std::io::Error::other)
-    };
-    match file.known_parts() {
-        Some(groups) => {
-            for group in 0..groups {
-                let batches = file
-                    .read_row_group(group, &fields)
-                    .map_err(std::io::Error::other)?;
-                batches.into_iter().try_for_each(&mut write)?;
-            }
-        }
-        None => {
-            for batch in file.ipc_batches(&fields).map_err(std::io::Error::other)? {
-                write(batch.map_err(std::io::Error::other)?)?;
-            }
-        }
+        writer.write(&merged).map_err(std::io::Error::other)?;
     }
     writer.close().map_err(std::io::Error::other)?;
     Ok(())

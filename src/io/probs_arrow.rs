@@ -28,24 +28,16 @@ pub(crate) fn read_probs_columnar<'a>(
     let file = ColumnarFile::open(path, format)?;
     let header = file.header();
     let layout = Layout::of(path, &file, &header, data)?;
-    let mut fill = Fill::new(path, data, &layout);
+    let mut fill = Fill::new(path, data, &layout, file.parts.clone());
     let fields: Vec<usize> = (0..header.len()).collect();
-    match file.known_parts() {
-        Some(groups) => {
-            fill.parts = file.parts.clone();
-            for group in 0..groups {
-                for batch in file.read_row_group(group, &fields)? {
-                    fill.batch(&batch, &header)?;
-                }
-            }
+    // Arrow IPC batch sizes are learnt as the batches come (Parquet's are in the footer).
+    let learn_parts = file.known_parts().is_none();
+    for batch in file.batches(&fields)? {
+        let batch = batch?;
+        if learn_parts {
+            fill.parts.starts.push(fill.count);
         }
-        None => {
-            for batch in file.ipc_batches(&fields)? {
-                let batch = batch?;
-                fill.parts.starts.push(fill.count);
-                fill.batch(&batch, &header)?;
-            }
-        }
+        fill.batch(&batch, &header)?;
     }
     check_coverage(path, data, &fill.places, fill.count, layout.id.is_some())?;
     Ok(Loaded {
@@ -139,7 +131,7 @@ struct Fill<'a> {
 }
 
 impl<'a> Fill<'a> {
-    fn new(path: &'a Path, data: &'a Dataset, layout: &'a Layout) -> Self {
+    fn new(path: &'a Path, data: &'a Dataset, layout: &'a Layout, parts: PartMap) -> Self {
         Fill {
             path,
             data,
@@ -149,10 +141,7 @@ impl<'a> Fill<'a> {
             values: Array2::zeros((data.rows(), data.classes.len())),
             places: vec![0; data.rows()],
             count: 0,
-            parts: PartMap {
-                kind: "record batch",
-                starts: Vec::new(),
-            },
+            parts,
         }
     }
 
@@ -161,8 +150,8 @@ impl<'a> Fill<'a> {
             .at_column(field, &header[field])
     }
 
-    /// Places one batch's rows; returns the data row of each file row (past the data's
-    /// end when not joined by id: those are only counted).
+    /// Places one batch's rows in their data rows (rows past the data's end, when not
+    /// joined by id, are only counted).
     fn batch(&mut self, batch: &RecordBatch, header: &[String]) -> Result<()> {
         let targets = self.targets(batch, header)?;
         match &self.layout.classes {

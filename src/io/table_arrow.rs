@@ -185,23 +185,25 @@ fn read_ipc(file: &ColumnarFile, plan: &ColumnPlan, merger: &mut Merger) -> Resu
     fields.sort_unstable();
     fields.dedup();
     let width = plan.numeric.len();
-    for batch in file.ipc_batches(&fields)? {
+    // Where each role and feature column sits in the projected batches.
+    let column_of = |field: usize| fields.binary_search(&field).unwrap_or(0);
+    let text_columns: Vec<usize> = text_fields.iter().map(|&f| column_of(f)).collect();
+    let feature_columns: Vec<usize> = plan.numeric.iter().map(|&f| column_of(f)).collect();
+    let all_slots: Vec<usize> = (0..width).collect();
+    for batch in file.batches(&fields)? {
         let batch = batch?;
         let start = merger.done() as usize;
         if let Places::Rows(parts) = &mut merger.cells.places {
             parts.starts.push(start);
         }
-        let column_of = |field: usize| fields.binary_search(&field).unwrap_or(0);
-        let projected_text: Vec<usize> = text_fields.iter().map(|&f| column_of(f)).collect();
         let mut parser = RowParser::new(plan);
-        let fatal = roles_at(&batch, &text_fields, &projected_text, &mut parser, 0).err();
+        let fatal = roles_at(&batch, &text_fields, &text_columns, &mut parser, 0).err();
         let mut values = vec![0.0; batch.num_rows() * width];
         let mut slots = vec![SlotStats::default(); width];
-        let columns: Vec<usize> = plan.numeric.iter().map(|&f| column_of(f)).collect();
         put_numbers_at(
             &batch,
-            &columns,
-            &(0..width).collect::<Vec<_>>(),
+            &feature_columns,
+            &all_slots,
             &mut values,
             width,
             &mut slots,
