@@ -29,7 +29,7 @@ pub(crate) fn read_probs_columnar<'a>(
     let header = file.header();
     let layout = Layout::of(path, &file, &header, data)?;
     let mut fill = Fill::new(path, data, &layout, file.parts.clone());
-    let fields: Vec<usize> = (0..header.len()).collect();
+    let fields = layout.fields();
     // Arrow IPC batch sizes are learnt as the batches come (Parquet's are in the footer).
     let learn_parts = file.known_parts().is_none();
     for batch in file.batches(&fields)? {
@@ -37,7 +37,7 @@ pub(crate) fn read_probs_columnar<'a>(
         if learn_parts {
             fill.parts.starts.push(fill.count);
         }
-        fill.batch(&batch, &header)?;
+        fill.batch(&Projected(&batch, &fields), &header)?;
     }
     check_coverage(path, data, &fill.places, fill.count, layout.id.is_some())?;
     Ok(Loaded {
@@ -54,6 +54,22 @@ struct Layout {
     id: Option<usize>,
     /// Either the field of each class, or one list field.
     classes: Classes,
+}
+
+impl Layout {
+    /// The fields read, in file order: the id and the classes, none of the table's own
+    /// columns when the probabilities share its file.
+    fn fields(&self) -> Vec<usize> {
+        let classes: Vec<usize> = match &self.classes {
+            Classes::Columns(class_of_field) => (0..class_of_field.len())
+                .filter(|&f| class_of_field[f].is_some())
+                .collect(),
+            Classes::List(field) => vec![*field],
+        };
+        let mut fields: Vec<usize> = self.id.into_iter().chain(classes).collect();
+        fields.sort_unstable();
+        fields
+    }
 }
 
 enum Classes {
@@ -111,6 +127,21 @@ impl Layout {
     }
 }
 
+/// A batch read with the columns `.1` (header fields, ascending), addressed by field.
+struct Projected<'b>(&'b RecordBatch, &'b [usize]);
+
+impl Projected<'_> {
+    fn column(&self, field: usize) -> &dyn Array {
+        // Every field asked for is one the layout read.
+        let column = self.1.binary_search(&field).unwrap_or(0);
+        self.0.column(column).as_ref()
+    }
+
+    fn num_rows(&self) -> usize {
+        self.0.num_rows()
+    }
+}
+
 /// The probability rows read so far, placed in data-row order.
 struct Fill<'a> {
     path: &'a Path,
@@ -152,19 +183,19 @@ impl<'a> Fill<'a> {
 
     /// Places one batch's rows in their data rows (rows past the data's end, when not
     /// joined by id, are only counted).
-    fn batch(&mut self, batch: &RecordBatch, header: &[String]) -> Result<()> {
+    fn batch(&mut self, batch: &Projected, header: &[String]) -> Result<()> {
         let targets = self.targets(batch, header)?;
         match &self.layout.classes {
             Classes::Columns(class_of_field) => {
                 for (field, class) in class_of_field.iter().enumerate() {
                     let Some(class) = *class else { continue };
-                    let array = batch.column(field).as_ref();
+                    let array = batch.column(field);
                     self.numbers(array, &targets, |i| (i, class), field, header)?;
                 }
             }
             Classes::List(field) => {
                 let field = *field;
-                let array = batch.column(field).as_ref();
+                let array = batch.column(field);
                 let k = self.data.classes.len();
                 let (child, start) = list_values(array, k).ok_or_else(|| {
                     let problem = Problem::ColumnType {
@@ -191,13 +222,10 @@ impl<'a> Fill<'a> {
     }
 
     /// The data row each of the batch's rows fills (`usize::MAX` for rows past the data).
-    fn targets(&mut self, batch: &RecordBatch, header: &[String]) -> Result<Vec<usize>> {
+    fn targets(&mut self, batch: &Projected, header: &[String]) -> Result<Vec<usize>> {
         let rows = batch.num_rows();
         let mut targets = Vec::with_capacity(rows);
-        let id_text = self
-            .layout
-            .id
-            .map(|field| (field, batch.column(field).as_ref()));
+        let id_text = self.layout.id.map(|field| (field, batch.column(field)));
         let text = match id_text {
             Some((field, array)) => Some((
                 field,
