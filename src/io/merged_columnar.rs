@@ -11,15 +11,13 @@ use std::sync::Arc;
 use arrow_array::builder::StringBuilder;
 use arrow_array::{ArrayRef, RecordBatch};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
-use parquet::arrow::ArrowWriter;
-use parquet::basic::Compression;
-use parquet::file::properties::WriterProperties;
 use rustc_hash::FxHashMap as HashMap;
 
 use super::arrow_cells::Text;
 use super::columnar::{guarded, ColumnarFile, Format};
-use super::review::Review;
-use crate::data::origin::{origin_column, Origin};
+use super::review::{merged_cells, merged_column_names, Review};
+use super::table_out::parquet_writer;
+use crate::data::origin::Origin;
 use crate::data::Dataset;
 use crate::error::{Error, Location, Problem, Result};
 
@@ -62,16 +60,8 @@ fn copy_merged(
     let file =
         ColumnarFile::open(&data.path, Format::of(&data.path)).map_err(std::io::Error::other)?;
     let plan = Plan::new(data, &file.schema);
-    let props = WriterProperties::builder()
-        .set_compression(Compression::SNAPPY)
-        .build();
-    let mut writer = ArrowWriter::try_new(out, plan.schema.clone(), Some(props))
-        .map_err(std::io::Error::other)?;
-    let verdicts: HashMap<usize, (usize, Origin)> = review
-        .verdicts
-        .iter()
-        .map(|v| (v.row, (v.label, v.origin)))
-        .collect();
+    let mut writer = parquet_writer(out, plan.schema.clone())?;
+    let verdicts = merged_cells(data, review);
     let fields: Vec<usize> = (0..file.schema.fields().len()).collect();
     let mut first_row = 0;
     for batch in file.batches(&fields).map_err(std::io::Error::other)? {
@@ -95,14 +85,7 @@ struct Plan {
 
 impl Plan {
     fn new(data: &Dataset, stored: &SchemaRef) -> Self {
-        let trusted_name = data
-            .trusted_column
-            .clone()
-            .unwrap_or_else(|| crate::data::roles::DEFAULT_TRUSTED.to_string());
-        let origin_name = data
-            .origin_column
-            .clone()
-            .unwrap_or_else(|| origin_column(&trusted_name));
+        let (trusted_name, origin_name) = merged_column_names(data);
         let mut fields: Vec<Field> = stored.fields().iter().map(|f| f.as_ref().clone()).collect();
         let mut place = |name: &str| match fields.iter().position(|f| f.name() == name) {
             Some(i) => {
@@ -142,13 +125,7 @@ impl Plan {
         let mut cell = Vec::new();
         for i in 0..batch.num_rows() {
             let row = first_row + i;
-            if let Some(&(label, verdict_origin)) = verdicts.get(&row) {
-                let had_label = data.trusted.as_ref().is_some_and(|t| t[row].is_some());
-                let kept = if had_label {
-                    data.origin(row)
-                } else {
-                    verdict_origin
-                };
+            if let Some(&(label, kept)) = verdicts.get(&row) {
                 trusted.append_value(&data.classes[label]);
                 origin.append_value(kept.name());
                 continue;

@@ -174,6 +174,41 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
     Ok(review)
 }
 
+/// What the merged copy writes into each reviewed row: the verified class and its
+/// origin. A row that already had a trusted label keeps its origin: it was chosen by that
+/// audit, not by this review. Shared by the CSV copy and the columnar one
+/// ([`crate::io::merged_columnar`]).
+pub(crate) fn merged_cells(data: &Dataset, review: &Review) -> HashMap<usize, (usize, Origin)> {
+    review
+        .verdicts
+        .iter()
+        .filter(|v| v.row < data.rows())
+        .map(|v| {
+            let had_label = data.trusted.as_ref().is_some_and(|t| t[v.row].is_some());
+            let origin = if had_label {
+                data.origin(v.row)
+            } else {
+                v.origin
+            };
+            (v.row, (v.label, origin))
+        })
+        .collect()
+}
+
+/// The merged copy's trusted and origin column names: the table's own, else `trusted`
+/// and its origin column `trusted_origin`, added at the end.
+pub(crate) fn merged_column_names(data: &Dataset) -> (String, String) {
+    let trusted = data
+        .trusted_column
+        .clone()
+        .unwrap_or_else(|| crate::data::roles::DEFAULT_TRUSTED.to_string());
+    let origin = data
+        .origin_column
+        .clone()
+        .unwrap_or_else(|| origin_column(&trusted));
+    (trusted, origin)
+}
+
 /// Copies the dataset file to `out`, putting each verdict into the trusted column (a
 /// new last column `trusted` when the data has none) and its origin into the origin
 /// column (`trusted_origin`, added likewise). A row that already had a trusted label keeps
@@ -194,11 +229,7 @@ pub fn write_merged(
     let mut w = csv::WriterBuilder::new()
         .delimiter(delimiter)
         .from_writer(out);
-    let verdicts: HashMap<usize, (usize, Origin)> = review
-        .verdicts
-        .iter()
-        .map(|v| (v.row, (v.label, v.origin)))
-        .collect();
+    let verdicts = merged_cells(data, review);
     let mut record = csv::ByteRecord::new();
     if !rdr.read_byte_record(&mut record)? {
         return Ok(());
@@ -207,10 +238,7 @@ pub fn write_merged(
         name.as_ref()
             .and_then(|name| data.header.iter().position(|h| h == name))
     };
-    let trusted_name = data
-        .trusted_column
-        .clone()
-        .unwrap_or_else(|| crate::data::roles::DEFAULT_TRUSTED.to_string());
+    let (trusted_name, origin_name) = merged_column_names(data);
     let (trusted_field, new_trusted) = match position(&data.trusted_column) {
         Some(i) => (i, false),
         None => {
@@ -221,7 +249,7 @@ pub fn write_merged(
     let (origin_field, new_origin) = match position(&data.origin_column) {
         Some(i) => (i, false),
         None => {
-            record.push_field(origin_column(&trusted_name).as_bytes());
+            record.push_field(origin_name.as_bytes());
             (record.len() - 1, true)
         }
     };
@@ -233,8 +261,6 @@ pub fn write_merged(
         fields.extend(record.iter().map(<[u8]>::to_vec));
         fields.extend((0..usize::from(new_trusted) + usize::from(new_origin)).map(|_| Vec::new()));
         if let Some(&(label, origin)) = verdicts.get(&row) {
-            let had_label = data.trusted.as_ref().is_some_and(|t| t[row].is_some());
-            let origin = if had_label { data.origin(row) } else { origin };
             if let Some(cell) = fields.get_mut(trusted_field) {
                 *cell = data.classes[label].as_bytes().to_vec();
             }

@@ -123,12 +123,7 @@ impl<'w> ParquetSink<'w> {
             })
             .collect();
         let schema = Arc::new(Schema::new(fields));
-        let props = WriterProperties::builder()
-            .set_compression(Compression::SNAPPY)
-            .set_max_row_group_row_count(Some(ROW_GROUP_ROWS))
-            .build();
-        let writer = ArrowWriter::try_new(out, schema.clone(), Some(props))
-            .map_err(std::io::Error::other)?;
+        let writer = parquet_writer(out, schema.clone())?;
         let mut sink = ParquetSink {
             writer,
             schema,
@@ -184,6 +179,19 @@ impl<'w> ParquetSink<'w> {
         self.writer.close().map_err(std::io::Error::other)?;
         Ok(())
     }
+}
+
+/// The Parquet writer of every table flipmend writes (this module's tables and the
+/// merged review copy): snappy, row groups of [`ROW_GROUP_ROWS`].
+pub(crate) fn parquet_writer(
+    out: &mut (dyn Write + Send),
+    schema: SchemaRef,
+) -> std::io::Result<ArrowWriter<&mut (dyn Write + Send)>> {
+    let props = WriterProperties::builder()
+        .set_compression(Compression::SNAPPY)
+        .set_max_row_group_row_count(Some(ROW_GROUP_ROWS))
+        .build();
+    ArrowWriter::try_new(out, schema, Some(props)).map_err(std::io::Error::other)
 }
 
 fn new_builder(kind: CellKind) -> Builder {
