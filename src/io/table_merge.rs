@@ -207,24 +207,23 @@ impl<'a> Merger<'a> {
     }
 
     fn global_code(&mut self, name: String) -> u32 {
-        if let Some(&code) = self.codes.get(&name) {
-            return code;
-        }
-        let code = self.cells.names.len() as u32;
-        self.codes.insert(name.clone(), code);
-        self.cells.names.push(name);
-        code
+        intern(&mut self.codes, &mut self.cells.names, name)
     }
 
     fn global_source_code(&mut self, name: String) -> u32 {
-        if let Some(&code) = self.source_codes.get(&name) {
-            return code;
-        }
-        let code = self.cells.source_names.len() as u32;
-        self.source_codes.insert(name.clone(), code);
-        self.cells.source_names.push(name);
-        code
+        intern(&mut self.source_codes, &mut self.cells.source_names, name)
     }
+}
+
+/// The code of `name` in `names` (by `codes`), added at the end when new.
+fn intern(codes: &mut HashMap<String, u32>, names: &mut Vec<String>, name: String) -> u32 {
+    if let Some(&code) = codes.get(&name) {
+        return code;
+    }
+    let code = names.len() as u32;
+    codes.insert(name.clone(), code);
+    names.push(name);
+    code
 }
 
 #[cfg(test)]
