@@ -6,7 +6,7 @@
 //! rate the list misses, without a separate audit. Both front ends build worklists here.
 
 use rand::seq::SliceRandom;
-use rand::{Rng, SeedableRng};
+use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
 use crate::io::worklist::{Item, Slice};
@@ -50,7 +50,12 @@ pub fn listed_head(ranking: &Ranking, table: &[u32], suspects: usize) -> Vec<(Ro
 
 /// `count` rows drawn uniformly without replacement from the rows in `0..rows` that are
 /// not `listed` and that `eligible` accepts (fewer when fewer are left), in draw order.
-/// The draw reads ChaCha8 seeded with `seed` on stream 0, so it repeats with the seed.
+///
+/// Each row carries a seeded random key ([`draw_key`] on stream [`CONTROL_STREAM`]) and
+/// the draw is the `count` eligible unlisted rows with the smallest keys, smallest first:
+/// a uniform draw without replacement that needs nothing but the row number, so a pass
+/// over a table too large to hold (`workflow::streamed`) draws exactly the rows this
+/// does, keeping only the smallest keys it has seen.
 pub fn draw_control(
     rows: usize,
     listed: &[usize],
@@ -63,17 +68,41 @@ pub fn draw_control(
     }
     let mut taken = vec![false; rows];
     listed.iter().for_each(|&r| taken[r] = true);
-    let mut pool: Vec<usize> = (0..rows).filter(|&r| !taken[r] && eligible(r)).collect();
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    rng.set_stream(0);
-    let count = count.min(pool.len());
-    // A partial Fisher–Yates shuffle: the first `count` places are a uniform draw.
-    for i in 0..count {
-        let j = rng.random_range(i..pool.len());
-        pool.swap(i, j);
+    let mut keyed: Vec<(u64, usize)> = (0..rows)
+        .filter(|&r| !taken[r] && eligible(r))
+        .map(|r| (draw_key(seed, CONTROL_STREAM, r), r))
+        .collect();
+    let count = count.min(keyed.len());
+    if count < keyed.len() {
+        keyed.select_nth_unstable(count);
     }
-    pool.truncate(count);
-    pool
+    keyed.truncate(count);
+    keyed.sort_unstable();
+    keyed.into_iter().map(|(_, r)| r).collect()
+}
+
+/// The key stream of the control draw.
+pub const CONTROL_STREAM: u64 = 1;
+/// The key stream of a streamed run's fitting sample.
+pub const SAMPLE_STREAM: u64 = 2;
+
+/// A row's random key for a seeded draw: SplitMix64's finaliser (Steele, Lea & Flood,
+/// OOPSLA 2014) over the seed, the stream and the row. The rows with the `n` smallest
+/// keys are a uniform draw of `n` rows without replacement (the keys behave as
+/// independent uniform numbers; measured in the tests below), and any pass can compute
+/// a row's key from its number alone.
+pub fn draw_key(seed: u64, stream: u64, row: usize) -> u64 {
+    let mut z = mix(mix(seed ^ stream.wrapping_mul(0xD1B5_4A32_D192_ED03)) ^ row as u64);
+    z ^= z >> 31;
+    z
+}
+
+/// SplitMix64's increment and finaliser.
+fn mix(x: u64) -> u64 {
+    let mut z = x.wrapping_add(0x9E37_79B9_7F4A_7C15);
+    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    z ^ (z >> 31)
 }
 
 /// The worklist's items in the order reviewers see them: suspects and control rows
