@@ -10,7 +10,7 @@ use ndarray::{Array2, ArrayView2};
 
 use rayon::prelude::*;
 
-use crate::noise::posterior::{sum_in_chunks, Flip};
+use crate::noise::posterior::{Flip, SUM_CHUNK_ROWS};
 use crate::noise::scores::{rank, rank_values, score_rows, RowFlips, RowScore, ScoreKind};
 
 /// Rows put in order first after a matrix edit; the table shows them while the rest is
@@ -41,35 +41,99 @@ impl Histogram {
 /// The histogram of every row's score as shown ([`ScoreKind::shown`]: [0, 1] for the
 /// probabilities of a wrong label, [−1, 1] for the margin) and, for the probability
 /// scores, the expected number of mislabelled rows: Σ of those probabilities, summed in
-/// [`SUM_CHUNK_ROWS`] chunks by [`sum_in_chunks`], as every expected count is, so the
+/// [`SUM_CHUNK_ROWS`] chunks by [`crate::noise::posterior::sum_in_chunks`], as every expected count is, so the
 /// app's figure is the command line's bit for bit. One pass and one logistic per row:
 /// after a matrix edit this runs over every row before the table redraws.
 pub fn score_summaries(scores: &[f64], kind: ScoreKind) -> (Histogram, Option<f64>) {
-    let (low, high) = kind.shown_range();
-    let width = (high - low) / HISTOGRAM_BINS as f64;
-    let chunk = |values: &[f64]| {
-        let mut counts = [0usize; HISTOGRAM_BINS];
-        let mut sum = 0.0;
-        for &s in values {
-            let shown = kind.shown(s);
-            sum += shown;
-            let bin = ((shown - low) / width).floor();
-            let bin = if bin.is_finite() {
-                bin.max(0.0) as usize
-            } else {
-                0
-            };
-            counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
+    let mut tally = ScoreTally::new(kind);
+    tally.add(scores);
+    tally.finish()
+}
+
+/// [`score_summaries`] over scores that come in pieces (a pass over a table too large to
+/// hold): the pieces are cut into the same [`SUM_CHUNK_ROWS`] runs, so the histogram and
+/// the expected count are those of the whole score vector, bit for bit.
+#[derive(Debug, Clone)]
+pub struct ScoreTally {
+    kind: ScoreKind,
+    /// Scores not yet in a full run.
+    pending: Vec<f64>,
+    total: f64,
+    counts: Vec<usize>,
+}
+
+impl ScoreTally {
+    /// An empty tally of `kind` scores.
+    pub fn new(kind: ScoreKind) -> Self {
+        ScoreTally {
+            kind,
+            pending: Vec::new(),
+            total: 0.0,
+            counts: vec![0; HISTOGRAM_BINS],
         }
-        (sum, counts)
-    };
-    let (total, parts) = sum_in_chunks(scores, chunk);
-    let mut counts = vec![0usize; HISTOGRAM_BINS];
-    for c in parts {
-        counts.iter_mut().zip(c).for_each(|(a, b)| *a += b);
     }
-    let histogram = Histogram { low, high, counts };
-    (histogram, kind.is_probability().then_some(total))
+
+    /// Adds the next scores in row order.
+    pub fn add(&mut self, scores: &[f64]) {
+        let mut rest = scores;
+        if !self.pending.is_empty() {
+            let take = (SUM_CHUNK_ROWS - self.pending.len()).min(rest.len());
+            self.pending.extend_from_slice(&rest[..take]);
+            rest = &rest[take..];
+            if self.pending.len() < SUM_CHUNK_ROWS {
+                return;
+            }
+            let full = std::mem::take(&mut self.pending);
+            self.absorb(&full);
+        }
+        let whole = rest.len() / SUM_CHUNK_ROWS * SUM_CHUNK_ROWS;
+        self.absorb(&rest[..whole]);
+        self.pending.extend_from_slice(&rest[whole..]);
+    }
+
+    /// The histogram and, for the probability scores, the expected number of
+    /// mislabelled rows.
+    pub fn finish(mut self) -> (Histogram, Option<f64>) {
+        let last = std::mem::take(&mut self.pending);
+        self.absorb(&last);
+        let (low, high) = self.kind.shown_range();
+        let histogram = Histogram {
+            low,
+            high,
+            counts: self.counts,
+        };
+        (histogram, self.kind.is_probability().then_some(self.total))
+    }
+
+    /// Whole runs (and the last, short one), each summed in order, the runs in order.
+    fn absorb(&mut self, scores: &[f64]) {
+        let kind = self.kind;
+        let (low, high) = kind.shown_range();
+        let width = (high - low) / HISTOGRAM_BINS as f64;
+        let chunk = |values: &[f64]| {
+            let mut counts = [0usize; HISTOGRAM_BINS];
+            let mut sum = 0.0;
+            for &s in values {
+                let shown = kind.shown(s);
+                sum += shown;
+                let bin = ((shown - low) / width).floor();
+                let bin = if bin.is_finite() {
+                    bin.max(0.0) as usize
+                } else {
+                    0
+                };
+                counts[bin.min(HISTOGRAM_BINS - 1)] += 1;
+            }
+            (sum, counts)
+        };
+        // The order of `sum_in_chunks`: each run's sum added to the running total in turn.
+        let runs: Vec<(f64, [usize; HISTOGRAM_BINS])> =
+            scores.par_chunks(SUM_CHUNK_ROWS).map(chunk).collect();
+        for (sum, c) in runs {
+            self.total += sum;
+            self.counts.iter_mut().zip(c).for_each(|(a, b)| *a += b);
+        }
+    }
 }
 
 /// The matrices a ranking scored its rows under, kept so that the rest of a head ranking

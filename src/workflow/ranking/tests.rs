@@ -179,3 +179,30 @@ fn a_source_filter_keeps_that_sources_rows_in_rank_order() {
         rows
     );
 }
+
+#[test]
+fn a_tally_fed_in_pieces_equals_the_whole_bit_for_bit() {
+    // Odd piece sizes straddle the 8,192-row runs of `sum_in_chunks`; the expected count
+    // must be the same f64, not merely close, so a streamed run reports the in-memory one.
+    let scores: Vec<f64> = (0..50_000u64)
+        .map(|i| ((i.wrapping_mul(2_654_435_761) % 10_007) as f64 / 997.0) - 5.0)
+        .collect();
+    for kind in [ScoreKind::Posterior, ScoreKind::Margin] {
+        let whole = score_summaries(&scores, kind);
+        let mut tally = ScoreTally::new(kind);
+        let mut rest = &scores[..];
+        for size in [1, 8_191, 8_193, 3, 30_000] {
+            let (piece, after) = rest.split_at(size.min(rest.len()));
+            tally.add(piece);
+            rest = after;
+        }
+        tally.add(rest);
+        let pieces = tally.finish();
+        assert_eq!(pieces.0, whole.0, "{kind:?} histogram");
+        assert_eq!(
+            pieces.1.map(f64::to_bits),
+            whole.1.map(f64::to_bits),
+            "{kind:?} expected count"
+        );
+    }
+}
