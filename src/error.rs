@@ -268,6 +268,18 @@ pub enum Problem {
         /// What the role needs.
         expected: String,
     },
+    /// Probabilities that a streamed run cannot take by position.
+    #[error("{detail}")]
+    StreamRows {
+        /// What does not line up.
+        detail: String,
+    },
+    /// Null probabilities.
+    #[error("{count} null probabilities in this column (the first is in this row)")]
+    NullProbabilities {
+        /// Nulls in the column.
+        count: usize,
+    },
     /// A columnar file that cannot be read.
     #[error("not a readable {format} file: {detail}")]
     Columnar {

@@ -18,6 +18,7 @@ pub mod probs_csv;
 pub mod probs_npy;
 pub mod review;
 pub mod session;
+pub mod stream;
 pub(crate) mod table_arrow;
 pub(crate) mod table_chunk;
 pub(crate) mod table_csv;

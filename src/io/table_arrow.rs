@@ -216,7 +216,7 @@ fn read_ipc(file: &ColumnarFile, plan: &ColumnPlan, merger: &mut Merger) -> Resu
 }
 
 /// The fields read as text (every role but the features), in file order.
-fn text_fields(plan: &ColumnPlan) -> Vec<usize> {
+pub(crate) fn text_fields(plan: &ColumnPlan) -> Vec<usize> {
     let mut fields: Vec<usize> = [plan.label, plan.trusted, plan.origin, plan.source, plan.id]
         .into_iter()
         .flatten()
@@ -240,7 +240,7 @@ impl Fields for RowCells {
 
 /// The role columns of a batch that holds exactly `fields`, row by row through the CSV
 /// rules; `first` is the batch's first row within its part.
-fn roles(
+pub(crate) fn roles(
     batch: &RecordBatch,
     fields: &[usize],
     parser: &mut RowParser,
@@ -251,7 +251,7 @@ fn roles(
 }
 
 /// [`roles`] with the batch column of each field given.
-fn roles_at(
+pub(crate) fn roles_at(
     batch: &RecordBatch,
     fields: &[usize],
     columns: &[usize],
