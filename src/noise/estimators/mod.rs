@@ -14,6 +14,7 @@ use crate::error::{Error, Result};
 
 mod anchors;
 mod counting;
+pub mod passes;
 #[cfg(test)]
 mod tests;
 mod trusted;
@@ -227,6 +228,9 @@ pub struct Estimate {
     /// The clean posterior q(x) of every row, for estimators that fit one (joint): the
     /// scores then use it instead of inverting T.
     pub clean: Option<Array2<f32>>,
+    /// The clean classifier behind `clean`, to give rows the fit never saw their clean
+    /// posteriors (a streamed pass over a table whose sample was fitted).
+    pub model: Option<crate::noise::joint::CleanModel>,
     /// Warnings such as fallbacks taken.
     pub warnings: Vec<String>,
     /// One matrix per label source, when the table names a source column; `matrix` and
@@ -260,6 +264,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
     }
     let mut warnings = Vec::new();
     let mut clean = None;
+    let mut model = None;
     let mut volume = None;
     let mut matrix = match method {
         Method::Anchor => anchor(sample),
@@ -271,6 +276,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
         Method::Joint { volume_weight } => {
             let (fit, choice) = joint(sample, *volume_weight, classes, &mut warnings)?;
             clean = Some(fit.clean);
+            model = Some(fit.model);
             volume = Some(choice);
             fit.matrix
         }
@@ -280,6 +286,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
     Ok(Estimate {
         matrix,
         clean,
+        model,
         warnings,
         by_source: None,
         volume,
@@ -317,4 +324,35 @@ fn joint(
         ));
     }
     Ok((fit, choice))
+}
+
+/// Runs `method` as passes over rows that come a part at a time ([`passes::Passes`]):
+/// `pass` must give every row, in table order, to [`passes::Passes::rows`] once per
+/// call. `None` for the joint fit, which reads a sample instead. The matrix is the
+/// in-memory [`estimate`]'s on the same rows.
+pub fn estimate_in_passes(
+    method: &Method,
+    classes: &[String],
+    mut pass: impl FnMut(&mut passes::Passes) -> Result<()>,
+) -> Result<Option<Estimate>> {
+    method.check()?;
+    let Some(mut passes) = passes::Passes::new(method, classes.len()) else {
+        return Ok(None);
+    };
+    while passes.wants_pass() {
+        pass(&mut passes)?;
+        passes.end_pass();
+    }
+    let mut warnings = Vec::new();
+    let mut matrix = passes.finish(classes, &mut warnings)?;
+    normalize_rows(&mut matrix);
+    validate(&matrix).map_err(|e| Error::Internal(format!("{} estimator: {e}", method.name())))?;
+    Ok(Some(Estimate {
+        matrix,
+        clean: None,
+        model: None,
+        warnings,
+        by_source: None,
+        volume: None,
+    }))
 }

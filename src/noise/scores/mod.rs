@@ -13,7 +13,7 @@ mod selection;
 mod tests;
 
 pub use self::by_source::RowFlips;
-pub use self::selection::{auroc, rank, rank_values, select_rows, Selection};
+pub use self::selection::{auroc, rank, rank_key, rank_values, select_rows, Selection};
 
 /// Which score ranks the rows.
 ///

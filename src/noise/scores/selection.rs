@@ -7,7 +7,7 @@ use super::RowScore;
 
 /// The order-preserving key of a score for ranking: ascending keys are descending
 /// scores under `f64::total_cmp`, then ascending rows.
-fn rank_key(score: f64, row: usize) -> u128 {
+pub fn rank_key(score: f64, row: usize) -> u128 {
     ((descending_key(score) as u128) << 64) | row as u128
 }
 
