@@ -239,3 +239,77 @@ impl PipelineArgs {
         inputs
     }
 }
+
+/// When and how to stream a table too large to hold.
+#[derive(Debug, Clone, Args)]
+pub struct StreamArgs {
+    /// Stream the table in two passes with bounded memory when loading it whole would
+    /// take more than SIZE (e.g. 800M, 4G; 0 always streams) [default: the memory this
+    /// machine has free]. A streamed run reads Parquet or Arrow IPC and needs --probs
+    #[arg(long, value_name = "SIZE", value_parser = parse_size)]
+    pub max_memory: Option<u64>,
+    /// Rows of the seeded uniform sample on which a streamed run estimates the flip matrix
+    #[arg(long, value_name = "N", default_value_t = crate::workflow::streamed::DEFAULT_SAMPLE_ROWS)]
+    pub sample_rows: usize,
+}
+
+impl StreamArgs {
+    /// True when `table` (and `probs`, when another file) would take more memory to load
+    /// than `--max-memory`, or than is free.
+    pub fn streams(&self, table: &Path, probs: Option<&Path>) -> bool {
+        let limit = match self
+            .max_memory
+            .or_else(crate::data::footprint::available_bytes)
+        {
+            Some(limit) => limit,
+            None => return false,
+        };
+        let table_bytes = crate::data::footprint::load_bytes(table).unwrap_or(0);
+        let probs_bytes = probs
+            .filter(|p| *p != table)
+            .and_then(crate::data::footprint::load_bytes)
+            .unwrap_or(0);
+        self.max_memory == Some(0) || table_bytes.saturating_add(probs_bytes) > limit
+    }
+}
+
+/// A size in bytes: a number with an optional K, M, G or T (powers of 1024).
+pub fn parse_size(text: &str) -> std::result::Result<u64, String> {
+    let t = text.trim();
+    let (number, unit) = match t.char_indices().find(|(_, c)| c.is_ascii_alphabetic()) {
+        Some((i, _)) => (&t[..i], t[i..].trim_end_matches(['B', 'b', 'i'])),
+        None => (t, ""),
+    };
+    let scale: u64 = match unit.to_ascii_uppercase().as_str() {
+        "" => 1,
+        "K" => 1 << 10,
+        "M" => 1 << 20,
+        "G" => 1 << 30,
+        "T" => 1 << 40,
+        _ => return Err(format!("'{text}' is not a size such as 800M or 4G")),
+    };
+    let value: f64 = number
+        .trim()
+        .parse()
+        .map_err(|_| format!("'{text}' is not a size such as 800M or 4G"))?;
+    if !(value.is_finite() && value >= 0.0) {
+        return Err(format!("'{text}' is not a size such as 800M or 4G"));
+    }
+    Ok((value * scale as f64) as u64)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::parse_size;
+
+    #[test]
+    fn sizes_read_with_binary_units() {
+        assert_eq!(parse_size("0"), Ok(0));
+        assert_eq!(parse_size("800M"), Ok(800 << 20));
+        assert_eq!(parse_size("1.5G"), Ok(3 << 29));
+        assert_eq!(parse_size("2GiB"), Ok(2 << 30));
+        assert_eq!(parse_size("64k"), Ok(64 << 10));
+        assert!(parse_size("1.5x").unwrap_err().contains("800M"));
+        assert!(parse_size("-1G").is_err());
+    }
+}

@@ -8,7 +8,7 @@ use clap::Args;
 use ndarray::Array2;
 use serde::Serialize;
 
-use super::args::PipelineArgs;
+use super::args::{PipelineArgs, StreamArgs};
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::columnar::Format;
@@ -19,6 +19,7 @@ use crate::noise::diagnostics::ReliabilityBin;
 use crate::noise::Method;
 use crate::workflow::consensus::Consensual;
 use crate::workflow::estimate::{estimate, EstimateParams, Estimated};
+use crate::workflow::streamed::{estimate_streamed, StreamInput};
 use crate::workflow::{self, MatrixSource, RowProbabilities};
 
 /// Flags of `flipmend estimate`.
@@ -45,6 +46,9 @@ pub struct EstimateArgs {
     /// majority)
     #[arg(long, value_name = "FILE")]
     pub consensus_out: Option<PathBuf>,
+    #[command(flatten)]
+    /// When to stream the table.
+    pub stream: StreamArgs,
 }
 
 /// The JSON report; its keys are stable (other tools parse them).
@@ -98,6 +102,10 @@ pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
         return Err(Error::Usage(
             "--bootstrap re-estimates the matrix, so it cannot be used with --matrix".into(),
         ));
+    }
+    let probs_path = args.pipeline.probs.probs.as_deref();
+    if args.stream.streams(&args.pipeline.table.data, probs_path) {
+        return run_streamed(args, out);
     }
     let data = args.pipeline.table.load()?;
     if args.consensus_out.is_some() && data.annotations.is_none() {
@@ -166,6 +174,55 @@ fn progress_line(fold: usize, folds: usize) -> bool {
 
 fn rows_of(t: &Array2<f64>) -> Vec<Vec<f64>> {
     t.rows().into_iter().map(|r| r.to_vec()).collect()
+}
+
+/// `estimate` over a table too large to hold.
+fn run_streamed(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
+    let Some(probs) = args.pipeline.probs.probs.as_deref() else {
+        return Err(Error::Usage(
+            "a streamed run needs the probabilities (--probs FILE, which may be the table's own \
+             file): fitting a model on every row would need the whole table in memory"
+                .into(),
+        ));
+    };
+    let refuse = |what: &str| {
+        Err(Error::Usage(format!(
+            "a streamed run does not take {what} yet"
+        )))
+    };
+    let table = &args.pipeline.table;
+    if table.labels.is_some() || table.annotations.is_some() || args.consensus_out.is_some() {
+        return refuse("several annotators' labels");
+    }
+    if table.source.is_some() {
+        return refuse("--source (one matrix per label source)");
+    }
+    if args.probs_out.is_some() {
+        return refuse("--probs-out (the probabilities are already a file)");
+    }
+    let options = table.options();
+    let input = StreamInput {
+        table: &table.data,
+        options: &options,
+        probs,
+        renormalize: args.pipeline.probs.renormalize,
+        sample_rows: args.stream.sample_rows,
+    };
+    let params = EstimateParams {
+        matrix: args.pipeline.matrix.source(args.pipeline.probs.renormalize),
+        resamples: args.bootstrap,
+        seed: args.pipeline.fit.seed,
+    };
+    let found = estimate_streamed(&input, &params)?;
+    let (data, probs) = (&found.sample, &found.sample_probs);
+    write_outputs(args, data, probs, &found.estimated, &params.matrix, None)?;
+    let mut text = format!(
+        "streamed: {} rows read in passes; {} rows in the seeded sample (--sample-rows)\n",
+        found.rows,
+        data.rows()
+    );
+    text.push_str(&render(data, probs, &found.estimated, &params.matrix));
+    super::emit(out, &text)
 }
 
 fn write_outputs(

@@ -7,7 +7,7 @@ use std::path::PathBuf;
 use clap::Args;
 use serde::Serialize;
 
-use super::args::PipelineArgs;
+use super::args::{PipelineArgs, StreamArgs};
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::text_column::read_text_column;
@@ -16,6 +16,7 @@ use crate::io::{check_not_input, write_json};
 use crate::noise::scores::{auroc, RowScore, ScoreKind};
 use crate::timing::Stages;
 use crate::workflow;
+use crate::workflow::streamed::{suspects_streamed, StreamInput, StreamedSuspects};
 use crate::workflow::suspects::{expected_among, suspects, Suspects, SuspectsParams, DEFAULT_TOP};
 use crate::workflow::worklist::{valid_control_share, DEFAULT_CONTROL_SHARE};
 
@@ -70,6 +71,9 @@ pub struct SuspectsArgs {
     /// precision of the score against the rows whose observed label differs from it
     #[arg(long, value_name = "COL")]
     pub truth: Option<String>,
+    #[command(flatten)]
+    /// When to stream the table.
+    pub stream: StreamArgs,
 }
 
 #[derive(Debug, Serialize)]
@@ -101,6 +105,18 @@ struct SuspectsReport {
     per_class: Vec<ClassCount>,
     warnings: Vec<String>,
     truth: Option<TruthCheck>,
+    /// Present when the table was streamed.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    streamed: Option<StreamedFacts>,
+}
+
+/// What a streamed run adds to the summary.
+#[derive(Debug, Serialize)]
+struct StreamedFacts {
+    /// Rows the flip matrix was estimated on.
+    sample_rows: usize,
+    /// The expected number of mislabelled rows in the whole table.
+    expected_errors_all_rows: Option<f64>,
 }
 
 /// Runs `suspects`.
@@ -112,9 +128,13 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
         options.exclude.push(("--truth".into(), truth.clone()));
     }
     let mut stages = Stages::start();
+    let probs_path = args.pipeline.probs.probs.as_deref();
+    if args.stream.streams(&args.pipeline.table.data, probs_path) {
+        return run_streamed(args, &options, stages, out);
+    }
     let data = args.pipeline.table.load_with(&options)?;
     stages.end("load_table");
-    let params = params(args, &data)?;
+    let params = params(args, &data.classes)?;
     let probs = workflow::probabilities(
         &data,
         args.pipeline.probs.probs.as_deref(),
@@ -154,7 +174,116 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     }
     stages.end("write");
     super::report_stages(&stages);
-    super::emit(out, &render(&report, found.kind, &data, &found.listed))
+    super::emit(
+        out,
+        &render(&report, found.kind, &data, &found.listed, None),
+    )
+}
+
+/// `suspects` over a table too large to hold: two passes, the matrix from a sample.
+fn run_streamed(
+    args: &SuspectsArgs,
+    options: &crate::data::TableOptions,
+    mut stages: Stages,
+    out: &mut dyn Write,
+) -> Result<()> {
+    let Some(probs) = args.pipeline.probs.probs.as_deref() else {
+        return Err(Error::Usage(
+            "a streamed run needs the probabilities (--probs FILE, which may be the table's own \
+             file): fitting a model on every row would need the whole table in memory"
+                .into(),
+        ));
+    };
+    let refuse = |what: &str| {
+        Err(Error::Usage(format!(
+            "a streamed run does not take {what} yet"
+        )))
+    };
+    if args.with_features {
+        return refuse("--with-features");
+    }
+    if args.truth.is_some() {
+        return refuse("--truth (its AUROC needs every row's score)");
+    }
+    if args.pipeline.table.source.is_some() {
+        return refuse("--source (one matrix per label source)");
+    }
+    if args.classes.is_some() {
+        return refuse("--classes");
+    }
+    if args.per_class_cap.is_some() {
+        return refuse("--per-class-cap");
+    }
+    let params = params(args, &[])?;
+    let input = StreamInput {
+        table: &args.pipeline.table.data,
+        options,
+        probs,
+        renormalize: args.pipeline.probs.renormalize,
+        sample_rows: args.stream.sample_rows,
+    };
+    let found = suspects_streamed(&input, &params, &mut stages)?;
+    let data = &found.worklist_rows;
+    let key = match &args.out {
+        Some(path) => write_worklist_files(
+            path,
+            data,
+            found.kind,
+            &found.items,
+            Extras {
+                table_rows: Some(&found.table_rows),
+                ..Extras::default()
+            },
+        )?,
+        None => None,
+    };
+    let report = streamed_summary(&found, key, probs);
+    if let Some(path) = &args.json {
+        write_json(path, &report)?;
+    }
+    stages.end("write");
+    super::report_stages(&stages);
+    super::emit(
+        out,
+        &render(
+            &report,
+            found.kind,
+            data,
+            &found.listed,
+            Some(&found.table_rows),
+        ),
+    )
+}
+
+fn streamed_summary(
+    found: &StreamedSuspects,
+    key: Option<PathBuf>,
+    probs: &std::path::Path,
+) -> SuspectsReport {
+    let data = &found.worklist_rows;
+    let kind = found.kind;
+    let listed = &found.listed;
+    SuspectsReport {
+        score: kind.name(),
+        matrix: found.matrix.as_ref().map(|m| m.description.clone()),
+        probabilities: probs.display().to_string(),
+        rows: found.rows,
+        listed: listed.len(),
+        control: if key.is_some() {
+            found.control_rows()
+        } else {
+            0
+        },
+        key: key.map(|k| k.display().to_string()),
+        expected_errors: expected_among(kind, &listed.iter().collect::<Vec<_>>()),
+        per_class: per_class(data, kind, listed),
+        warnings: found.warnings.clone(),
+        truth: None,
+        streamed: Some(StreamedFacts {
+            sample_rows: found.sample_rows,
+            expected_errors_all_rows: found.expected_errors,
+        }),
+    }
 }
 
 fn check_outputs(args: &SuspectsArgs) -> Result<()> {
@@ -174,16 +303,16 @@ fn check_outputs(args: &SuspectsArgs) -> Result<()> {
 
 /// The flags as the suspects job's parameters; a class or threshold the flags get wrong
 /// is reported by its flag.
-fn params(args: &SuspectsArgs, data: &Dataset) -> Result<SuspectsParams> {
+fn params(args: &SuspectsArgs, class_names: &[String]) -> Result<SuspectsParams> {
     let classes = match &args.classes {
         Some(names) => Some(
             names
                 .iter()
                 .map(|n| {
-                    data.classes.iter().position(|c| c == n).ok_or_else(|| {
+                    class_names.iter().position(|c| c == n).ok_or_else(|| {
                         Error::Usage(format!(
                             "--classes names '{n}', which is not a class; classes: {}",
-                            data.classes.join(", ")
+                            class_names.join(", ")
                         ))
                     })
                 })
@@ -265,19 +394,7 @@ fn summary(
 ) -> SuspectsReport {
     let kind = found.kind;
     let listed = &found.listed;
-    let per_class = data
-        .classes
-        .iter()
-        .enumerate()
-        .map(|(c, name)| {
-            let rows: Vec<&RowScore> = listed.iter().filter(|s| data.labels[s.row] == c).collect();
-            ClassCount {
-                class: name.clone(),
-                listed: rows.len(),
-                expected_errors: expected_among(kind, &rows),
-            }
-        })
-        .collect();
+    let per_class = per_class(data, kind, listed);
     let all: Vec<&RowScore> = listed.iter().collect();
     SuspectsReport {
         score: kind.name(),
@@ -295,10 +412,33 @@ fn summary(
         per_class,
         warnings: found.warnings.clone(),
         truth,
+        streamed: None,
     }
 }
 
-fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScore]) -> String {
+/// Listed rows and their expected errors per observed class.
+fn per_class(data: &Dataset, kind: ScoreKind, listed: &[RowScore]) -> Vec<ClassCount> {
+    data.classes
+        .iter()
+        .enumerate()
+        .map(|(c, name)| {
+            let rows: Vec<&RowScore> = listed.iter().filter(|s| data.labels[s.row] == c).collect();
+            ClassCount {
+                class: name.clone(),
+                listed: rows.len(),
+                expected_errors: expected_among(kind, &rows),
+            }
+        })
+        .collect()
+}
+
+fn render(
+    r: &SuspectsReport,
+    kind: ScoreKind,
+    data: &Dataset,
+    listed: &[RowScore],
+    table_rows: Option<&[usize]>,
+) -> String {
     let mut t = String::new();
     let _ = writeln!(
         t,
@@ -307,6 +447,16 @@ fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScor
     );
     if let Some(m) = &r.matrix {
         let _ = writeln!(t, "flip matrix: {m}");
+    }
+    if let Some(s) = &r.streamed {
+        let _ = writeln!(
+            t,
+            "streamed in two passes: the matrix from a seeded sample of {} rows, every row scored",
+            s.sample_rows
+        );
+        if let Some(e) = s.expected_errors_all_rows {
+            let _ = writeln!(t, "expected mislabelled rows in the whole table: {e:.1}");
+        }
     }
     if let Some(key) = &r.key {
         let _ = writeln!(
@@ -334,7 +484,7 @@ fn render(r: &SuspectsReport, kind: ScoreKind, data: &Dataset, listed: &[RowScor
     }
     let width = super::name_width(data.classes.iter().map(String::as_str), "observed".len());
     per_class_table(&mut t, r, width);
-    head_of_list(&mut t, kind, data, listed, width);
+    head_of_list(&mut t, kind, data, listed, width, table_rows);
     if let Some(truth) = &r.truth {
         let auc = truth.auroc.map_or("n/a".into(), |a| format!("{a:.4}"));
         let precision = truth
@@ -379,6 +529,7 @@ fn head_of_list(
     data: &Dataset,
     listed: &[RowScore],
     width: usize,
+    table_rows: Option<&[usize]>,
 ) {
     if !listed.is_empty() {
         let _ = writeln!(
@@ -400,7 +551,7 @@ fn head_of_list(
                 t,
                 "{:>5}  {:>8}  {:<14}  {:<width$}  {:<width$}  {:>8.4}",
                 i + 1,
-                s.row,
+                table_rows.map_or(s.row, |rows| rows[s.row]),
                 data.id(s.row),
                 data.classes[data.labels[s.row]],
                 data.classes[s.suggested],

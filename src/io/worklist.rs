@@ -141,7 +141,7 @@ pub fn write_worklist_files(
         return Ok(None);
     }
     let key = key_path(path);
-    write_atomic(&key, |w| write_key(w, data, kind, items))?;
+    write_atomic(&key, |w| write_key(w, data, kind, items, extras))?;
     let format = Format::of(path);
     write_atomic(path, |w| write_blind(w, format, data, items, extras))?;
     Ok(Some(key))
@@ -155,9 +155,17 @@ pub struct Extras<'a> {
     /// Verdicts already given (the app's in-app review): their rows' review cells are
     /// filled, so the file reads back through `review` like one reviewed by hand.
     pub verdicts: &'a [Verdict],
+    /// The table row of each row of `data`, when `data` holds only the worklist's rows
+    /// (a streamed run); `None`: `data` is the whole table.
+    pub table_rows: Option<&'a [usize]>,
 }
 
 impl Extras<'_> {
+    /// The table row of `data`'s row `row`, as the `row` column shows it.
+    fn table_row(&self, row: usize) -> usize {
+        self.table_rows.map_or(row, |rows| rows[row])
+    }
+
     /// The review cell of every row with a verdict: the class name, or [`KEEP`] when it
     /// confirms the observed label.
     fn review_cells(&self, data: &Dataset) -> FxHashMap<usize, String> {
@@ -223,7 +231,7 @@ pub fn write_worklist(
     for (i, s) in ranked.iter().enumerate() {
         record.clear();
         record.push((i + 1).to_string());
-        record.push(s.row.to_string());
+        record.push(extras.table_row(s.row).to_string());
         record.push(data.id(s.row).into_owned());
         record.push(data.classes[data.labels[s.row]].clone());
         push_verdict(&mut record, data, kind, s);
@@ -271,7 +279,7 @@ pub fn write_blind(
     let mut record: Vec<String> = Vec::with_capacity(BLIND_COLUMNS.len());
     for (i, item) in items.iter().enumerate() {
         let row = item.score.row;
-        start_item(&mut record, data, i, row);
+        start_item(&mut record, data, i, row, &extras);
         record.push(data.classes[data.labels[row]].clone());
         record.push(reviews.get(&row).cloned().unwrap_or_default());
         push_source(&mut record, data, row);
@@ -285,10 +293,10 @@ pub fn write_blind(
 
 /// Starts `record` with the item's number (1-based), its data row and its id: the first
 /// columns of the blind worklist and of its key, which must agree line by line.
-fn start_item(record: &mut Vec<String>, data: &Dataset, i: usize, row: usize) {
+fn start_item(record: &mut Vec<String>, data: &Dataset, i: usize, row: usize, extras: &Extras) {
     record.clear();
     record.push((i + 1).to_string());
-    record.push(row.to_string());
+    record.push(extras.table_row(row).to_string());
     record.push(data.id(row).into_owned());
 }
 
@@ -298,6 +306,7 @@ pub fn write_key(
     data: &Dataset,
     kind: ScoreKind,
     items: &[Item],
+    extras: Extras,
 ) -> std::io::Result<()> {
     let columns: Vec<OutColumn> = KEY_COLUMNS
         .iter()
@@ -306,7 +315,7 @@ pub fn write_key(
     let mut w = TableWriter::new(out, Format::Text, &columns)?;
     let mut record: Vec<String> = Vec::with_capacity(KEY_COLUMNS.len());
     for (i, item) in items.iter().enumerate() {
-        start_item(&mut record, data, i, item.score.row);
+        start_item(&mut record, data, i, item.score.row, &extras);
         record.push(item.slice.name().to_string());
         record.push(item.rank.to_string());
         push_verdict(&mut record, data, kind, &item.score);

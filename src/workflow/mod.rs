@@ -7,6 +7,7 @@ pub mod estimate;
 pub mod overview;
 pub mod ranking;
 pub mod review;
+pub mod streamed;
 pub mod suspects;
 pub mod train;
 pub mod worklist;
@@ -228,6 +229,8 @@ pub fn with_sources<'a>(
     Ok(Estimate {
         matrix: by_source.overall.clone(),
         clean: Some(clean),
+        // The sources' shared classifier is not kept: streamed runs take no source column.
+        model: None,
         warnings,
         by_source: Some(by_source),
         volume: overall.volume,
@@ -329,6 +332,7 @@ pub fn matrix_only(
             Estimate {
                 matrix,
                 clean: None,
+                model: None,
                 warnings,
                 by_source: None,
                 volume: None,
@@ -348,6 +352,7 @@ pub fn flip_matrix(
     let Estimate {
         matrix,
         clean,
+        model: _,
         warnings,
         by_source,
         volume,
