@@ -52,13 +52,31 @@ fn too_large_with(path: &Path, free: u64) -> Option<String> {
     let need = load_bytes(path)?;
     (need > free).then(|| {
         format!(
-            "{} would need about {:.1} GiB of memory to load and this machine has {:.1} GiB free; \
-             write a sample of its rows to a smaller file, or use a machine with more memory",
+            "{} would need about {:.1} GiB of memory to load and this machine has {:.1} GiB free; {}",
             path.display(),
             need as f64 / GIB,
-            free as f64 / GIB
+            free as f64 / GIB,
+            stream_offer(path)
         )
     })
+}
+
+/// What to do instead of loading: the command line's streamed run for a columnar file
+/// (two passes in bounded memory), a conversion for a CSV one (which does not stream).
+fn stream_offer(path: &Path) -> String {
+    if Format::of(path).is_columnar() {
+        format!(
+            "the command line ranks it in two passes with bounded memory: \
+             flipmend suspects --data {0} --probs PROBS --budget 1000 --out worklist.csv \
+             (PROBS may be {0} itself when it holds the class columns)",
+            path.display()
+        )
+    } else {
+        "convert it to Parquet to rank it with the command line's streamed run (flipmend \
+         suspects --data FILE.parquet --probs PROBS --budget 1000), write a sample of its rows \
+         to a smaller file, or use a machine with more memory"
+            .to_string()
+    }
 }
 
 const GIB: f64 = (1u64 << 30) as f64;
@@ -87,6 +105,10 @@ mod tests {
         assert!(
             message.contains("good.parquet would need about 0.0 GiB"),
             "{message}"
+        );
+        assert!(
+            message.contains("flipmend suspects --data") && message.contains("good.parquet"),
+            "a columnar file is offered the streamed run: {message}"
         );
     }
 }

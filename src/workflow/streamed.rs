@@ -41,7 +41,10 @@ use crate::noise::Estimate;
 use crate::timing::Stages;
 
 /// Rows the matrix is estimated on when no size is given. Measured on a 2,000,000-row
-/// table (`benches/stream_sample.sh`): see the README's section on large tables.
+/// table (`benches/stream_sample.py`, two seeds): the full-data matrix lies inside the
+/// sample's 90 % interval in 96-100 % of cells from 25,000 rows up, while the largest
+/// cell difference falls from 0.014 (25,000) to 0.004-0.007 (200,000); the fit on
+/// 200,000 rows took 0.6 s of a 19 s run on 100,000,000 rows. See the README.
 pub const DEFAULT_SAMPLE_ROWS: usize = 200_000;
 
 /// Rows scored per parallel block in pass 2.
