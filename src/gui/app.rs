@@ -9,7 +9,7 @@ use rustc_hash::FxHashMap;
 use serde::{Deserialize, Serialize};
 
 use super::command::Command;
-use super::dialogs::{Dialogs, Purpose};
+use super::dialogs::{self, Dialogs, Purpose};
 use super::state::AppState;
 use super::views;
 use crate::io::session::Roles;
@@ -324,7 +324,11 @@ impl FlipmendApp {
             &mut self.commands,
         );
         for purpose in std::mem::take(&mut self.ui.dialog_requests) {
-            self.dialogs.request(purpose, &ctx);
+            let proposed = match purpose {
+                Purpose::SaveMerged => self.state.data().map(|d| dialogs::merged_name(&d.path)),
+                _ => None,
+            };
+            self.dialogs.request(purpose, proposed, &ctx);
         }
         self.apply_commands();
         if self.state.jobs().busy() {

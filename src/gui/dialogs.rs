@@ -67,11 +67,31 @@ impl Purpose {
             Purpose::ExportWorklist => ("worklist.csv", &["csv", "parquet"]),
             Purpose::ImportReview => ("worklist.csv", &["csv"]),
             Purpose::ExportVerdicts => ("worklist-reviewed.csv", &["csv"]),
-            Purpose::SaveMerged => ("data-reviewed.csv", &["csv", "tsv", "parquet"]),
+            Purpose::SaveMerged => ("data-reviewed.csv", &["csv", "tsv", "parquet"]), // see merged_name
             Purpose::SaveModel => ("model.json", &["json"]),
             Purpose::OpenSession | Purpose::SaveSession => ("session.json", &["json"]),
         }
     }
+}
+
+/// The name the Save merged dialog proposes for the table at `data`: the table's own
+/// name with `-reviewed`, in the kind the merged copy must have (Parquet for a columnar
+/// table, CSV for a CSV one), so the proposal is never refused.
+pub fn merged_name(data: &std::path::Path) -> String {
+    let stem = data
+        .file_stem()
+        .map_or("data".into(), |s| s.to_string_lossy().into_owned());
+    let extension = if crate::io::columnar::Format::of(data).is_columnar() {
+        "parquet"
+    } else if data
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("tsv"))
+    {
+        "tsv"
+    } else {
+        "csv"
+    };
+    format!("{stem}-reviewed.{extension}")
 }
 
 /// Opens dialogs on worker threads and collects the answers.
@@ -94,15 +114,22 @@ impl Default for Dialogs {
 }
 
 impl Dialogs {
-    /// Shows a dialog for `purpose`; the answer arrives through [`Dialogs::poll`].
-    pub fn request(&mut self, purpose: Purpose, ctx: &eframe::egui::Context) {
+    /// Shows a dialog for `purpose`, a save dialog proposing `proposed` (else the
+    /// purpose's own name); the answer arrives through [`Dialogs::poll`].
+    pub fn request(
+        &mut self,
+        purpose: Purpose,
+        proposed: Option<String>,
+        ctx: &eframe::egui::Context,
+    ) {
         let sender = self.sender.clone();
         let ctx = ctx.clone();
         self.open += 1;
         let spawned = std::thread::Builder::new()
             .name("flipmend-dialog".into())
             .spawn(move || {
-                let (name, extensions) = purpose.file();
+                let (default_name, extensions) = purpose.file();
+                let name = proposed.unwrap_or_else(|| default_name.to_string());
                 let dialog = rfd::FileDialog::new().add_filter("files", extensions);
                 let dialog = match std::env::current_dir() {
                     Ok(dir) => dialog.set_directory(dir),
@@ -129,5 +156,25 @@ impl Dialogs {
             chosen.extend(path.map(|p| (purpose, p)));
         }
         chosen
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_merged_copy_is_proposed_in_the_kind_the_table_needs() {
+        use std::path::Path;
+        assert_eq!(
+            merged_name(Path::new("/d/scans.parquet")),
+            "scans-reviewed.parquet"
+        );
+        assert_eq!(
+            merged_name(Path::new("scans.feather")),
+            "scans-reviewed.parquet"
+        );
+        assert_eq!(merged_name(Path::new("scans.tsv")), "scans-reviewed.tsv");
+        assert_eq!(merged_name(Path::new("scans.txt")), "scans-reviewed.csv");
     }
 }

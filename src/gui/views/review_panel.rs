@@ -118,7 +118,7 @@ pub fn worklist_files(
             view,
             Purpose::SaveMerged,
             "Write and load",
-            "merged data CSV to write",
+            "merged copy to write (CSV for a CSV table, Parquet for a columnar one)",
         ) {
             out.push(Command::SaveMerged(path));
         }
