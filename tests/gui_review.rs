@@ -188,7 +188,7 @@ fn a_round_hides_the_scores_and_its_control_rows_measure_what_the_list_missed() 
     h.get_by_label("Write verdicts").click();
     h.run_steps(2);
     settle(&mut h);
-    let read = read_reviewed(&data, &out, None).unwrap();
+    let read = read_reviewed(data.as_ref(), &out, None).unwrap();
     // The key writes p_wrong to six decimals.
     for (file, app) in [
         (read.summary.listed, in_app.listed),

@@ -7,13 +7,14 @@ use std::path::{Path, PathBuf};
 
 use clap::Args;
 
-use super::args::TableArgs;
-use crate::data::Dataset;
-use crate::error::Result;
-use crate::io::merged_columnar::check_merged_target;
+use super::args::{StreamArgs, TableArgs};
+use crate::error::{Error, Result};
+use crate::io::merged_columnar::{check_merged_target, write_merged_columnar};
 use crate::io::review::{write_merged, Key};
+use crate::io::review_table::ReviewTable;
 use crate::io::{check_not_input, write_atomic, write_json};
-use crate::workflow::review::{key_file_for, read_reviewed, ReviewSummary, SliceResult};
+use crate::workflow::review::{key_file_for, read_reviewed, ReviewSummary, Reviewed, SliceResult};
+use crate::workflow::streamed_review::review_streamed;
 
 /// Flags of `flipmend review`.
 #[derive(Debug, Clone, Args)]
@@ -38,6 +39,11 @@ pub struct ReviewArgs {
     /// Write the summary as JSON
     #[arg(long, value_name = "FILE")]
     pub json: Option<PathBuf>,
+    /// Look up the worklist's rows in one pass instead of loading the table when loading
+    /// it would take more than SIZE (e.g. 800M, 4G; 0 always) [default: the memory this
+    /// machine has free]. Parquet or Arrow IPC tables only
+    #[arg(long, value_name = "SIZE", value_parser = super::args::parse_size)]
+    pub max_memory: Option<u64>,
 }
 
 /// Runs `review`.
@@ -48,6 +54,14 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
     for output in [Some(&args.out), args.json.as_ref()].into_iter().flatten() {
         check_not_input(output, &inputs)?;
     }
+    let streams = StreamArgs {
+        max_memory: args.max_memory,
+        sample_rows: 0,
+    }
+    .streams(&args.table.data, None);
+    if streams {
+        return run_streamed(args, out);
+    }
     let data = args.table.load()?;
     check_merged_target(&data, &args.out)?;
     let read = read_reviewed(&data, &args.worklist, args.key.as_deref())?;
@@ -55,6 +69,38 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
     write_atomic(&args.out, |w| {
         write_merged(w, &data, delimiter, &read.review)
     })?;
+    finish(args, &data, &read, out)
+}
+
+/// `review` on a table too large to hold: the worklist's rows are looked up in one pass
+/// and the merged copy is written part by part.
+fn run_streamed(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
+    if args.table.annotations.is_some() || args.table.labels.is_some() {
+        return Err(Error::Usage(
+            "a streamed review takes one label column, not annotators' labels".into(),
+        ));
+    }
+    let options = args.table.options();
+    let (named, read) = review_streamed(
+        &args.table.data,
+        &options,
+        &args.worklist,
+        args.key.as_deref(),
+    )?;
+    check_merged_target(&named, &args.out)?;
+    write_atomic(&args.out, |w| {
+        write_merged_columnar(w, &named, &read.review)
+    })?;
+    finish(args, &named, &read, out)
+}
+
+/// Writes the JSON summary and prints the report.
+fn finish(
+    args: &ReviewArgs,
+    data: &dyn ReviewTable,
+    read: &Reviewed,
+    out: &mut dyn Write,
+) -> Result<()> {
     if let Some(path) = &args.json {
         write_json(path, &read.summary)?;
     }
@@ -62,7 +108,7 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
         out,
         &render(
             args,
-            &data,
+            data,
             &read.summary,
             read.key_file.as_deref(),
             read.key.as_ref(),
@@ -72,7 +118,7 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
 
 fn render(
     args: &ReviewArgs,
-    data: &Dataset,
+    data: &dyn ReviewTable,
     s: &ReviewSummary,
     key_file: Option<&Path>,
     key: Option<&Key>,
@@ -126,8 +172,7 @@ fn render(
         let _ = writeln!(text, "note: {note}");
     }
     let column = data
-        .trusted_column
-        .as_deref()
+        .trusted_column()
         .unwrap_or(crate::data::roles::DEFAULT_TRUSTED);
     let _ = writeln!(
         text,

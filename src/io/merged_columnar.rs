@@ -18,14 +18,14 @@ use super::columnar::{guarded, ColumnarFile, Format};
 use super::review::{merged_cells, merged_column_names, Review};
 use super::table_out::parquet_writer;
 use crate::data::origin::Origin;
-use crate::data::Dataset;
 use crate::error::{Error, Location, Problem, Result};
+use crate::io::review_table::ReviewTable;
 
 /// Refuses a merged copy whose name promises another format than the table's: a copy
 /// keeps every column as stored, so a CSV table's copy is CSV and a Parquet or Feather
 /// table's copy is Parquet.
-pub fn check_merged_target(data: &Dataset, out: &Path) -> Result<()> {
-    let columnar = Format::of(&data.path).is_columnar();
+pub fn check_merged_target(data: &dyn ReviewTable, out: &Path) -> Result<()> {
+    let columnar = Format::of(data.path()).is_columnar();
     let wants = Format::of(out);
     if columnar == (wants == Format::Parquet) && wants != Format::ArrowIpc {
         return Ok(());
@@ -42,23 +42,23 @@ pub fn check_merged_target(data: &Dataset, out: &Path) -> Result<()> {
 }
 
 /// Writes the merged copy of `data` (a Parquet or Arrow IPC table) to `out` as Parquet.
-pub(crate) fn write_merged_columnar(
+pub fn write_merged_columnar(
     out: &mut (dyn Write + Send),
-    data: &Dataset,
+    data: &dyn ReviewTable,
     review: &Review,
 ) -> std::io::Result<()> {
-    let format = Format::of(&data.path);
+    let format = Format::of(data.path());
     let copy = || copy_merged(out, data, review).map_err(|e| Error::Internal(e.to_string()));
-    guarded(&data.path, format, copy).map_err(std::io::Error::other)
+    guarded(data.path(), format, copy).map_err(std::io::Error::other)
 }
 
 fn copy_merged(
     out: &mut (dyn Write + Send),
-    data: &Dataset,
+    data: &dyn ReviewTable,
     review: &Review,
 ) -> std::io::Result<()> {
     let file =
-        ColumnarFile::open(&data.path, Format::of(&data.path)).map_err(std::io::Error::other)?;
+        ColumnarFile::open(data.path(), Format::of(data.path())).map_err(std::io::Error::other)?;
     let plan = Plan::new(data, &file.schema);
     let mut writer = parquet_writer(out, plan.schema.clone())?;
     let verdicts = merged_cells(data, review);
@@ -84,7 +84,7 @@ struct Plan {
 }
 
 impl Plan {
-    fn new(data: &Dataset, stored: &SchemaRef) -> Self {
+    fn new(data: &dyn ReviewTable, stored: &SchemaRef) -> Self {
         let (trusted_name, origin_name) = merged_column_names(data);
         let mut fields: Vec<Field> = stored.fields().iter().map(|f| f.as_ref().clone()).collect();
         let mut place = |name: &str| match fields.iter().position(|f| f.name() == name) {
@@ -113,7 +113,7 @@ impl Plan {
         &self,
         batch: &RecordBatch,
         first_row: usize,
-        data: &Dataset,
+        data: &dyn ReviewTable,
         verdicts: &HashMap<usize, (usize, Origin)>,
     ) -> std::io::Result<RecordBatch> {
         let stored_text =
@@ -126,7 +126,7 @@ impl Plan {
         for i in 0..batch.num_rows() {
             let row = first_row + i;
             if let Some(&(label, kept)) = verdicts.get(&row) {
-                trusted.append_value(&data.classes[label]);
+                trusted.append_value(&data.classes()[label]);
                 origin.append_value(kept.name());
                 continue;
             }
@@ -165,6 +165,7 @@ fn copy_cell(text: Option<&Text>, i: usize, cell: &mut Vec<u8>, to: &mut StringB
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::data::Dataset;
     use crate::io::review::Verdict;
     use crate::io::table_out::{CellKind, OutColumn, TableWriter};
     use crate::workflow::review::with_verdicts;

@@ -17,6 +17,7 @@ pub(crate) mod probs_arrow;
 pub mod probs_csv;
 pub mod probs_npy;
 pub mod review;
+pub mod review_table;
 pub mod session;
 pub mod stream;
 pub(crate) mod table_arrow;

@@ -13,6 +13,7 @@ use crate::data::Dataset;
 use crate::error::{shorten, Error, Location, Problem, Result};
 use crate::io::columnar::{as_csv_text, guarded, row_of_line, Format};
 use crate::io::csv_source::{open, CsvFormat, SkipBom};
+use crate::io::review_table::ReviewTable;
 use crate::io::worklist::Slice;
 
 /// The review word that confirms the observed label.
@@ -84,15 +85,15 @@ impl Review {
     }
 
     /// Verdicts that confirm the observed label.
-    pub fn confirmed(&self, data: &Dataset) -> usize {
+    pub fn confirmed(&self, data: &dyn ReviewTable) -> usize {
         self.verdicts
             .iter()
-            .filter(|v| data.labels[v.row] == v.label)
+            .filter(|v| data.label(v.row) == v.label)
             .count()
     }
 
     /// Verdicts that change it.
-    pub fn changed(&self, data: &Dataset) -> usize {
+    pub fn changed(&self, data: &dyn ReviewTable) -> usize {
         self.verdicts.len() - self.confirmed(data)
     }
 }
@@ -100,7 +101,7 @@ impl Review {
 /// Reads a reviewed worklist for `data`. The `row` and `review` columns are required;
 /// `id` and `observed`, when present, must agree with the data (so a worklist made from
 /// another version of the file is caught).
-pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Review> {
+pub fn read_review<R: Read>(reader: R, path: &Path, data: &dyn ReviewTable) -> Result<Review> {
     let (records, header) = open_edited(reader, path)?;
     let find = |name: &str| header.iter().position(|h| h == name);
     let [row_col, review_col] = required(&header, path, "a reviewed worklist", ["row", "review"])?;
@@ -120,7 +121,7 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
             same_id(cell(col), row, data).map_err(|d| bad(col, d))?;
         }
         if let Some(col) = observed_col {
-            let observed = &data.classes[data.labels[row]];
+            let observed = &data.classes()[data.label(row)];
             if cell(col) != observed {
                 return Err(bad(
                     col,
@@ -137,13 +138,13 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
             continue;
         }
         let label = if verdict.eq_ignore_ascii_case(KEEP) {
-            data.labels[row]
+            data.label(row)
         } else {
-            data.classes.iter().position(|c| c == verdict).ok_or_else(|| {
+            data.classes().iter().position(|c| c == verdict).ok_or_else(|| {
                 bad(review_col, format!(
                     "'{}' is not a class; write one of {}, or '{KEEP}' to confirm the observed label, or leave it empty",
                     shorten(verdict),
-                    data.classes.join(", ")
+                    data.classes().join(", ")
                 ))
             })?
         };
@@ -155,7 +156,8 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
                         review_col,
                         format!(
                             "row {row} was reviewed as '{}' on line {first_line}, and as '{}' here",
-                            data.classes[earlier], data.classes[label]
+                            data.classes()[earlier],
+                            data.classes()[label]
                         ),
                     ));
                 }
@@ -178,13 +180,16 @@ pub fn read_review<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Re
 /// origin. A row that already had a trusted label keeps its origin: it was chosen by that
 /// audit, not by this review. Shared by the CSV copy and the columnar one
 /// ([`crate::io::merged_columnar`]).
-pub(crate) fn merged_cells(data: &Dataset, review: &Review) -> HashMap<usize, (usize, Origin)> {
+pub(crate) fn merged_cells(
+    data: &dyn ReviewTable,
+    review: &Review,
+) -> HashMap<usize, (usize, Origin)> {
     review
         .verdicts
         .iter()
         .filter(|v| v.row < data.rows())
         .map(|v| {
-            let had_label = data.trusted.as_ref().is_some_and(|t| t[v.row].is_some());
+            let had_label = data.trusted(v.row).is_some();
             let origin = if had_label {
                 data.origin(v.row)
             } else {
@@ -197,15 +202,14 @@ pub(crate) fn merged_cells(data: &Dataset, review: &Review) -> HashMap<usize, (u
 
 /// The merged copy's trusted and origin column names: the table's own, else `trusted`
 /// and its origin column `trusted_origin`, added at the end.
-pub(crate) fn merged_column_names(data: &Dataset) -> (String, String) {
-    let trusted = data
-        .trusted_column
-        .clone()
-        .unwrap_or_else(|| crate::data::roles::DEFAULT_TRUSTED.to_string());
+pub(crate) fn merged_column_names(data: &dyn ReviewTable) -> (String, String) {
+    let trusted = data.trusted_column().map_or_else(
+        || crate::data::roles::DEFAULT_TRUSTED.to_string(),
+        str::to_string,
+    );
     let origin = data
-        .origin_column
-        .clone()
-        .unwrap_or_else(|| origin_column(&trusted));
+        .origin_column()
+        .map_or_else(|| origin_column(&trusted), str::to_string);
     (trusted, origin)
 }
 
@@ -275,7 +279,7 @@ pub fn write_merged(
 }
 
 /// Reads the reviewed worklist file at `path` for `data` (see [`read_review`]).
-pub fn load_review(path: &Path, data: &Dataset) -> Result<Review> {
+pub fn load_review(path: &Path, data: &dyn ReviewTable) -> Result<Review> {
     let format = Format::of(path);
     if format.is_columnar() {
         // A worklist is small: read as CSV text, with locations turned back into rows.
@@ -285,14 +289,48 @@ pub fn load_review(path: &Path, data: &Dataset) -> Result<Review> {
     read_review(open(path)?, path, data)
 }
 
+/// The data rows a worklist or key at `path` names (its `row` column), ascending and
+/// without repeats: the rows a review of a table too large to hold must look up. Cells
+/// that are not row numbers are skipped here; reading the file for real reports them
+/// with their line and column.
+pub fn named_rows(path: &Path) -> Result<Vec<usize>> {
+    let format = Format::of(path);
+    let text = if format.is_columnar() {
+        guarded(path, format, || as_csv_text(path, format))?
+    } else {
+        let mut bytes = Vec::new();
+        open(path)?
+            .read_to_end(&mut bytes)
+            .map_err(|source| Error::Read {
+                path: path.to_path_buf(),
+                source,
+            })?;
+        bytes
+    };
+    let (records, header) = open_edited(&text[..], path)?;
+    let [row_col] = required(&header, path, "a worklist or key", ["row"])?;
+    let mut rows = Vec::new();
+    for record in records {
+        let record = record.map_err(crate::error::csv_syntax(path))?;
+        rows.extend(
+            record
+                .get(row_col)
+                .and_then(|c| c.trim().parse::<usize>().ok()),
+        );
+    }
+    rows.sort_unstable();
+    rows.dedup();
+    Ok(rows)
+}
+
 /// Reads the key file at `path` for `data` (see [`read_key`]).
-pub fn load_key(path: &Path, data: &Dataset) -> Result<Key> {
+pub fn load_key(path: &Path, data: &dyn ReviewTable) -> Result<Key> {
     read_key(open(path)?, path, data)
 }
 
 /// Reads a worklist's key for `data`: the `row` and `slice` columns are required; `id`,
 /// when present, must agree with the data, and `p_wrong` is read when it has a value.
-pub fn read_key<R: Read>(reader: R, path: &Path, data: &Dataset) -> Result<Key> {
+pub fn read_key<R: Read>(reader: R, path: &Path, data: &dyn ReviewTable) -> Result<Key> {
     let (records, header) = open_edited(reader, path)?;
     let find = |name: &str| header.iter().position(|h| h == name);
     let [row_col, slice_col] = required(&header, path, "a worklist key", ["row", "slice"])?;
@@ -371,7 +409,7 @@ fn required<const N: usize>(
 }
 
 /// A 0-based data row number of `data`, from a cell.
-fn data_row(cell: &str, data: &Dataset) -> std::result::Result<usize, String> {
+fn data_row(cell: &str, data: &dyn ReviewTable) -> std::result::Result<usize, String> {
     cell.parse::<usize>()
         .ok()
         .filter(|&r| r < data.rows())
@@ -386,7 +424,7 @@ fn data_row(cell: &str, data: &Dataset) -> std::result::Result<usize, String> {
 
 /// Checks that an id cell names `row`'s id (a worklist or key made from another version
 /// of the table is caught here).
-fn same_id(cell: &str, row: usize, data: &Dataset) -> std::result::Result<(), String> {
+fn same_id(cell: &str, row: usize, data: &dyn ReviewTable) -> std::result::Result<(), String> {
     if cell == data.id(row) {
         return Ok(());
     }

@@ -415,7 +415,11 @@ impl ProbCursor<'_, '_> {
                 Some(keep) => {
                     let from = keep.partition_point(|&r| r < done);
                     let to = keep.partition_point(|&r| r < done + n);
-                    if from < to {
+                    // A pass that reads no probability column (a review's lookup)
+                    // has nothing to take.
+                    if from < to && slice.num_columns() == 0 {
+                        placed += to - from;
+                    } else if from < to {
                         let offsets: Vec<u32> =
                             keep[from..to].iter().map(|&r| (r - done) as u32).collect();
                         let taken = arrow_select::take::take_record_batch(
@@ -434,6 +438,9 @@ impl ProbCursor<'_, '_> {
             done += n;
         }
         let first = self.file_row - rows;
+        if out.values.ncols() == 0 {
+            return Ok(out);
+        }
         match keep {
             None => self.check_sums(&mut out.values, &|i| first + i)?,
             Some(keep) => self.check_sums(&mut out.values, &|i| first + keep[i])?,

@@ -8,6 +8,7 @@ pub mod overview;
 pub mod ranking;
 pub mod review;
 pub mod streamed;
+pub mod streamed_review;
 pub mod suspects;
 pub mod train;
 pub mod worklist;

@@ -11,6 +11,7 @@ use crate::data::origin::Origin;
 use crate::data::Dataset;
 use crate::error::Result;
 use crate::io::review::{load_key, load_review, Key, Review, Verdict};
+use crate::io::review_table::ReviewTable;
 use crate::io::worklist::key_beside;
 use crate::learn::metrics::Proportion;
 
@@ -37,7 +38,11 @@ pub fn key_file_for(worklist: &Path, key: Option<&Path>) -> Option<PathBuf> {
 /// Reads the reviewed `worklist` for `data` with its key ([`key_file_for`]) and
 /// summarises it. Every cell is checked against the data (row, id, observed label,
 /// class names), with the file, line and column of the first problem.
-pub fn read_reviewed(data: &Dataset, worklist: &Path, key: Option<&Path>) -> Result<Reviewed> {
+pub fn read_reviewed(
+    data: &dyn ReviewTable,
+    worklist: &Path,
+    key: Option<&Path>,
+) -> Result<Reviewed> {
     let key_file = key_file_for(worklist, key);
     let mut review = load_review(worklist, data)?;
     let key = key_file
@@ -124,7 +129,7 @@ pub struct ReviewSummary {
 /// verdicts given outside a round): the note that warns about a worklist read without
 /// its key is then left out, since there is no key to have lost.
 pub fn summarise(
-    data: &Dataset,
+    data: &dyn ReviewTable,
     review: &mut Review,
     key: Option<&Key>,
     missing_key_expected: bool,
@@ -154,7 +159,7 @@ pub fn summarise(
             .collect();
         let wrong = verdicts
             .iter()
-            .filter(|v| v.label != data.labels[v.row])
+            .filter(|v| v.label != data.label(v.row))
             .count();
         let p: Vec<f64> = verdicts
             .iter()
@@ -206,14 +211,12 @@ pub fn summarise(
 }
 
 /// Earlier trusted labels that a verdict changes.
-fn replaced(data: &Dataset, review: &Review) -> usize {
+fn replaced(data: &dyn ReviewTable, review: &Review) -> usize {
     review
         .verdicts
         .iter()
         .filter(|v| {
-            data.trusted
-                .as_ref()
-                .and_then(|t| t[v.row])
+            data.trusted(v.row)
                 .is_some_and(|earlier| earlier != v.label)
         })
         .count()

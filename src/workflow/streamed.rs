@@ -596,14 +596,14 @@ fn needed_rows(rows: usize, draws: &[(usize, u64)], seed: u64) -> Vec<usize> {
 }
 
 /// Class names in natural order, as a loaded table orders them.
-fn class_order(names: &[String]) -> Vec<String> {
+pub(super) fn class_order(names: &[String]) -> Vec<String> {
     let mut classes = names.to_vec();
     classes.sort_by(|a, b| natural_cmp(a, b));
     classes
 }
 
 /// The class of each label code.
-fn code_classes(names: &[String], classes: &[String]) -> Vec<u32> {
+pub(super) fn code_classes(names: &[String], classes: &[String]) -> Vec<u32> {
     names
         .iter()
         .map(|n| classes.iter().position(|c| c == n).unwrap_or(0) as u32)

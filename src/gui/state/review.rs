@@ -86,7 +86,7 @@ impl AppState {
             return self.say(Level::Error, "load a data table first");
         };
         self.spawn_on_data(JobKind::Review, move |_| {
-            let read = read_reviewed(&data, &path, None).map_err(fail)?;
+            let read = read_reviewed(data.as_ref(), &path, None).map_err(fail)?;
             let read = ReviewRead {
                 path,
                 review: Arc::new(read.review),
@@ -111,7 +111,7 @@ impl AppState {
         self.spawn_on_data(kind, move |_| {
             let inputs: Vec<&Path> = all_inputs.iter().map(PathBuf::as_path).collect();
             check_not_input(&target, &inputs).map_err(fail)?;
-            check_merged_target(&data, &target).map_err(fail)?;
+            check_merged_target(data.as_ref(), &target).map_err(fail)?;
             write_atomic(&target, |w| {
                 write_merged(w, &data, delimiter, &review.review)
             })
