@@ -257,20 +257,40 @@ impl StreamArgs {
     /// True when `table` (and `probs`, when another file) would take more memory to load
     /// than `--max-memory`, or than is free.
     pub fn streams(&self, table: &Path, probs: Option<&Path>) -> bool {
-        let limit = match self
-            .max_memory
-            .or_else(crate::data::footprint::available_bytes)
-        {
-            Some(limit) => limit,
-            None => return false,
-        };
-        let table_bytes = crate::data::footprint::load_bytes(table).unwrap_or(0);
-        let probs_bytes = probs
-            .filter(|p| *p != table)
-            .and_then(crate::data::footprint::load_bytes)
-            .unwrap_or(0);
-        self.max_memory == Some(0) || table_bytes.saturating_add(probs_bytes) > limit
+        streams(self.max_memory, table, probs)
     }
+}
+
+/// True when `table` (and `probs`, when another file) would take more memory to load
+/// than `max_memory` (0: always), or than is free when it is not given.
+pub fn streams(max_memory: Option<u64>, table: &Path, probs: Option<&Path>) -> bool {
+    let limit = match max_memory.or_else(crate::data::footprint::available_bytes) {
+        Some(limit) => limit,
+        None => return false,
+    };
+    let table_bytes = crate::data::footprint::load_bytes(table).unwrap_or(0);
+    let probs_bytes = probs
+        .filter(|p| *p != table)
+        .and_then(crate::data::footprint::load_bytes)
+        .unwrap_or(0);
+    max_memory == Some(0) || table_bytes.saturating_add(probs_bytes) > limit
+}
+
+/// The probability file a streamed run needs (a fit on every row's features would need
+/// the whole table in memory).
+pub fn streamed_probs(probs: Option<&Path>) -> crate::error::Result<&Path> {
+    probs.ok_or_else(|| {
+        crate::error::Error::Usage(
+            "a streamed run needs the probabilities (--probs FILE, which may be the table's own \
+             file): fitting a model on every row would need the whole table in memory"
+                .into(),
+        )
+    })
+}
+
+/// The refusal of a setting a streamed run cannot honour yet.
+pub fn not_streamed(what: &str) -> crate::error::Error {
+    crate::error::Error::Usage(format!("a streamed run does not take {what} yet"))
 }
 
 /// A size in bytes: a number with an optional K, M, G or T (powers of 1024).

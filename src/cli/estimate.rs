@@ -8,7 +8,7 @@ use clap::Args;
 use ndarray::Array2;
 use serde::Serialize;
 
-use super::args::{PipelineArgs, StreamArgs};
+use super::args::{not_streamed, streamed_probs, PipelineArgs, StreamArgs};
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::columnar::Format;
@@ -178,18 +178,8 @@ fn rows_of(t: &Array2<f64>) -> Vec<Vec<f64>> {
 
 /// `estimate` over a table too large to hold.
 fn run_streamed(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
-    let Some(probs) = args.pipeline.probs.probs.as_deref() else {
-        return Err(Error::Usage(
-            "a streamed run needs the probabilities (--probs FILE, which may be the table's own \
-             file): fitting a model on every row would need the whole table in memory"
-                .into(),
-        ));
-    };
-    let refuse = |what: &str| {
-        Err(Error::Usage(format!(
-            "a streamed run does not take {what} yet"
-        )))
-    };
+    let probs = streamed_probs(args.pipeline.probs.probs.as_deref())?;
+    let refuse = |what: &str| Err(not_streamed(what));
     let table = &args.pipeline.table;
     if table.labels.is_some() || table.annotations.is_some() || args.consensus_out.is_some() {
         return refuse("several annotators' labels");

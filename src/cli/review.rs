@@ -7,8 +7,8 @@ use std::path::{Path, PathBuf};
 
 use clap::Args;
 
-use super::args::{StreamArgs, TableArgs};
-use crate::error::{Error, Result};
+use super::args::{not_streamed, streams, TableArgs};
+use crate::error::Result;
 use crate::io::merged_columnar::{check_merged_target, write_merged_columnar};
 use crate::io::review::{write_merged, Key};
 use crate::io::review_table::ReviewTable;
@@ -54,12 +54,7 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
     for output in [Some(&args.out), args.json.as_ref()].into_iter().flatten() {
         check_not_input(output, &inputs)?;
     }
-    let streams = StreamArgs {
-        max_memory: args.max_memory,
-        sample_rows: 0,
-    }
-    .streams(&args.table.data, None);
-    if streams {
+    if streams(args.max_memory, &args.table.data, None) {
         return run_streamed(args, out);
     }
     let data = args.table.load()?;
@@ -76,9 +71,7 @@ pub fn run(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
 /// and the merged copy is written part by part.
 fn run_streamed(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
     if args.table.annotations.is_some() || args.table.labels.is_some() {
-        return Err(Error::Usage(
-            "a streamed review takes one label column, not annotators' labels".into(),
-        ));
+        return Err(not_streamed("several annotators' labels"));
     }
     let options = args.table.options();
     let (named, read) = review_streamed(

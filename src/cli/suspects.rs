@@ -7,7 +7,7 @@ use std::path::PathBuf;
 use clap::Args;
 use serde::Serialize;
 
-use super::args::{PipelineArgs, StreamArgs};
+use super::args::{not_streamed, streamed_probs, PipelineArgs, StreamArgs};
 use crate::data::Dataset;
 use crate::error::{Error, Result};
 use crate::io::text_column::read_text_column;
@@ -187,18 +187,8 @@ fn run_streamed(
     mut stages: Stages,
     out: &mut dyn Write,
 ) -> Result<()> {
-    let Some(probs) = args.pipeline.probs.probs.as_deref() else {
-        return Err(Error::Usage(
-            "a streamed run needs the probabilities (--probs FILE, which may be the table's own \
-             file): fitting a model on every row would need the whole table in memory"
-                .into(),
-        ));
-    };
-    let refuse = |what: &str| {
-        Err(Error::Usage(format!(
-            "a streamed run does not take {what} yet"
-        )))
-    };
+    let probs = streamed_probs(args.pipeline.probs.probs.as_deref())?;
+    let refuse = |what: &str| Err(not_streamed(what));
     if args.with_features {
         return refuse("--with-features");
     }

@@ -330,14 +330,7 @@ pub fn matrix_only(
                     "a matrix file holds one matrix: the source column is not used for it".into(),
                 );
             }
-            Estimate {
-                matrix,
-                clean: None,
-                model: None,
-                warnings,
-                by_source: None,
-                volume: None,
-            }
+            Estimate::from_matrix(matrix, warnings)
         }
     };
     estimate.warnings.extend(probs.warnings.iter().cloned());

@@ -241,6 +241,19 @@ pub struct Estimate {
 }
 
 impl Estimate {
+    /// A matrix with nothing else estimated beside it: no clean posteriors, no clean
+    /// model, no per-source matrices, no λ (a matrix file, a streamed pass).
+    pub fn from_matrix(matrix: Array2<f64>, warnings: Vec<String>) -> Estimate {
+        Estimate {
+            matrix,
+            clean: None,
+            model: None,
+            warnings,
+            by_source: None,
+            volume: None,
+        }
+    }
+
     /// `method` with every choice this estimate made from the data fixed (the joint fit's
     /// λ), so that bootstrap resamples and per-source fits repeat the same estimator
     /// instead of choosing again.
@@ -281,8 +294,7 @@ pub fn estimate(method: &Method, sample: &Sample, classes: &[String]) -> Result<
             fit.matrix
         }
     };
-    normalize_rows(&mut matrix);
-    validate(&matrix).map_err(|e| Error::Internal(format!("{} estimator: {e}", method.name())))?;
+    finish_matrix(method, &mut matrix)?;
     Ok(Estimate {
         matrix,
         clean,
@@ -345,14 +357,13 @@ pub fn estimate_in_passes(
     }
     let mut warnings = Vec::new();
     let mut matrix = passes.finish(classes, &mut warnings)?;
-    normalize_rows(&mut matrix);
-    validate(&matrix).map_err(|e| Error::Internal(format!("{} estimator: {e}", method.name())))?;
-    Ok(Some(Estimate {
-        matrix,
-        clean: None,
-        model: None,
-        warnings,
-        by_source: None,
-        volume: None,
-    }))
+    finish_matrix(method, &mut matrix)?;
+    Ok(Some(Estimate::from_matrix(matrix, warnings)))
+}
+
+/// Every estimator's last step, in memory or in passes: rows normalised to sum to 1,
+/// then checked (a failure is ours, not the user's).
+fn finish_matrix(method: &Method, matrix: &mut Array2<f64>) -> Result<()> {
+    normalize_rows(matrix);
+    validate(matrix).map_err(|e| Error::Internal(format!("{} estimator: {e}", method.name())))
 }
