@@ -9,7 +9,7 @@
 
 use std::io::Read;
 
-use memchr::{memchr, memrchr};
+use memchr::{memchr, memchr2, memrchr};
 
 /// Where the scanner stands relative to CSV quoting.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -157,14 +157,49 @@ impl<R: Read> Blocks<R> {
                 Scan::Unquoted
             };
         } else {
-            for (i, &byte) in region.iter().enumerate() {
-                self.state = self.step(byte);
-                if byte == b'\n' && self.state == Scan::FieldStart {
-                    self.boundary = Some(self.scanned + i + 1);
+            self.scan_quoted(region.len());
+        }
+        self.scanned = self.pending.len();
+    }
+
+    /// [`Self::scan`] over a region with quotes: inside a quoted field it jumps to the
+    /// next quote and inside an unquoted one to the next delimiter or newline, stepping
+    /// byte by byte only at field starts and after a quote. Measured on a 1.3 GB file of
+    /// quoted labels (`benches/stream_100m.sh 10000000 DIR csv`): the byte-by-byte loop
+    /// took 30 % of the run's cycles.
+    fn scan_quoted(&mut self, len: usize) {
+        let base = self.scanned;
+        let mut i = 0;
+        while i < len {
+            let rest = &self.pending[base + i..base + len];
+            match self.state {
+                Scan::Quoted => match memchr(b'"', rest) {
+                    Some(p) => {
+                        i += p + 1;
+                        self.state = Scan::ClosingOrEscape;
+                    }
+                    None => i = len,
+                },
+                Scan::Unquoted => match memchr2(self.delimiter, b'\n', rest) {
+                    Some(p) => {
+                        i += p + 1;
+                        self.state = Scan::FieldStart;
+                        if rest[p] == b'\n' {
+                            self.boundary = Some(base + i);
+                        }
+                    }
+                    None => i = len,
+                },
+                Scan::FieldStart | Scan::ClosingOrEscape => {
+                    let byte = rest[0];
+                    self.state = self.step(byte);
+                    i += 1;
+                    if byte == b'\n' && self.state == Scan::FieldStart {
+                        self.boundary = Some(base + i);
+                    }
                 }
             }
         }
-        self.scanned = self.pending.len();
     }
 
     fn step(&self, byte: u8) -> Scan {
@@ -224,6 +259,47 @@ mod tests {
         let text = "a,5\",b\nc,d,e\n";
         let parts = blocks(text, 1);
         assert_eq!(parts, vec!["a,5\",b\n", "c,d,e\n"]);
+    }
+
+    /// The record boundaries of `text` found one byte at a time by the quote rules
+    /// ([`Blocks::step`]), and the state after each byte: the reference the jumping
+    /// scanner must agree with.
+    fn by_steps(text: &[u8]) -> (Vec<usize>, Vec<Scan>) {
+        let mut b = Blocks::new(&b""[..], b',', 1, 1 << 20);
+        let (mut cuts, mut states) = (Vec::new(), Vec::new());
+        for (i, &byte) in text.iter().enumerate() {
+            b.state = b.step(byte);
+            states.push(b.state);
+            if byte == b'\n' && b.state == Scan::FieldStart {
+                cuts.push(i + 1);
+            }
+        }
+        (cuts, states)
+    }
+
+    #[test]
+    fn the_jumping_scanner_cuts_where_the_byte_rules_do() {
+        // Seeded random texts over the bytes that matter (a fixed congruential stream),
+        // scanned in uneven pieces as reads arrive.
+        let mut seed = 7u64;
+        let alphabet = [b'a', b',', b'\n', b'"', b'b'];
+        for _ in 0..500 {
+            let text: Vec<u8> = (0..200)
+                .map(|_| {
+                    seed = seed.wrapping_mul(6364136223846793005).wrapping_add(1);
+                    alphabet[(seed >> 33) as usize % alphabet.len()]
+                })
+                .collect();
+            let (cuts, states) = by_steps(&text);
+            let mut b = Blocks::new(&b""[..], b',', 1, 1 << 20);
+            for end in [1, 13, 64, 65, 150, 200] {
+                b.pending = text[..end].to_vec();
+                b.scan();
+                let expected = cuts.iter().rev().find(|&&c| c <= end).copied();
+                assert_eq!(b.boundary, expected, "{:?}", String::from_utf8_lossy(&text));
+                assert_eq!(b.state, states[end - 1]);
+            }
+        }
     }
 
     #[test]
