@@ -111,7 +111,7 @@ fn verdicts_reach_the_estimate_exactly_as_the_merged_table_does() {
         not_reviewed: 0,
     };
     let merged = dir.path("merged.csv");
-    write_atomic(&merged, |w| write_merged(w, &data, b',', &review)).unwrap();
+    write_atomic(&merged, |w| write_merged(w, data.as_ref(), b',', &review)).unwrap();
     let back = Dataset::load(&merged, &TableOptions::default()).unwrap();
     let probs = s.probs().unwrap();
     // The estimator as the app runs it (its volume weight chosen from the audits).

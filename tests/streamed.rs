@@ -1,5 +1,5 @@
-//! Streamed runs (`suspects --max-memory`): with a sample as large as the table they must
-//! give the in-memory worklist and key byte for byte (the same seeded control draw, the
+//! Streamed runs (`suspects --max-memory`), over Parquet and over CSV: with a sample as
+//! large as the table they must give the in-memory worklist and key byte for byte (the same seeded control draw, the
 //! same ranks, the same scores); a smaller sample still finds the planted errors; what a
 //! streamed run cannot do is refused with exit code 2 and a reason.
 //!
@@ -166,16 +166,18 @@ fn what_a_streamed_run_cannot_do_is_refused() {
     let csv = demo.to_str().unwrap();
     flipmend(&["suspects", "--data", csv, "--max-memory", "0"])
         .assert_bad_input(&["needs the probabilities"]);
+    let npy = dir.path("p.npy");
+    std::fs::write(&npy, b"\x93NUMPY").unwrap();
     flipmend(&[
         "suspects",
         "--data",
         csv,
         "--probs",
-        probs.to_str().unwrap(),
+        npy.to_str().unwrap(),
         "--max-memory",
         "0",
     ])
-    .assert_bad_input(&["reads Parquet or Arrow IPC", "recycling.csv"]);
+    .assert_bad_input(&["CSV, Parquet or Arrow IPC", "p.npy"]);
     suspects(
         &table,
         &probs,
@@ -376,4 +378,146 @@ fn a_streamed_review_checks_every_cell_against_the_table() {
     ])
     .assert_bad_input(&["edited.csv", "line 3", "observed", "in the data"]);
     assert!(!dir.path("m.parquet").exists(), "nothing half-written");
+}
+
+/// The demo's own CSV and its out-of-fold probabilities as CSV (`--probs-out`).
+fn demo_csv(dir: &TempDir) -> (PathBuf, PathBuf) {
+    let probs = dir.path("probs.csv");
+    flipmend(&[
+        "estimate",
+        "--data",
+        demo().to_str().unwrap(),
+        "--method",
+        "counting",
+        "--probs-out",
+        probs.to_str().unwrap(),
+    ])
+    .assert_ok();
+    (demo(), probs)
+}
+
+#[test]
+fn a_streamed_csv_run_gives_the_in_memory_worklist_matrices_and_review() {
+    let dir = TempDir::new();
+    let (table, probs) = demo_csv(&dir);
+    let (memory, streamed) = (dir.path("memory.csv"), dir.path("streamed.csv"));
+    suspects(&table, &probs, &memory, &[]).assert_ok();
+    let whole_sample = ["--max-memory", "0", "--sample-rows", "1000000"];
+    let run = suspects(&table, &probs, &streamed, &whole_sample);
+    run.assert_ok();
+    assert!(
+        run.stdout.contains("streamed in two passes"),
+        "{}",
+        run.stdout
+    );
+    assert_eq!(read(&memory), read(&streamed), "the worklist");
+    assert_eq!(
+        read(&dir.path("memory.key.csv")),
+        read(&dir.path("streamed.key.csv")),
+        "the key"
+    );
+    for method in ["anchor", "quantile", "trusted", "counting"] {
+        let (a, b) = (dir.path("a.json"), dir.path("b.json"));
+        let estimate = |json: &Path, extra: &[&str]| {
+            let mut args = vec![
+                "estimate",
+                "--data",
+                table.to_str().unwrap(),
+                "--probs",
+                probs.to_str().unwrap(),
+                "--method",
+                method,
+                "--json",
+                json.to_str().unwrap(),
+            ];
+            args.extend_from_slice(extra);
+            flipmend(&args).assert_ok();
+        };
+        estimate(&a, &[]);
+        estimate(&b, &["--max-memory", "0", "--sample-rows", "500"]);
+        assert_eq!(matrix_of(&a), matrix_of(&b), "{method}");
+    }
+    // The review of that worklist: the same report and the same merged CSV copy.
+    let reviewed = dir.path("reviewed.csv");
+    fill_review(&memory, &reviewed);
+    std::fs::copy(dir.path("memory.key.csv"), dir.path("reviewed.key.csv")).unwrap();
+    let review = |name: &str, extra: &[&str]| {
+        let out = dir.path(&format!("{name}.csv"));
+        let mut args = vec![
+            "review",
+            "--data",
+            table.to_str().unwrap(),
+            "--worklist",
+            reviewed.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+        ];
+        args.extend_from_slice(extra);
+        let run = flipmend(&args);
+        run.assert_ok();
+        (run.stdout.replace(out.to_str().unwrap(), "OUT"), read(&out))
+    };
+    let whole = review("merged-whole", &[]);
+    let streamed = review("merged-streamed", &["--max-memory", "0"]);
+    assert!(whole.0.contains("control rows found wrong"), "{}", whole.0);
+    assert_eq!(streamed, whole, "the report and the merged CSV copy");
+}
+
+/// A small table and probability file written as text.
+fn write(dir: &TempDir, name: &str, text: &str) -> PathBuf {
+    let path = dir.path(name);
+    std::fs::write(&path, text).unwrap();
+    path
+}
+
+#[test]
+fn a_streamed_csv_run_reads_quoted_and_blank_lines_as_the_in_memory_one() {
+    // A quoted id over two lines and a blank line: rows and lines part, and both runs
+    // must still agree on every row.
+    let dir = TempDir::new();
+    let table = write(
+        &dir,
+        "t.csv",
+        "id,x,label\n\"a\nb\",1,cat\nr1,2,dog\n\nr2,3,cat\nr3,4,dog\nr4,5,cat\nr5,6,dog\n",
+    );
+    let probs = write(
+        &dir,
+        "p.csv",
+        "id,cat,dog\n\"a\nb\",0.1,0.9\nr1,0.8,0.2\n\nr2,0.7,0.3\nr3,0.4,0.6\nr4,0.9,0.1\nr5,0.3,0.7\n",
+    );
+    let (a, b) = (dir.path("a.csv"), dir.path("b.csv"));
+    suspects(&table, &probs, &a, &["--control", "0"]).assert_ok();
+    suspects(&table, &probs, &b, &["--control", "0", "--max-memory", "0"]).assert_ok();
+    assert_eq!(read(&a), read(&b));
+    assert!(read(&a).contains("\"a\nb\""), "{}", read(&a));
+}
+
+#[test]
+fn bad_csv_cells_in_a_streamed_run_are_reported_at_their_line_and_column() {
+    let dir = TempDir::new();
+    let run = |table: &Path, probs: &Path| {
+        suspects(table, probs, &dir.path("w.csv"), &["--max-memory", "0"])
+    };
+    let good_table = "id,x,label\nr0,1,cat\nr1,2,dog\nr2,3,cat\n";
+    let good_probs = "id,cat,dog\nr0,0.1,0.9\nr1,0.8,0.2\nr2,0.7,0.3\n";
+    let table = write(&dir, "t.csv", good_table);
+    let ragged = write(&dir, "ragged.csv", "id,x,label\nr0,1,cat\nr1,2,dog,9\n");
+    run(&ragged, &table).assert_bad_input(&["ragged.csv", "line 3", "4 fields"]);
+    let words = write(&dir, "words.csv", &good_probs.replace("0.8", "high"));
+    run(&table, &words).assert_bad_input(&["words.csv", "line 3", "'cat'", "'high'"]);
+    let sums = write(&dir, "sums.csv", &good_probs.replace("0.7,0.3", "0.7,0.7"));
+    run(&table, &sums).assert_bad_input(&["sums.csv", "line 4", "sum to 1.4"]);
+    // After a blank line the rows sit one line lower, and the report follows them.
+    let blank = good_probs
+        .replacen("\nr1", "\n\nr1", 1)
+        .replace("0.7,0.3", "0.7,0.7");
+    let blank = write(&dir, "blank.csv", &blank);
+    run(&table, &blank).assert_bad_input(&["blank.csv", "line 5", "sum to 1.4"]);
+    let swapped = good_probs.replace("r0,", "rX,");
+    let swapped = write(&dir, "order.csv", &swapped);
+    run(&table, &swapped).assert_bad_input(&["order.csv", "line 2", "'rX'", "table's row order"]);
+    let short = write(&dir, "short.csv", "id,cat,dog\nr0,0.1,0.9\n");
+    run(&table, &short).assert_bad_input(&["short.csv", "end after 1 rows"]);
+    let long = write(&dir, "long.csv", &format!("{good_probs}r3,0.5,0.5\n"));
+    run(&table, &long).assert_bad_input(&["long.csv", "line 5", "more rows than the table's 3"]);
 }

@@ -245,7 +245,7 @@ impl PipelineArgs {
 pub struct StreamArgs {
     /// Stream the table in two passes with bounded memory when loading it whole would
     /// take more than SIZE (e.g. 800M, 4G; 0 always streams) [default: the memory this
-    /// machine has free]. A streamed run reads Parquet or Arrow IPC and needs --probs
+    /// machine has free]. A streamed run needs --probs (CSV, Parquet or Arrow IPC)
     #[arg(long, value_name = "SIZE", value_parser = parse_size)]
     pub max_memory: Option<u64>,
     /// Rows of the seeded uniform sample on which a streamed run estimates the flip matrix

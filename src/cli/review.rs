@@ -9,7 +9,7 @@ use clap::Args;
 
 use super::args::{not_streamed, streams, TableArgs};
 use crate::error::Result;
-use crate::io::merged_columnar::{check_merged_target, write_merged_columnar};
+use crate::io::merged_columnar::check_merged_target;
 use crate::io::review::{write_merged, Key};
 use crate::io::review_table::ReviewTable;
 use crate::io::{check_not_input, write_atomic, write_json};
@@ -41,7 +41,7 @@ pub struct ReviewArgs {
     pub json: Option<PathBuf>,
     /// Look up the worklist's rows in one pass instead of loading the table when loading
     /// it would take more than SIZE (e.g. 800M, 4G; 0 always) [default: the memory this
-    /// machine has free]. Parquet or Arrow IPC tables only
+    /// machine has free]
     #[arg(long, value_name = "SIZE", value_parser = super::args::parse_size)]
     pub max_memory: Option<u64>,
 }
@@ -81,8 +81,9 @@ fn run_streamed(args: &ReviewArgs, out: &mut dyn Write) -> Result<()> {
         args.key.as_deref(),
     )?;
     check_merged_target(&named, &args.out)?;
+    let delimiter = options.delimiter_for(&args.table.data);
     write_atomic(&args.out, |w| {
-        write_merged_columnar(w, &named, &read.review)
+        write_merged(w, &named, delimiter, &read.review)
     })?;
     finish(args, &named, &read, out)
 }

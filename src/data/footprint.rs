@@ -61,22 +61,15 @@ fn too_large_with(path: &Path, free: u64) -> Option<String> {
     })
 }
 
-/// What to do instead of loading: the command line's streamed run for a columnar file
-/// (two passes in bounded memory), a conversion for a CSV one (which does not stream).
+/// What to do instead of loading: the command line's streamed run, two passes in
+/// bounded memory over a CSV, Parquet or Arrow IPC table alike.
 fn stream_offer(path: &Path) -> String {
-    if Format::of(path).is_columnar() {
-        format!(
-            "the command line ranks it in two passes with bounded memory: \
-             flipmend suspects --data {0} --probs PROBS --budget 1000 --out worklist.csv \
-             (PROBS may be {0} itself when it holds the class columns)",
-            path.display()
-        )
-    } else {
-        "convert it to Parquet to rank it with the command line's streamed run (flipmend \
-         suspects --data FILE.parquet --probs PROBS --budget 1000), write a sample of its rows \
-         to a smaller file, or use a machine with more memory"
-            .to_string()
-    }
+    format!(
+        "the command line ranks it in two passes with bounded memory: \
+         flipmend suspects --data {0} --probs PROBS --budget 1000 --out worklist.csv \
+         (PROBS may be {0} itself when it holds the class columns)",
+        path.display()
+    )
 }
 
 const GIB: f64 = (1u64 << 30) as f64;
@@ -109,6 +102,19 @@ mod tests {
         assert!(
             message.contains("flipmend suspects --data") && message.contains("good.parquet"),
             "a columnar file is offered the streamed run: {message}"
+        );
+    }
+
+    #[test]
+    fn a_csv_table_is_sized_from_its_bytes_and_offered_the_streamed_run() {
+        let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data/recycling.csv");
+        let bytes = std::fs::metadata(&path).unwrap().len() as f64;
+        let expected = bytes / CSV_BYTES_PER_VALUE * 8.0 * PEAK_OVER_VALUES;
+        assert_eq!(load_bytes(&path), Some(expected as u64));
+        let message = too_large_with(&path, 100).expect("refused with 100 bytes free");
+        assert!(
+            message.contains("flipmend suspects --data") && message.contains("recycling.csv"),
+            "a CSV file is offered the streamed run too: {message}"
         );
     }
 }

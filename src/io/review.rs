@@ -9,7 +9,6 @@ use std::path::Path;
 use rustc_hash::FxHashMap as HashMap;
 
 use crate::data::origin::{origin_column, Origin};
-use crate::data::Dataset;
 use crate::error::{shorten, Error, Location, Problem, Result};
 use crate::io::columnar::{as_csv_text, guarded, row_of_line, Format};
 use crate::io::csv_source::{open, CsvFormat, SkipBom};
@@ -221,14 +220,14 @@ pub(crate) fn merged_column_names(data: &dyn ReviewTable) -> (String, String) {
 /// ([`crate::io::merged_columnar`]).
 pub fn write_merged(
     out: &mut (dyn Write + Send),
-    data: &Dataset,
+    data: &dyn ReviewTable,
     delimiter: u8,
     review: &Review,
 ) -> std::io::Result<()> {
-    if crate::io::columnar::Format::of(&data.path).is_columnar() {
+    if crate::io::columnar::Format::of(data.path()).is_columnar() {
         return crate::io::merged_columnar::write_merged_columnar(out, data, review);
     }
-    let file = std::fs::File::open(&data.path)?;
+    let file = std::fs::File::open(data.path())?;
     let mut rdr = CsvFormat { delimiter }.reader(file);
     let mut w = csv::WriterBuilder::new()
         .delimiter(delimiter)
@@ -238,19 +237,21 @@ pub fn write_merged(
     if !rdr.read_byte_record(&mut record)? {
         return Ok(());
     }
-    let position = |name: &Option<String>| {
-        name.as_ref()
-            .and_then(|name| data.header.iter().position(|h| h == name))
-    };
+    // The header as the table reader names its columns (trimmed).
+    let header: Vec<String> = record
+        .iter()
+        .map(|c| String::from_utf8_lossy(c).trim().to_string())
+        .collect();
+    let position = |name: Option<&str>| name.and_then(|name| header.iter().position(|h| h == name));
     let (trusted_name, origin_name) = merged_column_names(data);
-    let (trusted_field, new_trusted) = match position(&data.trusted_column) {
+    let (trusted_field, new_trusted) = match position(data.trusted_column()) {
         Some(i) => (i, false),
         None => {
             record.push_field(trusted_name.as_bytes());
             (record.len() - 1, true)
         }
     };
-    let (origin_field, new_origin) = match position(&data.origin_column) {
+    let (origin_field, new_origin) = match position(data.origin_column()) {
         Some(i) => (i, false),
         None => {
             record.push_field(origin_name.as_bytes());
@@ -266,7 +267,7 @@ pub fn write_merged(
         fields.extend((0..usize::from(new_trusted) + usize::from(new_origin)).map(|_| Vec::new()));
         if let Some(&(label, origin)) = verdicts.get(&row) {
             if let Some(cell) = fields.get_mut(trusted_field) {
-                *cell = data.classes[label].as_bytes().to_vec();
+                *cell = data.classes()[label].as_bytes().to_vec();
             }
             if let Some(cell) = fields.get_mut(origin_field) {
                 *cell = origin.name().as_bytes().to_vec();
@@ -438,6 +439,7 @@ fn same_id(cell: &str, row: usize, data: &dyn ReviewTable) -> std::result::Resul
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::data::Dataset;
 
     fn data() -> Dataset {
         let text = "id,x,label\nr0,1,cat\nr1,2,dog\nr2,3,cat\n";

@@ -1,7 +1,7 @@
-//! A columnar table and its probabilities read part by part (Parquet row groups, Arrow
-//! IPC record batches), for runs over tables too large to hold: only the role columns
-//! (label, id, trusted label and its origin) and the probability columns asked for are
-//! decoded, and a part is dropped once its consumer is done with it.
+//! A table and its probabilities read part by part (Parquet row groups, Arrow IPC record
+//! batches, blocks of CSV records), for runs over tables too large to hold: only the role
+//! columns (label, id, trusted label and its origin) and the probability columns asked
+//! for are decoded, and a part is dropped once its consumer is done with it.
 //!
 //! The probabilities are taken by position: row r of the probability file belongs to
 //! row r of the table (they may be the same file). When both files have ids, every row's
@@ -21,7 +21,9 @@ use arrow_array::{Array, ArrayRef, RecordBatch};
 use ndarray::Array2;
 
 use super::arrow_cells::{for_each_number, type_words, Text};
-use super::columnar::{ColumnarFile, Format};
+use super::columnar::ColumnarFile;
+use super::csv_stream::ids_of;
+use super::stream_file::StreamFile;
 use super::table_arrow::{roles_at, text_fields};
 use super::table_chunk::{RowParser, SlotStats, NONE};
 use super::table_merge::{Merger, PartMap, Places};
@@ -83,12 +85,12 @@ impl StreamPart {
 /// A table and its probability file, opened for streaming.
 pub struct TableStream<'a> {
     table_path: &'a Path,
-    table: ColumnarFile,
+    table: StreamFile,
     plan: ColumnPlan,
     /// `plan` without its id: ids are not parsed for every row, only for rows kept.
     role_plan: ColumnPlan,
     probs_path: &'a Path,
-    probs: ColumnarFile,
+    probs: StreamFile,
     probs_header: Vec<String>,
     /// The probability file's id column.
     probs_id: Option<usize>,
@@ -96,7 +98,7 @@ pub struct TableStream<'a> {
 }
 
 impl<'a> TableStream<'a> {
-    /// Opens both files (Parquet or Arrow IPC, by extension) and resolves the table's
+    /// Opens both files (Parquet, Arrow IPC or CSV, by extension) and resolves the table's
     /// roles; feature columns are not read.
     pub fn open(
         table_path: &'a Path,
@@ -104,19 +106,7 @@ impl<'a> TableStream<'a> {
         probs_path: &'a Path,
         renormalize: bool,
     ) -> Result<Self> {
-        let columnar = |path: &Path| {
-            let format = Format::of(path);
-            if format.is_columnar() {
-                Ok(format)
-            } else {
-                Err(Error::Usage(format!(
-                    "a streamed run reads Parquet or Arrow IPC files, and {} is not one \
-                     (convert it, or give the run enough memory to load it whole)",
-                    path.display()
-                )))
-            }
-        };
-        let table = ColumnarFile::open(table_path, columnar(table_path)?)?;
+        let table = StreamFile::open(table_path, options.delimiter_for(table_path))?;
         let mut plan = ColumnPlan::resolve(table_path, &table.header(), options)?;
         if !plan.annotators.is_empty() {
             return Err(Error::Usage(
@@ -124,7 +114,7 @@ impl<'a> TableStream<'a> {
             ));
         }
         plan.numeric.clear();
-        let probs = ColumnarFile::open(probs_path, columnar(probs_path)?)?;
+        let probs = StreamFile::open(probs_path, options.delimiter_for(probs_path))?;
         let probs_header = probs.header();
         let id_names = [plan.id.map(|i| plan.header[i].as_str()), Some("id")];
         // In the table's own file the probabilities are the table's rows: no id to check.
@@ -149,9 +139,10 @@ impl<'a> TableStream<'a> {
         })
     }
 
-    /// The table's row count, when its footer says (Parquet).
+    /// The table's row count, when its footer says (Parquet); a text file's is learnt
+    /// by reading it.
     pub fn known_rows(&self) -> Option<usize> {
-        self.table.known_parts().map(|_| self.table.rows())
+        self.table.known_rows()
     }
 
     /// The table's role columns.
@@ -226,6 +217,65 @@ impl<'a> TableStream<'a> {
         select: Option<&[usize]>,
         deliver: &mut dyn FnMut(StreamPart) -> bool,
     ) -> Result<()> {
+        let mut probs_fields: Vec<usize> = fields.to_vec();
+        probs_fields.extend(self.probs_id);
+        probs_fields.sort_unstable();
+        probs_fields.dedup();
+        let id_field: Vec<usize> = self.probs_id.into_iter().collect();
+        let mut cursor = ProbCursor {
+            stream: self,
+            batches: self.probs.batches(&probs_fields, &id_field)?,
+            fields: &probs_fields,
+            wanted: fields,
+            current: None,
+            offset: 0,
+            file_row: 0,
+        };
+        let mut parts = Parts {
+            stream: self,
+            select,
+            first_row: 0,
+            merger: Merger::new(self.table_path, Places::Lines, 0),
+        };
+        let rows = match &self.table {
+            StreamFile::Columnar(table) => {
+                self.produce_columnar(table, &mut parts, &mut cursor, deliver)?
+            }
+            StreamFile::Csv(table) => {
+                parts.merger.skip(table.header_lines());
+                for out in table.role_blocks(&self.plan)? {
+                    let mut out = out?;
+                    let ids = self.plan.id.map(|_| ids_of(&mut out));
+                    let selected = parts.selected(out.rows);
+                    // The table's own problems first: they are found before any
+                    // probability of the block is read.
+                    let rows = out.rows;
+                    parts.merger.absorb(out, &self.plan)?;
+                    let probs = cursor.take(rows, selected.as_deref())?;
+                    let part = parts.part(rows, ids, probs, selected)?;
+                    if !deliver(part) {
+                        return Ok(());
+                    }
+                }
+                Some(parts.first_row)
+            }
+        };
+        match rows {
+            Some(rows) => cursor.finish(rows),
+            None => Ok(()),
+        }
+    }
+
+    /// The parts of a columnar table: each part's role cells are decoded on a thread of
+    /// their own while this one decodes its probabilities. The rows read, or `None` when
+    /// the listener left.
+    fn produce_columnar(
+        &self,
+        table: &ColumnarFile,
+        parts: &mut Parts,
+        cursor: &mut ProbCursor,
+        deliver: &mut dyn FnMut(StreamPart) -> bool,
+    ) -> Result<Option<usize>> {
         let mut role_fields = text_fields(&self.role_plan);
         role_fields.extend(self.plan.id);
         role_fields.sort_unstable();
@@ -233,45 +283,25 @@ impl<'a> TableStream<'a> {
             .plan
             .id
             .map(|f| role_fields.binary_search(&f).unwrap_or(0));
-        let mut probs_fields: Vec<usize> = fields.to_vec();
-        probs_fields.extend(self.probs_id);
-        probs_fields.sort_unstable();
-        probs_fields.dedup();
-        let mut cursor = ProbCursor {
-            stream: self,
-            batches: self.probs.batches(&probs_fields)?,
-            fields: &probs_fields,
-            wanted: fields,
-            current: None,
-            offset: 0,
-            file_row: 0,
-        };
         // Parquet row groups are in the footer; Arrow IPC batches are learnt as they come.
-        let learn = self.table.known_parts().is_none();
-        let places = Places::Rows(if learn {
+        let learn = table.known_parts().is_none();
+        parts.merger.cells.places = Places::Rows(if learn {
             PartMap {
-                kind: self.table.parts.kind,
+                kind: table.parts.kind,
                 starts: Vec::new(),
             }
         } else {
-            self.table.parts.clone()
+            table.parts.clone()
         });
-        let mut merger = Merger::new(self.table_path, places, 0);
-        let mut first_row = 0;
-        for batch in self.table.batches(&role_fields)? {
+        for batch in table.batches(&role_fields)? {
             let batch = batch?;
-            if let (true, Places::Rows(parts)) = (learn, &mut merger.cells.places) {
-                parts.starts.push(first_row);
+            if let (true, Places::Rows(map)) = (learn, &mut parts.merger.cells.places) {
+                map.starts.push(parts.first_row);
             }
             let rows = batch.num_rows();
-            let selected: Option<Vec<usize>> = select.map(|all| {
-                let from = all.partition_point(|&r| r < first_row);
-                let to = all.partition_point(|&r| r < first_row + rows);
-                all[from..to].iter().map(|&r| r - first_row).collect()
-            });
-            // The role cells on a thread of their own while this one decodes the
-            // probabilities (the cursor's batch iterator cannot move between threads).
-            let (parser_out, probs) = std::thread::scope(|scope| {
+            let selected = parts.selected(rows);
+            // The cursor's batch iterator cannot move between threads: the role cells go.
+            let (roles, probs) = std::thread::scope(|scope| {
                 let roles = scope.spawn(|| self.role_cells(&batch, &role_fields));
                 let probs = cursor.take(rows, selected.as_deref());
                 let roles = roles
@@ -279,29 +309,15 @@ impl<'a> TableStream<'a> {
                     .map_err(|_| Error::Internal("reading the role columns panicked".into()));
                 (roles, probs)
             });
-            let (parser_out, probs) = (parser_out?, probs?);
-            merger.absorb(parser_out, &self.role_plan)?;
-            let cells = &mut merger.cells;
-            let part = StreamPart {
-                first_row,
-                labels: std::mem::take(&mut cells.labels),
-                trusted: std::mem::take(&mut cells.trusted),
-                origins: std::mem::take(&mut cells.origins),
-                ids: id_column.map(|c| batch.column(c).clone()),
-                names: cells.names.clone(),
-                probs: probs.values,
-                selected,
-            };
-            cells.row_lines.clear();
-            cells.sources.clear();
-            cells.annotations.clear();
-            self.check_ids(&part, &probs.ids, first_row)?;
-            first_row += rows;
+            let (roles, probs) = (roles?, probs?);
+            parts.merger.absorb(roles, &self.role_plan)?;
+            let ids = id_column.map(|c| batch.column(c).clone());
+            let part = parts.part(rows, ids, probs, selected)?;
             if !deliver(part) {
-                return Ok(());
+                return Ok(None);
             }
         }
-        cursor.finish(first_row)
+        Ok(Some(parts.first_row))
     }
 
     /// One batch's role cells through the CSV rules.
@@ -334,8 +350,7 @@ impl<'a> TableStream<'a> {
             if a != b {
                 let row = first_row + i;
                 let field = self.probs_id.unwrap_or(0);
-                let location =
-                    Location::row(self.probs_path, row).at_column(field, &self.probs_header[field]);
+                let location = self.probs_cell(row, field);
                 return Err(Error::input(
                     location,
                     Problem::StreamRows {
@@ -350,6 +365,53 @@ impl<'a> TableStream<'a> {
             }
         }
         Ok(())
+    }
+}
+
+/// The parts handed out so far: where the next starts, and the label codes met.
+struct Parts<'s, 'a> {
+    stream: &'s TableStream<'a>,
+    select: Option<&'s [usize]>,
+    first_row: usize,
+    merger: Merger<'s>,
+}
+
+impl Parts<'_, '_> {
+    /// The selected rows among the next `rows` (offsets from the part's first row).
+    fn selected(&self, rows: usize) -> Option<Vec<usize>> {
+        let first_row = self.first_row;
+        self.select.map(|all| {
+            let from = all.partition_point(|&r| r < first_row);
+            let to = all.partition_point(|&r| r < first_row + rows);
+            all[from..to].iter().map(|&r| r - first_row).collect()
+        })
+    }
+
+    /// The next part, of `rows` rows whose role cells the merger has just absorbed.
+    fn part(
+        &mut self,
+        rows: usize,
+        ids: Option<ArrayRef>,
+        probs: ProbRows,
+        selected: Option<Vec<usize>>,
+    ) -> Result<StreamPart> {
+        let cells = &mut self.merger.cells;
+        let part = StreamPart {
+            first_row: self.first_row,
+            labels: std::mem::take(&mut cells.labels),
+            trusted: std::mem::take(&mut cells.trusted),
+            origins: std::mem::take(&mut cells.origins),
+            ids,
+            names: cells.names.clone(),
+            probs: probs.values,
+            selected,
+        };
+        cells.row_lines.clear();
+        cells.sources.clear();
+        cells.annotations.clear();
+        self.stream.check_ids(&part, &probs.ids, self.first_row)?;
+        self.first_row += rows;
+        Ok(part)
     }
 }
 
@@ -519,7 +581,7 @@ impl ProbCursor<'_, '_> {
             if (sum - 1.0).abs() <= ROW_SUM_TOLERANCE {
                 continue;
             }
-            let location = Location::row(self.stream.probs_path, row_of(i));
+            let location = self.stream.probs_row(row_of(i));
             if !self.stream.renormalize {
                 return Err(Error::input(location, Problem::ProbRowSum { sum }));
             }
@@ -540,7 +602,7 @@ impl ProbCursor<'_, '_> {
         let more = self.batches.next().transpose()?.map_or(0, |b| b.num_rows());
         if left + more > 0 {
             return Err(Error::input(
-                Location::row(self.stream.probs_path, table_rows),
+                self.stream.probs_row(table_rows),
                 Problem::StreamRows {
                     detail: format!(
                         "the probabilities have more rows than the table's {table_rows}"
@@ -564,7 +626,13 @@ impl ProbCursor<'_, '_> {
 impl TableStream<'_> {
     /// The location of a cell of the probability file.
     fn probs_cell(&self, row: usize, field: usize) -> Location {
-        Location::row(self.probs_path, row).at_column(field, &self.probs_header[field])
+        self.probs_row(row)
+            .at_column(field, &self.probs_header[field])
+    }
+
+    /// The location of a row of the probability file.
+    fn probs_row(&self, row: usize) -> Location {
+        self.probs.locate(self.probs_path, row)
     }
 }
 

@@ -153,13 +153,13 @@ fn parse_quoted(block: &[u8], delimiter: u8, parser: &mut BlockParser) -> Result
 /// (and offsets) point at the blank lines before a record rather than the record itself,
 /// so the blank lines are skipped here and newlines counted up to the record's first byte.
 #[derive(Default)]
-struct LineCounter {
+pub(crate) struct LineCounter {
     counted_to: usize,
     newlines: u64,
 }
 
 impl LineCounter {
-    fn line_at(&mut self, block: &[u8], offset: u64) -> u64 {
+    pub(crate) fn line_at(&mut self, block: &[u8], offset: u64) -> u64 {
         let mut start = (offset as usize).min(block.len());
         while start < block.len() && matches!(block[start], b'\r' | b'\n') {
             start += 1;
@@ -174,7 +174,7 @@ impl LineCounter {
 }
 
 /// The ragged-row problem, with a hint when the row has too many fields.
-fn ragged(expected: usize, found: usize) -> Problem {
+pub(crate) fn ragged(expected: usize, found: usize) -> Problem {
     let hint = if found > expected {
         "; a value containing the delimiter must be quoted"
     } else {

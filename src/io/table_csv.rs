@@ -21,7 +21,7 @@ use crate::error::{Error, Location, Problem, Result};
 /// enough that a batch of blocks is a few tens of MiB at most.
 pub(crate) const BLOCK_BYTES: usize = 4 << 20;
 /// A single record larger than this is refused instead of growing memory without bound.
-const MAX_RECORD_BYTES: usize = 64 << 20;
+pub(crate) const MAX_RECORD_BYTES: usize = 64 << 20;
 
 /// Reads the whole table from `reader` in blocks of about `block_bytes`; `size_hint` (the
 /// file's length, when known) sizes the value buffer once. Returns the column plan

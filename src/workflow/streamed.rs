@@ -53,7 +53,7 @@ const BLOCK_ROWS: usize = 16_384;
 /// The files of a streamed run and how to read them.
 #[derive(Debug, Clone)]
 pub struct StreamInput<'a> {
-    /// The table (Parquet or Arrow IPC).
+    /// The table (CSV, Parquet or Arrow IPC).
     pub table: &'a Path,
     /// Its roles.
     pub options: &'a TableOptions,

@@ -1,7 +1,7 @@
 //! The review job over a table too large to hold. A worklist names a few thousand rows;
 //! one pass over the table's role columns collects what the review is checked against
 //! for those rows alone (observed label, id, earlier trusted label and its origin), and
-//! the merged copy is then written part by part ([`crate::io::merged_columnar`]). The
+//! the merged copy is then written part by part ([`crate::io::review::write_merged`]). The
 //! checks, the figures and the copy are those of the in-memory job: both read the
 //! table through [`ReviewTable`] (tested equal in `tests/streamed.rs`).
 
@@ -89,7 +89,7 @@ impl NamedRows {
         self.facts.get(&row).unwrap_or(&UNKNOWN)
     }
 
-    /// Reads `table` (Parquet or Arrow IPC) once, keeping the facts of `wanted` rows
+    /// Reads `table` (CSV, Parquet or Arrow IPC) once, keeping the facts of `wanted` rows
     /// (ascending).
     pub fn read(table: &Path, options: &TableOptions, wanted: &[usize]) -> Result<Self> {
         let stream = TableStream::open(table, options, table, false)?;

@@ -113,7 +113,7 @@ impl AppState {
             check_not_input(&target, &inputs).map_err(fail)?;
             check_merged_target(data.as_ref(), &target).map_err(fail)?;
             write_atomic(&target, |w| {
-                write_merged(w, &data, delimiter, &review.review)
+                write_merged(w, data.as_ref(), delimiter, &review.review)
             })
             .map_err(fail)?;
             Ok(JobOutput::Merged(target))
