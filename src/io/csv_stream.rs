@@ -17,7 +17,7 @@ use arrow_schema::{DataType, Field, Schema};
 use super::csv_blocks::{BlockError, Blocks};
 use super::csv_source::{open, CsvFormat};
 use super::number::parse_f64;
-use super::table_chunk::{parse_block, ragged, ChunkOut, LineCounter};
+use super::table_chunk::{parse_block, ragged, unquote_simple, ChunkOut, LineCounter};
 use super::table_csv::{BLOCK_BYTES, MAX_RECORD_BYTES};
 use crate::data::roles::ColumnPlan;
 use crate::error::{shorten, Error, Location, Problem, Result};
@@ -204,10 +204,15 @@ impl CsvFile {
         schema: &Arc<Schema>,
         cursor: &mut Cursor,
     ) -> Result<RecordBatch> {
+        let (before, jumps_before) = (cursor.clone(), self.jump_count());
+        let quoted = memchr::memchr(b'"', block).is_some();
         let mut rows = BatchRows::new(self, fields, text, cursor);
-        if memchr::memchr(b'"', block).is_none() {
-            rows.plain(block)?;
-        } else {
+        if !rows.plain(block, quoted)? {
+            // A quote the plain split cannot read: the block again, by the `csv` crate.
+            drop(rows);
+            *cursor = before;
+            self.forget_jumps(jumps_before);
+            rows = BatchRows::new(self, fields, text, cursor);
             rows.quoted(block)?;
         }
         let count = rows.count;
@@ -216,6 +221,21 @@ impl CsvFile {
         let options = RecordBatchOptions::new().with_row_count(Some(count));
         RecordBatch::try_new_with_options(schema.clone(), arrays, &options)
             .map_err(|e| Error::Internal(format!("a CSV block as a record batch: {e}")))
+    }
+
+    /// Breaks remembered so far.
+    fn jump_count(&self) -> usize {
+        let jumps = self.jumps.lock();
+        jumps.map_or(0, |j| j.as_ref().map_or(0, Vec::len))
+    }
+
+    /// Forgets the breaks after the first `keep` (those of a block read again).
+    fn forget_jumps(&self, keep: usize) {
+        if let Ok(mut jumps) = self.jumps.lock() {
+            if let Some(j) = jumps.as_mut() {
+                j.truncate(keep);
+            }
+        }
     }
 
     /// Records that row `cursor.row` sits on `line`, remembering a break in the rows'
@@ -272,6 +292,7 @@ impl CsvFile {
 
 /// Where the batches stand: lines and rows read, and the start of the current run of
 /// rows that take one line each.
+#[derive(Clone)]
 struct Cursor {
     line: u64,
     row: usize,
@@ -315,10 +336,14 @@ impl<'a> BatchRows<'a> {
     }
 
     /// A block without quotes, line by line.
-    fn plain(&mut self, block: &[u8]) -> Result<()> {
+    /// A block line by line; with `dequote`, lines with quotes are read through
+    /// [`unquote_simple`], and false (the rows so far to be dropped) at the first line
+    /// that is not simply quoted.
+    fn plain(&mut self, block: &[u8], dequote: bool) -> Result<bool> {
         let delimiter = self.file.delimiter;
         let mut start = 0;
         let mut line_no = self.base;
+        let mut unquoted = Vec::new();
         for end in memchr::memchr_iter(b'\n', block).chain(std::iter::once(block.len())) {
             line_no += 1;
             let mut line = &block[start..end];
@@ -328,6 +353,12 @@ impl<'a> BatchRows<'a> {
             }
             if line.is_empty() {
                 continue;
+            }
+            if dequote && memchr::memchr(b'"', line).is_some() {
+                if !unquote_simple(line, delimiter, &mut unquoted) {
+                    return Ok(false);
+                }
+                line = &unquoted;
             }
             self.cuts.clear();
             let mut from = 0;
@@ -341,7 +372,7 @@ impl<'a> BatchRows<'a> {
             self.cuts = cuts;
             outcome?;
         }
-        Ok(())
+        Ok(true)
     }
 
     /// A block with quotes, record by record through the `csv` crate.
