@@ -462,6 +462,7 @@ impl PartRows {
 
     fn view<'p>(&'p self, part: &'p StreamPart) -> Rows<'p> {
         Rows {
+            first_row: part.first_row,
             probs: part.probs.view(),
             labels: &self.labels,
             trusted: self.trusted.as_deref(),

@@ -68,6 +68,18 @@ impl Thresholds {
         }
     }
 
+    /// Adds another share's sums (before the thresholds are taken).
+    pub(super) fn merge(&mut self, other: &Thresholds) {
+        self.totals
+            .iter_mut()
+            .zip(&other.totals)
+            .for_each(|(a, b)| *a += b);
+        self.observed
+            .iter_mut()
+            .zip(&other.observed)
+            .for_each(|(a, b)| *a += b);
+    }
+
     /// The thresholds from the sums (infinite for a class no row is observed as).
     pub(super) fn finish(&mut self) {
         self.values = self

@@ -12,8 +12,11 @@ use super::matrix::{normalize_rows, validate};
 use crate::data::origin::Origin;
 use crate::error::{Error, Result};
 
+mod anchor_passes;
 mod anchors;
 mod counting;
+#[cfg(test)]
+mod merge_tests;
 pub mod passes;
 #[cfg(test)]
 mod tests;

@@ -5,11 +5,18 @@
 //! thresholds row by row; the trusted sums in runs of [`CHUNK_ROWS`]), maxima keep the
 //! first row in table order, and the quantile is found by refining a histogram of each
 //! column's order keys (12, 12, then 8 bits: three passes) instead of selecting among
-//! values held in memory.
+//! values held in memory ([`super::anchor_passes`]).
+//!
+//! A pass can also be split among workers, as a distributed engine splits a table:
+//! each takes a [`Passes::share`] of the pass (what earlier passes fixed, no sums), feeds
+//! it its rows, and the shares [`Passes::merge`] back in any order. Counts and sums add
+//! (equal to one pass up to rounding, since they add in another order), and a maximum
+//! keeps the row first in the table, so anchors are the one-pass rows
+//! (`merge_tests.rs`).
 
 use ndarray::{Array2, ArrayView2};
 
-use super::anchors::{higher_index, order_key, BUCKET_BITS};
+use super::anchor_passes::{Best, Quantile};
 use super::counting::{confident_class, from_confident_joint, Thresholds};
 use super::trusted::{from_trusted_sums, TrustedSums};
 use super::{Method, CHUNK_ROWS};
@@ -18,6 +25,9 @@ use crate::error::{Error, Result};
 /// Rows of one part, in class terms.
 #[derive(Debug, Clone, Copy)]
 pub struct Rows<'a> {
+    /// Table row of the part's first row: ties between parts merged in any order go to
+    /// the row first in the table, as in one pass.
+    pub first_row: usize,
     /// `rows × classes` probabilities.
     pub probs: ArrayView2<'a, f32>,
     /// Observed class of each row.
@@ -94,8 +104,8 @@ impl Passes {
         self.rows += rows.labels.len();
         let k = self.k;
         match &mut self.state {
-            State::Anchor(best) => best.rows(rows.probs),
-            State::Quantile(q) => q.rows(rows.probs),
+            State::Anchor(best) => best.rows(rows.probs, rows.first_row),
+            State::Quantile(q) => q.rows(rows.probs, rows.first_row),
             State::Counting { thresholds, joint } => match joint {
                 None if !thresholds.done => thresholds.rows(rows.probs, rows.labels),
                 _ => {
@@ -115,9 +125,92 @@ impl Passes {
                 if !*done {
                     sums.rows(rows);
                 } else if let Some((_, q)) = fallback {
-                    q.rows(rows.probs);
+                    q.rows(rows.probs, rows.first_row);
                 }
             }
+        }
+    }
+
+    /// Takes in `other`, the same estimator's state after another share of the current
+    /// pass's rows (as a distributed engine merges partial aggregates, in any order):
+    /// counts and sums add, and the row a maximum keeps is the first in the table, so
+    /// the matrix is that of one pass over every row (sums to rounding: they add in
+    /// another order). Refused when the two are not in the same pass.
+    pub fn merge(&mut self, other: Passes) -> Result<()> {
+        let mismatch = || Error::Internal("merging estimator states of different passes".into());
+        if self.k != other.k || self.step() != other.step() {
+            return Err(mismatch());
+        }
+        self.rows += other.rows;
+        match (&mut self.state, other.state) {
+            (State::Anchor(mine), State::Anchor(theirs)) => mine.merge(theirs),
+            (State::Quantile(mine), State::Quantile(theirs)) => mine.merge(theirs),
+            (
+                State::Counting { thresholds, joint },
+                State::Counting {
+                    thresholds: their_thresholds,
+                    joint: their_joint,
+                },
+            ) => match (joint.as_mut(), their_joint) {
+                (None, None) => thresholds.merge(&their_thresholds),
+                (Some(mine), Some(theirs)) => *mine += &theirs,
+                (Some(_), None) => {}
+                (None, Some(theirs)) => *joint = Some(theirs),
+            },
+            (
+                State::Trusted { sums, fallback, .. },
+                State::Trusted {
+                    sums: their_sums,
+                    fallback: their_fallback,
+                    ..
+                },
+            ) => {
+                sums.merge(their_sums);
+                if let (Some((_, mine)), Some((_, theirs))) = (fallback, their_fallback) {
+                    mine.merge(theirs);
+                }
+            }
+            _ => return Err(mismatch()),
+        }
+        Ok(())
+    }
+
+    /// A fresh share of the current pass: what the pass needs from the passes before it
+    /// (thresholds, quantile prefixes, limits) without any of its sums, for a worker to
+    /// feed its rows into and [`Passes::merge`] back.
+    pub fn share(&self) -> Passes {
+        let k = self.k;
+        let state = match &self.state {
+            State::Anchor(best) => State::Anchor(best.share()),
+            State::Quantile(q) => State::Quantile(q.share()),
+            State::Counting { thresholds, .. } => State::Counting {
+                thresholds: if thresholds.done {
+                    thresholds.clone()
+                } else {
+                    Thresholds::new(k)
+                },
+                joint: None,
+            },
+            State::Trusted { fallback, done, .. } => State::Trusted {
+                sums: TrustedSums::new(k),
+                fallback: fallback.as_ref().map(|(q, state)| (*q, state.share())),
+                done: *done,
+            },
+        };
+        Passes { k, state, rows: 0 }
+    }
+
+    /// Where the estimator stands, to check that merged states belong to one pass.
+    fn step(&self) -> (usize, usize) {
+        match &self.state {
+            State::Anchor(best) => (usize::from(best.done), 0),
+            State::Quantile(q) => (q.step(), q.prefix[0].1 as usize),
+            // A share that met no row of the second pass has no joint yet.
+            State::Counting { thresholds, .. } => (usize::from(thresholds.done), 0),
+            State::Trusted { done, fallback, .. } => (
+                usize::from(*done),
+                fallback.as_ref().map_or(0, |(_, q)| q.step()),
+            ),
         }
     }
 
@@ -179,202 +272,6 @@ impl Passes {
     }
 }
 
-/// Per class, the first row with the largest probability strictly below a limit (and,
-/// for the classes with none, the first row with the largest probability), with its
-/// probability vector.
-struct Best {
-    below: Option<Vec<f32>>,
-    best: Vec<Option<(f32, Vec<f32>)>>,
-    highest: Vec<Option<(f32, Vec<f32>)>>,
-    done: bool,
-}
-
-impl Best {
-    fn new(k: usize, below: Option<Vec<f32>>) -> Self {
-        Best {
-            below,
-            best: vec![None; k],
-            highest: vec![None; k],
-            done: false,
-        }
-    }
-
-    fn rows(&mut self, probs: ArrayView2<f32>) {
-        for row in probs.rows() {
-            for (c, &v) in row.iter().enumerate() {
-                if self.highest[c].as_ref().is_none_or(|(top, _)| v > *top) {
-                    self.highest[c] = Some((v, row.to_vec()));
-                }
-                let Some(below) = &self.below else { continue };
-                if v < below[c] && self.best[c].as_ref().is_none_or(|(top, _)| v > *top) {
-                    self.best[c] = Some((v, row.to_vec()));
-                }
-            }
-        }
-    }
-
-    fn anchor_matrix(&self) -> Array2<f64> {
-        let k = self.highest.len();
-        let mut t = Array2::zeros((k, k));
-        for (c, row) in self.highest.iter().enumerate() {
-            set_row(&mut t, c, row.as_ref());
-        }
-        t
-    }
-}
-
-fn set_row(t: &mut Array2<f64>, class: usize, row: Option<&(f32, Vec<f32>)>) {
-    match row {
-        Some((_, p)) => t
-            .row_mut(class)
-            .iter_mut()
-            .zip(p)
-            .for_each(|(d, &s)| *d = s as f64),
-        None => t[[class, class]] = 1.0,
-    }
-}
-
-/// numpy's "higher" quantile of every column, found by refining a histogram of order keys
-/// over three passes, then the rows below it (a fourth).
-struct Quantile {
-    q: f64,
-    k: usize,
-    /// Rows in the table (known after the first pass).
-    n: usize,
-    /// Per class: the order-key bits fixed so far, how many of them, and how many values
-    /// lie below that prefix.
-    prefix: Vec<(u32, u32, usize)>,
-    counts: Vec<u64>,
-    best: Option<Best>,
-}
-
-/// Bits fixed by each refining pass: 12 + 12 + 8 = the 32 bits of an order key.
-const REFINE_BITS: [u32; 3] = [BUCKET_BITS, 12, 8];
-
-impl Quantile {
-    fn new(k: usize, q: f64) -> Self {
-        Quantile {
-            q,
-            k,
-            n: 0,
-            prefix: vec![(0, 0, 0); k],
-            counts: vec![0; k << BUCKET_BITS],
-            best: None,
-        }
-    }
-
-    fn done(&self) -> bool {
-        self.best.as_ref().is_some_and(|b| b.done)
-    }
-
-    /// The pass under way: 0–2 refine, 3 the rows below.
-    fn step(&self) -> usize {
-        match &self.best {
-            Some(_) => 3,
-            None => REFINE_BITS
-                .iter()
-                .scan(0, |fixed, bits| {
-                    *fixed += bits;
-                    Some(*fixed)
-                })
-                .position(|fixed| fixed > self.prefix[0].1)
-                .unwrap_or(3),
-        }
-    }
-
-    fn rows(&mut self, probs: ArrayView2<f32>) {
-        let step = self.step();
-        if step == 3 {
-            if let Some(best) = &mut self.best {
-                best.rows(probs);
-            }
-            return;
-        }
-        let bits = REFINE_BITS[step];
-        let width = 1usize << bits;
-        for row in probs.rows() {
-            for (c, &v) in row.iter().enumerate() {
-                let key = order_key(v);
-                let (prefix, fixed, _) = self.prefix[c];
-                if fixed > 0 && key >> (32 - fixed) != prefix {
-                    continue;
-                }
-                let digit = (key << fixed) >> (32 - bits);
-                self.counts[c * width + digit as usize] += 1;
-            }
-        }
-    }
-
-    fn end_pass(&mut self, rows: usize) {
-        let step = self.step();
-        if step == 3 {
-            if let Some(best) = &mut self.best {
-                best.done = true;
-            }
-            return;
-        }
-        if step == 0 {
-            self.n = rows;
-        }
-        let bits = REFINE_BITS[step];
-        let width = 1usize << bits;
-        let index = higher_index(self.n.max(1), self.q);
-        for c in 0..self.k {
-            let (prefix, fixed, below) = self.prefix[c];
-            let mut seen = below;
-            let mut digit = width - 1;
-            for (d, &count) in self.counts[c * width..(c + 1) * width].iter().enumerate() {
-                if seen + count as usize > index {
-                    digit = d;
-                    break;
-                }
-                seen += count as usize;
-            }
-            self.prefix[c] = ((prefix << bits) | digit as u32, fixed + bits, seen);
-        }
-        self.counts.iter_mut().for_each(|c| *c = 0);
-        if step == 2 {
-            let limits = self
-                .prefix
-                .iter()
-                .map(|&(key, _, _)| from_order_key(key))
-                .collect();
-            self.best = Some(Best::new(self.k, Some(limits)));
-        }
-    }
-
-    fn matrix(&self, classes: &[String], warnings: &mut Vec<String>) -> Array2<f64> {
-        let k = self.k;
-        let mut t = Array2::zeros((k, k));
-        let Some(best) = &self.best else {
-            return Array2::eye(k);
-        };
-        for (c, (found, class)) in best.best.iter().zip(classes).enumerate() {
-            match found {
-                Some(row) => set_row(&mut t, c, Some(row)),
-                None => {
-                    warnings.push(format!(
-                        "class '{}': no row lies strictly below the {} quantile; its highest-probability row was used",
-                        class, self.q
-                    ));
-                    set_row(&mut t, c, best.highest[c].as_ref());
-                }
-            }
-        }
-        t
-    }
-}
-
-/// The value whose order key ([`order_key`]) is `key`.
-fn from_order_key(key: u32) -> f32 {
-    let bits = if key >> 31 == 1 {
-        key & !(1 << 31)
-    } else {
-        !key
-    };
-    f32::from_bits(bits)
-}
-
 /// Sums in runs of [`CHUNK_ROWS`] rows, each run's sum added to the total in turn: the
 /// order of the in-memory estimators' chunked sums.
 #[derive(Debug, Clone)]
@@ -400,6 +297,13 @@ impl ChunkedSum {
         if self.in_run == CHUNK_ROWS {
             self.close();
         }
+    }
+
+    /// Adds another share's sums (both closed first: a run is a share's own).
+    pub(super) fn merge(&mut self, mut other: ChunkedSum) {
+        self.close();
+        other.close();
+        self.total += &other.total;
     }
 
     pub(super) fn close(&mut self) {

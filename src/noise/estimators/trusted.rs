@@ -91,6 +91,17 @@ impl TrustedSums {
         }
     }
 
+    /// Adds another share's sums and counts.
+    pub(super) fn merge(&mut self, other: TrustedSums) {
+        self.sums.merge(other.sums);
+        self.counts
+            .iter_mut()
+            .zip(&other.counts)
+            .for_each(|(a, b)| *a += b);
+        self.chosen += other.chosen;
+        self.has_column |= other.has_column;
+    }
+
     /// Ends the pass: the last short run joins the total.
     pub(super) fn end(&mut self) {
         self.sums.close();
