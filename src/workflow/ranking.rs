@@ -91,6 +91,23 @@ impl ScoreTally {
         self.pending.extend_from_slice(&rest[whole..]);
     }
 
+    /// Takes in the tally of another share of the rows (a worker's, on a distributed
+    /// engine, merged in any order): the histogram is the whole one exactly, the expected
+    /// count equal up to rounding (its runs add in another order).
+    pub fn merge(&mut self, mut other: ScoreTally) {
+        let (mine, theirs) = (
+            std::mem::take(&mut self.pending),
+            std::mem::take(&mut other.pending),
+        );
+        self.absorb(&mine);
+        other.absorb(&theirs);
+        self.total += other.total;
+        self.counts
+            .iter_mut()
+            .zip(&other.counts)
+            .for_each(|(a, b)| *a += b);
+    }
+
     /// The histogram and, for the probability scores, the expected number of
     /// mislabelled rows.
     pub fn finish(mut self) -> (Histogram, Option<f64>) {

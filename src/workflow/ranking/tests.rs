@@ -206,3 +206,32 @@ fn a_tally_fed_in_pieces_equals_the_whole_bit_for_bit() {
         );
     }
 }
+
+#[test]
+fn tallies_of_shares_merged_in_any_order_equal_the_whole() {
+    let scores: Vec<f64> = (0..50_000u64)
+        .map(|i| (i.wrapping_mul(2_654_435_761) % 10_007) as f64 / 10_007.0)
+        .collect();
+    let whole = score_summaries(&scores, ScoreKind::Posterior);
+    // Shares cut at uneven places, merged last first.
+    let cuts = [0, 7, 9_000, 9_001, 31_337, 50_000];
+    let mut shares: Vec<ScoreTally> = cuts
+        .windows(2)
+        .map(|w| {
+            let mut t = ScoreTally::new(ScoreKind::Posterior);
+            t.add(&scores[w[0]..w[1]]);
+            t
+        })
+        .collect();
+    let mut merged = shares.pop().unwrap();
+    while let Some(share) = shares.pop() {
+        merged.merge(share);
+    }
+    let (histogram, expected) = merged.finish();
+    assert_eq!(histogram, whole.0);
+    let (a, b) = (expected.unwrap(), whole.1.unwrap());
+    assert!((a - b).abs() < 1e-9 * b, "{a} against {b}");
+    // The expected count is the plain sum of the shown probabilities.
+    let exact: f64 = scores.iter().map(|&s| ScoreKind::Posterior.shown(s)).sum();
+    assert!((a - exact).abs() < 1e-6, "{a} against {exact}");
+}
