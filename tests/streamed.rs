@@ -521,3 +521,33 @@ fn bad_csv_cells_in_a_streamed_run_are_reported_at_their_line_and_column() {
     let long = write(&dir, "long.csv", &format!("{good_probs}r3,0.5,0.5\n"));
     run(&table, &long).assert_bad_input(&["long.csv", "line 5", "more rows than the table's 3"]);
 }
+
+#[test]
+fn a_null_probability_in_a_streamed_parquet_run_names_its_row_group_and_offset() {
+    let dir = TempDir::new();
+    let (table, _) = demo_parquet(&dir);
+    let data = Dataset::load(&demo(), &TableOptions::default()).unwrap();
+    let probs = dir.path("holes.parquet");
+    let mut columns = vec![OutColumn::new("id", CellKind::Text)];
+    columns.extend(
+        data.classes
+            .iter()
+            .map(|c| OutColumn::new(c.clone(), CellKind::Float)),
+    );
+    let mut file = File::create(&probs).unwrap();
+    let mut w = TableWriter::new(&mut file, Format::Parquet, &columns).unwrap();
+    for r in 0..data.rows() {
+        let mut cells = vec![data.id(r).into_owned()];
+        cells.extend((0..data.classes.len()).map(|c| {
+            match (r, c == data.labels[r]) {
+                (5, _) if c == 0 => String::new(), // a null
+                (_, true) => "1".to_string(),
+                _ => "0".to_string(),
+            }
+        }));
+        w.row(&cells).unwrap();
+    }
+    w.finish().unwrap();
+    suspects(&table, &probs, &dir.path("w.csv"), &["--max-memory", "0"])
+        .assert_bad_input(&["holes.parquet", "row 5 (row group 0, offset 5)"]);
+}

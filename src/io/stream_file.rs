@@ -69,9 +69,12 @@ impl StreamFile {
     }
 
     /// Where data row `row` of the file at `path` is: its line in a text file (when
-    /// known), else its row number.
+    /// known), its row group and offset in a Parquet file, else its row number.
     pub(crate) fn locate(&self, path: &Path, row: usize) -> Location {
         match self {
+            StreamFile::Columnar(f) if f.known_parts().is_some() => {
+                Location::row_in_part(path, row, f.parts.part_of(row))
+            }
             StreamFile::Columnar(_) => Location::row(path, row),
             StreamFile::Csv(f) => f.locate(row),
         }
