@@ -79,30 +79,30 @@ fn read(path: &Path) -> String {
     std::fs::read_to_string(path).unwrap()
 }
 
-#[test]
-fn a_streamed_run_with_the_whole_table_as_sample_gives_the_in_memory_worklist() {
-    let dir = TempDir::new();
-    let (table, probs) = demo_parquet(&dir);
+/// `suspects` loaded and streamed with the whole table as the sample: the worklists and
+/// their keys must be equal byte for byte. Returns the loaded run's worklist.
+fn same_worklist_loaded_and_streamed(dir: &TempDir, table: &Path, probs: &Path) -> PathBuf {
     let (memory, streamed) = (dir.path("memory.csv"), dir.path("streamed.csv"));
-    suspects(&table, &probs, &memory, &[]).assert_ok();
-    let run = suspects(
-        &table,
-        &probs,
-        &streamed,
-        &["--max-memory", "0", "--sample-rows", "1000000"],
-    );
+    suspects(table, probs, &memory, &[]).assert_ok();
+    let whole_sample = ["--max-memory", "0", "--sample-rows", "1000000"];
+    let run = suspects(table, probs, &streamed, &whole_sample);
     run.assert_ok();
-    assert!(
-        run.stdout.contains("streamed in two passes"),
-        "{}",
-        run.stdout
-    );
+    let stdout = &run.stdout;
+    assert!(stdout.contains("streamed in two passes"), "{stdout}");
     assert_eq!(read(&memory), read(&streamed), "the worklist");
     assert_eq!(
         read(&dir.path("memory.key.csv")),
         read(&dir.path("streamed.key.csv")),
         "the key: slices, ranks and verdicts"
     );
+    memory
+}
+
+#[test]
+fn a_streamed_run_with_the_whole_table_as_sample_gives_the_in_memory_worklist() {
+    let dir = TempDir::new();
+    let (table, probs) = demo_parquet(&dir);
+    same_worklist_loaded_and_streamed(&dir, &table, &probs);
     // Without control rows the ranked worklist is the same too.
     let (a, b) = (dir.path("a.csv"), dir.path("b.csv"));
     suspects(&table, &probs, &a, &["--control", "0"]).assert_ok();
@@ -199,6 +199,76 @@ fn matrix_of(json: &Path) -> Vec<Vec<f64>> {
     serde_json::from_value(report["matrix"].clone()).unwrap()
 }
 
+/// `estimate --method METHOD` loaded and streamed (on a sample of 500 of the 8,000
+/// rows): the two matrices.
+fn estimate_both(
+    dir: &TempDir,
+    table: &Path,
+    probs: &Path,
+    method: &str,
+) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
+    let run = |name: &str, extra: &[&str]| {
+        let json = dir.path(name);
+        let mut args = vec![
+            "estimate",
+            "--data",
+            table.to_str().unwrap(),
+            "--probs",
+            probs.to_str().unwrap(),
+            "--method",
+            method,
+            "--json",
+            json.to_str().unwrap(),
+        ];
+        args.extend_from_slice(extra);
+        let run = flipmend(&args);
+        run.assert_ok();
+        (run.stdout, matrix_of(&json))
+    };
+    let (_, whole) = run("whole.json", &[]);
+    let (stdout, streamed) = run(
+        "streamed.json",
+        &["--max-memory", "0", "--sample-rows", "500"],
+    );
+    assert!(stdout.contains("streamed: 8000 rows"), "{stdout}");
+    (whole, streamed)
+}
+
+/// `review` of `reviewed` (its key beside it) against `table`, loaded and streamed: for
+/// each, the printed report (the copy's name replaced), the JSON summary and the bytes
+/// of the merged copy (named `.EXTENSION`).
+fn review_both(
+    dir: &TempDir,
+    table: &Path,
+    reviewed: &Path,
+    extension: &str,
+) -> [(String, String, Vec<u8>); 2] {
+    let review = |name: &str, extra: &[&str]| {
+        let out = dir.path(&format!("{name}.{extension}"));
+        let json = dir.path(&format!("{name}.json"));
+        let mut args = vec![
+            "review",
+            "--data",
+            table.to_str().unwrap(),
+            "--worklist",
+            reviewed.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--json",
+            json.to_str().unwrap(),
+        ];
+        args.extend_from_slice(extra);
+        let run = flipmend(&args);
+        run.assert_ok();
+        let stdout = run.stdout.replace(out.to_str().unwrap(), "OUT");
+        (stdout, read(&json), std::fs::read(&out).unwrap())
+    };
+    [
+        review("merged-whole", &[]),
+        review("merged-streamed", &["--max-memory", "0"]),
+    ]
+}
+
 #[test]
 fn estimators_that_read_every_row_give_the_in_memory_matrix_from_any_sample() {
     // anchor, quantile, trusted and counting run as passes over every row: with a
@@ -208,35 +278,8 @@ fn estimators_that_read_every_row_give_the_in_memory_matrix_from_any_sample() {
     let dir = TempDir::new();
     let (table, probs) = demo_parquet(&dir);
     for method in ["anchor", "quantile", "trusted", "counting"] {
-        let (a, b) = (dir.path("a.json"), dir.path("b.json"));
-        let args = |json: &Path| {
-            vec![
-                "estimate".to_string(),
-                "--data".into(),
-                table.display().to_string(),
-                "--probs".into(),
-                probs.display().to_string(),
-                "--method".into(),
-                method.into(),
-                "--json".into(),
-                json.display().to_string(),
-            ]
-        };
-        let run = |extra: &[&str], json: &Path| {
-            let mut all = args(json);
-            all.extend(extra.iter().map(|s| s.to_string()));
-            let refs: Vec<&str> = all.iter().map(String::as_str).collect();
-            flipmend(&refs)
-        };
-        run(&[], &a).assert_ok();
-        let streamed = run(&["--max-memory", "0", "--sample-rows", "500"], &b);
-        streamed.assert_ok();
-        assert!(
-            streamed.stdout.contains("streamed: 8000 rows"),
-            "{}",
-            streamed.stdout
-        );
-        assert_eq!(matrix_of(&a), matrix_of(&b), "{method}");
+        let (whole, streamed) = estimate_both(&dir, &table, &probs, method);
+        assert_eq!(whole, streamed, "{method}");
     }
     // The suspects ranked under such a matrix are the in-memory ones too.
     let (a, b) = (dir.path("a.csv"), dir.path("b.csv"));
@@ -258,13 +301,17 @@ fn estimators_that_read_every_row_give_the_in_memory_matrix_from_any_sample() {
     assert_eq!(read(&a), read(&b));
 }
 
-#[test]
-fn probabilities_in_another_row_order_are_refused_with_the_row() {
-    let dir = TempDir::new();
-    let (table, _) = demo_parquet(&dir);
-    // Probabilities whose first two rows are swapped.
+/// The demo's observed labels as one-hot probabilities in Parquet (id and one column
+/// per class), row r taken from demo row `source(r)`, with the cell `blank` (row, class)
+/// left null.
+fn one_hot_probs(
+    dir: &TempDir,
+    name: &str,
+    source: impl Fn(usize) -> usize,
+    blank: Option<(usize, usize)>,
+) -> PathBuf {
     let data = Dataset::load(&demo(), &TableOptions::default()).unwrap();
-    let probs = dir.path("swapped.parquet");
+    let probs = dir.path(name);
     let mut columns = vec![OutColumn::new("id", CellKind::Text)];
     columns.extend(
         data.classes
@@ -273,18 +320,31 @@ fn probabilities_in_another_row_order_are_refused_with_the_row() {
     );
     let mut file = File::create(&probs).unwrap();
     let mut w = TableWriter::new(&mut file, Format::Parquet, &columns).unwrap();
-    let k = data.classes.len();
     for r in 0..data.rows() {
-        let source = match r {
-            0 => 1,
-            1 => 0,
-            r => r,
-        };
-        let mut cells = vec![data.id(source).into_owned()];
-        cells.extend((0..k).map(|c| if c == data.labels[source] { "1" } else { "0" }.to_string()));
+        let from = source(r);
+        let mut cells = vec![data.id(from).into_owned()];
+        cells.extend((0..data.classes.len()).map(|c| {
+            let value = if c == data.labels[from] { "1" } else { "0" };
+            let null = blank == Some((r, c));
+            if null { "" } else { value }.to_string()
+        }));
         w.row(&cells).unwrap();
     }
     w.finish().unwrap();
+    probs
+}
+
+#[test]
+fn probabilities_in_another_row_order_are_refused_with_the_row() {
+    let dir = TempDir::new();
+    let (table, _) = demo_parquet(&dir);
+    // Probabilities whose first two rows are swapped.
+    let source = |r: usize| match r {
+        0 => 1,
+        1 => 0,
+        r => r,
+    };
+    let probs = one_hot_probs(&dir, "swapped.parquet", source, None);
     suspects(&table, &probs, &dir.path("w.csv"), &["--max-memory", "0"]).assert_bad_input(&[
         "swapped.parquet",
         "row 0",
@@ -316,27 +376,7 @@ fn a_streamed_review_gives_the_in_memory_report_and_merged_copy() {
     let reviewed = dir.path("reviewed.csv");
     fill_review(&worklist, &reviewed);
     std::fs::copy(dir.path("w.key.csv"), dir.path("reviewed.key.csv")).unwrap();
-    let review = |name: &str, extra: &[&str]| {
-        let (out, json) = (dir.path(&format!("{name}.parquet")), dir.path(name));
-        let mut args = vec![
-            "review",
-            "--data",
-            table.to_str().unwrap(),
-            "--worklist",
-            reviewed.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--json",
-            json.to_str().unwrap(),
-        ];
-        args.extend_from_slice(extra);
-        let run = flipmend(&args);
-        run.assert_ok();
-        let stdout = run.stdout.replace(out.to_str().unwrap(), "OUT");
-        (stdout, read(&json), std::fs::read(&out).unwrap())
-    };
-    let whole = review("whole", &[]);
-    let streamed = review("streamed", &["--max-memory", "0"]);
+    let [whole, streamed] = review_both(&dir, &table, &reviewed, "parquet");
     assert!(whole.0.contains("control rows found wrong"), "{}", whole.0);
     assert_eq!(streamed.0, whole.0, "the printed report");
     assert_eq!(streamed.1, whole.1, "the JSON summary");
@@ -400,67 +440,21 @@ fn demo_csv(dir: &TempDir) -> (PathBuf, PathBuf) {
 fn a_streamed_csv_run_gives_the_in_memory_worklist_matrices_and_review() {
     let dir = TempDir::new();
     let (table, probs) = demo_csv(&dir);
-    let (memory, streamed) = (dir.path("memory.csv"), dir.path("streamed.csv"));
-    suspects(&table, &probs, &memory, &[]).assert_ok();
-    let whole_sample = ["--max-memory", "0", "--sample-rows", "1000000"];
-    let run = suspects(&table, &probs, &streamed, &whole_sample);
-    run.assert_ok();
-    assert!(
-        run.stdout.contains("streamed in two passes"),
-        "{}",
-        run.stdout
-    );
-    assert_eq!(read(&memory), read(&streamed), "the worklist");
-    assert_eq!(
-        read(&dir.path("memory.key.csv")),
-        read(&dir.path("streamed.key.csv")),
-        "the key"
-    );
+    let memory = same_worklist_loaded_and_streamed(&dir, &table, &probs);
     for method in ["anchor", "quantile", "trusted", "counting"] {
-        let (a, b) = (dir.path("a.json"), dir.path("b.json"));
-        let estimate = |json: &Path, extra: &[&str]| {
-            let mut args = vec![
-                "estimate",
-                "--data",
-                table.to_str().unwrap(),
-                "--probs",
-                probs.to_str().unwrap(),
-                "--method",
-                method,
-                "--json",
-                json.to_str().unwrap(),
-            ];
-            args.extend_from_slice(extra);
-            flipmend(&args).assert_ok();
-        };
-        estimate(&a, &[]);
-        estimate(&b, &["--max-memory", "0", "--sample-rows", "500"]);
-        assert_eq!(matrix_of(&a), matrix_of(&b), "{method}");
+        let (whole, streamed) = estimate_both(&dir, &table, &probs, method);
+        assert_eq!(whole, streamed, "{method}");
     }
     // The review of that worklist: the same report and the same merged CSV copy.
     let reviewed = dir.path("reviewed.csv");
     fill_review(&memory, &reviewed);
     std::fs::copy(dir.path("memory.key.csv"), dir.path("reviewed.key.csv")).unwrap();
-    let review = |name: &str, extra: &[&str]| {
-        let out = dir.path(&format!("{name}.csv"));
-        let mut args = vec![
-            "review",
-            "--data",
-            table.to_str().unwrap(),
-            "--worklist",
-            reviewed.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-        ];
-        args.extend_from_slice(extra);
-        let run = flipmend(&args);
-        run.assert_ok();
-        (run.stdout.replace(out.to_str().unwrap(), "OUT"), read(&out))
-    };
-    let whole = review("merged-whole", &[]);
-    let streamed = review("merged-streamed", &["--max-memory", "0"]);
+    let [whole, streamed] = review_both(&dir, &table, &reviewed, "csv");
     assert!(whole.0.contains("control rows found wrong"), "{}", whole.0);
-    assert_eq!(streamed, whole, "the report and the merged CSV copy");
+    assert!(
+        streamed == whole,
+        "the report, the summary and the merged CSV copy"
+    );
 }
 
 /// A small table and probability file written as text.
@@ -526,28 +520,7 @@ fn bad_csv_cells_in_a_streamed_run_are_reported_at_their_line_and_column() {
 fn a_null_probability_in_a_streamed_parquet_run_names_its_row_group_and_offset() {
     let dir = TempDir::new();
     let (table, _) = demo_parquet(&dir);
-    let data = Dataset::load(&demo(), &TableOptions::default()).unwrap();
-    let probs = dir.path("holes.parquet");
-    let mut columns = vec![OutColumn::new("id", CellKind::Text)];
-    columns.extend(
-        data.classes
-            .iter()
-            .map(|c| OutColumn::new(c.clone(), CellKind::Float)),
-    );
-    let mut file = File::create(&probs).unwrap();
-    let mut w = TableWriter::new(&mut file, Format::Parquet, &columns).unwrap();
-    for r in 0..data.rows() {
-        let mut cells = vec![data.id(r).into_owned()];
-        cells.extend((0..data.classes.len()).map(|c| {
-            match (r, c == data.labels[r]) {
-                (5, _) if c == 0 => String::new(), // a null
-                (_, true) => "1".to_string(),
-                _ => "0".to_string(),
-            }
-        }));
-        w.row(&cells).unwrap();
-    }
-    w.finish().unwrap();
+    let probs = one_hot_probs(&dir, "holes.parquet", |r| r, Some((5, 0)));
     suspects(&table, &probs, &dir.path("w.csv"), &["--max-memory", "0"])
         .assert_bad_input(&["holes.parquet", "row 5 (row group 0, offset 5)"]);
 }

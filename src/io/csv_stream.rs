@@ -17,7 +17,7 @@ use arrow_schema::{DataType, Field, Schema};
 use super::csv_blocks::{BlockError, Blocks};
 use super::csv_source::{open, CsvFormat};
 use super::number::parse_f64;
-use super::table_chunk::{parse_block, ragged, unquote_simple, ChunkOut, LineCounter};
+use super::table_chunk::{parse_block, plain_lines, ragged, ChunkOut, LineCounter};
 use super::table_csv::{BLOCK_BYTES, MAX_RECORD_BYTES};
 use crate::data::roles::ColumnPlan;
 use crate::error::{shorten, Error, Location, Problem, Result};
@@ -335,44 +335,24 @@ impl<'a> BatchRows<'a> {
         }
     }
 
-    /// A block without quotes, line by line.
-    /// A block line by line; with `dequote`, lines with quotes are read through
-    /// [`unquote_simple`], and false (the rows so far to be dropped) at the first line
-    /// that is not simply quoted.
+    /// A block line by line ([`plain_lines`]); false (the rows so far to be dropped) at
+    /// the first line whose quotes the plain split cannot read.
     fn plain(&mut self, block: &[u8], dequote: bool) -> Result<bool> {
         let delimiter = self.file.delimiter;
-        let mut start = 0;
-        let mut line_no = self.base;
-        let mut unquoted = Vec::new();
-        for end in memchr::memchr_iter(b'\n', block).chain(std::iter::once(block.len())) {
-            line_no += 1;
-            let mut line = &block[start..end];
-            start = end + 1;
-            if let Some(stripped) = line.strip_suffix(b"\r") {
-                line = stripped;
-            }
-            if line.is_empty() {
-                continue;
-            }
-            if dequote && memchr::memchr(b'"', line).is_some() {
-                if !unquote_simple(line, delimiter, &mut unquoted) {
-                    return Ok(false);
-                }
-                line = &unquoted;
-            }
-            self.cuts.clear();
+        let base = self.base;
+        plain_lines(block, delimiter, dequote, |line, line_no| {
+            let mut cuts = std::mem::take(&mut self.cuts);
+            cuts.clear();
             let mut from = 0;
             for at in memchr::memchr_iter(delimiter, line) {
-                self.cuts.push((from, at));
+                cuts.push((from, at));
                 from = at + 1;
             }
-            self.cuts.push((from, line.len()));
-            let cuts = std::mem::take(&mut self.cuts);
-            let outcome = self.row(cuts.len(), |f| &line[cuts[f].0..cuts[f].1], line_no);
+            cuts.push((from, line.len()));
+            let outcome = self.row(cuts.len(), |f| &line[cuts[f].0..cuts[f].1], base + line_no);
             self.cuts = cuts;
-            outcome?;
-        }
-        Ok(true)
+            outcome
+        })
     }
 
     /// A block with quotes, record by record through the `csv` crate.

@@ -119,6 +119,21 @@ fn parse_plain(
     parser: &mut BlockParser,
     dequote: bool,
 ) -> Result<bool, Fatal> {
+    plain_lines(block, delimiter, dequote, |line, line_no| {
+        parser.plain_row(line, line_no, delimiter)
+    })
+}
+
+/// Gives `row` each line of `block` a plain split reads, with its 1-based line number in
+/// the block: a trailing carriage return dropped, blank lines skipped (as the `csv`
+/// crate skips them) and, with `dequote`, simple quotes removed ([`unquote_simple`]).
+/// False at the first line whose quotes the plain split cannot read.
+pub(crate) fn plain_lines<E>(
+    block: &[u8],
+    delimiter: u8,
+    dequote: bool,
+    mut row: impl FnMut(&[u8], u64) -> Result<(), E>,
+) -> Result<bool, E> {
     let mut start = 0;
     let mut line_no = 0u64;
     let mut unquoted = Vec::new();
@@ -138,7 +153,7 @@ fn parse_plain(
             }
             line = &unquoted;
         }
-        parser.plain_row(line, line_no, delimiter)?;
+        row(line, line_no)?;
     }
     Ok(true)
 }
