@@ -8,6 +8,7 @@
 //! path that only looks for the last newline.
 
 use std::io::Read;
+use std::path::Path;
 
 use memchr::{memchr, memchr2, memrchr};
 
@@ -31,6 +32,27 @@ pub(crate) enum BlockError {
     Io(std::io::Error),
     /// One record is larger than the limit (an unclosed quote, or an enormous field).
     RecordTooLarge(usize),
+}
+
+impl BlockError {
+    /// The error of `path`, a record too large placed at `line` (where the record that
+    /// never ended starts).
+    pub(crate) fn located(self, path: &Path, line: u64) -> crate::error::Error {
+        use crate::error::{Error, Location, Problem};
+        match self {
+            BlockError::Io(source) => Error::Read {
+                path: path.to_path_buf(),
+                source,
+            },
+            BlockError::RecordTooLarge(limit) => {
+                let detail = format!(
+                    "a single row is longer than {} MiB (a quote that never closes?)",
+                    limit >> 20
+                );
+                Error::input(Location::line(path, line), Problem::Syntax { detail })
+            }
+        }
+    }
 }
 
 /// Reads a stream and hands out blocks that each hold whole records.

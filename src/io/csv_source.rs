@@ -6,7 +6,7 @@ use std::fs::File;
 use std::io::Read;
 use std::path::Path;
 
-use crate::error::{Error, Result};
+use crate::error::{Error, Location, Problem, Result};
 
 /// The UTF-8 byte-order mark some spreadsheet programs put at the start of a CSV file.
 pub const BOM: &[u8] = b"\xEF\xBB\xBF";
@@ -135,6 +135,24 @@ impl CsvFormat {
     pub fn open(self, path: &Path) -> Result<csv::Reader<SkipBom<std::io::BufReader<File>>>> {
         Ok(self.reader(std::io::BufReader::new(open(path)?)))
     }
+}
+
+/// A header record's column names, trimmed; a name that is not UTF-8 is refused at line
+/// 1 with its column's number.
+pub(crate) fn header_names(record: &csv::ByteRecord, path: &Path) -> Result<Vec<String>> {
+    record
+        .iter()
+        .enumerate()
+        .map(|(i, cell)| {
+            let name = std::str::from_utf8(cell).map_err(|_| {
+                Error::input(
+                    Location::line(path, 1).at_column(i, &format!("#{}", i + 1)),
+                    Problem::InvalidUtf8,
+                )
+            })?;
+            Ok(name.trim().to_string())
+        })
+        .collect()
 }
 
 /// Opens `path` for reading; the error names the file.

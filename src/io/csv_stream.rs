@@ -14,8 +14,8 @@ use arrow_array::builder::{Float64Builder, StringBuilder};
 use arrow_array::{ArrayRef, RecordBatch, RecordBatchOptions, StringArray};
 use arrow_schema::{DataType, Field, Schema};
 
-use super::csv_blocks::{BlockError, Blocks};
-use super::csv_source::{open, CsvFormat};
+use super::csv_blocks::Blocks;
+use super::csv_source::{header_names, open, strip_bom, CsvFormat};
 use super::number::parse_f64;
 use super::table_chunk::{parse_block, plain_lines, ragged, ChunkOut, LineCounter};
 use super::table_csv::{BLOCK_BYTES, MAX_RECORD_BYTES};
@@ -53,10 +53,13 @@ pub(crate) struct CsvFile {
 impl CsvFile {
     /// Opens `path` and reads its header.
     pub(crate) fn open(path: &Path, delimiter: u8) -> Result<Self> {
-        let mut start = [0u8; 3];
+        let mut start = Vec::with_capacity(3);
         let mut file = open(path)?;
-        let read = read_up_to(&mut file, &mut start).map_err(|e| read_error(path, e))?;
-        let bom = (read - super::csv_source::strip_bom(&start[..read]).len()) as u64;
+        (&mut file)
+            .take(3)
+            .read_to_end(&mut start)
+            .map_err(|e| read_error(path, e))?;
+        let bom = (start.len() - strip_bom(&start).len()) as u64;
         file.seek(SeekFrom::Start(0))
             .map_err(|e| read_error(path, e))?;
         let mut reader = CsvFormat { delimiter }.reader(std::io::BufReader::new(file));
@@ -72,16 +75,7 @@ impl CsvFile {
                 ));
             }
         }
-        let mut header = Vec::with_capacity(record.len());
-        for (i, cell) in record.iter().enumerate() {
-            let name = std::str::from_utf8(cell).map_err(|_| {
-                Error::input(
-                    Location::line(path, 1).at_column(i, &format!("#{}", i + 1)),
-                    Problem::InvalidUtf8,
-                )
-            })?;
-            header.push(name.trim().to_string());
-        }
+        let header = header_names(&record, path)?;
         let next = reader.position();
         Ok(CsvFile {
             path: path.to_path_buf(),
@@ -127,7 +121,7 @@ impl CsvFile {
         Ok(std::iter::from_fn(move || {
             let block = match blocks.next_block() {
                 Ok(block) => block?,
-                Err(e) => return Some(Err(self.block_error(e, lines_before + 1))),
+                Err(e) => return Some(Err(e.located(&self.path, lines_before + 1))),
             };
             let out = parse_block(&block, self.delimiter, plan);
             lines_before += out.newlines;
@@ -167,7 +161,7 @@ impl CsvFile {
                         blocks.recycle(block);
                         batch
                     }
-                    Err(e) => Err(me.block_error(e, cursor.line + 1)),
+                    Err(e) => Err(e.located(&me.path, cursor.line + 1)),
                 };
                 let failed = batch.is_err();
                 if send.send(batch).is_err() || failed {
@@ -193,9 +187,10 @@ impl CsvFile {
         ))
     }
 
-    /// One block's records as a batch. A block without quotes is split on newlines and
-    /// delimiters directly (as the table's block parser does); one with quotes goes
-    /// through the `csv` crate. Both skip blank lines, as the in-memory reader does.
+    /// One block's records as a batch. The block is split on newlines and delimiters
+    /// directly ([`plain_lines`], as the table's block parser does); a block with quotes
+    /// the plain split cannot read goes through the `csv` crate. Both skip blank lines,
+    /// as the in-memory reader does.
     fn batch(
         &self,
         block: &[u8],
@@ -274,19 +269,6 @@ impl CsvFile {
 
     fn cell(&self, line: u64, field: usize) -> Location {
         Location::line(&self.path, line).at_column(field, &self.header[field])
-    }
-
-    fn block_error(&self, error: BlockError, line: u64) -> Error {
-        match error {
-            BlockError::Io(e) => read_error(&self.path, e),
-            BlockError::RecordTooLarge(limit) => {
-                let detail = format!(
-                    "a single row is longer than {} MiB (a quote that never closes?)",
-                    limit >> 20
-                );
-                Error::input(Location::line(&self.path, line), Problem::Syntax { detail })
-            }
-        }
     }
 }
 
@@ -445,19 +427,6 @@ pub(crate) fn ids_of(out: &mut ChunkOut) -> ArrayRef {
         id
     });
     Arc::new(StringArray::from_iter_values(ids))
-}
-
-fn read_up_to(file: &mut File, buf: &mut [u8]) -> std::io::Result<usize> {
-    let mut filled = 0;
-    while filled < buf.len() {
-        match file.read(&mut buf[filled..]) {
-            Ok(0) => break,
-            Ok(n) => filled += n,
-            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-            Err(e) => return Err(e),
-        }
-    }
-    Ok(filled)
 }
 
 fn read_error(path: &Path, source: std::io::Error) -> Error {

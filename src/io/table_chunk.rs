@@ -92,9 +92,10 @@ pub(crate) struct ChunkOut {
 
 /// Parses `block` (whole records, no header) under `plan`.
 ///
-/// Blocks without any quote character (the common case for numeric tables) are split on
-/// newlines and delimiters directly, which is several times faster than a general CSV
-/// state machine; blocks with quotes go through the `csv` crate. Both give the same rows.
+/// Blocks are split on newlines and delimiters directly, which is several times faster
+/// than a general CSV state machine; simple quotes around whole fields are removed on the
+/// way ([`unquote_simple`]), and a block with any other use of quotes goes through the
+/// `csv` crate. Both give the same rows.
 pub(crate) fn parse_block(block: &[u8], delimiter: u8, plan: &ColumnPlan) -> ChunkOut {
     let mut parser = BlockParser::new(plan, block);
     let quoted = memchr::memchr(b'"', block).is_some();

@@ -11,7 +11,7 @@ use std::sync::mpsc::{Receiver, Sender};
 use rayon::prelude::*;
 
 use super::csv_blocks::{BlockError, Blocks};
-use super::csv_source::{strip_bom, CsvFormat};
+use super::csv_source::{header_names, strip_bom, CsvFormat};
 use super::table_chunk::{parse_block, ChunkOut};
 use super::table_merge::{Merged, Merger, Places};
 use crate::data::roles::{ColumnPlan, TableOptions};
@@ -164,20 +164,8 @@ impl<'a> TableReader<'a> {
     }
 
     fn block_error(&self, error: BlockError) -> Error {
-        match error {
-            BlockError::Io(source) => Error::Read {
-                path: self.path.to_path_buf(),
-                source,
-            },
-            BlockError::RecordTooLarge(limit) => {
-                let detail = format!(
-                    "a single row is longer than {} MiB (a quote that never closes?)",
-                    limit >> 20
-                );
-                let done = self.merger.as_ref().map_or(self.header_lines, Merger::done);
-                self.at_line(done + 1, Problem::Syntax { detail })
-            }
-        }
+        let done = self.merger.as_ref().map_or(self.header_lines, Merger::done);
+        error.located(self.path, done + 1)
     }
 
     /// Reads the header from the first block and returns the plan and the rest of it.
@@ -200,16 +188,7 @@ impl<'a> TableReader<'a> {
                 ))
             }
         }
-        let mut header = Vec::with_capacity(record.len());
-        for (i, cell) in record.iter().enumerate() {
-            let name = std::str::from_utf8(cell).map_err(|_| {
-                Error::input(
-                    Location::line(self.path, 1).at_column(i, &format!("#{}", i + 1)),
-                    Problem::InvalidUtf8,
-                )
-            })?;
-            header.push(name.trim().to_string());
-        }
+        let header = header_names(&record, self.path)?;
         let plan = ColumnPlan::resolve(self.path, &header, self.options)?;
         let next = reader.position().clone();
         self.header_lines = next.line() - 1;

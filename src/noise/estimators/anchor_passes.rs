@@ -105,7 +105,7 @@ pub(super) struct Quantile {
     n: usize,
     /// Per class: the order-key bits fixed so far, how many of them, and how many values
     /// lie below that prefix.
-    pub(super) prefix: Vec<(u32, u32, usize)>,
+    prefix: Vec<(u32, u32, usize)>,
     counts: Vec<u64>,
     best: Option<Best>,
 }

@@ -204,7 +204,7 @@ impl Passes {
     fn step(&self) -> (usize, usize) {
         match &self.state {
             State::Anchor(best) => (usize::from(best.done), 0),
-            State::Quantile(q) => (q.step(), q.prefix[0].1 as usize),
+            State::Quantile(q) => (q.step(), 0),
             // A share that met no row of the second pass has no joint yet.
             State::Counting { thresholds, .. } => (usize::from(thresholds.done), 0),
             State::Trusted { done, fallback, .. } => (
