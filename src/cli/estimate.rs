@@ -19,7 +19,7 @@ use crate::noise::diagnostics::ReliabilityBin;
 use crate::noise::Method;
 use crate::workflow::consensus::Consensual;
 use crate::workflow::estimate::{estimate, EstimateParams, Estimated};
-use crate::workflow::streamed::{estimate_streamed, StreamInput};
+use crate::workflow::streamed::{estimate_from, open_local, OpenRows, StreamInput};
 use crate::workflow::{self, MatrixSource, RowProbabilities};
 
 /// Flags of `flipmend estimate`.
@@ -89,10 +89,8 @@ struct EstimateReport<'a> {
     annotators: Option<Vec<super::annotators::AnnotatorJson>>,
 }
 
-/// Runs `estimate`.
-pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
-    args.pipeline.check()?;
-    check_outputs(args)?;
+/// Refuses a bootstrap that cannot be run.
+fn check_bootstrap(args: &EstimateArgs) -> Result<()> {
     if args.bootstrap == 1 {
         return Err(Error::Usage(
             "--bootstrap needs at least 2 resamples (their spread is the interval's width)".into(),
@@ -103,9 +101,17 @@ pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
             "--bootstrap re-estimates the matrix, so it cannot be used with --matrix".into(),
         ));
     }
+    Ok(())
+}
+
+/// Runs `estimate`.
+pub fn run(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
+    args.pipeline.check()?;
+    check_outputs(args)?;
+    check_bootstrap(args)?;
     let probs_path = args.pipeline.probs.probs.as_deref();
     if args.stream.streams(&args.pipeline.table.data, probs_path) {
-        return run_streamed(args, out);
+        return run_streamed(args, &open_local, out);
     }
     let data = args.pipeline.table.load()?;
     if args.consensus_out.is_some() && data.annotations.is_none() {
@@ -176,8 +182,17 @@ fn rows_of(t: &Array2<f64>) -> Vec<Vec<f64>> {
     t.rows().into_iter().map(|r| r.to_vec()).collect()
 }
 
+/// Runs `estimate` streamed, on the rows `open` gives (an engine's, for the distributed
+/// runner): the same flags, checks and outputs as [`run`].
+pub fn run_on(args: &EstimateArgs, open: &OpenRows, out: &mut dyn Write) -> Result<()> {
+    args.pipeline.check()?;
+    check_outputs(args)?;
+    check_bootstrap(args)?;
+    run_streamed(args, open, out)
+}
+
 /// `estimate` over a table too large to hold.
-fn run_streamed(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
+fn run_streamed(args: &EstimateArgs, open: &OpenRows, out: &mut dyn Write) -> Result<()> {
     let probs = streamed_probs(args.pipeline.probs.probs.as_deref())?;
     let refuse = |what: &str| Err(not_streamed(what));
     let table = &args.pipeline.table;
@@ -203,7 +218,8 @@ fn run_streamed(args: &EstimateArgs, out: &mut dyn Write) -> Result<()> {
         resamples: args.bootstrap,
         seed: args.pipeline.fit.seed,
     };
-    let found = estimate_streamed(&input, &params)?;
+    let source = open(&input)?;
+    let found = estimate_from(source.as_ref(), input.sample_rows, &params)?;
     let (data, probs) = (&found.sample, &found.sample_probs);
     write_outputs(args, data, probs, &found.estimated, &params.matrix, None)?;
     let mut text = format!(

@@ -17,11 +17,11 @@ use clap::{Parser, Subcommand};
 
 pub use args::{FitArgs, MatrixArgs, ProbArgs, TableArgs};
 pub use compare::CompareArgs;
-pub use estimate::EstimateArgs;
+pub use estimate::{run_on as estimate_on, EstimateArgs};
 pub use inspect::InspectArgs;
 pub use predict::PredictArgs;
 pub use review::ReviewArgs;
-pub use suspects::SuspectsArgs;
+pub use suspects::{run_on as suspects_on, SuspectsArgs};
 pub use train::TrainArgs;
 
 use crate::error::{Error, Result};

@@ -16,7 +16,9 @@ use crate::io::{check_not_input, write_json};
 use crate::noise::scores::{auroc, RowScore, ScoreKind};
 use crate::timing::Stages;
 use crate::workflow;
-use crate::workflow::streamed::{suspects_streamed, StreamInput, StreamedSuspects};
+use crate::workflow::streamed::{
+    open_local, suspects_from, OpenRows, StreamInput, StreamedSuspects,
+};
 use crate::workflow::suspects::{expected_among, suspects, Suspects, SuspectsParams, DEFAULT_TOP};
 use crate::workflow::worklist::{valid_control_share, DEFAULT_CONTROL_SHARE};
 
@@ -130,7 +132,7 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     let mut stages = Stages::start();
     let probs_path = args.pipeline.probs.probs.as_deref();
     if args.stream.streams(&args.pipeline.table.data, probs_path) {
-        return run_streamed(args, &options, stages, out);
+        return run_streamed(args, &options, stages, &open_local, out);
     }
     let data = args.pipeline.table.load_with(&options)?;
     stages.end("load_table");
@@ -180,11 +182,21 @@ pub fn run(args: &SuspectsArgs, out: &mut dyn Write) -> Result<()> {
     )
 }
 
+/// Runs `suspects` streamed, on the rows `open` gives (an engine's, for the distributed
+/// runner): the same flags, checks and outputs as [`run`].
+pub fn run_on(args: &SuspectsArgs, open: &OpenRows, out: &mut dyn Write) -> Result<()> {
+    args.pipeline.check()?;
+    check_outputs(args)?;
+    let options = args.pipeline.table.options();
+    run_streamed(args, &options, Stages::start(), open, out)
+}
+
 /// `suspects` over a table too large to hold: two passes, the matrix from a sample.
 fn run_streamed(
     args: &SuspectsArgs,
     options: &crate::data::TableOptions,
     mut stages: Stages,
+    open: &OpenRows,
     out: &mut dyn Write,
 ) -> Result<()> {
     let probs = streamed_probs(args.pipeline.probs.probs.as_deref())?;
@@ -212,7 +224,8 @@ fn run_streamed(
         renormalize: args.pipeline.probs.renormalize,
         sample_rows: args.stream.sample_rows,
     };
-    let found = suspects_streamed(&input, &params, &mut stages)?;
+    let source = open(&input)?;
+    let found = suspects_from(source.as_ref(), input.sample_rows, &params, &mut stages)?;
     let data = &found.worklist_rows;
     let key = match &args.out {
         Some(path) => write_worklist_files(

@@ -4,6 +4,7 @@
 
 pub mod annotations_long;
 pub(crate) mod arrow_cells;
+pub mod batch_rows;
 pub mod columnar;
 pub(crate) mod csv_blocks;
 pub mod csv_source;

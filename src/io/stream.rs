@@ -525,72 +525,31 @@ impl ProbCursor<'_, '_> {
         row_of: &dyn Fn(usize) -> usize,
     ) -> Result<()> {
         let stream = self.stream;
-        let column = |field: usize| {
-            let c = self.fields.binary_search(&field).unwrap_or(0);
-            slice.column(c).clone()
-        };
-        let width = self.wanted.len();
-        for (j, &field) in self.wanted.iter().enumerate() {
-            let array = column(field);
-            if let Some(a) = array.as_primitive_opt::<Float32Type>() {
-                if a.null_count() == 0 && put_f32(a.values(), &mut out.values, at, j, width) {
-                    continue;
-                }
-            }
-            let mut bad = None;
-            let nulls =
-                for_each_number(array.as_ref(), |i, v| match checked(v, || v.to_string()) {
-                    Ok(p) => out.values[(at + i, j)] = p,
-                    Err(problem) => {
-                        bad.get_or_insert((i, problem));
-                    }
-                });
-            let at_cell = |i: usize| stream.probs_cell(row_of(i), field);
-            match nulls {
-                None => {
-                    let problem = Problem::ColumnType {
-                        found: type_words(array.as_ref()),
-                        expected: "probabilities must be numbers".into(),
-                    };
-                    return Err(Error::input(
-                        Location::file(stream.probs_path)
-                            .at_column(field, &stream.probs_header[field]),
-                        problem,
-                    ));
-                }
-                Some(Some(nulls)) if nulls.null_count() > 0 => {
-                    let i = (0..array.len()).find(|&i| nulls.is_null(i)).unwrap_or(0);
-                    let problem = Problem::NullProbabilities {
-                        count: nulls.null_count(),
-                    };
-                    return Err(Error::input(at_cell(i), problem));
-                }
-                _ => {}
-            }
-            if let Some((i, problem)) = bad {
-                return Err(Error::input(at_cell(i), problem));
-            }
-        }
-        Ok(())
+        let columns: Vec<ArrayRef> = self
+            .wanted
+            .iter()
+            .map(|&field| {
+                let c = self.fields.binary_search(&field).unwrap_or(0);
+                slice.column(c).clone()
+            })
+            .collect();
+        let wanted = self.wanted;
+        put_prob_columns(
+            &columns,
+            &mut out.values,
+            at,
+            &|i, j| stream.probs_cell(row_of(i), wanted[j]),
+            &|j| {
+                Location::file(stream.probs_path)
+                    .at_column(wanted[j], &stream.probs_header[wanted[j]])
+            },
+        )
     }
 
     /// Refuses (or, with `--renormalize`, rescales) rows that do not sum to 1.
     fn check_sums(&self, values: &mut Array2<f32>, row_of: &dyn Fn(usize) -> usize) -> Result<()> {
-        for (i, mut row) in values.rows_mut().into_iter().enumerate() {
-            let sum: f64 = row.iter().map(|&v| v as f64).sum();
-            if (sum - 1.0).abs() <= ROW_SUM_TOLERANCE {
-                continue;
-            }
-            let location = self.stream.probs_row(row_of(i));
-            if !self.stream.renormalize {
-                return Err(Error::input(location, Problem::ProbRowSum { sum }));
-            }
-            if sum <= 0.0 {
-                return Err(Error::input(location, Problem::ProbZeroRow));
-            }
-            row.mapv_inplace(|v| (v as f64 / sum) as f32);
-        }
-        Ok(())
+        let stream = self.stream;
+        check_row_sums(values, stream.renormalize, &|i| stream.probs_row(row_of(i)))
     }
 
     /// Refuses a probability file with rows left over after the table's last row.
@@ -634,6 +593,77 @@ impl TableStream<'_> {
     fn probs_row(&self, row: usize) -> Location {
         self.probs.locate(self.probs_path, row)
     }
+}
+
+/// Copies probability columns (one per class, in class order) into rows `at..` of
+/// `values`: the rules every streamed probability reader applies. `cell` locates row `i`
+/// of the columns in column `j`, `column` a whole column.
+pub(crate) fn put_prob_columns(
+    columns: &[ArrayRef],
+    values: &mut Array2<f32>,
+    at: usize,
+    cell: &dyn Fn(usize, usize) -> Location,
+    column: &dyn Fn(usize) -> Location,
+) -> Result<()> {
+    let width = values.ncols();
+    for (j, array) in columns.iter().enumerate() {
+        if let Some(a) = array.as_primitive_opt::<Float32Type>() {
+            if a.null_count() == 0 && put_f32(a.values(), values, at, j, width) {
+                continue;
+            }
+        }
+        let mut bad = None;
+        let nulls = for_each_number(array.as_ref(), |i, v| match checked(v, || v.to_string()) {
+            Ok(p) => values[(at + i, j)] = p,
+            Err(problem) => {
+                bad.get_or_insert((i, problem));
+            }
+        });
+        match nulls {
+            None => {
+                let problem = Problem::ColumnType {
+                    found: type_words(array.as_ref()),
+                    expected: "probabilities must be numbers".into(),
+                };
+                return Err(Error::input(column(j), problem));
+            }
+            Some(Some(nulls)) if nulls.null_count() > 0 => {
+                let i = (0..array.len()).find(|&i| nulls.is_null(i)).unwrap_or(0);
+                let problem = Problem::NullProbabilities {
+                    count: nulls.null_count(),
+                };
+                return Err(Error::input(cell(i, j), problem));
+            }
+            _ => {}
+        }
+        if let Some((i, problem)) = bad {
+            return Err(Error::input(cell(i, j), problem));
+        }
+    }
+    Ok(())
+}
+
+/// Refuses (or, with `renormalize`, rescales) rows that do not sum to 1; `row` locates
+/// row `i` of `values`.
+pub(crate) fn check_row_sums(
+    values: &mut Array2<f32>,
+    renormalize: bool,
+    row: &dyn Fn(usize) -> Location,
+) -> Result<()> {
+    for (i, mut values) in values.rows_mut().into_iter().enumerate() {
+        let sum: f64 = values.iter().map(|&v| v as f64).sum();
+        if (sum - 1.0).abs() <= ROW_SUM_TOLERANCE {
+            continue;
+        }
+        if !renormalize {
+            return Err(Error::input(row(i), Problem::ProbRowSum { sum }));
+        }
+        if sum <= 0.0 {
+            return Err(Error::input(row(i), Problem::ProbZeroRow));
+        }
+        values.mapv_inplace(|v| (v as f64 / sum) as f32);
+    }
+    Ok(())
 }
 
 /// Float32 probabilities without nulls into column `j` of `values` from row `at` on:

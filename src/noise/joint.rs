@@ -121,7 +121,7 @@ pub struct JointFit {
 /// its inputs z measured on the fitted rows: what it takes to give rows the fit never saw
 /// their clean posteriors (a pass over a table too large to fit whole, whose sample was
 /// fitted). On the fitted probabilities it gives [`JointFit::clean`] exactly.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct CleanModel {
     /// Mean of each centred log-probability column over the fitted rows.
     mean: Vec<f64>,

@@ -53,7 +53,7 @@ pub fn score_summaries(scores: &[f64], kind: ScoreKind) -> (Histogram, Option<f6
 /// [`score_summaries`] over scores that come in pieces (a pass over a table too large to
 /// hold): the pieces are cut into the same [`SUM_CHUNK_ROWS`] runs, so the histogram and
 /// the expected count are those of the whole score vector, bit for bit.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub struct ScoreTally {
     kind: ScoreKind,
     /// Scores not yet in a full run.

@@ -11,6 +11,7 @@ use super::anchors::{higher_index, order_key, BUCKET_BITS};
 /// Per class, the first row with the largest probability strictly below a limit (and,
 /// for the classes with none, the first row with the largest probability), with its
 /// probability vector.
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub(super) struct Best {
     below: Option<Vec<f32>>,
     best: Vec<Option<Found>>,
@@ -98,6 +99,7 @@ fn set_row(t: &mut Array2<f64>, class: usize, row: Option<&Found>) {
 
 /// numpy's "higher" quantile of every column, found by refining a histogram of order keys
 /// over three passes, then the rows below it (a fourth).
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub(super) struct Quantile {
     q: f64,
     k: usize,

@@ -37,7 +37,7 @@ pub(super) fn counting(
 
 /// The per-class thresholds t_j: the mean self-confidence p_j over the rows observed as
 /// j, summed row by row in table order.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub(super) struct Thresholds {
     totals: Vec<f64>,
     pub(super) observed: Vec<usize>,

@@ -38,7 +38,9 @@ pub struct Rows<'a> {
     pub at_random: Option<&'a [bool]>,
 }
 
-/// An estimator run as passes over every row.
+/// An estimator run as passes over every row. It serialises (serde) so that a
+/// distributed engine can send a share to its workers and their states back.
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub struct Passes {
     k: usize,
     state: State,
@@ -46,6 +48,7 @@ pub struct Passes {
     rows: usize,
 }
 
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 enum State {
     Anchor(Best),
     Quantile(Quantile),
@@ -274,7 +277,7 @@ impl Passes {
 
 /// Sums in runs of [`CHUNK_ROWS`] rows, each run's sum added to the total in turn: the
 /// order of the in-memory estimators' chunked sums.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub(super) struct ChunkedSum {
     pub(super) total: Array2<f64>,
     run: Array2<f64>,

@@ -40,7 +40,7 @@ fn no_trusted_column() -> Error {
 /// The sums behind the trusted estimate: per class of the random audits, the sum of
 /// their probability vectors (in runs of `CHUNK_ROWS` rows, the order of every chunked
 /// sum) and their count; and the reviewed rows left out.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub(super) struct TrustedSums {
     sums: ChunkedSum,
     counts: Vec<usize>,
