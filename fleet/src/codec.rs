@@ -17,7 +17,8 @@ use datafusion_proto::logical_plan::LogicalExtensionCodec;
 use datafusion_proto::physical_plan::{PhysicalExtensionCodec, PhysicalProtoConverterExtension};
 use serde::{Deserialize, Serialize};
 
-use crate::scan::{Files, RowScanExec, RowTable, ScanPlan};
+use crate::files::Files;
+use crate::scan::{RowScanExec, RowTable, ScanPlan};
 
 /// Marks our nodes among Ballista's (whose encodings are protobuf messages, which never
 /// start with these bytes).

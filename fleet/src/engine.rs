@@ -25,11 +25,10 @@ use flipmend::workflow::streamed::{
 use flipmend::workflow::worklist::{CONTROL_STREAM, SAMPLE_STREAM};
 use tokio::runtime::Runtime;
 
-use crate::functions::{
-    from_bytes, job_literal, Draw, PassesJob, PassesShare, ScoreKey, ScoreSpec, ShareAggregate,
-    TallyJob, TallyShare,
-};
-use crate::scan::{Files, RowTable, ROW_COLUMN};
+use crate::files::{Files, ROW_COLUMN};
+use crate::functions::{from_bytes, job_literal, Draw, ScoreKey, ScoreSpec};
+use crate::scan::RowTable;
+use crate::shares::{PassesJob, PassesShare, ShareAggregate, TallyJob, TallyShare};
 
 /// The name the table is registered under.
 const TABLE: &str = "flipmend_rows";

@@ -10,5 +10,7 @@ pub mod cli;
 pub mod cluster;
 pub mod codec;
 pub mod engine;
+pub mod files;
 pub mod functions;
 pub mod scan;
+pub mod shares;
