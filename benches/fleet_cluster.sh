@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
 # The distributed runner on a local Ballista cluster of separate processes: one
-# `flipmend-fleet scheduler` and two `flipmend-fleet executor`s on 127.0.0.1, a
+# `flipmend-fleet scheduler` and two `flipmend-fleet executor`s (FLEET_EXECUTORS) of one
+# task slot each on 127.0.0.1, a
 # `suspects` and an `estimate` job run on them, their results checked against the
 # single-machine `flipmend` on the same rows, then everything stopped. Not in CI (it
 # starts servers and needs numpy and pyarrow for the table); every process is bounded
@@ -19,6 +20,7 @@ bin=target/release/flipmend
 fleet=target/release/flipmend-fleet
 limit_secs=${FLEET_LIMIT_SECS:-1800}
 port=${FLEET_PORT:-50150}
+executors=${FLEET_EXECUTORS:-2}
 if ! python3 -c "import numpy, pyarrow" 2>/dev/null; then
     echo "skipped: numpy and pyarrow are needed to write the table"
     exit 0
@@ -57,18 +59,14 @@ stop() {
 trap stop EXIT
 timeout "$limit_secs" "$fleet" scheduler --bind "127.0.0.1:$port" > "$work/scheduler.log" 2>&1 &
 pids+=($!)
-for i in 1 2; do
+for i in $(seq "$executors"); do
     timeout "$limit_secs" "$fleet" executor --scheduler "127.0.0.1:$port" --bind 127.0.0.1 \
         --port $((port + 10 * i)) --grpc-port $((port + 10 * i + 1)) --slots 1 \
         --work-dir "$work/executor$i" > "$work/executor$i.log" 2>&1 &
     pids+=($!)
 done
-# Wait for both executors to register (their logs say so), at most 30 s.
-for _ in $(seq 60); do
-    up=$(grep -l -i "registered\|started" "$work"/executor*.log 2>/dev/null | wc -l)
-    [ "$up" -ge 2 ] && break
-    sleep 0.5
-done
+# Give the executors time to register with the scheduler.
+sleep 3
 
 timed() {
     local name=$1; shift
@@ -84,7 +82,7 @@ job="--budget 10000 --sample-rows 200000"
 timed single "$bin" suspects --data "$whole" --probs "$whole" --max-memory 0 $job --out "$work/single.csv"
 timed in-process "$fleet" suspects --data "$parts" --probs "$parts" $job --out "$work/in-process.csv"
 timed cluster "$fleet" suspects --data "$parts" --probs "$parts" $job --out "$work/cluster.csv" \
-    --scheduler "df://127.0.0.1:$port" --partitions 2
+    --scheduler "df://127.0.0.1:$port" --partitions "$executors"
 for run in in-process cluster; do
     cmp "$work/single.csv" "$work/$run.csv" && cmp "$work/single.key.csv" "$work/$run.key.csv" \
         && echo "$run: the same worklist and key as the single machine"
@@ -92,7 +90,7 @@ done
 "$bin" estimate --data "$whole" --probs "$whole" --max-memory 0 --method counting \
     --json "$work/single.json" > /dev/null
 "$fleet" estimate --data "$parts" --probs "$parts" --method counting --json "$work/cluster.json" \
-    --scheduler "df://127.0.0.1:$port" --partitions 2 > /dev/null
+    --scheduler "df://127.0.0.1:$port" --partitions "$executors" > /dev/null
 python3 - "$work/single.json" "$work/cluster.json" <<'PY'
 import json, sys
 a, b = (json.load(open(p))["matrix"] for p in sys.argv[1:])

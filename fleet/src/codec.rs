@@ -19,6 +19,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::files::Files;
 use crate::scan::{RowScanExec, RowTable, ScanPlan};
+use crate::shares::{PassesShare, Share, ShareAggregate, TallyShare};
 
 /// Marks our nodes among Ballista's (whose encodings are protobuf messages, which never
 /// start with these bytes).
@@ -33,6 +34,34 @@ fn untagged<'a, T: Deserialize<'a>>(buf: &'a [u8]) -> Option<Result<T>> {
     buf.strip_prefix(TAG).map(|rest| {
         serde_json::from_slice(rest).map_err(|e| DataFusionError::Internal(e.to_string()))
     })
+}
+
+/// Our aggregate named `name` with the job `buf`, when it is one of ours.
+fn our_aggregate(name: &str, buf: &[u8]) -> Option<Arc<AggregateUDF>> {
+    if buf.is_empty() {
+        return None;
+    }
+    let udf = match name {
+        n if n == PassesShare::NAME => {
+            AggregateUDF::from(ShareAggregate::<PassesShare>::with_job(buf))
+        }
+        n if n == TallyShare::NAME => {
+            AggregateUDF::from(ShareAggregate::<TallyShare>::with_job(buf))
+        }
+        _ => return None,
+    };
+    Some(Arc::new(udf))
+}
+
+/// The job of our aggregate `node`, when it is one of ours.
+fn aggregate_job(node: &AggregateUDF) -> Option<&[u8]> {
+    let inner: &dyn std::any::Any = node.inner().as_ref();
+    if let Some(f) = inner.downcast_ref::<ShareAggregate<PassesShare>>() {
+        return Some(f.job());
+    }
+    inner
+        .downcast_ref::<ShareAggregate<TallyShare>>()
+        .map(|f| f.job())
 }
 
 /// Ballista's logical codec, knowing [`RowTable`].
@@ -104,7 +133,20 @@ impl LogicalExtensionCodec for LogicalCodec {
     }
 
     fn try_decode_udaf(&self, name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
-        self.inner.try_decode_udaf(name, buf)
+        match our_aggregate(name, buf) {
+            Some(udf) => Ok(udf),
+            None => self.inner.try_decode_udaf(name, buf),
+        }
+    }
+
+    fn try_encode_udaf(&self, node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
+        match aggregate_job(node) {
+            Some(job) => {
+                buf.extend_from_slice(job);
+                Ok(())
+            }
+            None => self.inner.try_encode_udaf(node, buf),
+        }
     }
 }
 
@@ -150,6 +192,19 @@ impl PhysicalExtensionCodec for PhysicalCodec {
     }
 
     fn try_decode_udaf(&self, name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
-        self.inner.try_decode_udaf(name, buf)
+        match our_aggregate(name, buf) {
+            Some(udf) => Ok(udf),
+            None => self.inner.try_decode_udaf(name, buf),
+        }
+    }
+
+    fn try_encode_udaf(&self, node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
+        match aggregate_job(node) {
+            Some(job) => {
+                buf.extend_from_slice(job);
+                Ok(())
+            }
+            None => self.inner.try_encode_udaf(node, buf),
+        }
     }
 }

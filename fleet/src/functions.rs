@@ -57,6 +57,11 @@ pub fn from_bytes<T: DeserializeOwned>(bytes: &[u8]) -> Result<T> {
     postcard::from_bytes(bytes).map_err(|e| DataFusionError::Internal(e.to_string()))
 }
 
+/// A job's or state's bytes.
+pub fn job_bytes<T: Serialize>(value: &T) -> Result<Vec<u8>> {
+    to_bytes(value)
+}
+
 pub(crate) fn to_bytes<T: Serialize>(value: &T) -> Result<Vec<u8>> {
     postcard::to_stdvec(value).map_err(|e| DataFusionError::Internal(e.to_string()))
 }

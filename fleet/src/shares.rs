@@ -9,11 +9,9 @@ use std::sync::Arc;
 
 use datafusion::arrow::array::{Array, ArrayRef, AsArray};
 use datafusion::arrow::datatypes::{DataType, Field, FieldRef};
-use datafusion::common::{Result, ScalarValue};
+use datafusion::common::{DataFusionError, Result, ScalarValue};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
-use datafusion::logical_expr::{
-    Accumulator, AggregateUDFImpl, ColumnarValue, Signature, Volatility,
-};
+use datafusion::logical_expr::{Accumulator, AggregateUDFImpl, Signature, Volatility};
 use flipmend::io::batch_rows::{BatchSpec, ClassRows};
 use flipmend::noise::estimators::passes::{Passes, Rows};
 use flipmend::noise::scores::rank_key;
@@ -22,7 +20,7 @@ use flipmend::workflow::streamed::ControlRanks;
 use serde::de::DeserializeOwned;
 use serde::{Deserialize, Serialize};
 
-use crate::functions::{batch_of, external, from_bytes, job_of, to_bytes, ScoreSpec};
+use crate::functions::{batch_of, external, from_bytes, to_bytes, ScoreSpec};
 
 /// A state that workers build from their rows and the engine merges.
 pub trait Share: Serialize + DeserializeOwned + Send + Sync + Debug + 'static {
@@ -146,25 +144,43 @@ impl Share for TallyShare {
     }
 }
 
-/// An aggregate whose state is a [`Share`], as bytes.
+/// An aggregate whose state is a [`Share`], as bytes. The job travels inside the
+/// function (the codecs in [`crate::codec`] carry it), not as a literal argument: an
+/// aggregate's literal is copied into every row of every batch, and the tally's job
+/// (10,000 control keys) made a 2,000,000-row run take 129 s and 3.5 GB (measured).
 #[derive(Debug)]
 pub struct ShareAggregate<S> {
     signature: Signature,
+    /// The job (postcard bytes); empty in a registry's copy, which only names it.
+    job: Arc<[u8]>,
     share: PhantomData<fn() -> S>,
 }
 
 impl<S> Default for ShareAggregate<S> {
     fn default() -> Self {
+        Self::with_job(&[])
+    }
+}
+
+impl<S> ShareAggregate<S> {
+    /// The aggregate of the job `bytes`.
+    pub fn with_job(bytes: &[u8]) -> Self {
         ShareAggregate {
             signature: Signature::variadic_any(Volatility::Immutable),
+            job: Arc::from(bytes),
             share: PhantomData,
         }
+    }
+
+    /// The job's bytes.
+    pub fn job(&self) -> &[u8] {
+        &self.job
     }
 }
 
 impl<S> PartialEq for ShareAggregate<S> {
     fn eq(&self, other: &Self) -> bool {
-        self.signature == other.signature
+        self.signature == other.signature && self.job == other.job
     }
 }
 
@@ -173,6 +189,7 @@ impl<S> Eq for ShareAggregate<S> {}
 impl<S> Hash for ShareAggregate<S> {
     fn hash<H: std::hash::Hasher>(&self, state: &mut H) {
         self.signature.hash(state);
+        self.job.hash(state);
     }
 }
 
@@ -190,8 +207,14 @@ impl<S: Share> AggregateUDFImpl for ShareAggregate<S> {
     }
 
     fn accumulator(&self, _args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        if self.job.is_empty() {
+            return Err(DataFusionError::Internal(format!(
+                "{} arrived without its job",
+                S::NAME
+            )));
+        }
         Ok(Box::new(ShareAccumulator::<S> {
-            job: None,
+            job: from_bytes(&self.job)?,
             share: None,
         }))
     }
@@ -208,7 +231,7 @@ impl<S: Share> AggregateUDFImpl for ShareAggregate<S> {
 /// One worker's share (or the merged one).
 #[derive(Debug)]
 struct ShareAccumulator<S: Share> {
-    job: Option<S::Job>,
+    job: S::Job,
     share: Option<S>,
 }
 
@@ -226,13 +249,10 @@ impl<S: Share> Accumulator for ShareAccumulator<S> {
         if values.is_empty() || values[0].is_empty() {
             return Ok(());
         }
-        if self.job.is_none() {
-            self.job = Some(job_of(&ColumnarValue::Array(values[0].clone()))?);
-        }
-        let job = self.job.as_ref().expect("set above");
+        let job = &self.job;
         let spec = S::spec(job);
         let rows = spec
-            .read(&batch_of(spec, &values[1..])?, false)
+            .read(&batch_of(spec, values)?, false)
             .map_err(external)?;
         let share = self.share.get_or_insert_with(|| S::start(job));
         share.rows(job, &rows)
