@@ -9,9 +9,10 @@ use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
 use datafusion::arrow::array::{Array, AsArray, RecordBatch};
+use datafusion::arrow::datatypes::DataType;
 use datafusion::common::{DataFusionError, ScalarValue};
 use datafusion::logical_expr::{AggregateUDF, Expr, ScalarUDF};
-use datafusion::prelude::{ident, lit, DataFrame, SessionContext};
+use datafusion::prelude::{cast, ident, lit, DataFrame, SessionContext};
 use flipmend::data::origin::Origin;
 use flipmend::data::roles::ColumnPlan;
 use flipmend::error::{Error, Result};
@@ -42,6 +43,10 @@ pub struct EngineSource {
     renormalize: bool,
     /// Rows in the files (their footers say).
     rows: usize,
+    /// Dictionary-encoded columns: read as their values, since a Ballista shuffle of a
+    /// grouped dictionary column fails ("expected Dictionary(Int32, Utf8) but found
+    /// Utf8", measured with separate executors).
+    dictionaries: Vec<String>,
     /// Fixed by pass 1.
     classes: OnceCell<Vec<String>>,
 }
@@ -82,6 +87,12 @@ impl EngineSource {
         }
         plan.numeric.clear();
         let rows = files.rows as usize;
+        let dictionaries = schema
+            .fields()
+            .iter()
+            .filter(|f| matches!(f.data_type(), DataType::Dictionary(_, _)))
+            .map(|f| f.name().clone())
+            .collect();
         ctx.register_table(TABLE, Arc::new(RowTable::new(files, &schema)))
             .map_err(engine)?;
         Ok(EngineSource {
@@ -91,6 +102,7 @@ impl EngineSource {
             plan,
             renormalize: input.renormalize,
             rows,
+            dictionaries,
             classes: OnceCell::new(),
         })
     }
@@ -124,7 +136,13 @@ impl EngineSource {
                 header.len() - 1
             })
             .collect();
-        let exprs = header.iter().map(|h| ident(h.as_str())).collect();
+        let exprs = header
+            .iter()
+            .map(|h| match self.dictionaries.contains(h) {
+                true => cast(ident(h.as_str()), DataType::Utf8).alias(h.as_str()),
+                false => ident(h.as_str()),
+            })
+            .collect();
         let spec = BatchSpec {
             table: self.table.clone(),
             header,
