@@ -12,7 +12,7 @@ use flipmend::workflow::streamed::{OpenRows, RowSource, StreamInput};
 use tokio::runtime::Runtime;
 
 use crate::cluster::{self, Engine, ExecutorPlace};
-use crate::engine::EngineSource;
+use crate::engine::{engine as failed, EngineSource};
 
 /// flipmend on a cluster: estimate the flip matrix and list the suspect rows of a table
 /// of Parquet files with Apache DataFusion, in this process or on a Ballista cluster.
@@ -117,10 +117,6 @@ fn runtime() -> Result<Arc<Runtime>> {
         .build()
         .map(Arc::new)
         .map_err(|e| Error::Internal(format!("starting the async runtime: {e}")))
-}
-
-fn failed(e: datafusion::common::DataFusionError) -> Error {
-    Error::Internal(format!("engine: {e}"))
 }
 
 /// Runs a job with its rows read by `engine`.

@@ -64,6 +64,30 @@ fn aggregate_job(node: &AggregateUDF) -> Option<&[u8]> {
         .map(|f| f.job())
 }
 
+/// Decodes our aggregate `name` with its job `buf`, or leaves it to `other`.
+fn decode_udaf(
+    name: &str,
+    buf: &[u8],
+    other: impl FnOnce() -> Result<Arc<AggregateUDF>>,
+) -> Result<Arc<AggregateUDF>> {
+    our_aggregate(name, buf).map_or_else(other, Ok)
+}
+
+/// Writes the job of our aggregate `node` into `buf`, or leaves it to `other`.
+fn encode_udaf(
+    node: &AggregateUDF,
+    buf: &mut Vec<u8>,
+    other: impl FnOnce(&mut Vec<u8>) -> Result<()>,
+) -> Result<()> {
+    match aggregate_job(node) {
+        Some(job) => {
+            buf.extend_from_slice(job);
+            Ok(())
+        }
+        None => other(buf),
+    }
+}
+
 /// Ballista's logical codec, knowing [`RowTable`].
 #[derive(Debug, Default)]
 pub struct LogicalCodec {
@@ -133,20 +157,11 @@ impl LogicalExtensionCodec for LogicalCodec {
     }
 
     fn try_decode_udaf(&self, name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
-        match our_aggregate(name, buf) {
-            Some(udf) => Ok(udf),
-            None => self.inner.try_decode_udaf(name, buf),
-        }
+        decode_udaf(name, buf, || self.inner.try_decode_udaf(name, buf))
     }
 
     fn try_encode_udaf(&self, node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
-        match aggregate_job(node) {
-            Some(job) => {
-                buf.extend_from_slice(job);
-                Ok(())
-            }
-            None => self.inner.try_encode_udaf(node, buf),
-        }
+        encode_udaf(node, buf, |buf| self.inner.try_encode_udaf(node, buf))
     }
 }
 
@@ -192,19 +207,10 @@ impl PhysicalExtensionCodec for PhysicalCodec {
     }
 
     fn try_decode_udaf(&self, name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
-        match our_aggregate(name, buf) {
-            Some(udf) => Ok(udf),
-            None => self.inner.try_decode_udaf(name, buf),
-        }
+        decode_udaf(name, buf, || self.inner.try_decode_udaf(name, buf))
     }
 
     fn try_encode_udaf(&self, node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
-        match aggregate_job(node) {
-            Some(job) => {
-                buf.extend_from_slice(job);
-                Ok(())
-            }
-            None => self.inner.try_encode_udaf(node, buf),
-        }
+        encode_udaf(node, buf, |buf| self.inner.try_encode_udaf(node, buf))
     }
 }

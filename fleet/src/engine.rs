@@ -27,7 +27,7 @@ use flipmend::workflow::worklist::{CONTROL_STREAM, SAMPLE_STREAM};
 use tokio::runtime::Runtime;
 
 use crate::files::{Files, ROW_COLUMN};
-use crate::functions::{from_bytes, job_bytes, job_literal, Draw, ScoreKey, ScoreSpec};
+use crate::functions::{from_bytes, job_literal, to_bytes, Draw, ScoreKey, ScoreSpec};
 use crate::scan::RowTable;
 use crate::shares::{PassesJob, PassesShare, ShareAggregate, TallyJob, TallyShare};
 
@@ -320,7 +320,7 @@ impl RowSource for EngineSource {
             spec,
             share: passes.share(),
         };
-        let bytes = job_bytes(&job).map_err(engine)?;
+        let bytes = to_bytes(&job).map_err(engine)?;
         let call = AggregateUDF::from(ShareAggregate::<PassesShare>::with_job(&bytes)).call(exprs);
         if let Some(bytes) = self.aggregate(call)? {
             let share: PassesShare = from_bytes(&bytes).map_err(engine)?;
@@ -344,7 +344,7 @@ impl RowSource for EngineSource {
             score,
             ranks: job.ranks.clone(),
         };
-        let bytes = job_bytes(&tally).map_err(engine)?;
+        let bytes = to_bytes(&tally).map_err(engine)?;
         let call = AggregateUDF::from(ShareAggregate::<TallyShare>::with_job(&bytes)).call(exprs);
         let share = match self.aggregate(call)? {
             Some(bytes) => from_bytes(&bytes).map_err(engine)?,

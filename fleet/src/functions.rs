@@ -1,15 +1,15 @@
-//! flipmend's functions inside the engine. Each takes, as its first argument, a literal
-//! job (postcard bytes: how to read the columns that follow, and what to compute), so
-//! that every executor computes exactly what the driver asked for, with flipmend's own
-//! code:
+//! flipmend's functions inside the engine. Each gets a job (postcard bytes: how to read
+//! its columns, and what to compute; the score key as its first, literal argument, the
+//! aggregates inside the function, see [`crate::shares`]), so that every executor
+//! computes exactly what the driver asked for, with flipmend's own code:
 //!
 //! - `flipmend_draw(__row, seed, stream)`: a row's key in a seeded draw (the sample and
 //!   the control candidates are the rows with the smallest keys: a sort with a limit);
 //! - `flipmend_score_key(job, __row, label, probabilities…)`: a row's score as a key
 //!   that sorts the most suspect row first (the ranking is a sort with a limit);
-//! - `flipmend_passes(job, …)`: one pass of an estimator that reads every row, its
+//! - `flipmend_passes(__row, label, …)`: one pass of an estimator that reads every row, its
 //!   state merged across workers ([`flipmend::noise::estimators::passes::Passes`]);
-//! - `flipmend_tally(job, …)`: the scores' histogram and expected count, and how many
+//! - `flipmend_tally(__row, label, probabilities…)`: the scores' histogram and expected count, and how many
 //!   rows outrank each control candidate.
 
 use std::sync::Arc;
@@ -48,8 +48,7 @@ pub fn aggregate_functions() -> Vec<Arc<AggregateUDF>> {
 
 /// A job as a literal.
 pub fn job_literal<T: Serialize>(job: &T) -> Result<ScalarValue> {
-    let bytes = postcard::to_stdvec(job).map_err(|e| DataFusionError::Internal(e.to_string()))?;
-    Ok(ScalarValue::Binary(Some(bytes)))
+    Ok(ScalarValue::Binary(Some(to_bytes(job)?)))
 }
 
 /// A job or state from its bytes.
@@ -58,11 +57,7 @@ pub fn from_bytes<T: DeserializeOwned>(bytes: &[u8]) -> Result<T> {
 }
 
 /// A job's or state's bytes.
-pub fn job_bytes<T: Serialize>(value: &T) -> Result<Vec<u8>> {
-    to_bytes(value)
-}
-
-pub(crate) fn to_bytes<T: Serialize>(value: &T) -> Result<Vec<u8>> {
+pub fn to_bytes<T: Serialize>(value: &T) -> Result<Vec<u8>> {
     postcard::to_stdvec(value).map_err(|e| DataFusionError::Internal(e.to_string()))
 }
 

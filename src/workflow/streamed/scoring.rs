@@ -101,10 +101,9 @@ impl ControlRanks {
     /// Rows outranking each key, in key order.
     pub fn above(&self) -> Vec<usize> {
         let mut running = 0;
-        self.keys
+        self.bumps[..self.keys.len()]
             .iter()
-            .zip(&self.bumps)
-            .map(|(_, b)| {
+            .map(|b| {
                 running += b;
                 running
             })
