@@ -7,6 +7,7 @@
 mod common;
 
 use flipmend::data::{Dataset, TableOptions};
+use flipmend::learn::fastmath::{exp_nonpositive, ln_positive};
 use flipmend::learn::loss::{Backward, Forward, DEFAULT_BACKWARD_CAP};
 use flipmend::learn::softmax::objective;
 use flipmend::learn::train::{train, Correction, TrainInputs};
@@ -19,6 +20,7 @@ use flipmend::workflow::compare::{
 use ndarray::Array2;
 
 fn main() {
+    elementary_functions();
     let (n, d, k) = (200_000, 32, 10);
     let (x, labels) = synthetic(n, d, k);
     let t = Array2::from_shape_fn(
@@ -77,6 +79,35 @@ fn main() {
         );
     }
     compare_end_to_end(&x, &labels);
+}
+
+/// Our branch-free exp and ln against the library's, side by side, over 1,000,000
+/// values in a loop the compiler may vectorise (nanoseconds per value).
+fn elementary_functions() {
+    let n = 1_000_000;
+    let mut rng = common::Rng(0xE1E_F00D);
+    let inputs: Vec<f64> = (0..n).map(|_| rng.unit()).collect();
+    let exp_inputs: Vec<f64> = inputs.iter().map(|u| -30.0 * u).collect();
+    let ln_inputs: Vec<f64> = inputs.iter().map(|u| 1e-4 + u).collect();
+    per_value("exp, library, [-30, 0]", &exp_inputs, f64::exp);
+    per_value("exp_nonpositive, [-30, 0]", &exp_inputs, exp_nonpositive);
+    per_value("ln, library, [1e-4, 1]", &ln_inputs, f64::ln);
+    per_value("ln_positive, [1e-4, 1]", &ln_inputs, ln_positive);
+}
+
+/// Median time of `f` over `inputs` (generic, so that `f` is inlined into the loop).
+fn per_value(name: &str, inputs: &[f64], f: impl Fn(f64) -> f64) {
+    let mut out = vec![0.0; inputs.len()];
+    let secs = median(5, || {
+        for (o, &x) in out.iter_mut().zip(inputs) {
+            *o = f(x);
+        }
+        std::hint::black_box(&out);
+    });
+    println!(
+        "{name:<28} {:>6.2} ns/value",
+        secs * 1e9 / inputs.len() as f64
+    );
 }
 
 /// `compare` end to end on a CSV written to a temporary folder: load, split, out-of-fold

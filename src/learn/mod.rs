@@ -1,5 +1,6 @@
 //! Learning: softmax regression, its losses, folds and out-of-fold probabilities.
 
+pub mod fastmath;
 pub mod folds;
 pub mod lbfgs;
 pub mod loss;
