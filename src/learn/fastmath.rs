@@ -1,8 +1,9 @@
-//! Branch-free exponential and logarithm for the training loop's per-row maths. Written
-//! without calls or branches (selects only), so that a loop over a row's logits or over a
-//! block of rows is evaluated in vector registers; the library functions are calls the
-//! compiler cannot vectorise. Both are checked against the library functions across
-//! their range in this file's tests.
+//! Branch-free exponential and logarithm. Written without calls or branches (selects
+//! only), so that a loop over a row's logits or over a block of rows is evaluated in
+//! vector registers, where the library functions are calls the compiler cannot
+//! vectorise. Softmax uses the exponential; the logarithm waits for a kernel built for
+//! wider vectors (see [`ln_positive`]). Both are checked against the library functions
+//! across their range in this file's tests.
 
 /// 2⁵² + 2⁵¹: adding it to a number below 2⁵¹ in magnitude rounds that number to an
 /// integer held in the low bits of the result.

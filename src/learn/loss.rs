@@ -157,8 +157,8 @@ impl RowLoss for Backward {
                 softmax(logits);
                 let floor = (-cap).exp();
                 let (mut loss, mut weighted) = (0.0, 0.0);
-                // The library's ln: fastmath::ln_positive measured slower here at the
-                // default (SSE2) target, 4.7 against 3.6 ns a value (benches/train.rs).
+                // The library's ln: `fastmath::ln_positive` measured slower at the
+                // default target (its doc gives the figures).
                 for (k, &p) in logits.iter().enumerate() {
                     loss -= weights[k] * (p + floor).ln();
                     weighted += weights[k] * (p / (p + floor));
