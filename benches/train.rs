@@ -2,7 +2,10 @@
 //! 200,000 × 32 × 10 (reported as GFLOP/s of its two matrix products, 4·n·d·k flops), a
 //! full fit, each correction's fit, and `compare` end to end (from the CSV file).
 //!
-//! `cargo bench --bench train`. Median of 5 runs after a warm-up (3 for whole fits).
+//! `cargo bench --bench train` (`-- objective`: the evaluations alone). Median of 21
+//! runs after a warm-up for one evaluation (5 for the elementary functions, 3 for whole
+//! fits). Each evaluation runs twice, through the fused kernel and through the
+//! row-at-a-time path it replaced, side by side.
 
 mod common;
 
@@ -42,13 +45,23 @@ fn main() {
     ];
     let flops = 4.0 * (n * d * k) as f64;
     for (name, loss) in &losses {
-        let secs = median(5, || {
-            objective(x.view(), &labels, k, loss.as_ref(), 1e-3, &theta, &mut grad);
-        });
-        println!(
-            "objective+gradient {name:<20} 200000x32x10  median {secs:>8.4} s  {:>6.2} GFLOP/s",
-            flops / secs / 1e9
-        );
+        // The fused kernel and, side by side, the row-at-a-time path it replaced.
+        let by_rows = ByRows(loss.as_ref());
+        for (path, loss) in [
+            ("fused", loss.as_ref()),
+            ("by rows", &by_rows as &dyn RowLoss),
+        ] {
+            let secs = median(21, || {
+                objective(x.view(), &labels, k, loss, 1e-3, &theta, &mut grad);
+            });
+            println!(
+                "objective+gradient {name:<20} {path:<8} 200000x32x10  median {secs:>8.4} s  {:>6.2} GFLOP/s",
+                flops / secs / 1e9
+            );
+        }
+    }
+    if std::env::args().any(|a| a == "objective") {
+        return;
     }
     let rows: Vec<usize> = (0..n).collect();
     let params = SoftmaxParams::default();
@@ -79,6 +92,19 @@ fn main() {
         );
     }
     compare_end_to_end(&x, &labels);
+}
+
+/// A loss seen without its fused form, so the objective takes the row-at-a-time path.
+struct ByRows<'a>(&'a dyn RowLoss);
+
+impl RowLoss for ByRows<'_> {
+    fn loss_and_grad(&self, logits: &mut [f64], label: usize) -> f64 {
+        self.0.loss_and_grad(logits, label)
+    }
+
+    fn loss_and_grad_at(&self, logits: &mut [f64], label: usize, index: usize) -> f64 {
+        self.0.loss_and_grad_at(logits, label, index)
+    }
 }
 
 /// Our branch-free exp and ln against the library's, side by side, over 1,000,000

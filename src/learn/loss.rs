@@ -5,6 +5,7 @@
 use ndarray::Array2;
 
 use super::fastmath::exp_nonpositive;
+use super::kernel::FusedLoss;
 
 /// A loss of one row given its logits and observed label.
 pub trait RowLoss: Sync {
@@ -16,6 +17,12 @@ pub trait RowLoss: Sync {
     fn loss_and_grad_at(&self, logits: &mut [f64], label: usize, index: usize) -> f64 {
         let _ = index;
         self.loss_and_grad(logits, label)
+    }
+
+    /// The same loss as the fused kernel computes it for a whole block of rows, when it
+    /// knows this loss; `None` (the default) evaluates it row by row.
+    fn fused(&self) -> Option<FusedLoss<'_>> {
+        None
     }
 }
 
@@ -30,6 +37,10 @@ impl RowLoss for CrossEntropy {
         logits[label] -= 1.0;
         log_sum - shifted_label
     }
+
+    fn fused(&self) -> Option<FusedLoss<'_>> {
+        Some(FusedLoss::CrossEntropy)
+    }
 }
 
 /// Forward correction (Patrini et al., CVPR 2017): the model's clean posterior
@@ -40,12 +51,15 @@ impl RowLoss for CrossEntropy {
 #[derive(Debug, Clone)]
 pub struct Forward {
     t: Array2<f64>,
+    /// Tᵀ flattened: the column of each observed label, contiguous (the kernel's layout).
+    columns: Vec<f64>,
 }
 
 impl Forward {
     /// Uses the row-stochastic flip matrix `t` (rows = true class).
     pub fn new(t: Array2<f64>) -> Self {
-        Forward { t }
+        let columns = t.t().iter().copied().collect();
+        Forward { t, columns }
     }
 }
 
@@ -66,6 +80,13 @@ impl RowLoss for Forward {
         }
         -noisy.ln()
     }
+
+    fn fused(&self) -> Option<FusedLoss<'_>> {
+        Some(FusedLoss::Forward {
+            columns: &self.columns,
+            source_of_row: None,
+        })
+    }
 }
 
 /// Forward correction with one flip matrix per label source: row i is scored against
@@ -78,15 +99,20 @@ pub struct ForwardBySource {
     of_fit_row: Vec<u32>,
     /// Used when no row index is given: the sources' mix.
     overall: Forward,
+    /// Every source's `Forward::columns`, one after another (the kernel's layout).
+    columns: Vec<f64>,
 }
 
 impl ForwardBySource {
     /// `matrices[s]` for the rows whose `of_fit_row` is s; `overall` without a row index.
     pub fn new(matrices: &[Array2<f64>], of_fit_row: Vec<u32>, overall: Array2<f64>) -> Self {
+        let sources: Vec<Forward> = matrices.iter().cloned().map(Forward::new).collect();
+        let columns = sources.iter().flat_map(|s| s.columns.clone()).collect();
         ForwardBySource {
-            sources: matrices.iter().cloned().map(Forward::new).collect(),
+            sources,
             of_fit_row,
             overall: Forward::new(overall),
+            columns,
         }
     }
 }
@@ -99,6 +125,13 @@ impl RowLoss for ForwardBySource {
     fn loss_and_grad_at(&self, logits: &mut [f64], label: usize, index: usize) -> f64 {
         let source = self.of_fit_row[index] as usize;
         self.sources[source].loss_and_grad(logits, label)
+    }
+
+    fn fused(&self) -> Option<FusedLoss<'_>> {
+        Some(FusedLoss::Forward {
+            columns: &self.columns,
+            source_of_row: Some(&self.of_fit_row),
+        })
     }
 }
 
@@ -170,6 +203,13 @@ impl RowLoss for Backward {
                 loss
             }
         }
+    }
+
+    fn fused(&self) -> Option<FusedLoss<'_>> {
+        Some(FusedLoss::Backward {
+            inverse: self.t_inv.as_slice()?,
+            floor: self.cap.map(|cap| (-cap).exp()),
+        })
     }
 }
 

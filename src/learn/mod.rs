@@ -2,6 +2,7 @@
 
 pub mod fastmath;
 pub mod folds;
+pub mod kernel;
 pub mod lbfgs;
 pub mod loss;
 pub mod metrics;
