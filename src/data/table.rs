@@ -405,6 +405,54 @@ mod tests {
         assert_eq!(d.classes.len(), 11);
     }
 
+    /// Values are parsed straight into the final array, each block into a slice sized by
+    /// its line count: blocks with blank lines (fewer rows than lines), blocks read by
+    /// the `csv` crate whose bare carriage returns end records (more rows than lines),
+    /// CRLF endings, no newline at the end, and a size hint that is far too small or
+    /// absent must all leave every row's values in file order.
+    #[test]
+    fn values_land_in_file_order_whatever_the_blocks_hold() {
+        let rows = 20_000;
+        let mut text = String::from("id,a,b,label,note\n");
+        for i in 0..rows {
+            let note = if i % 700 == 3 { "\"q\"\"x\"" } else { "" };
+            let end = match i % 500 {
+                7 if i % 700 != 3 => "\r\n",
+                11 => "\n\n",
+                _ if i % 700 == 3 && i + 1 < rows => "\r",
+                _ => "\n",
+            };
+            text.push_str(&format!(
+                "r{i},{},{}.5,c{},{note}{end}",
+                i % 97,
+                i % 13,
+                i % 3
+            ));
+        }
+        let text = text.trim_end_matches('\n');
+        let options = TableOptions {
+            features: Some(vec!["a".into(), "b".into()]),
+            ..Default::default()
+        };
+        for size_hint in [Some(text.len() as u64), Some(100), None] {
+            let d = read_in_blocks(
+                text.as_bytes(),
+                Path::new("t.csv"),
+                size_hint,
+                &options,
+                4 << 10,
+            )
+            .unwrap();
+            assert_eq!(d.rows(), rows, "{size_hint:?}");
+            for i in 0..rows {
+                let row = [d.features[[i, 0]], d.features[[i, 1]]];
+                let want = [(i % 97) as f64, (i % 13) as f64 + 0.5];
+                assert_eq!(row, want, "row {i}, size hint {size_hint:?}");
+                assert_eq!(d.id(i), format!("r{i}"));
+            }
+        }
+    }
+
     #[test]
     fn the_first_repeated_id_in_file_order_is_reported() {
         // 40,000 ids (all shards busy); "id7" repeats at row 30,000 and "id5" at row

@@ -15,6 +15,7 @@ pub mod merged_columnar;
 pub mod model;
 pub mod npy;
 pub mod number;
+pub(crate) mod placed_values;
 pub(crate) mod probs_arrow;
 pub mod probs_csv;
 pub mod probs_npy;

@@ -147,16 +147,6 @@ impl<'a> Merger<'a> {
         self.done += places;
     }
 
-    /// Reserves room for `rows` rows of values, so the big array grows once instead of
-    /// doubling (which would briefly need 1.5–2× memory). Only a hint: when the
-    /// reservation fails the buffer grows as it fills.
-    pub(crate) fn reserve_rows(&mut self, rows: usize, plan: &ColumnPlan) {
-        let _ = self
-            .cells
-            .values
-            .try_reserve_exact(rows.saturating_mul(plan.numeric.len()));
-    }
-
     /// Appends the next part, or returns its fatal problem located in the file.
     pub(crate) fn absorb(&mut self, out: ChunkOut, plan: &ColumnPlan) -> Result<()> {
         let base = self.done;
