@@ -1,12 +1,15 @@
 #!/usr/bin/env bash
-# Table loading, flipmend against pandas.read_csv on the same generated file.
+# Table loading, flipmend against pandas.read_csv and polars.read_csv on the same
+# generated file.
 #
 #   bash benches/vs_pandas_load.sh [ROWS] [FEATURES] [RUNS]    (defaults 1000000 32 5)
 #
 # Makes the file with ../shared/bench/make_data.py (seeded), then alternates runs of
-# `flipmend inspect` and a Python process that times only the pandas.read_csv call, and
-# prints medians, their ratio and each side's peak memory. Skips, with a message, when
-# Python, numpy or pandas is missing (CI does not run this).
+# `flipmend inspect`, a Python process that times only the pandas.read_csv call and,
+# when polars is installed, a whole Python process that runs polars.read_csv (timed from
+# outside, like ours), and prints medians, ratios, each side's peak memory and ours as a
+# multiple of the numeric arrays. Skips, with a message, when Python, numpy or pandas is
+# missing, and skips the polars side without polars (CI does not run this).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 rows=${1:-1000000}
@@ -29,7 +32,8 @@ fi
 cargo build --release --quiet
 bin=target/release/flipmend
 numeric_mib=$(python3 -c "print(round($rows * $features * 8 / 2**20, 1))")
-ours=() theirs=()
+has_polars=$(python3 -c "import polars" 2>/dev/null && echo 1 || echo 0)
+ours=() theirs=() polars=()
 for _ in $(seq "$runs"); do
   t=$( { /usr/bin/time -f "%e %M" "$bin" inspect --data "$data/data.csv" >/dev/null; } 2>&1 | tail -1)
   ours+=("$t")
@@ -43,6 +47,11 @@ print(f"{elapsed:.3f} {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}")
 PY
 )
   theirs+=("$t")
+  if [ "$has_polars" = 1 ]; then
+    t=$( { /usr/bin/time -f "%e %M" python3 -c \
+      "import sys, polars; polars.read_csv(sys.argv[1])" "$data/data.csv"; } 2>&1 | tail -1)
+    polars+=("$t")
+  fi
 done
 source benches/common/stats.sh
 a=$(median "${ours[@]}"); b=$(median "${theirs[@]}")
@@ -50,3 +59,11 @@ echo "file: $data/data.csv ($(du -m "$data/data.csv" | cut -f1) MiB), numeric ar
 echo "flipmend inspect (whole process): median ${a} s, peak $(( $(peak "${ours[@]}") / 1024 )) MiB"
 echo "pandas.read_csv (call only):      median ${b} s, peak $(( $(peak "${theirs[@]}") / 1024 )) MiB"
 python3 -c "print(f'ratio pandas/flipmend: {float($b)/float($a):.2f}x')"
+python3 -c "print(f'flipmend peak / numeric arrays: {$(peak "${ours[@]}") / 1024 / $numeric_mib:.2f}x')"
+if [ "$has_polars" = 1 ]; then
+  c=$(median "${polars[@]}")
+  echo "polars.read_csv (whole process):  median ${c} s, peak $(( $(peak "${polars[@]}") / 1024 )) MiB"
+  python3 -c "print(f'ratio polars process/flipmend: {float($c)/float($a):.2f}x')"
+else
+  echo "polars side skipped: python3 -m pip install polars"
+fi
