@@ -29,7 +29,8 @@ pub struct EstimateArgs {
     /// Table, probabilities, flip matrix and model settings.
     pub pipeline: PipelineArgs,
     /// Resample rows B ≥ 2 times (seeded), refit, and report a 90 % interval for each entry:
-    /// the estimate ± 1.645 × 1.1 × the bootstrap standard deviation (the 1.1 measured)
+    /// for joint the estimate ± (1.645 × the bootstrap standard deviation + the shift that
+    /// doubling λ causes, the penalty's bias), else ± 1.645 × 1.1 standard deviations
     #[arg(long, value_name = "B", default_value_t = 0)]
     pub bootstrap: usize,
     /// Write the matrix as CSV (header class,<classes>; one row per true class)
