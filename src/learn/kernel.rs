@@ -56,11 +56,33 @@ pub enum FusedLoss<'a> {
         /// The smooth probability floor e^−cap of the guarded loss; `None`: unbounded.
         floor: Option<f64>,
     },
+    /// The joint fit's likelihood (`noise::joint`): the forward loss of a row from group
+    /// g, or −log q[c] − log T_g[c][y] for a row whose clean class c is known. The
+    /// gradient then also holds ∂/∂T_g[c][y] for every group, after ∂/∂b.
+    Joint {
+        /// `columns[(g·K + y)·K + c]` = T_g[c][y]; its length gives the number of groups.
+        columns: &'a [f64],
+        /// Each fit row's group g; `None`: one group.
+        group_of_row: Option<&'a [u32]>,
+        /// Each fit row's known clean class, if any; `None`: none known.
+        clean: Option<&'a [Option<usize>]>,
+    },
+}
+
+impl FusedLoss<'_> {
+    /// Flip matrices whose gradient the kernel returns after the biases' (the joint fit's).
+    fn matrices(&self, k: usize) -> usize {
+        match self {
+            FusedLoss::Joint { columns, .. } => columns.len() / (k * k),
+            _ => 0,
+        }
+    }
 }
 
 /// The summed row losses of `x`'s rows (standard layout, `labels` theirs) at weights
-/// `weights` (K × d, row-major) and biases `bias`; `grad` (K·d + K, the same order)
-/// receives the summed gradient. Blocks run in parallel and are added in block order, so
+/// `weights` (K × d, row-major) and biases `bias`; `grad` (K·d + K, the same order, then
+/// G·K·K for [`FusedLoss::Joint`]'s G flip matrices, each row-major) receives the summed
+/// gradient. Blocks run in parallel and are added in block order, so
 /// the result does not depend on the thread count. `None` when `x` is not contiguous.
 pub fn summed_loss_and_grad(
     x: ArrayView2<f64>,
@@ -77,8 +99,9 @@ pub fn summed_loss_and_grad(
     let kp = k.div_ceil(lanes) * lanes;
     let shape = Shape { d, k, kp };
     let (wt, bp) = padded_parameters(&shape, weights, bias);
+    let matrices = loss.matrices(k);
     let loss = Padded::new(loss, k, kp);
-    let stride = (d + 1) * kp;
+    let stride = (d + 1 + matrices * k) * kp;
     let blocks = n.div_ceil(BLOCK_ROWS);
     let mut partial = vec![0.0; blocks * stride];
     let mut losses = vec![0.0; blocks];
@@ -117,6 +140,15 @@ pub fn summed_loss_and_grad(
                 grad[c * d + j] += part[j * kp + c];
             }
             grad[k * d + c] += part[d * kp + c];
+        }
+        // The matrices' part holds Σ q_c/s and Σ 1/T[c][y] by (g, y) then c: minus ∂/∂T.
+        let sums = &part[(d + 1) * kp..];
+        let flips = &mut grad[k * d + k..];
+        for (gy, column) in sums.chunks_exact(kp).enumerate() {
+            let (g, y) = (gy / k, gy % k);
+            for (c, v) in column[..k].iter().enumerate() {
+                flips[g * k * k + c * k + y] -= v;
+            }
         }
     }
     Some(losses.iter().sum())
@@ -171,7 +203,7 @@ struct Block<'a> {
     shape: &'a Shape,
     x: &'a [f64],
     rows: Rows<'a>,
-    loss: &'a Padded,
+    loss: &'a Padded<'a>,
     wt: &'a [f64],
     bp: &'a [f64],
     z: &'a mut [f64],
@@ -194,9 +226,9 @@ impl WithSimd for Block<'_> {
             out,
         } = self;
         let (d, kp) = (shape.d, shape.kp);
-        let (gwt, gb) = out.split_at_mut(d * kp);
-        gwt.iter_mut().for_each(|g| *g = 0.0);
-        gb.iter_mut().for_each(|g| *g = 0.0);
+        out.iter_mut().for_each(|g| *g = 0.0);
+        let (gwt, rest) = out.split_at_mut(d * kp);
+        let (gb, sums) = rest.split_at_mut(kp);
         let mut total = 0.0;
         let n = rows.labels.len();
         let mut start = 0;
@@ -212,7 +244,7 @@ impl WithSimd for Block<'_> {
                 logs: &mut rows.logs[..end - start],
                 work: &mut *rows.work,
             };
-            total += row_losses(simd, shape, sub, loss, zs);
+            total += row_losses(simd, shape, sub, loss, zs, sums);
             weight_gradient(simd, shape, xs, zs, gwt);
             for row in zs.chunks_exact(kp) {
                 gb.iter_mut().zip(row).for_each(|(g, v)| *g += v);
@@ -303,12 +335,18 @@ fn logit_tile<S: Simd, const R: usize, const C: usize>(
 
 /// A `FusedLoss` with its per-label vectors padded to `kp` lanes (zeros), so that the
 /// per-row sums over classes are whole-vector multiply-adds.
-enum Padded {
+enum Padded<'a> {
     CrossEntropy,
     /// `columns[(s·K + y)·kp + c]` = T_s[c][y].
     Forward {
         columns: Vec<f64>,
-        source_of_row: Option<Vec<u32>>,
+        source_of_row: Option<&'a [u32]>,
+    },
+    /// `columns` as `Forward`'s, by group.
+    Joint {
+        columns: Vec<f64>,
+        group_of_row: Option<&'a [u32]>,
+        clean: Option<&'a [Option<usize>]>,
     },
     /// `inverse[y·kp + c]` = T⁻¹[y][c]; `totals[y]` = Σ_c T⁻¹[y][c].
     Backward {
@@ -318,8 +356,8 @@ enum Padded {
     },
 }
 
-impl Padded {
-    fn new(loss: FusedLoss, k: usize, kp: usize) -> Padded {
+impl<'a> Padded<'a> {
+    fn new(loss: FusedLoss<'a>, k: usize, kp: usize) -> Padded<'a> {
         let pad = |flat: &[f64]| -> Vec<f64> {
             flat.chunks_exact(k)
                 .flat_map(|row| row.iter().copied().chain(std::iter::repeat_n(0.0, kp - k)))
@@ -332,7 +370,16 @@ impl Padded {
                 source_of_row,
             } => Padded::Forward {
                 columns: pad(columns),
-                source_of_row: source_of_row.map(<[u32]>::to_vec),
+                source_of_row,
+            },
+            FusedLoss::Joint {
+                columns,
+                group_of_row,
+                clean,
+            } => Padded::Joint {
+                columns: pad(columns),
+                group_of_row,
+                clean,
             },
             FusedLoss::Backward { inverse, floor } => Padded::Backward {
                 inverse: pad(inverse),
@@ -352,12 +399,20 @@ impl Padded {
 /// that cost more than the exponentials); the exponentials are one flat loop over the
 /// block, which the compiler vectorises inside `pulp`'s context.
 #[inline(always)]
-fn row_losses<S: Simd>(simd: S, shape: &Shape, rows: Rows, loss: &Padded, z: &mut [f64]) -> f64 {
+fn row_losses<S: Simd>(
+    simd: S,
+    shape: &Shape,
+    rows: Rows,
+    loss: &Padded,
+    z: &mut [f64],
+    sums: &mut [f64],
+) -> f64 {
     let (k, kp) = (shape.k, shape.kp);
-    for ((row, &y), kept) in z
+    for (r, ((row, &y), kept)) in z
         .chunks_exact_mut(kp)
         .zip(rows.labels)
         .zip(rows.kept.iter_mut())
+        .enumerate()
     {
         let v = S::as_mut_simd_f64s(row).0;
         let top = simd.reduce_max_f64s(v.iter().fold(v[0], |m, &u| simd.max_f64s(m, u)));
@@ -376,6 +431,9 @@ fn row_losses<S: Simd>(simd: S, shape: &Shape, rows: Rows, loss: &Padded, z: &mu
                 .zip(&row[..k])
                 .map(|(w, v)| w * v)
                 .sum(),
+            Padded::Joint {
+                clean: Some(clean), ..
+            } => clean[rows.first + r].map_or(0.0, |c| row[c]),
             _ => 0.0,
         };
     }
@@ -403,8 +461,31 @@ fn row_losses<S: Simd>(simd: S, shape: &Shape, rows: Rows, loss: &Padded, z: &mu
                     .as_ref()
                     .map_or(0, |s| s[rows.first + r] as usize);
                 let at = (s * k + y) * kp;
-                let noisy = forward_row(simd, q, S::as_simd_f64s(&columns[at..at + kp]).0);
+                let noisy = forward_row(simd, q, S::as_simd_f64s(&columns[at..at + kp]).0, None);
                 (1.0 / noisy, total)
+            }
+            Padded::Joint {
+                columns,
+                group_of_row,
+                clean,
+            } => {
+                let i = rows.first + r;
+                let g = group_of_row.map_or(0, |g| g[i] as usize);
+                let at = (g * k + y) * kp;
+                let column = &columns[at..at + kp];
+                match clean.and_then(|clean| clean[i]) {
+                    // −log q[c] − log T[c][y]: the cross-entropy's gradient, and 1/T[c][y].
+                    Some(c) => {
+                        sums[at + c] += 1.0 / column[c];
+                        row[c] -= 1.0;
+                        (sum / column[c], total - rows.kept[r])
+                    }
+                    None => {
+                        let acc = S::as_mut_simd_f64s(&mut sums[at..at + kp]).0;
+                        let column = S::as_simd_f64s(column).0;
+                        (1.0 / forward_row(simd, q, column, Some(acc)), total)
+                    }
+                }
             }
             Padded::Backward {
                 inverse,
@@ -455,10 +536,16 @@ fn row_sum<S: Simd>(simd: S, v: &[S::f64s]) -> f64 {
 }
 
 /// Forward loss of one row from its clean posterior `q` and the (padded) flip-matrix
-/// column of its observed label; `q` becomes ∂loss/∂z (see `loss::Forward`). Returns
-/// the noisy probability (the loss is minus its logarithm).
+/// column of its observed label; `q` becomes ∂loss/∂z (see `loss::Forward`), and `sums`
+/// (the joint fit's) gains q/s, minus the loss's gradient with respect to that column.
+/// Returns the noisy probability s (the loss is minus its logarithm).
 #[inline(always)]
-fn forward_row<S: Simd>(simd: S, q: &mut [S::f64s], col: &[S::f64s]) -> f64 {
+fn forward_row<S: Simd>(
+    simd: S,
+    q: &mut [S::f64s],
+    col: &[S::f64s],
+    sums: Option<&mut [S::f64s]>,
+) -> f64 {
     let zero = simd.splat_f64s(0.0);
     let dot = q
         .iter()
@@ -466,6 +553,11 @@ fn forward_row<S: Simd>(simd: S, q: &mut [S::f64s], col: &[S::f64s]) -> f64 {
         .fold(zero, |acc, (&q, &t)| simd.mul_add_e_f64s(q, t, acc));
     let noisy = simd.reduce_sum_f64s(dot).max(MIN_PROB);
     let inv = simd.splat_f64s(1.0 / noisy);
+    if let Some(sums) = sums {
+        for (a, &q) in sums.iter_mut().zip(q.iter()) {
+            *a = simd.mul_add_e_f64s(q, inv, *a);
+        }
+    }
     for (q, &t) in q.iter_mut().zip(col) {
         let qt = simd.mul_f64s(*q, t);
         *q = simd.negate_mul_add_e_f64s(qt, inv, *q);
