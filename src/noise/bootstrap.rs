@@ -243,21 +243,45 @@ mod tests {
     use super::*;
     use ndarray::Array2;
 
-    /// A two-class sample whose probabilities sweep from confident to unsure.
-    fn sweep(n: usize) -> (Array2<f32>, Vec<usize>) {
-        let probs = Array2::<f32>::from_shape_fn((n, 2), |(r, c)| {
-            let a = 0.5 + 0.45 * ((r * 37 % 101) as f32 / 100.0 - 0.5) * 2.0;
-            if c == 0 {
-                a
-            } else {
-                1.0 - a
+    /// A two-class table whose probabilities sweep from confident to unsure.
+    struct Sweep {
+        probs: Array2<f32>,
+        labels: Vec<usize>,
+        rows: Vec<usize>,
+        classes: Vec<String>,
+    }
+
+    impl Sweep {
+        fn new(n: usize) -> Sweep {
+            let probs = Array2::<f32>::from_shape_fn((n, 2), |(r, c)| {
+                let a = 0.5 + 0.45 * ((r * 37 % 101) as f32 / 100.0 - 0.5) * 2.0;
+                if c == 0 {
+                    a
+                } else {
+                    1.0 - a
+                }
+            });
+            // Labels drawn from the probabilities (a fixed low-discrepancy draw per row).
+            let labels = (0..n)
+                .map(|r| usize::from(((r * 7919) % 1000) as f32 / 1000.0 < probs[[r, 1]]))
+                .collect();
+            Sweep {
+                probs,
+                labels,
+                rows: (0..n).collect(),
+                classes: vec!["a".to_string(), "b".to_string()],
             }
-        });
-        // Labels drawn from the probabilities (a fixed low-discrepancy draw per row).
-        let labels: Vec<usize> = (0..n)
-            .map(|r| usize::from(((r * 7919) % 1000) as f32 / 1000.0 < probs[[r, 1]]))
-            .collect();
-        (probs, labels)
+        }
+
+        fn sample(&self) -> Sample<'_> {
+            Sample {
+                probs: self.probs.view(),
+                labels: &self.labels,
+                trusted: None,
+                origins: None,
+                rows: &self.rows,
+            }
+        }
     }
 
     #[test]
@@ -296,23 +320,15 @@ mod tests {
 
     #[test]
     fn the_joint_interval_reaches_past_the_estimate_at_twice_the_penalty() {
-        let (probs, labels) = sweep(600);
-        let rows: Vec<usize> = (0..labels.len()).collect();
-        let sample = Sample {
-            probs: probs.view(),
-            labels: &labels,
-            trusted: None,
-            origins: None,
-            rows: &rows,
-        };
-        let classes = vec!["a".to_string(), "b".to_string()];
+        let table = Sweep::new(600);
+        let (sample, classes) = (table.sample(), &table.classes);
         let method = Method::Joint {
             volume_weight: None,
         };
-        let point = estimate(&method, &sample, &classes).unwrap();
+        let point = estimate(&method, &sample, classes).unwrap();
         let pinned = point.pinned(&method);
-        let shifted = penalty_shift(&pinned, &sample, &classes).unwrap().unwrap();
-        let interval = bootstrap(&method, &sample, &classes, 10, 5).unwrap();
+        let shifted = penalty_shift(&pinned, &sample, classes).unwrap().unwrap();
+        let interval = bootstrap(&method, &sample, classes, 10, 5).unwrap();
         let mut moved = 0.0_f64;
         for (cell, &p) in point.matrix.indexed_iter() {
             let reach = (shifted[cell] - p).abs();
@@ -331,21 +347,12 @@ mod tests {
 
     #[test]
     fn intervals_bracket_the_estimate_and_repeat_with_the_seed() {
-        let n = 400;
-        let (probs, labels) = sweep(n);
-        let rows: Vec<usize> = (0..n).collect();
-        let sample = Sample {
-            probs: probs.view(),
-            labels: &labels,
-            trusted: None,
-            origins: None,
-            rows: &rows,
-        };
-        let classes = vec!["a".to_string(), "b".to_string()];
+        let table = Sweep::new(400);
+        let (sample, classes) = (table.sample(), &table.classes);
         let method = Method::Quantile { q: 0.9 };
-        let point = estimate(&method, &sample, &classes).unwrap().matrix;
-        let a = bootstrap(&method, &sample, &classes, 50, 3).unwrap();
-        let b = bootstrap(&method, &sample, &classes, 50, 3).unwrap();
+        let point = estimate(&method, &sample, classes).unwrap().matrix;
+        let a = bootstrap(&method, &sample, classes, 50, 3).unwrap();
+        let b = bootstrap(&method, &sample, classes, 50, 3).unwrap();
         assert_eq!(a, b, "same seed, same intervals");
         for i in 0..2 {
             for j in 0..2 {
