@@ -611,6 +611,54 @@ mod tests {
         (probs, labels, trusted)
     }
 
+    /// Every row in order is read from the inputs in place; any other order is gathered.
+    /// Both must give the same likelihood (a sum over the same rows).
+    #[test]
+    fn rows_read_in_place_and_gathered_give_the_same_likelihood() {
+        let (probs, labels, trusted) = toy();
+        let params = JointParams::default();
+        let evaluate = |rows: &[usize]| {
+            let (inputs, mean, scale) = log_inputs(probs.view(), &[0, 1, 2, 3, 4]);
+            let sample = Sample {
+                probs: probs.view(),
+                labels: &labels,
+                trusted: Some(&trusted),
+                origins: None,
+                rows,
+            };
+            let groups = Groups::one();
+            let fit = FitRows::gather(inputs.view(), &sample, &groups);
+            let gathered = fit.x.is_some();
+            let problem = Problem {
+                inputs: inputs.view(),
+                fit,
+                k: 3,
+                params: &params,
+                scale: &scale,
+                groups: &groups,
+                share: &[1.0],
+            };
+            let theta = initial_parameters(
+                &Array2::<f64>::eye(3).mapv(|v| 0.1 + 0.7 * v),
+                &mean,
+                &scale,
+            );
+            let mut grad = vec![0.0; theta.len()];
+            (problem.evaluate(&theta, &mut grad), grad, gathered)
+        };
+        let (in_place, grad_in_place, gathered) = evaluate(&[0, 1, 2, 3, 4]);
+        assert!(!gathered, "every row in order is read in place");
+        let (reordered, grad_reordered, gathered) = evaluate(&[4, 2, 0, 3, 1]);
+        assert!(gathered, "another order is gathered");
+        assert!(
+            (in_place - reordered).abs() < 1e-12,
+            "{in_place} vs {reordered}"
+        );
+        for (a, b) in grad_in_place.iter().zip(&grad_reordered) {
+            assert!((a - b).abs() < 1e-12, "{a} vs {b}");
+        }
+    }
+
     #[test]
     fn gradient_matches_finite_differences() {
         // Central differences of the whole objective (likelihood, audited rows, volume
