@@ -7,9 +7,10 @@
 Generates 6 designs x 10 seeds with ../shared/bench/make_data.py (cached under --work), runs
 `estimate --bootstrap 30 --json` on each, and prints the share of the generating matrix's
 cells inside the interval: all cells, the non-zero cells, and per design. It also rescales
-the shipped half-widths by c (1.0 = as shipped) to show how coverage moves with the
-widening factor (src/noise/bootstrap.rs, WIDENING). A true zero counts as covered when the
-interval reaches within 0.001 of it, as in validity.py. Needs numpy.
+the shipped half-widths by c (1.0 = as shipped) to show how coverage moves with their size
+(src/noise/bootstrap.rs: the joint fit's spread plus its bias allowance, `penalty_shift`;
+the other estimators' WIDENING). A true zero counts as covered when the interval reaches
+within 0.001 of it, as in validity.py. Needs numpy.
 """
 import argparse
 import csv

@@ -19,12 +19,12 @@ use super::csv_source::{header_names, open, strip_bom, CsvFormat};
 use super::number::parse_f64;
 use super::table_chunk::{parse_block, plain_lines, ragged, ChunkOut, LineCounter};
 use super::table_csv::MAX_RECORD_BYTES;
+use crate::data::roles::ColumnPlan;
+use crate::error::{shorten, Error, Location, Problem, Result};
 
 /// Block size of the streaming passes: kept at the size the streaming benches were
 /// measured with when the in-memory reader's blocks shrank to 1 MiB (not re-measured).
 const BLOCK_BYTES: usize = 4 << 20;
-use crate::data::roles::ColumnPlan;
-use crate::error::{shorten, Error, Location, Problem, Result};
 
 /// Irregular places (blank lines, records over several lines) remembered to turn a row
 /// number back into its line; past this many a file's rows are reported by number, so

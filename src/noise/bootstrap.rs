@@ -25,9 +25,10 @@ use crate::error::Result;
 use crate::learn::metrics::Z_90;
 
 /// How many bootstrap standard deviations, beyond z₀.₉₅, the interval of an estimator
-/// without a bias allowance reaches. Measured for the joint fit before it had one, on tables with a known generating matrix (make_data.py, 6 designs from
-/// 600 rows × 3 classes to 10,000 × 6 with sub-clusters or label sources, seeds 301–310
-/// each, 30 resamples, the default joint estimator; DEVELOPERS.md, "Interval coverage"):
+/// without a bias allowance reaches. Measured for the joint fit before it had one, on
+/// tables with a known generating matrix (make_data.py, 6 designs from 600 rows × 3
+/// classes to 10,000 × 6 with sub-clusters or label sources, seeds 301–310 each, 30
+/// resamples, the default joint estimator; DEVELOPERS.md, "Interval coverage"):
 /// the share of the generating matrix's non-zero cells inside point ± z·c·sd was 0.887
 /// at c = 1, 0.910 at 1.1, 0.928 at 1.2 (all cells: 0.911, 0.929, 0.943). The
 /// percentile interval it replaces covered 0.840 (all cells 0.874). Two classes are the
