@@ -114,7 +114,7 @@ pub fn summed_loss_and_grad(
             scratch.z.resize(SUB_ROWS * kp, 0.0);
             scratch.kept.resize(SUB_ROWS, 0.0);
             scratch.logs.resize(SUB_ROWS, 0.0);
-            scratch.work.resize(2 * kp, 0.0);
+            scratch.work.resize(2 * SUB_ROWS * kp, 0.0);
             *loss_out = arch.dispatch(Block {
                 shape: &shape,
                 x: &flat[start * d..end * d],
