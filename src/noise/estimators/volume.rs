@@ -115,20 +115,14 @@ fn significant(x: f64) -> String {
 }
 
 /// λ for a joint fit started from `start`, and the parameters the final fit (with the
-/// audits) should start from when a choice was made: the default unless the random
-/// audits held out clearly prefer another value of [`VOLUME_GRID`].
+/// audits) should start from when λ moved: the default unless the random audits held out clearly prefer another
+/// value of [`VOLUME_GRID`].
 ///
 /// The candidates are fitted as two warm-started chains walking away from the default
 /// (down and up the grid), each fit starting from its neighbour's parameters, and the
-/// final fit starts from the chosen candidate's. Measured on gauss10_pair30 (40,000 rows,
-/// K = 10, given probabilities, 2 cores): the whole estimate took 0.95 s with λ given,
-/// 6.3 s with six cold-started candidates, 1.8 s with the chains.
-///
-/// Starting the final fit from the chosen candidate rather than from `start` (the two
-/// differ only by the random audits' known classes) cut its evaluations from 33 to 13 on
-/// vs_peer.sh's 160,000 training rows; the matrix moved by at most 1.5e-4 a cell, the
-/// optimiser's tolerance along the likelihood's flat direction (the error against the
-/// true matrix there is 0.0019 a cell).
+/// final fit starts from the chosen candidate's when that is not the default. Measured on
+/// gauss10_pair30 (40,000 rows, K = 10, given probabilities, 2 cores): the whole estimate
+/// took 0.95 s with λ given, 6.3 s with six cold-started candidates, 1.8 s with the chains.
 pub(super) fn choose_volume_weight(
     sample: &Sample,
     start: &Array2<f64>,
@@ -192,14 +186,16 @@ pub(super) fn choose_volume_weight(
     fits.extend(up?);
     let matrices: Vec<&Array2<f64>> = fits.iter().map(|f| &f.matrix).collect();
     let choice = audits.pick(&matrices, at_default, k);
-    let chosen = match choice.chosen_by {
+    // Keeping the default, the final fit starts where it always did (from `start`), so
+    // its result is the fit without a choice, bit for bit.
+    let warm = match choice.chosen_by {
         ChosenBy::Audits { .. } => VOLUME_GRID
             .iter()
             .position(|&s| s / k == choice.weight)
-            .unwrap_or(at_default),
-        _ => at_default,
+            .map(|chosen| fits.swap_remove(chosen).parameters),
+        _ => None,
     };
-    Ok((choice, Some(fits.swap_remove(chosen).parameters)))
+    Ok((choice, warm))
 }
 
 /// How often each (audited class, observed label) pair occurs among the random audits:
@@ -413,7 +409,6 @@ mod tests {
         let params = JointParams::default();
         let (choice, warm) = choose_volume_weight(&sample, &start, &params).unwrap();
         assert_eq!(choice.chosen_by, ChosenBy::Default { audits: 0 });
-        // No choice was made, so no candidate was fitted to start the final fit from.
         assert!(warm.is_none());
         // 29 random audits: one short of MIN_CHOICE_AUDITS.
         let few: Vec<usize> = (0..MIN_CHOICE_AUDITS - 1).collect();
