@@ -32,6 +32,7 @@ fn main() {
         trusted: Some(&trusted),
         origins: None,
         rows: &all,
+        own_probabilities: false,
     };
     for method in [
         Method::Anchor,
@@ -164,6 +165,7 @@ fn many_classes() {
         trusted: None,
         origins: None,
         rows: &all,
+        own_probabilities: false,
     };
     bench(
         "estimate + scores 1000000x100 (quantile T, posterior, diagnose, rank, top 1000)",

@@ -34,6 +34,7 @@ fn ninety_percent_intervals_cover_about_ninety_percent_of_the_true_cells() {
             trusted: None,
             origins: None,
             rows: &rows,
+            own_probabilities: false,
         };
         let interval = bootstrap(&method, &sample, &names, 20, seed).unwrap();
         for ((&truth, &low), &high) in t.iter().zip(&interval.low).zip(&interval.high) {

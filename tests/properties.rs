@@ -78,7 +78,7 @@ proptest! {
     fn estimators_return_stochastic_matrices((k, raw, labels, trusted) in problem()) {
         let p = normalized(&raw, k);
         let rows: Vec<usize> = (0..labels.len()).collect();
-        let sample = Sample { probs: p.view(), labels: &labels, trusted: Some(&trusted), origins: None, rows: &rows };
+        let sample = Sample { probs: p.view(), labels: &labels, trusted: Some(&trusted), origins: None, rows: &rows, own_probabilities: false };
         for method in [Method::Anchor, Method::Quantile { q: 0.97 }, Method::Trusted { fallback_quantile: Some(0.9) }, Method::Counting] {
             let t = estimate(&method, &sample, &names(k)).unwrap().matrix;
             prop_assert!(validate(&t).is_ok(), "{:?}: {:?}", method, t);

@@ -53,6 +53,7 @@ fn errors(records: &Array2<f64>, truth: &[usize], t: &Array2<f64>, seed: u64) ->
         trusted: Some(&trusted),
         origins: None,
         rows: &rows,
+        own_probabilities: false,
     };
     let names: Vec<String> = (0..k).map(|c| format!("c{c}")).collect();
     let err = |m: Method| mean_abs_error(&estimate(&m, &sample, &names).unwrap().matrix, t);
@@ -190,6 +191,7 @@ fn rows_reviewed_because_they_looked_wrong_do_not_bias_the_joint_estimate() {
             trusted,
             origins,
             rows: &rows,
+            own_probabilities: false,
         };
         mean_abs_error(&estimate(&m, &sample, &names).unwrap().matrix, &t)
     };

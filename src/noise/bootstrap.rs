@@ -106,6 +106,7 @@ pub fn bootstrap(
                 trusted: base.trusted,
                 origins: base.origins,
                 rows: &rows[..],
+                own_probabilities: base.own_probabilities,
             };
             estimate(method, &sample, classes).map(|e| e.matrix)
         })
@@ -178,6 +179,7 @@ pub fn bootstrap_by_source(
                 trusted: base.sample.trusted,
                 origins: base.sample.origins,
                 rows: &rows[..],
+                own_probabilities: base.sample.own_probabilities,
             };
             fit(&sample)
         })
@@ -281,6 +283,7 @@ mod tests {
                 trusted: None,
                 origins: None,
                 rows: &self.rows,
+                own_probabilities: false,
             }
         }
     }

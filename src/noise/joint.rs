@@ -625,6 +625,7 @@ mod tests {
                 trusted: Some(&trusted),
                 origins: None,
                 rows,
+                own_probabilities: false,
             };
             let groups = Groups::one();
             let fit = FitRows::gather(inputs.view(), &sample, &groups);
@@ -695,6 +696,7 @@ mod tests {
             trusted: Some(&trusted),
             origins: None,
             rows: &rows,
+            own_probabilities: false,
         };
         let problem = Problem {
             inputs: inputs.view(),
@@ -751,6 +753,7 @@ mod tests {
             trusted: Some(&trusted),
             origins: None,
             rows: &rows,
+            own_probabilities: false,
         };
         let start = Array2::from_shape_fn((3, 3), |(i, j)| if i == j { 0.8 } else { 0.1 });
         let fit = fit_joint(&sample, &start, &JointParams::default(), &mut |_| true).unwrap();
@@ -778,6 +781,7 @@ mod tests {
             trusted: None,
             origins: None,
             rows: &rows,
+            own_probabilities: false,
         };
         let fit = fit_joint(&sample, &start, &JointParams::default(), &mut |_| true).unwrap();
         let tail = fit

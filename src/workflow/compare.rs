@@ -8,7 +8,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use ndarray::{Array2, Axis};
 use serde::Serialize;
 
-use super::RowProbabilities;
+use super::{ProbSource, RowProbabilities};
 use crate::data::origin::Origin;
 use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
@@ -186,7 +186,11 @@ pub fn compare(
         progress(f, steps) && !cancelled(cancel)
     })?;
     stages.end("probabilities");
-    let (matrix, by_source, matrix_warnings) = part.matrix(inputs.matrix, &probs, &data.classes)?;
+    let own = inputs
+        .probs
+        .is_none_or(|p| matches!(p.source, ProbSource::OutOfFold { .. }));
+    let (matrix, by_source, matrix_warnings) =
+        part.matrix(inputs.matrix, (&probs, own), &data.classes)?;
     let mut warnings = data.warnings.clone();
     warnings.extend(inputs.probs.iter().flat_map(|p| p.warnings.iter().cloned()));
     warnings.extend(matrix_warnings);
@@ -491,11 +495,12 @@ impl Part {
     }
 
     /// The matrix for the corrections, estimated on the training rows (with a source
-    /// column: the sources' mix, and every source's matrix beside it).
+    /// column: the sources' mix, and every source's matrix beside it) from their
+    /// probabilities, marked when they are flipmend's own out-of-fold ones.
     fn matrix(
         &self,
         choice: MatrixChoice,
-        probs: &Array2<f32>,
+        (probs, own_probabilities): (&Array2<f32>, bool),
         classes: &[String],
     ) -> Result<PartMatrix> {
         let method = match choice {
@@ -513,6 +518,7 @@ impl Part {
             trusted: self.trusted.as_deref(),
             origins: self.origins.as_deref(),
             rows: &rows,
+            own_probabilities,
         };
         let overall = estimate(method, &sample, classes)?;
         let Some((of_row, names)) = &self.sources else {

@@ -155,13 +155,14 @@ pub struct FlipEstimate {
 }
 
 /// The data's rows as an estimator sample.
-pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) -> Sample<'a> {
+pub fn sample<'a>(data: &'a Dataset, probs: &'a RowProbabilities, rows: &'a [usize]) -> Sample<'a> {
     Sample {
-        probs: probs.view(),
+        probs: probs.values.view(),
         labels: &data.labels,
         trusted: data.trusted.as_deref(),
         origins: data.trusted_origins.as_deref(),
         rows,
+        own_probabilities: matches!(probs.source, ProbSource::OutOfFold { .. }),
     }
 }
 
@@ -169,7 +170,7 @@ pub fn sample<'a>(data: &'a Dataset, probs: &'a Array2<f32>, rows: &'a [usize]) 
 /// their origins.
 pub fn sample_trusting<'a>(
     data: &'a Dataset,
-    probs: &'a Array2<f32>,
+    probs: &'a RowProbabilities,
     rows: &'a [usize],
     trusted: Option<&'a review::TrustedLabels>,
 ) -> Sample<'a> {
@@ -201,7 +202,7 @@ pub fn estimate_with_trusted(
     trusted: Option<&review::TrustedLabels>,
 ) -> Result<Estimate> {
     let rows: Vec<usize> = (0..data.rows()).collect();
-    let sample = sample_trusting(data, &probs.values, &rows, trusted);
+    let sample = sample_trusting(data, probs, &rows, trusted);
     let overall = estimate(method, &sample, &data.classes)?;
     match &data.sources {
         Some(sources) => with_sources(method, sample, sources, &data.classes, overall),
@@ -374,7 +375,7 @@ pub fn source_intervals(
 ) -> Result<SourceIntervals> {
     let rows: Vec<usize> = (0..data.rows()).collect();
     let base = SourceSample {
-        sample: sample_trusting(data, &probs.values, &rows, trusted),
+        sample: sample_trusting(data, probs, &rows, trusted),
         of_row: &sources.of_row,
         names: &sources.names,
     };
@@ -393,7 +394,7 @@ pub fn matrix_intervals(
     let rows: Vec<usize> = (0..data.rows()).collect();
     bootstrap(
         method,
-        &sample_trusting(data, &probs.values, &rows, trusted),
+        &sample_trusting(data, probs, &rows, trusted),
         &data.classes,
         resamples,
         seed,

@@ -214,6 +214,10 @@ pub struct Sample<'a> {
     pub origins: Option<&'a [Origin]>,
     /// Which rows to use (repeats allowed, as in a bootstrap resample).
     pub rows: &'a [usize],
+    /// True when `probs` are flipmend's own out-of-fold probabilities. The joint fit then
+    /// keeps its default λ without fitting the candidates ([`volume`]): measured, the
+    /// random audits never preferred another value with these probabilities.
+    pub own_probabilities: bool,
 }
 
 impl Sample<'_> {

@@ -36,6 +36,7 @@ fn run(
         trusted,
         origins: None,
         rows: &rows,
+        own_probabilities: false,
     };
     estimate(&method, &sample, &names())
 }
@@ -107,6 +108,7 @@ fn trusted_averages_only_the_rows_audited_at_random() {
         trusted: Some(&trusted),
         origins: Some(&origins),
         rows: &rows,
+        own_probabilities: false,
     };
     let method = Method::Trusted {
         fallback_quantile: None,

@@ -288,6 +288,7 @@ fn separately(
                 trusted: data.sample.trusted,
                 origins: data.sample.origins,
                 rows: source_rows,
+                own_probabilities: data.sample.own_probabilities,
             };
             match estimate(method, &sample, classes) {
                 Ok(own) => {

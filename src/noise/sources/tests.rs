@@ -107,6 +107,7 @@ fn sample_of<'a>(world: &'a World, rows: &'a [usize]) -> Sample<'a> {
         trusted: None,
         origins: None,
         rows,
+        own_probabilities: false,
     }
 }
 
