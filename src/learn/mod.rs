@@ -12,5 +12,5 @@ pub mod standardize;
 pub mod train;
 
 pub use loss::{CrossEntropy, RowLoss};
-pub use oof::{out_of_fold, OofParams};
+pub use oof::{out_of_fold, OofParams, OutOfFold};
 pub use softmax::{fit, FitReport, SoftmaxModel, SoftmaxParams};

@@ -30,14 +30,26 @@ impl Default for OofParams {
     }
 }
 
-/// Probabilities (`rows × classes`, f32) and one fit report per fold.
+/// Out-of-fold probabilities and the folds' fits.
+#[derive(Debug, Clone)]
+pub struct OutOfFold {
+    /// `rows × classes`.
+    pub probs: Array2<f32>,
+    /// One fit report per fold.
+    pub reports: Vec<FitReport>,
+    /// The last fold's model. It saw all rows but one fold, so a fit on every row
+    /// started from it needs fewer iterations (the optimum does not depend on the start).
+    pub last_model: SoftmaxModel,
+}
+
+/// Probabilities (`rows × classes`, f32) from `params.folds` folds.
 pub fn out_of_fold(
     x: ArrayView2<f64>,
     labels: &[usize],
     classes: usize,
     params: &OofParams,
     progress: &mut dyn FnMut(usize, usize) -> bool,
-) -> Result<(Array2<f32>, Vec<FitReport>)> {
+) -> Result<OutOfFold> {
     params.model.check()?;
     if params.folds < 2 || params.folds > labels.len() {
         return Err(Error::Setting {
@@ -82,5 +94,10 @@ pub fn out_of_fold(
         previous = Some(model);
     }
     progress(params.folds, params.folds);
-    Ok((probs, reports))
+    let last_model = previous.ok_or_else(|| Error::Internal("no fold was fitted".into()))?;
+    Ok(OutOfFold {
+        probs,
+        reports,
+        last_model,
+    })
 }

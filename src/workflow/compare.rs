@@ -182,9 +182,10 @@ pub fn compare(
         stratified_holdout(&data.labels, k, settings.holdout, settings.fit.seed);
     let part = Part::new(data, &train_rows);
     stages.end("split");
-    let probs = training_probabilities(&inputs, &part, &train_rows, settings, &mut |f| {
-        progress(f, steps) && !cancelled(cancel)
-    })?;
+    let (probs, last_fold) =
+        training_probabilities(&inputs, &part, &train_rows, settings, &mut |f| {
+            progress(f, steps) && !cancelled(cancel)
+        })?;
     stages.end("probabilities");
     let own = inputs
         .probs
@@ -210,7 +211,8 @@ pub fn compare(
         if !progress(folds_steps + i, steps) || cancelled(cancel) {
             return Err(Error::Cancelled);
         }
-        let (fit, fit_warnings) = trainer.fit(correction, warm_start(&fits, correction))?;
+        let start = warm_start(&fits, correction).or(last_fold.as_ref());
+        let (fit, fit_warnings) = trainer.fit(correction, start)?;
         stages.end(format!("fit_{}", correction.name()));
         warnings.extend(fit_warnings);
         fits.push(fit);
@@ -221,24 +223,27 @@ pub fn compare(
 }
 
 /// The out-of-sample probabilities of the training rows: the given ones, or computed by
-/// cross-validation on those rows alone (`fold_done` hears each fold and may stop).
+/// cross-validation on those rows alone (`fold_done` hears each fold and may stop), then
+/// with the last fold's model.
 fn training_probabilities(
     inputs: &CompareInputs,
     part: &Part,
     train_rows: &[usize],
     settings: &CompareSettings,
     fold_done: &mut dyn FnMut(usize) -> bool,
-) -> Result<Array2<f32>> {
+) -> Result<(Array2<f32>, Option<SoftmaxModel>)> {
     match inputs.probs {
-        Some(p) => Ok(p.values.select(Axis(0), train_rows)),
-        None => Ok(out_of_fold(
-            part.x.view(),
-            &part.labels,
-            inputs.data.classes.len(),
-            &settings.fit,
-            &mut |f, _| fold_done(f),
-        )?
-        .0),
+        Some(p) => Ok((p.values.select(Axis(0), train_rows), None)),
+        None => {
+            let folds = out_of_fold(
+                part.x.view(),
+                &part.labels,
+                inputs.data.classes.len(),
+                &settings.fit,
+                &mut |f, _| fold_done(f),
+            )?;
+            Ok((folds.probs, Some(folds.last_model)))
+        }
     }
 }
 
@@ -365,7 +370,8 @@ fn evaluate(
 /// Where a fit starts: the corrected fits from a model already trained on the same rows
 /// (the optimum does not depend on the start, the iteration count does). Backward and
 /// prune aim, like forward, at the clean classes, so they start from the forward fit
-/// when there is one, else from the uncorrected fit.
+/// when there is one, else from the uncorrected fit. `None` for the first fit, which
+/// starts from the last cross-validation fold's model when there is one.
 fn warm_start(fits: &[Fit], correction: Correction) -> Option<&SoftmaxModel> {
     let forward = fits.iter().find(|f| f.correction == Correction::Forward);
     match correction {

@@ -79,13 +79,14 @@ pub fn probabilities(
     match path {
         Some(path) => load_probabilities(data, path, options),
         None => {
-            let (values, _) = out_of_fold(
+            let values = out_of_fold(
                 data.features.view(),
                 &data.labels,
                 data.classes.len(),
                 oof,
                 progress,
-            )?;
+            )?
+            .probs;
             Ok(RowProbabilities {
                 values,
                 source: ProbSource::OutOfFold {

@@ -144,14 +144,15 @@ pub fn flipped_and_probabilities(
         seed,
         ..Default::default()
     };
-    let (probs, _) = out_of_fold(
+    let probs = out_of_fold(
         records.view(),
         &observed,
         t.nrows(),
         &params,
         &mut |_, _| true,
     )
-    .unwrap();
+    .unwrap()
+    .probs;
     (observed, probs)
 }
 
