@@ -14,7 +14,10 @@
 //! Features stay f64. f32 features would halve the bytes read, but the kernel is bound
 //! by its multiply-adds, not by memory: a sub-block's rows are read from L1 (see
 //! `SUB_ROWS`), and converting f32 to f64 for the f64 arithmetic would add instructions.
-//! Not tried; measure before changing.
+//! Measured how much memory costs at all (cross-entropy, 32 features, 10 classes, best
+//! of five, 2 cores): 33.3–33.7 ns a row with 20,000–50,000 rows (in cache) against
+//! 38.4–38.8 ns with 200,000–400,000, so f32 storage could save at most about 13 %;
+//! f32 arithmetic (eight lanes) is the larger, untried step.
 
 use ndarray::ArrayView2;
 use pulp::{Arch, Simd, WithSimd};
