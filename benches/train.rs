@@ -80,6 +80,7 @@ fn main() {
                     start: None,
                     cancel: None,
                     by_source: None,
+                    standardized: None,
                 },
                 &params,
             )

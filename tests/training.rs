@@ -9,6 +9,7 @@ use flipmend::io::model::{
     MODEL_VERSION,
 };
 use flipmend::learn::metrics::accuracy;
+use flipmend::learn::softmax::Standardized;
 use flipmend::learn::train::{predict_classes, train, Correction, TrainInputs};
 use flipmend::learn::SoftmaxParams;
 use ndarray::Array2;
@@ -48,6 +49,7 @@ fn forward_beats_none_under_heavy_pair_flip_noise() {
                 start: None,
                 cancel: None,
                 by_source: None,
+                standardized: None,
             },
             &params,
         )
@@ -69,6 +71,52 @@ fn forward_beats_none_under_heavy_pair_flip_noise() {
         forward > none + 0.05,
         "forward {forward:.4} vs none {none:.4}"
     );
+}
+
+#[test]
+fn rows_standardised_once_give_every_correction_the_same_fit() {
+    // compare standardises its training rows once for all corrections; each fit must be
+    // the one that standardises its own rows, bit for bit (iris from linfa-datasets, 30 %
+    // pair flips). Prune drops rows, so it must take its own path and still agree.
+    let (x, truth) = iris_x10(3);
+    let t = Array2::from_shape_fn((3, 3), |(i, j)| match (i, j) {
+        _ if i == j => 0.7,
+        _ if j == (i + 1) % 3 => 0.3,
+        _ => 0.0,
+    });
+    let observed = flip(&truth, &t, 9);
+    let rows: Vec<usize> = (0..truth.len()).collect();
+    let probs = Array2::from_shape_fn((truth.len(), 3), |(r, c)| {
+        if c == observed[r] {
+            0.8f32
+        } else {
+            0.1
+        }
+    });
+    let prepared = Standardized::new(x.view(), None);
+    for correction in [
+        Correction::None,
+        Correction::Forward,
+        Correction::Backward,
+        Correction::Prune,
+    ] {
+        let fit = |standardized| {
+            let inputs = TrainInputs {
+                matrix: Some(&t),
+                probs: Some(probs.view()),
+                start: None,
+                cancel: None,
+                by_source: None,
+                standardized,
+            };
+            let params = SoftmaxParams::default();
+            train(x.view(), &rows, &observed, 3, correction, inputs, &params).unwrap()
+        };
+        let (own, shared) = (fit(None), fit(Some(&prepared)));
+        assert_eq!(own.model.weights, shared.model.weights, "{correction:?}");
+        assert_eq!(own.model.bias, shared.model.bias, "{correction:?}");
+        assert_eq!(own.dropped, shared.dropped, "{correction:?}");
+    }
 }
 
 fn model_file(
@@ -126,6 +174,7 @@ fn predict_reproduces_in_process_predictions_exactly() {
             start: None,
             cancel: None,
             by_source: None,
+            standardized: None,
         },
         &SoftmaxParams::default(),
     )

@@ -8,7 +8,9 @@ use serde::{Deserialize, Serialize};
 
 use super::loss::DEFAULT_BACKWARD_CAP;
 use super::loss::{Backward, CrossEntropy, Forward, ForwardBySource, RowLoss};
-use super::softmax::{fit_from, FitReport, SoftmaxModel, SoftmaxParams};
+use super::softmax::{
+    fit_from, fit_standardized, FitReport, SoftmaxModel, SoftmaxParams, Standardized,
+};
 use crate::error::{Error, Result};
 use crate::noise::diagnostics::ILL_CONDITIONED;
 use crate::noise::linalg::{condition_number, inverse};
@@ -94,6 +96,9 @@ pub struct TrainInputs<'a> {
     /// One flip matrix per label source: the forward correction then scores each row
     /// against its own source's matrix (`matrix` is their mix).
     pub by_source: Option<SourceFlips<'a>>,
+    /// Every row of `x`, in order, already standardised: used when the fit takes all of
+    /// them (several corrections on the same rows standardise once).
+    pub standardized: Option<&'a Standardized>,
 }
 
 /// One flip matrix per label source and the source of every data row.
@@ -165,16 +170,31 @@ pub fn train(
         Correction::Prune => prune(rows, labels, inputs, matrix)?,
         _ => (rows.to_vec(), Vec::new()),
     };
-    let (model, report) = fit_from(
-        x,
-        Some(&kept),
-        labels,
-        classes,
-        loss.as_ref(),
-        params,
-        inputs.start,
-        &mut |_| !inputs.cancel.is_some_and(|c| c.load(Ordering::Relaxed)),
-    )?;
+    let mut keep_going = |_| !inputs.cancel.is_some_and(|c| c.load(Ordering::Relaxed));
+    let every_row_in_order = kept.len() == x.nrows()
+        && labels.len() == x.nrows()
+        && kept.iter().enumerate().all(|(i, &r)| i == r);
+    let (model, report) = match inputs.standardized {
+        Some(prepared) if every_row_in_order && prepared.rows() == x.nrows() => fit_standardized(
+            prepared,
+            labels,
+            classes,
+            loss.as_ref(),
+            params,
+            inputs.start,
+            &mut keep_going,
+        )?,
+        _ => fit_from(
+            x,
+            Some(&kept),
+            labels,
+            classes,
+            loss.as_ref(),
+            params,
+            inputs.start,
+            &mut keep_going,
+        )?,
+    };
     if !report.converged {
         warnings.push(format!(
             "the fit stopped after {} iterations with gradient {:.2e} (not below the tolerance)",

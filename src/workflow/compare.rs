@@ -17,6 +17,7 @@ use crate::learn::folds::stratified_holdout;
 use crate::learn::metrics::{
     accuracy, accuracy_interval, confusion, estimated_clean_accuracy, paired_gain, recall,
 };
+use crate::learn::softmax::Standardized;
 use crate::learn::train::{predict_classes, train, Correction, SourceFlips, TrainInputs};
 use crate::learn::{out_of_fold, OofParams, SoftmaxModel, SoftmaxParams};
 use crate::noise::sources::{estimate_by_source, SourceSample, Testing};
@@ -202,6 +203,7 @@ pub fn compare(
         matrix: &matrix,
         by_source: by_source.as_deref(),
         x_hold: data.features.select(Axis(0), &holdout_rows),
+        standardized: Standardized::new(part.x.view(), None),
         test: inputs.test.map(|(x, _)| x),
         model: &settings.fit.model,
         cancel,
@@ -255,6 +257,8 @@ struct Trainer<'a> {
     /// Every label source's matrix (the part's rows know their source).
     by_source: Option<&'a [Array2<f64>]>,
     x_hold: Array2<f64>,
+    /// The part's rows standardised once for every fit that takes all of them.
+    standardized: Standardized,
     test: Option<&'a Array2<f64>>,
     model: &'a SoftmaxParams,
     cancel: Option<&'a AtomicBool>,
@@ -284,6 +288,7 @@ impl Trainer<'_> {
                     .by_source
                     .zip(self.part.sources.as_ref())
                     .map(|(matrices, (of_row, _))| SourceFlips { matrices, of_row }),
+                standardized: Some(&self.standardized),
             },
             self.model,
         )?;

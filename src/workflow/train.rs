@@ -74,6 +74,7 @@ pub fn train_model(
                 }),
                 _ => None,
             },
+            standardized: None,
         },
         &params.fit.model,
     )?;
