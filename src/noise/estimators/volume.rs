@@ -156,22 +156,17 @@ pub(super) fn choose_volume_weight(
         return Ok((default, None));
     };
     let audits = AuditCounts::of(sample, trusted);
-    if sample.own_probabilities && audits.rows >= MIN_CHOICE_AUDITS {
-        let chosen_by = ChosenBy::OwnProbabilities {
+    // Too few random audits to choose from, or probabilities with which they never chose.
+    let kept = match (audits.rows < MIN_CHOICE_AUDITS, sample.own_probabilities) {
+        (true, _) => Some(ChosenBy::Default {
             audits: audits.rows,
-        };
-        return Ok((
-            VolumeChoice {
-                chosen_by,
-                ..default
-            },
-            None,
-        ));
-    }
-    if audits.rows < MIN_CHOICE_AUDITS {
-        let chosen_by = ChosenBy::Default {
+        }),
+        (false, true) => Some(ChosenBy::OwnProbabilities {
             audits: audits.rows,
-        };
+        }),
+        (false, false) => None,
+    };
+    if let Some(chosen_by) = kept {
         return Ok((
             VolumeChoice {
                 chosen_by,
