@@ -6,6 +6,7 @@ pub mod kernel;
 pub mod lbfgs;
 pub mod loss;
 pub mod metrics;
+mod objective;
 pub mod oof;
 pub mod softmax;
 pub mod standardize;
