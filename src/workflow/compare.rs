@@ -8,7 +8,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use ndarray::{Array2, Axis};
 use serde::Serialize;
 
-use super::{ProbSource, RowProbabilities};
+use super::RowProbabilities;
 use crate::data::origin::Origin;
 use crate::data::{Dataset, TableOptions};
 use crate::error::{Error, Result};
@@ -188,9 +188,7 @@ pub fn compare(
             progress(f, steps) && !cancelled(cancel)
         })?;
     stages.end("probabilities");
-    let own = inputs
-        .probs
-        .is_none_or(|p| matches!(p.source, ProbSource::OutOfFold { .. }));
+    let own = inputs.probs.is_none_or(|p| p.source.is_own());
     let (matrix, by_source, matrix_warnings) =
         part.matrix(inputs.matrix, (&probs, own), &data.classes)?;
     let mut warnings = data.warnings.clone();

@@ -45,6 +45,11 @@ pub enum ProbSource {
 }
 
 impl ProbSource {
+    /// True for flipmend's own out-of-fold probabilities (see `Sample::own_probabilities`).
+    pub fn is_own(&self) -> bool {
+        matches!(self, ProbSource::OutOfFold { .. })
+    }
+
     /// How reports name the source.
     pub fn describe(&self) -> String {
         match self {
@@ -163,7 +168,7 @@ pub fn sample<'a>(data: &'a Dataset, probs: &'a RowProbabilities, rows: &'a [usi
         trusted: data.trusted.as_deref(),
         origins: data.trusted_origins.as_deref(),
         rows,
-        own_probabilities: matches!(probs.source, ProbSource::OutOfFold { .. }),
+        own_probabilities: probs.source.is_own(),
     }
 }
 
