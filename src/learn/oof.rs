@@ -9,14 +9,6 @@ use super::loss::CrossEntropy;
 use super::softmax::{fit_from, FitReport, SoftmaxModel, SoftmaxParams};
 use crate::error::{Error, Result};
 
-/// The folds' fits stop when no gradient entry (of the mean loss) exceeds this:
-/// scikit-learn's `LogisticRegression` default `tol`, which the reference pipeline uses
-/// for the same folds, where a fit on every row keeps 1e-5. Measured against 1e-5: the
-/// validity report's table (`../shared/bench/validity.py`) moved by at most 0.001 in any
-/// figure, and vs_peer.sh's out-of-fold stage on 160,000 rows went from 0.40 to
-/// 0.30–0.35 s.
-pub const FOLD_GRAD_TOL: f64 = 1e-4;
-
 /// Settings for out-of-fold probabilities.
 #[derive(Debug, Clone, PartialEq)]
 pub struct OofParams {
@@ -75,7 +67,6 @@ pub fn out_of_fold(
     // Each fold starts from the previous fold's model: the training sets share most rows,
     // so the optimum is near and fewer iterations reach it.
     let mut previous: Option<SoftmaxModel> = None;
-    let fold_params = params.model.clone().grad_tol(FOLD_GRAD_TOL);
     for fold in 0..params.folds {
         if !progress(fold, params.folds) {
             return Err(Error::Cancelled);
@@ -89,7 +80,7 @@ pub fn out_of_fold(
             labels,
             classes,
             &CrossEntropy,
-            &fold_params,
+            &params.model,
             start,
             &mut |_| true,
         )?;
